@@ -1,0 +1,4 @@
+"""Placeholder: filled in by its owner."""
+from fastapi import APIRouter
+
+router = APIRouter()

@@ -1,0 +1,82 @@
+"""create_app(settings) -> FastAPI: routers, error handlers, static files, access token, CSP."""
+from __future__ import annotations
+
+import hmac
+from pathlib import Path
+
+import plotly
+from fastapi import FastAPI, Request
+from fastapi.responses import FileResponse, JSONResponse, Response
+from fastapi.staticfiles import StaticFiles
+
+from . import __version__
+from .api.errors import error_body, install_error_handlers
+from .settings import Settings
+
+STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
+PLOTLY_JS = Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
+
+CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline'; img-src 'self' data: blob:; "
+       "font-src 'self' data:; connect-src 'self'; object-src 'none'; base-uri 'none'; frame-ancestors 'none'; "
+       "form-action 'self'")
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or Settings()
+    settings.data_dir.mkdir(parents=True, exist_ok=True)
+    app = FastAPI(title="Scalewright", version=__version__, docs_url="/api/docs", redoc_url=None,
+                  openapi_url="/api/openapi.json")
+    app.state.settings = settings
+
+    from .engine import Engine
+    from .store import Store
+
+    app.state.store = Store(settings.data_dir)
+    app.state.engine = Engine(app.state.store)
+    install_error_handlers(app)
+
+    @app.middleware("http")
+    async def guard(request: Request, call_next):
+        if settings.token:
+            given = (request.headers.get("x-scalewright-token") or request.query_params.get("token")
+                     or request.cookies.get("scalewright_token") or "")
+            auth = request.headers.get("authorization", "")
+            if auth.lower().startswith("bearer "):
+                given = auth[7:].strip()
+            if not hmac.compare_digest(given.encode(), settings.token.encode()):
+                return JSONResponse(error_body("unauthorized", "This Scalewright server is shared on the network "
+                                               "and needs its access token (printed when it started)."),
+                                    status_code=401)
+        response: Response = await call_next(request)
+        if settings.token and request.query_params.get("token") == settings.token:
+            response.set_cookie("scalewright_token", settings.token, httponly=True, samesite="strict")
+        response.headers.setdefault("Content-Security-Policy", CSP)
+        response.headers.setdefault("X-Content-Type-Options", "nosniff")
+        response.headers.setdefault("Referrer-Policy", "no-referrer")
+        return response
+
+    from .api import routes_agreement, routes_analysis, routes_datasets, routes_live, routes_snapshots
+
+    for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live):
+        app.include_router(module.router, prefix="/api")
+
+    @app.get("/api/health")
+    def health():
+        return {"status": "ok", "version": __version__}
+
+    @app.get("/vendor/plotly.min.js", include_in_schema=False)
+    def plotly_js():
+        # Served from the installed plotly package (version in the header); nothing comes from outside.
+        return FileResponse(PLOTLY_JS, media_type="text/javascript",
+                            headers={"X-Plotly-Version": plotly.__version__})
+
+    @app.get("/", include_in_schema=False)
+    def index():
+        return FileResponse(STATIC_DIR / "index.html", media_type="text/html")
+
+    app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
+
+    if settings.demo:
+        from .demo import ensure_demo_loaded
+        ensure_demo_loaded(app.state.store, app.state.engine)
+    return app
