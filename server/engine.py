@@ -1,6 +1,254 @@
-"""Placeholder: loads datasets, caches full-pool matrices, runs analyses."""
+"""The analysis engine: loads datasets, caches what is expensive, and assembles one analysis.
+
+What is cached, and by what it depends on (CONVENTIONS 7):
+
+* the parsed dataset, per dataset id;
+* the full-pool covariance and correlation matrices, per (dataset, correlation type, missing policy),
+  computed once on the raw (not reverse-scored) responses. Reverse-keying an item multiplies its row and
+  column by -1 (exact for covariances, Pearson and polychoric correlations), and dropping items takes a
+  submatrix, so a drop never touches the raw responses;
+* per-item descriptives, per (dataset, reverse set);
+* parallel-analysis thresholds, which depend only on (n, k, iterations, seed, variant);
+* whole answers, per canonical request (a repeated identical request is served from memory).
+
+Factor identity: every solution is lined up (order and sign, Tucker's congruence) with the full-pool
+solution of the same settings and number of factors, so a factor keeps its column however many items are
+dropped and in whatever order.
+"""
+from __future__ import annotations
+
+import json
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+
+import numpy as np
+
+from .stats.errors import InputError
+
+CORRELATIONS = ("pearson", "polychoric")
+EXTRACTIONS = ("minres", "ml", "paf")
+ROTATIONS = ("oblimin", "promax", "geomin", "varimax", "quartimax", "none")
+MISSING = ("pairwise", "listwise")
+
+DEFAULTS = {
+    "items": None,
+    "reverse": None,
+    "missing": "pairwise",
+    "correlation": "pearson",
+    "extraction": "minres",
+    "rotation": "oblimin",
+    "gamma": 0.0,
+    "n_factors": None,
+    "thresholds": None,
+    "pa_iterations": 500,
+    "pa_variant": "components",
+    "seed": 20261202,
+}
+
+
+class _LRU(OrderedDict):
+    def __init__(self, size: int):
+        super().__init__()
+        self.size = size
+
+    def get_or(self, key, make):
+        if key in self:
+            self.move_to_end(key)
+            return self[key]
+        value = make()
+        self[key] = value
+        while len(self) > self.size:
+            self.popitem(last=False)
+        return value
+
+
+@dataclass(frozen=True)
+class FullPool:
+    """Full-pool matrices for one (dataset, correlation, missing policy), on raw responses."""
+
+    cov: np.ndarray          # covariance (pairwise or listwise), k x k
+    n_pair: np.ndarray       # pairwise n, k x k
+    corr: np.ndarray         # Pearson or polychoric correlation, k x k
+    warnings: tuple[str, ...]
 
 
 class Engine:
+    """Loads datasets from the store and answers analysis requests, caching full-pool work."""
+
     def __init__(self, store):
         self.store = store
+        self._lock = threading.RLock()
+        self._datasets: _LRU = _LRU(16)
+        self._pools: _LRU = _LRU(32)
+        self._descriptives: _LRU = _LRU(64)
+        self._pa: _LRU = _LRU(64)
+        self._answers: _LRU = _LRU(128)
+        self._references: _LRU = _LRU(64)
+        self._key_locks: dict = {}
+
+    # ------------------------------------------------------------------ datasets
+    def dataset(self, dataset_id: str):
+        from .api.errors import not_found
+        from .intake import read_responses
+
+        with self._lock:
+            if dataset_id in self._datasets:
+                return self._datasets.get_or(dataset_id, lambda: None)
+        record = self.store.get_dataset(dataset_id)
+        if record is None:
+            raise not_found("dataset", dataset_id)
+        opts = dict(record.get("options") or {})
+        parsed = read_responses(
+            self.store.read_raw(dataset_id), record.get("filename") or "responses.csv",
+            codebook_raw=self.store.read_codebook(dataset_id),
+            codebook_filename=record.get("codebook_filename"),
+            missing_codes=opts.get("missing_codes"), id_column=opts.get("id_column"),
+            scale_min=opts.get("scale_min"), scale_max=opts.get("scale_max"))
+        if record.get("name"):
+            parsed.name = record["name"]
+        with self._lock:
+            return self._datasets.get_or(dataset_id, lambda: parsed)
+
+    def forget(self, dataset_id: str) -> None:
+        with self._lock:
+            for cache in (self._datasets, self._pools, self._descriptives, self._answers, self._references):
+                for key in [k for k in cache if k == dataset_id or (isinstance(k, tuple) and k[0] == dataset_id)]:
+                    del cache[key]
+
+    def reverse_mask(self, dataset_id: str, reverse: list[str] | None) -> np.ndarray:
+        ds = self.dataset(dataset_id)
+        names = [it.name for it in ds.items]
+        if reverse is None:
+            return np.array([bool(it.reverse) for it in ds.items])
+        unknown = [r for r in reverse if r not in names]
+        if unknown:
+            raise InputError(f"Unknown item(s) in 'reverse': {', '.join(map(str, unknown))}.",
+                             code="unknown_item", details={"items": unknown, "field": "reverse"})
+        chosen = set(reverse)
+        return np.array([n in chosen for n in names])
+
+    def scored(self, dataset_id: str, reverse: list[str] | None = None) -> np.ndarray:
+        """Responses with reverse-keyed items scored as min + max - x."""
+        ds = self.dataset(dataset_id)
+        mask = self.reverse_mask(dataset_id, reverse)
+        mins = np.array([it.min for it in ds.items], dtype=float)
+        maxs = np.array([it.max for it in ds.items], dtype=float)
+        X = ds.responses.copy()
+        X[:, mask] = (mins + maxs)[mask] - X[:, mask]
+        return X
+
+    # ------------------------------------------------------------------ caches
+    def _locked(self, key, cache: _LRU, make):
+        with self._lock:
+            if key in cache:
+                return cache.get_or(key, make)
+            lock = self._key_locks.setdefault(key, threading.Lock())
+        with lock:  # one computation per key, others wait for it
+            with self._lock:
+                if key in cache:
+                    return cache.get_or(key, make)
+            value = make()
+            with self._lock:
+                cache.get_or(key, lambda: value)
+                self._key_locks.pop(key, None)
+            return value
+
+    def full_pool(self, dataset_id: str, correlation: str, missing: str) -> FullPool:
+        from .stats import correlation as corrmod
+
+        def make():
+            X = self.dataset(dataset_id).responses
+            if missing == "listwise":
+                Xc = X[~np.isnan(X).any(axis=1)]
+                cov, n_pair = corrmod.pairwise_covariance(Xc)
+            else:
+                cov, n_pair = corrmod.pairwise_covariance(X)
+            if correlation == "polychoric":
+                res = corrmod.polychoric_matrix(X, missing=missing)
+            else:
+                res = corrmod.pearson_matrix(X, missing=missing)
+            return FullPool(cov=cov, n_pair=n_pair, corr=np.asarray(res.matrix, dtype=float),
+                            warnings=tuple(res.warnings))
+
+        return self._locked((dataset_id, correlation, missing), self._pools, make)
+
+    def _descriptives_for(self, dataset_id: str, mask: np.ndarray):
+        from .stats.descriptives import item_descriptives
+
+        def make():
+            ds = self.dataset(dataset_id)
+            X = self.scored(dataset_id, [it.name for it, m in zip(ds.items, mask) if m])
+            rows = item_descriptives(X, names=[it.name for it in ds.items],
+                                     mins=[it.min for it in ds.items], maxs=[it.max for it in ds.items])
+            return [r.to_dict() if hasattr(r, "to_dict") else dict(r) for r in rows]
+
+        return self._locked((dataset_id, "desc", tuple(mask.tolist())), self._descriptives, make)
+
+    # ------------------------------------------------------------------ analysis
+    def resolve(self, dataset_id: str, request: dict) -> dict:
+        """Fill defaults and check every option; returns the canonical settings."""
+        ds = self.dataset(dataset_id)
+        names = [it.name for it in ds.items]
+        req = {**DEFAULTS, **{k: v for k, v in (request or {}).items() if v is not None or k == "n_factors"}}
+        for field, allowed in (("correlation", CORRELATIONS), ("extraction", EXTRACTIONS),
+                               ("rotation", ROTATIONS), ("missing", MISSING)):
+            if req[field] not in allowed:
+                raise InputError(f"'{field}' must be one of {', '.join(allowed)}; got '{req[field]}'.",
+                                 code="bad_option", details={"field": field, "value": req[field]})
+        items = req["items"] if req["items"] is not None else names
+        unknown = [i for i in items if i not in names]
+        if unknown:
+            raise InputError(f"Unknown item(s): {', '.join(map(str, unknown))}. The dataset has "
+                             f"{len(names)} items.", code="unknown_item", details={"items": unknown})
+        if len(set(items)) != len(items):
+            dup = sorted({i for i in items if items.count(i) > 1})
+            raise InputError(f"Item(s) listed twice: {', '.join(dup)}.", code="duplicate_item",
+                             details={"items": dup})
+        if len(items) < 2:
+            raise InputError(f"At least 2 active items are needed; got {len(items)}.", code="too_few_items",
+                             details={"n_items": len(items)})
+        # keep the dataset's column order, whatever order the request used
+        order = {n: i for i, n in enumerate(names)}
+        items = sorted(items, key=order.__getitem__)
+        mask = self.reverse_mask(dataset_id, req["reverse"])
+        req["items"] = items
+        req["reverse"] = [n for n, m in zip(names, mask) if m]
+        nf = req["n_factors"]
+        if nf is not None and (not isinstance(nf, int) or nf < 1):
+            raise InputError(f"'n_factors' must be a whole number of at least 1, or null; got {nf!r}.",
+                             code="bad_option", details={"field": "n_factors", "value": nf})
+        if not (10 <= int(req["pa_iterations"]) <= 5000):
+            raise InputError("'pa_iterations' must be between 10 and 5000.", code="bad_option",
+                             details={"field": "pa_iterations", "value": req["pa_iterations"]})
+        req["pa_iterations"] = int(req["pa_iterations"])
+        req["seed"] = int(req["seed"])
+        req["gamma"] = float(req["gamma"])
+        return req
+
+    def analyse(self, dataset_id: str, request: dict | None = None) -> dict:
+        settings = self.resolve(dataset_id, request or {})
+        key = (dataset_id, json.dumps(settings, sort_keys=True))
+        return self._locked(key, self._answers, lambda: self._analyse(dataset_id, settings))
+
+    def _analyse(self, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict:
+        from .analysis import assemble
+
+        return assemble(self, dataset_id, s, with_efa=with_efa)
+
+    def reference_solution(self, dataset_id: str, s: dict, n_factors: int):
+        """The full-pool solution with the same settings and number of factors (for factor identity)."""
+        ds = self.dataset(dataset_id)
+        ref = {**s, "items": [it.name for it in ds.items], "n_factors": n_factors}
+        key = (dataset_id, "ref", json_key(ref))
+
+        def make():
+            out = self.analyse(dataset_id, ref)
+            efa = out.get("efa") or {}
+            return {"loadings": efa.get("loadings"), "factors": efa.get("factors")} if efa.get("loadings") else None
+
+        return self._locked(key, self._references, make)
+
+
+def json_key(obj) -> str:
+    return json.dumps(obj, sort_keys=True)

@@ -1,0 +1,164 @@
+"""Assemble one analysis answer from cached full-pool matrices (no raw responses on a drop)."""
+from __future__ import annotations
+
+import numpy as np
+
+from . import __version__
+
+
+def _plain(obj):
+    """Convert numpy scalars/arrays and dataclass results into JSON-ready values; NaN becomes None."""
+    if hasattr(obj, "to_dict"):
+        obj = obj.to_dict()
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _plain(obj.tolist())
+    if isinstance(obj, (np.bool_,)):
+        return bool(obj)
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return None if not np.isfinite(f) else f
+    return obj
+
+
+def _pair_n(n_pair: np.ndarray) -> int:
+    off = n_pair[~np.eye(len(n_pair), dtype=bool)]
+    return int(off.min()) if off.size else int(n_pair.min())
+
+
+def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict:
+    from .stats.items import item_table, pruning_path
+    from .stats.reliability import reliability_from_cov
+
+    ds = engine.dataset(dataset_id)
+    names_all = [it.name for it in ds.items]
+    index = {n: i for i, n in enumerate(names_all)}
+    idx = np.array([index[n] for n in s["items"]])
+    names = list(s["items"])
+    meta = {it.name: it for it in ds.items}
+    rev_mask = np.array([n in set(s["reverse"]) for n in names_all])
+    sign = np.where(rev_mask, -1.0, 1.0)[idx]
+    flip = np.outer(sign, sign)
+    warnings: list[str] = []
+
+    # ---- covariance for reliability (pairwise: cached full pool; listwise: complete rows of the active set)
+    X_raw = ds.responses[:, idx]
+    answered = ~np.isnan(X_raw).all(axis=1)
+    complete = ~np.isnan(X_raw).any(axis=1)
+    n_complete = int(complete.sum())
+    if s["missing"] == "listwise":
+        from .stats.correlation import pairwise_covariance
+
+        cov, n_pair = pairwise_covariance(X_raw[complete])
+        n_rel = n_complete
+    else:
+        pool = engine.full_pool(dataset_id, "pearson", "pairwise")
+        cov, n_pair = pool.cov[np.ix_(idx, idx)], pool.n_pair[np.ix_(idx, idx)]
+        n_rel = int(answered.sum())
+    cov = cov * flip
+    if n_complete < len(names) + 1 and s["missing"] == "listwise":
+        warnings.append(f"Only {n_complete} respondents answered every active item; listwise results rest on "
+                        f"few people.")
+    desc_all = engine._descriptives_for(dataset_id, rev_mask)
+    desc = {d["name"]: d for d in desc_all}
+    means = np.array([desc[n]["mean"] for n in names], dtype=float)
+    min_pair = _pair_n(n_pair)
+
+    rel = reliability_from_cov(cov, n=n_rel, n_complete=n_complete, means=means, min_pair_n=min_pair)
+    reliability = _plain(rel)
+    reliability["missing"] = s["missing"]
+    reliability["n_items"] = len(names)
+    reliability["min_pairwise_n"] = min_pair
+    warnings.extend(reliability.get("warnings") or [])
+
+    itab = {r["name"]: r for r in _plain(item_table(cov, names=names))}
+    items_out = []
+    for n in names:
+        m = meta[n]
+        row = {**desc[n], **itab[n], "name": n, "text": m.text, "construct": m.construct,
+               "reverse": bool(n in set(s["reverse"])), "min": m.min, "max": m.max}
+        items_out.append(row)
+
+    constructs = {}
+    by_construct: dict[str, list[int]] = {}
+    for j, n in enumerate(names):
+        c = meta[n].construct
+        if c:
+            by_construct.setdefault(c, []).append(j)
+    for c, js in by_construct.items():
+        if len(js) >= 2:
+            sub = np.ix_(js, js)
+            block = _plain(reliability_from_cov(cov[sub], n=n_rel, n_complete=n_complete, means=means[js],
+                                                min_pair_n=_pair_n(n_pair[sub])))
+            block["items"] = [names[j] for j in js]
+            block["n_items"] = len(js)
+        else:
+            block = {"items": [names[j] for j in js], "n_items": len(js), "alpha": None,
+                     "warnings": [f"Construct '{c}' has only one active item; no reliability for it."]}
+        constructs[c] = block
+
+    path = _plain(pruning_path(cov, names=names, min_items=min(3, len(names))))
+
+    answer = {
+        "dataset": {"id": dataset_id, "name": ds.name, "n_rows": ds.n_rows, "n_items_total": len(names_all)},
+        "settings": s,
+        "version": __version__,
+        "reliability": reliability,
+        "items": items_out,
+        "constructs": constructs,
+        "pruning_path": path,
+    }
+    if with_efa:
+        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnings,
+                                       min_pair))
+    answer["warnings"] = list(dict.fromkeys(warnings))
+    return _plain(answer)
+
+
+def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnings, n_obs):
+    from .stats.correlation import smooth_to_pd
+    from .stats.dimensionality import factorability_summary, retention_summary
+    from .stats.efa import factor_analysis
+
+    pool = engine.full_pool(dataset_id, s["correlation"], s["missing"])
+    R = pool.corr[np.ix_(idx, idx)] * flip
+    corr_warnings = list(pool.warnings)
+    R_s, min_eig, changed = smooth_to_pd(R)
+    if changed:
+        corr_warnings.append(f"The {s['correlation']} correlation matrix of the active items was not positive "
+                             f"definite (smallest eigenvalue {min_eig:.3f}) and was smoothed before the factor "
+                             f"analysis.")
+        R = R_s
+    warnings.extend(corr_warnings)
+    correlations = {"type": s["correlation"], "items": names, "matrix": R, "smoothed": bool(changed),
+                    "n": n_obs, "warnings": corr_warnings}
+
+    factorability = _plain(factorability_summary(R, n_obs, names=names))
+    retention = _plain(retention_summary(R, n_obs, iterations=s["pa_iterations"], seed=s["seed"],
+                                         variant=s["pa_variant"]))
+    m = s["n_factors"] if s["n_factors"] is not None else int(retention["suggested"])
+    k = len(names)
+    max_m = max(1, k // 2)
+    efa: dict
+    if k < 3:
+        efa = {"n_factors": 0, "warnings": ["A factor analysis needs at least 3 active items."], "flags": []}
+    else:
+        if m > max_m:
+            warnings.append(f"{m} factors is too many for {k} items; {max_m} were extracted.")
+            m = max_m
+        constructs = [meta[n].construct for n in names]
+        reverse = [n in set(s["reverse"]) for n in names]
+        item_rest = [itab[n].get("item_rest_r") for n in names]
+        previous = engine.reference_solution(dataset_id, s, m) if len(idx) < len(meta) else None
+        res = factor_analysis(R, m, n=n_obs, names=names, method=s["extraction"], rotation=s["rotation"],
+                              gamma=s["gamma"], constructs=constructs, previous=previous,
+                              thresholds=s["thresholds"], item_rest_r=item_rest, reverse=reverse,
+                              seed=s["seed"])
+        efa = _plain(res)
+        warnings.extend(efa.get("warnings") or [])
+    return {"correlations": correlations, "factorability": factorability, "retention": retention, "efa": efa}
