@@ -1,4 +1,228 @@
-"""Placeholder: filled in by its owner."""
-from fastapi import APIRouter
+"""Live collaboration: several browsers on one dataset see each other's drops and restores.
+
+``GET /api/datasets/{id}/events`` is a server-sent-events stream (``text/event-stream``);
+``POST /api/datasets/{id}/events`` with JSON ``{who, action, state, sender?}`` relays the message
+to every *other* listener of that dataset. Nothing is stored: the hub lives in memory on
+``app.state.live`` and forgets everything at restart.
+
+Stream format (one SSE event per message)::
+
+    retry: 2000
+    event: hello
+    data: {"listener": "<id of this stream>", "dataset": "...", "peers": 2}
+
+    id: 7
+    event: change
+    data: {"seq": 7, "dataset": "...", "sender": "<listener id>", "who": "Ana", "action": "drop",
+           "state": {...}, "at": "2026-12-02T01:40:00Z"}
+
+A page sends its own listener id as ``sender`` so the server skips it (and the page can
+ignore any echo). Comment lines (``: ping``) keep idle connections open.
+
+Streams end when the client disconnects (Starlette cancels the generator), and when the
+server is asked to stop: uvicorn waits for open responses before it shuts down, so the hub
+wraps uvicorn's SIGINT/SIGTERM handlers and closes every stream first.
+"""
+from __future__ import annotations
+
+import asyncio
+import itertools
+import json
+import secrets
+import signal
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from typing import Any
+
+from fastapi import APIRouter, Request
+from fastapi.responses import StreamingResponse
+from pydantic import BaseModel, Field
+
+from .errors import ApiError, not_found
 
 router = APIRouter()
+
+PING_SECONDS = 15.0  # keep-alive comment interval
+POLL_SECONDS = 0.5  # how often an idle stream checks for shutdown
+MAX_STATE_BYTES = 64_000  # a state is a list of kept items and settings; far below this
+MAX_LISTENERS_PER_DATASET = 200
+_CLOSE = object()  # sentinel put into a queue to end its stream
+
+
+@dataclass
+class Listener:
+    id: str
+    dataset: str
+    queue: asyncio.Queue = field(default_factory=lambda: asyncio.Queue(maxsize=256))
+
+
+class LiveHub:
+    """In-memory fan-out of messages to the listeners of each dataset.
+
+    All methods run on the event loop (the routes are ``async``), so no locks are needed.
+    """
+
+    def __init__(self) -> None:
+        self._listeners: dict[str, dict[str, Listener]] = {}
+        self._seq = itertools.count(1)
+        self.closing = False
+        self._signals_wrapped = False
+
+    def subscribe(self, dataset: str) -> Listener:
+        group = self._listeners.setdefault(dataset, {})
+        if len(group) >= MAX_LISTENERS_PER_DATASET:
+            raise ApiError(429, "too_many_listeners",
+                           f"Dataset '{dataset}' already has {len(group)} live pages open.", {"dataset": dataset})
+        listener = Listener(id=secrets.token_urlsafe(9), dataset=dataset)
+        group[listener.id] = listener
+        return listener
+
+    def unsubscribe(self, listener: Listener) -> None:
+        group = self._listeners.get(listener.dataset, {})
+        group.pop(listener.id, None)
+        if not group:
+            self._listeners.pop(listener.dataset, None)
+
+    def count(self, dataset: str) -> int:
+        return len(self._listeners.get(dataset, {}))
+
+    def publish(self, dataset: str, message: dict[str, Any], sender: str | None) -> tuple[int, int]:
+        """Queue ``message`` for every listener of ``dataset`` except ``sender``.
+
+        Returns ``(seq, delivered)``. A listener whose queue is full (a stalled page) misses the
+        message rather than slowing everyone else down.
+        """
+        seq = next(self._seq)
+        body = {"seq": seq, "dataset": dataset, "sender": sender, **message,
+                "at": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")}
+        delivered = 0
+        for listener in list(self._listeners.get(dataset, {}).values()):
+            if listener.id == sender:
+                continue
+            try:
+                listener.queue.put_nowait(body)
+                delivered += 1
+            except asyncio.QueueFull:
+                pass
+        return seq, delivered
+
+    def close_all(self) -> None:
+        """End every open stream (server shutdown)."""
+        self.closing = True
+        for group in list(self._listeners.values()):
+            for listener in list(group.values()):
+                try:
+                    listener.queue.put_nowait(_CLOSE)
+                except asyncio.QueueFull:
+                    pass  # the stream still sees ``closing`` on its next poll
+
+    def wrap_signal_handlers(self) -> None:
+        """Close the streams before uvicorn's own SIGINT/SIGTERM handling (main thread only)."""
+        if self._signals_wrapped:
+            return
+        self._signals_wrapped = True
+        loop = asyncio.get_running_loop()
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            try:
+                previous = signal.getsignal(sig)
+
+                def handler(signum, frame, previous=previous):
+                    self.closing = True
+                    try:
+                        loop.call_soon_threadsafe(self.close_all)
+                    except RuntimeError:  # loop already closed
+                        pass
+                    if callable(previous):
+                        previous(signum, frame)
+                    elif previous == signal.SIG_DFL and signum == signal.SIGINT:
+                        raise KeyboardInterrupt
+
+                signal.signal(sig, handler)
+            except (ValueError, OSError):  # not the main thread (e.g. a test server in a thread)
+                pass
+
+
+def hub_of(request: Request) -> LiveHub:
+    app = request.app
+    hub = getattr(app.state, "live", None)
+    if hub is None:
+        hub = app.state.live = LiveHub()
+    return hub
+
+
+def _check_dataset(request: Request, dataset_id: str) -> None:
+    getter = getattr(getattr(request.app.state, "store", None), "get_dataset", None)
+    if getter is not None and getter(dataset_id) is None:
+        raise not_found("dataset", dataset_id)
+
+
+def _sse(event: str | None, data: dict, ident: int | None = None) -> str:
+    lines = []
+    if ident is not None:
+        lines.append(f"id: {ident}")
+    if event:
+        lines.append(f"event: {event}")
+    lines.append("data: " + json.dumps(data, separators=(",", ":")))
+    return "\n".join(lines) + "\n\n"
+
+
+@router.get("/datasets/{dataset_id}/events", include_in_schema=True,
+            summary="Live stream of other pages' changes to this dataset (server-sent events)")
+async def events(dataset_id: str, request: Request):
+    _check_dataset(request, dataset_id)
+    hub = hub_of(request)
+    hub.wrap_signal_handlers()
+    if hub.closing:
+        raise ApiError(503, "shutting_down", "The server is shutting down.")
+    listener = hub.subscribe(dataset_id)
+
+    async def stream():
+        try:
+            yield "retry: 2000\n" + _sse("hello", {"listener": listener.id, "dataset": dataset_id,
+                                                   "peers": hub.count(dataset_id) - 1})
+            idle = 0.0
+            while not hub.closing:
+                try:
+                    item = await asyncio.wait_for(listener.queue.get(), timeout=POLL_SECONDS)
+                except TimeoutError:
+                    idle += POLL_SECONDS
+                    if await request.is_disconnected():
+                        break
+                    if idle >= PING_SECONDS:
+                        idle = 0.0
+                        yield ": ping\n\n"
+                    continue
+                if item is _CLOSE:
+                    break
+                idle = 0.0
+                yield _sse("change", item, item["seq"])
+        finally:
+            hub.unsubscribe(listener)
+
+    return StreamingResponse(stream(), media_type="text/event-stream",
+                             headers={"Cache-Control": "no-store", "X-Accel-Buffering": "no"})
+
+
+class LiveMessage(BaseModel):
+    who: str = Field("", max_length=80, description="The team member's name, shown beside the change.")
+    action: str = Field(..., min_length=1, max_length=40,
+                        description="What happened: drop, restore, settings, undo, redo, snapshot...")
+    state: dict[str, Any] = Field(default_factory=dict,
+                                  description="The sender's state after the change (kept items, settings).")
+    sender: str | None = Field(None, max_length=64, description="The sender's own listener id (from 'hello').")
+    detail: str = Field("", max_length=300, description="Optional short human-readable description.")
+
+
+@router.post("/datasets/{dataset_id}/events", status_code=202,
+             summary="Relay a change to every other page open on this dataset")
+async def post_event(dataset_id: str, message: LiveMessage, request: Request):
+    _check_dataset(request, dataset_id)
+    size = len(json.dumps(message.state, separators=(",", ":")))
+    if size > MAX_STATE_BYTES:
+        raise ApiError(413, "too_large", f"The shared state is {size} bytes; at most {MAX_STATE_BYTES} are relayed.",
+                       {"bytes": size, "limit": MAX_STATE_BYTES})
+    hub = hub_of(request)
+    seq, delivered = hub.publish(dataset_id, {"who": message.who, "action": message.action,
+                                              "state": message.state, "detail": message.detail},
+                                 message.sender)
+    return {"seq": seq, "delivered": delivered, "listeners": hub.count(dataset_id)}

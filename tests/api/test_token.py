@@ -1,0 +1,60 @@
+"""The access token: required when the server is shared beyond this machine, not on 127.0.0.1."""
+from __future__ import annotations
+
+import pytest
+from fastapi.testclient import TestClient
+
+from server.app import create_app
+from server.settings import Settings
+
+
+@pytest.fixture
+def shared(tmp_path):
+    with TestClient(create_app(Settings(host="0.0.0.0", token="t", data_dir=tmp_path / "d"))) as c:
+        yield c
+
+
+@pytest.mark.parametrize("path", ["/", "/api/health", "/api/datasets", "/static/js/main.js",
+                                  "/vendor/plotly.min.js"])
+def test_without_the_token_a_shared_server_answers_401(shared, path):
+    r = shared.get(path)
+    assert r.status_code == 401
+    assert r.json()["error"]["code"] == "unauthorized"
+
+
+def test_a_wrong_token_is_refused(shared):
+    assert shared.get("/api/health", headers={"X-Scalewright-Token": "nope"}).status_code == 401
+    assert shared.get("/api/health", headers={"Authorization": "Bearer nope"}).status_code == 401
+    assert shared.get("/api/health?token=tt").status_code == 401
+
+
+def test_with_the_token_it_works(shared):
+    assert shared.get("/api/health", headers={"X-Scalewright-Token": "t"}).status_code == 200
+    assert shared.get("/api/health", headers={"Authorization": "Bearer t"}).status_code == 200
+    r = shared.get("/?token=t")
+    assert r.status_code == 200
+    assert "scalewright_token" in r.headers.get("set-cookie", "")
+    # the cookie set by ?token= lets the page's own requests through (scripts, API calls)
+    assert shared.get("/api/health").status_code == 200
+    assert shared.get("/static/js/main.js").status_code == 200
+
+
+def test_live_events_need_the_token_too(shared):
+    r = shared.post("/api/datasets/x/events", json={"action": "drop"})
+    assert r.status_code == 401
+
+
+def test_a_generated_token_when_none_is_given(tmp_path):
+    s = Settings(host="0.0.0.0", data_dir=tmp_path / "d")
+    assert s.token and len(s.token) >= 16
+    with TestClient(create_app(s)) as c:
+        assert c.get("/api/health").status_code == 401
+        assert c.get("/api/health", headers={"X-Scalewright-Token": s.token}).status_code == 200
+
+
+def test_on_localhost_no_token_is_needed(tmp_path):
+    s = Settings(host="127.0.0.1", data_dir=tmp_path / "d")
+    assert s.token is None
+    with TestClient(create_app(s)) as c:
+        assert c.get("/api/health").status_code == 200
+        assert c.get("/").status_code == 200
