@@ -14,8 +14,15 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from server.demo import (DEMO_CODEBOOK, DEMO_DIR, DEMO_NAME, DEMO_RATINGS, DEMO_RESPONSES, DEMO_RETEST,
-                         DEMO_RETEST_NAME)
+from server.demo import (
+    DEMO_CODEBOOK,
+    DEMO_DIR,
+    DEMO_NAME,
+    DEMO_RATINGS,
+    DEMO_RESPONSES,
+    DEMO_RETEST,
+    DEMO_RETEST_NAME,
+)
 
 CSV_FILES = ("workshop_responses.csv", "workshop_codebook.csv", "workshop_retest.csv", "workshop_ratings.csv")
 NON_ITEM_COLUMNS = ("joined", "visits_per_month", "comment")
@@ -225,8 +232,8 @@ def test_demo_loads_through_intake_leaving_out_non_item_columns():
 
 def test_ensure_demo_loaded_is_idempotent(tmp_path):
     pytest.importorskip("server.intake")
-    from server.engine import Engine
     from server.demo import ensure_demo_loaded
+    from server.engine import Engine
     from server.store import Store
 
     store = Store(tmp_path / "data")
