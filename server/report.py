@@ -1,0 +1,535 @@
+"""The printable record of a snapshot: one self-contained HTML page.
+
+``render_report(snapshot, dataset)`` returns a whole HTML document with inline CSS and inline SVG charts
+drawn here (no scripts, no outside URL, nothing fetched), so it can be saved, mailed, printed or attached
+to an ethics application as it is. Every piece of user text (names, item wording, reasons, notes) goes
+through ``html.escape``.
+"""
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Mapping, Sequence
+from datetime import datetime, timezone
+
+from . import __version__
+
+__all__ = ["render_report", "CAUTIONS", "PURPOSE"]
+
+PURPOSE = (
+    "Scalewright is a local dashboard for teams who build rating scales. It takes the responses to a draft "
+    "item pool, shows item statistics, reliability coefficients and exploratory factor analyses, and helps "
+    "the team decide which items to keep. This page is the record of one such decision (a snapshot): which "
+    "items were kept, which were removed, in what order and why, and what the numbers were at that moment."
+)
+
+CAUTIONS = (
+    "Internal consistency (alpha, omega and the other coefficients here) describes how the items hang "
+    "together in this sample; it is not evidence of validity, and it does not show that the scale measures "
+    "what it was written to measure.",
+    "Exploratory factor analysis and the flags shown are aids to judgement. The thresholds are rules of "
+    "thumb, and removing items because of them capitalises on chance in this sample: confirm the structure "
+    "in new data.",
+    "A scale used for decisions about people (clinical, educational, hiring or similar) needs validity "
+    "evidence, norms and review under the applicable professional testing standards and local rules before "
+    "such use.",
+    "Report every removed item and the reason for its removal together with the final scale "
+    "(Flake & Fried, 2020, on undisclosed measurement flexibility).",
+)
+
+_CSS = """
+:root { --ink:#1d232b; --muted:#5b6572; --line:#d5dae1; --accent:#2a5d9f; --omega:#b5541b; }
+* { box-sizing: border-box; }
+body { font: 13px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-serif; color: var(--ink);
+       margin: 0 auto; max-width: 1000px; padding: 24px; }
+h1 { font-size: 22px; margin: 0 0 4px; }
+h2 { font-size: 16px; margin: 28px 0 8px; border-bottom: 2px solid var(--ink); padding-bottom: 2px; }
+h3 { font-size: 14px; margin: 16px 0 6px; }
+p { margin: 6px 0; }
+.muted { color: var(--muted); }
+.mono { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace; word-break: break-all; }
+table { border-collapse: collapse; margin: 6px 0 10px; }
+th, td { border-bottom: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top; }
+th { background: #f1f3f6; font-weight: 600; }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+table.kv th { width: 16em; background: none; font-weight: 500; color: var(--muted); }
+.flag { display: inline-block; border: 1px solid #c0392b; color: #c0392b; border-radius: 3px;
+        padding: 0 4px; margin: 1px 2px 1px 0; font-size: 11px; white-space: nowrap; }
+.heat td.num { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+.heat td.primary { font-weight: 700; }
+.caution { border-left: 4px solid #c0392b; background: #fbf1f0; padding: 8px 12px; margin: 8px 0;
+           -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+.caution li { margin: 4px 0; }
+.note { white-space: pre-wrap; }
+svg text { font: 11px system-ui, Arial, sans-serif; fill: var(--ink); }
+footer { margin-top: 32px; border-top: 1px solid var(--line); padding-top: 8px; color: var(--muted); }
+@page { margin: 14mm; }
+@media print { body { padding: 0; max-width: none; } h2 { break-after: avoid; } tr, svg { break-inside: avoid; } }
+"""
+
+
+# ---------------------------------------------------------------------------------------------- formatting
+def _esc(value) -> str:
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _is_number(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _num(value, digits: int = 3) -> str:
+    """A number for a table cell; missing or NaN as an en dash."""
+    if value is None:
+        return "&ndash;"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "&ndash;"
+        if math.isinf(value):
+            return "&infin;" if value > 0 else "&minus;&infin;"
+        return f"{value:.{digits}f}".replace("-", "&minus;")
+    if isinstance(value, (list, tuple)) and all(_is_number(v) or v is None for v in value):
+        return "[" + ", ".join(_num(v, digits) for v in value) + "]"
+    return _value(value)
+
+
+def _value(value, digits: int = 3) -> str:
+    """Any JSON value as escaped, readable HTML."""
+    if value is None or _is_number(value) or isinstance(value, bool):
+        return _num(value, digits)
+    if isinstance(value, str):
+        return _esc(value) if value else "&ndash;"
+    if isinstance(value, Mapping):
+        if not value:
+            return "&ndash;"
+        return "; ".join(f"{_esc(_label(k))}: {_value(v, digits)}" for k, v in value.items())
+    if isinstance(value, (list, tuple)):
+        if not value:
+            return "&ndash;"
+        if all(_is_number(v) or v is None for v in value):
+            return _num(value, digits)
+        return ", ".join(_value(v, digits) for v in value)
+    return _esc(value)
+
+
+_LABELS = {
+    "alpha": "Cronbach's alpha",
+    "alpha_standardized": "Standardized alpha",
+    "omega_total": "McDonald's omega (total)",
+    "omega_hierarchical": "Omega hierarchical",
+    "lambda2": "Guttman's lambda 2",
+    "lambda6": "Guttman's lambda 6",
+    "split_half": "Split-half (Spearman-Brown corrected)",
+    "mean_inter_item_r": "Mean inter-item correlation",
+    "scale_mean": "Scale mean",
+    "scale_sd": "Scale SD",
+    "sem": "Standard error of measurement",
+    "n_items": "Items",
+    "n_complete": "Complete cases",
+    "missing": "Missing-data policy",
+    "n_factors": "Factors",
+    "pa_iterations": "Parallel-analysis iterations",
+    "kmo": "Kaiser-Meyer-Olkin (KMO)",
+    "rmsr": "RMSR",
+    "rmsea": "RMSEA",
+    "tli": "TLI",
+    "bic": "BIC",
+}
+
+
+def _label(key) -> str:
+    key = str(key)
+    return _LABELS.get(key, key.replace("_", " ").capitalize())
+
+
+def _kv_table(pairs: Sequence[tuple[str, str]]) -> str:
+    rows = "".join(f"<tr><th scope=\"row\">{k}</th><td>{v}</td></tr>" for k, v in pairs)
+    return f"<table class=\"kv\">{rows}</table>"
+
+
+def _table(header: Sequence[str], rows: Sequence[Sequence[str]], num_cols: set[int] = frozenset(),
+           cls: str = "") -> str:
+    head = "".join(f"<th class=\"num\">{h}</th>" if i in num_cols else f"<th>{h}</th>"
+                   for i, h in enumerate(header))
+    body = "".join(
+        "<tr>" + "".join(f"<td class=\"num\">{c}</td>" if i in num_cols else f"<td>{c}</td>"
+                         for i, c in enumerate(row)) + "</tr>"
+        for row in rows)
+    cls_attr = f" class=\"{cls}\"" if cls else ""
+    return f"<table{cls_attr}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+# ----------------------------------------------------------------------------------------------- sections
+_RELIABILITY_ORDER = ("alpha", "alpha_standardized", "omega_total", "omega_hierarchical", "lambda2",
+                      "lambda6", "split_half", "mean_inter_item_r", "scale_mean", "scale_sd", "sem",
+                      "n_items", "n_complete", "missing")
+
+
+def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
+    pairs = []
+    shown = set()
+    keys = [k for k in _RELIABILITY_ORDER if k in block] + [k for k in block if k not in _RELIABILITY_ORDER]
+    for key in keys:
+        if key in shown or key.endswith("_ci") and key[:-3] in block:
+            continue
+        shown.add(key)
+        text = _value(block[key])
+        ci = block.get(f"{key}_ci")
+        if ci is not None:
+            lo, hi = (ci.get("lower"), ci.get("upper")) if isinstance(ci, Mapping) else (tuple(ci) + (None, None))[:2]
+            text += f" <span class=\"muted\">(95% CI {_num(lo)} to {_num(hi)})</span>"
+        pairs.append((_esc(_label(key)), text))
+    return pairs
+
+
+def _trail(snapshot: Mapping) -> list[dict]:
+    """The steps of the removal trail: the start (all items) and the state after each removal."""
+    trail = snapshot.get("trail")
+    if isinstance(trail, list) and trail:
+        return [dict(t) for t in trail]
+    steps = []
+    for i, r in enumerate(snapshot.get("removed") or [], start=1):
+        steps.append({"step": i, "removed": r.get("item"), "alpha": r.get("alpha_after"),
+                      "omega_total": r.get("omega_after"), "n_items": r.get("n_items_after")})
+    return steps
+
+
+def _trail_svg(steps: Sequence[Mapping]) -> str:
+    """Alpha and omega over the removal steps as an inline SVG line chart."""
+    series = [("alpha", "alpha", "var(--accent)", ""), ("omega_total", "omega", "var(--omega)", "5 3")]
+    values = [s.get(key) for s in steps for key, *_ in series]
+    values = [v for v in values if _is_number(v) and math.isfinite(v)]
+    if len(steps) < 2 or not values:
+        return ""
+    width, height = 680, 280
+    left, right, top, bottom = 52, 110, 16, 74
+    lo, hi = min(values), max(values)
+    lo = math.floor((lo - 0.01) * 20) / 20
+    hi = math.ceil((hi + 0.01) * 20) / 20
+    if hi - lo < 0.1:
+        hi = lo + 0.1
+    n = len(steps)
+
+    def x(i: int) -> float:
+        return left + (width - left - right) * (i / (n - 1))
+
+    def y(v: float) -> float:
+        return top + (height - top - bottom) * (1 - (v - lo) / (hi - lo))
+
+    parts = [f"<svg role=\"img\" aria-label=\"Alpha and omega after each removal\" width=\"{width}\" "
+             f"height=\"{height}\" viewBox=\"0 0 {width} {height}\">"]
+    # grid and y axis
+    tick = 0.05 if hi - lo <= 0.4 else 0.1
+    t = math.ceil(lo / tick - 1e-9) * tick
+    while t <= hi + 1e-9:
+        yy = y(t)
+        parts.append(f"<line x1=\"{left}\" x2=\"{width - right}\" y1=\"{yy:.1f}\" y2=\"{yy:.1f}\" "
+                     f"stroke=\"#e3e6ea\"/>")
+        parts.append(f"<text x=\"{left - 6}\" y=\"{yy + 4:.1f}\" text-anchor=\"end\">{t:.2f}</text>")
+        t += tick
+    parts.append(f"<line x1=\"{left}\" x2=\"{left}\" y1=\"{top}\" y2=\"{height - bottom}\" stroke=\"#555\"/>")
+    parts.append(f"<line x1=\"{left}\" x2=\"{width - right}\" y1=\"{height - bottom}\" "
+                 f"y2=\"{height - bottom}\" stroke=\"#555\"/>")
+    # x labels: start, then the item removed at each step
+    for i, s in enumerate(steps):
+        label = "all items" if i == 0 and not s.get("removed") else f"\u2212 {s.get('removed')}"
+        if len(label) > 18:
+            label = label[:17] + "\u2026"
+        xx = x(i)
+        parts.append(f"<line x1=\"{xx:.1f}\" x2=\"{xx:.1f}\" y1=\"{height - bottom}\" "
+                     f"y2=\"{height - bottom + 4}\" stroke=\"#555\"/>")
+        parts.append(f"<text x=\"{xx:.1f}\" y=\"{height - bottom + 14}\" text-anchor=\"end\" "
+                     f"transform=\"rotate(-35 {xx:.1f} {height - bottom + 14})\">{_esc(label)}</text>")
+    # lines
+    for li, (key, name, colour, dash) in enumerate(series):
+        pts = [(x(i), y(s[key])) for i, s in enumerate(steps)
+               if _is_number(s.get(key)) and math.isfinite(s[key])]
+        if not pts:
+            continue
+        dash_attr = f" stroke-dasharray=\"{dash}\"" if dash else ""
+        parts.append(f"<polyline fill=\"none\" stroke=\"{colour}\" stroke-width=\"2\"{dash_attr} points=\""
+                     + " ".join(f"{px:.1f},{py:.1f}" for px, py in pts) + "\"/>")
+        for px, py in pts:
+            parts.append(f"<circle cx=\"{px:.1f}\" cy=\"{py:.1f}\" r=\"3\" fill=\"{colour}\"/>")
+        ly = top + 10 + 18 * li
+        lx = width - right + 14
+        parts.append(f"<line x1=\"{lx}\" x2=\"{lx + 22}\" y1=\"{ly}\" y2=\"{ly}\" stroke=\"{colour}\" "
+                     f"stroke-width=\"2\"{dash_attr}/>")
+        parts.append(f"<text x=\"{lx + 28}\" y=\"{ly + 4}\">{name}</text>")
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+def _heat_style(value) -> str:
+    if not _is_number(value) or not math.isfinite(value):
+        return ""
+    strength = min(1.0, abs(value))
+    rgb = "42,93,159" if value >= 0 else "192,57,43"
+    return f" style=\"background: rgba({rgb},{strength * 0.75:.2f});{' color:#fff;' if strength > 0.55 else ''}\""
+
+
+def _per_item(value, items: Sequence[str]) -> dict:
+    if isinstance(value, Mapping):
+        return dict(value)
+    if isinstance(value, (list, tuple)) and len(value) == len(items):
+        return dict(zip(items, value))
+    return {}
+
+
+def _factor_labels(efa: Mapping, n: int) -> list[str]:
+    labels = efa.get("factors") or []
+    out = []
+    for i in range(n):
+        lab = labels[i] if i < len(labels) else None
+        if isinstance(lab, Mapping):
+            lab = lab.get("label") or lab.get("name") or lab.get("construct")
+        out.append(str(lab) if lab not in (None, "") else f"F{i + 1}")
+    return out
+
+
+def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
+    loadings = efa.get("loadings")
+    if isinstance(loadings, Mapping):
+        rows = {str(k): list(v) for k, v in loadings.items()}
+        order = [i for i in items if i in rows] + [k for k in rows if k not in items]
+    elif isinstance(loadings, list):
+        order = list(efa.get("items") or items)
+        rows = dict(zip(order, loadings))
+    else:
+        return "<p class=\"muted\">No factor solution was stored with this snapshot.</p>"
+    n_factors = max((len(v) for v in rows.values()), default=0)
+    labels = _factor_labels(efa, n_factors)
+    communalities = _per_item(efa.get("communalities"), order)
+    flags: dict[str, list[Mapping]] = {}
+    for f in efa.get("flags") or []:
+        if isinstance(f, Mapping):
+            flags.setdefault(str(f.get("item")), []).append(f)
+    head = ["Item"] + [_esc(lab) for lab in labels] + ["h\u00b2", "Flags"]
+    body = []
+    for item in order:
+        vals = rows[item]
+        finite = [abs(v) for v in vals if _is_number(v) and math.isfinite(v)]
+        primary = max(finite) if finite else None
+        cells = [f"<td>{_esc(item)}</td>"]
+        for v in vals:
+            cls = "num primary" if primary is not None and _is_number(v) and abs(v) == primary else "num"
+            cells.append(f"<td class=\"{cls}\"{_heat_style(v)}>{_num(v, 2)}</td>")
+        cells += ["<td class=\"num\"></td>"] * (n_factors - len(vals))
+        cells.append(f"<td class=\"num\">{_num(communalities.get(item), 2)}</td>")
+        tags = "".join(f"<span class=\"flag\" title=\"{_esc(f.get('message'))}\">{_esc(f.get('kind'))}</span>"
+                       for f in flags.get(item, []))
+        cells.append(f"<td>{tags}</td>")
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    num_idx = set(range(1, n_factors + 2))
+    head_html = "".join(f"<th class=\"num\">{h}</th>" if i in num_idx else f"<th>{h}</th>"
+                        for i, h in enumerate(head))
+    out = [f"<table class=\"heat\"><thead><tr>{head_html}</tr></thead><tbody>{''.join(body)}</tbody></table>",
+           "<p class=\"muted\">Pattern loadings; shading grows with the size of the loading (blue positive, red "
+           "negative); the largest loading of each item is bold. h\u00b2 is the communality.</p>"]
+    all_flags = [f for item in order for f in flags.get(item, [])]
+    all_flags += [f for k, fl in flags.items() if k not in rows for f in fl]
+    if all_flags:
+        out.append("<h3>Flags</h3>")
+        out.append(_table(["Item", "Kind", "Message"],
+                          [[_esc(f.get("item")), _esc(f.get("kind")), _esc(f.get("message"))] for f in all_flags]))
+        out.append("<p class=\"muted\">Flags follow rules of thumb (e.g. the .40/.30/.20 cross-loading heuristic, "
+                   "Howard 2016) with the thresholds shown in the settings; they are prompts for discussion.</p>")
+    phi = efa.get("factor_correlations")
+    out.append("<h3>Factor correlations</h3>")
+    if isinstance(phi, list) and phi and all(isinstance(r, list) for r in phi):
+        out.append(_table([""] + [_esc(lab) for lab in labels[:len(phi)]],
+                          [[_esc(labels[i] if i < len(labels) else f"F{i + 1}")] + [_num(v, 2) for v in row]
+                           for i, row in enumerate(phi)],
+                          num_cols=set(range(1, len(phi) + 1))))
+    else:
+        out.append("<p class=\"muted\">None: the rotation is orthogonal or there is a single factor.</p>")
+    variance = efa.get("variance")
+    fit = efa.get("fit")
+    pairs = []
+    if variance is not None:
+        pairs.append(("Variance explained", _value(variance)))
+    if isinstance(fit, Mapping):
+        pairs += [(_esc(_label(k)), _value(v)) for k, v in fit.items()]
+    if "converged" in efa:
+        pairs.append(("Converged", _value(efa.get("converged"))))
+    if pairs:
+        out.append("<h3>Fit</h3>")
+        out.append(_kv_table(pairs))
+    return "".join(out)
+
+
+_ITEM_COLUMNS = (("n", "n", 0), ("mean", "Mean", 2), ("sd", "SD", 2), ("skew", "Skew", 2),
+                 ("kurtosis", "Kurtosis", 2), ("floor", "Floor", 2), ("ceiling", "Ceiling", 2),
+                 ("item_rest_r", "Item-rest r", 2), ("alpha_if_deleted", "Alpha if deleted", 3),
+                 ("omega_if_deleted", "Omega if deleted", 3))
+
+
+def _items_section(rows: Sequence[Mapping], meta: Mapping[str, Mapping]) -> str:
+    if not rows:
+        return "<p class=\"muted\">No item statistics were stored with this snapshot.</p>"
+    cols = [c for c in _ITEM_COLUMNS if any(c[0] in r for r in rows)]
+    header = ["Item", "Text", "Construct", "Reverse"] + [label for _, label, _ in cols]
+    body = []
+    for r in rows:
+        name = r.get("name", r.get("item"))
+        m = meta.get(str(name), {})
+        body.append([_esc(name), _esc(m.get("text") or ""), _esc(m.get("construct") or ""),
+                     "yes" if m.get("reverse") else ""]
+                    + [_num(r.get(key), digits) if digits else _num(r.get(key)) for key, _, digits in cols])
+    return _table(header, body, num_cols=set(range(4, 4 + len(cols))))
+
+
+def _removed_section(snapshot: Mapping) -> str:
+    removed = snapshot.get("removed") or []
+    steps = _trail(snapshot)
+    parts = []
+    if not removed:
+        return "<p>No items were removed: the snapshot keeps the whole pool that was analysed.</p>"
+    start = steps[0] if steps and not steps[0].get("removed") else None
+    if start:
+        parts.append(f"<p>Starting from {_num(start.get('n_items'))} items (the kept items plus every removed "
+                     f"one): alpha {_num(start.get('alpha'))}, omega {_num(start.get('omega_total'))}.</p>")
+    svg = _trail_svg(steps)
+    if svg:
+        parts.append(svg)
+    rows = []
+    for i, r in enumerate(removed, start=1):
+        rows.append([str(i), _esc(r.get("item")), _esc(r.get("code") or ""),
+                     f"<span class=\"note\">{_esc(r.get('reason'))}</span>",
+                     _num(r.get("n_items_after")), _num(r.get("alpha_after")), _num(r.get("omega_after"))])
+    parts.append(_table(["Step", "Removed item", "Code", "Reason", "Items left", "Alpha after", "Omega after"],
+                        rows, num_cols={0, 4, 5, 6}))
+    return "".join(parts)
+
+
+def _constructs_section(constructs) -> str:
+    if isinstance(constructs, Mapping):
+        entries = list(constructs.items())
+    elif isinstance(constructs, list):
+        entries = [(c.get("construct", c.get("name")), c) for c in constructs if isinstance(c, Mapping)]
+    else:
+        return ""
+    if not entries:
+        return ""
+    rows = []
+    for name, block in entries:
+        if not isinstance(block, Mapping):
+            continue
+        rel = block.get("reliability", block)
+        ci = rel.get("alpha_ci")
+        rows.append([_esc(name), _num(rel.get("n_items", len(block.get("items") or []) or None)),
+                     _num(rel.get("alpha")), _num(ci, 3) if ci is not None else "&ndash;",
+                     _num(rel.get("omega_total"))])
+    if not rows:
+        return ""
+    return "<h3>By construct</h3>" + _table(["Construct", "Items", "Alpha", "95% CI", "Omega"], rows,
+                                            num_cols={1, 2, 3, 4})
+
+
+def _settings_pairs(settings: Mapping) -> list[tuple[str, str]]:
+    return [(_esc(_label(k)), _value(v)) for k, v in settings.items() if k != "items"]
+
+
+# -------------------------------------------------------------------------------------------------- report
+def render_report(snapshot: dict, dataset: dict) -> str:
+    """Render a snapshot as one self-contained, printable HTML page.
+
+    Parameters
+    ----------
+    snapshot : dict
+        A stored snapshot: ``name``, ``author``, ``note``, ``items``, ``removed`` (in order, each with
+        ``item``, ``reason``, ``code``, ``alpha_after``, ``omega_after``), ``trail``, ``settings``,
+        ``analysis`` (the full analysis of the kept items), ``item_meta``, ``dataset_sha256``,
+        ``software_version``, ``created_at``, ``id``, ``parent``.
+    dataset : dict
+        The data set's record (``name``, ``sha256``, ``n_rows``...); may be empty when the data set has
+        been deleted, in which case the name and hash stored with the snapshot are shown.
+
+    Returns
+    -------
+    str
+        An HTML5 document with inline CSS and inline SVG: no scripts, no external resources. All user
+        text is escaped with ``html.escape``.
+    """
+    dataset = dataset or {}
+    analysis = snapshot.get("analysis") or {}
+    reliability = analysis.get("reliability") or {}
+    efa = analysis.get("efa") or {}
+    items = [str(i) for i in snapshot.get("items") or []]
+    meta = {str(m.get("name")): m for m in snapshot.get("item_meta") or [] if isinstance(m, Mapping)}
+    settings = analysis.get("settings") or snapshot.get("settings") or {}
+    title = f"Scalewright snapshot: {snapshot.get('name') or 'untitled'}"
+    ds_name = dataset.get("name") or snapshot.get("dataset_name") or "(unnamed data set)"
+    sha = snapshot.get("dataset_sha256") or dataset.get("sha256")
+    sha_note = ""
+    if dataset.get("sha256") and snapshot.get("dataset_sha256") and dataset["sha256"] != snapshot["dataset_sha256"]:
+        sha_note = (" <strong>The data set now on the server has a different SHA-256 "
+                    f"({_esc(dataset['sha256'])}).</strong>")
+    n_rows = dataset.get("n_rows") or (analysis.get("dataset") or {}).get("n_rows")
+    generated = datetime.now(timezone.utc).replace(microsecond=0).isoformat()
+    version = snapshot.get("software_version") or __version__
+
+    parts = [
+        "<!DOCTYPE html>",
+        "<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
+        f"<title>{_esc(title)}</title>",
+        f"<style>{_CSS}</style></head><body>",
+        f"<header><h1>{_esc(title)}</h1>",
+        f"<p class=\"muted\">Saved {_esc(snapshot.get('created_at') or '')}"
+        + (f" by {_esc(snapshot.get('author'))}" if snapshot.get("author") else "")
+        + f" &middot; {len(items)} items kept, {len(snapshot.get('removed') or [])} removed</p></header>",
+        f"<section><h2>What this is</h2><p>{_esc(PURPOSE)}</p></section>",
+        "<section><h2>Snapshot and data set</h2>",
+        _kv_table([
+            ("Snapshot", _esc(snapshot.get("name"))),
+            ("Snapshot id", f"<span class=\"mono\">{_esc(snapshot.get('id'))}</span>"),
+            ("Parent snapshot", f"<span class=\"mono\">{_esc(snapshot.get('parent'))}</span>"
+             if snapshot.get("parent") else "&ndash;"),
+            ("Author", _esc(snapshot.get("author")) if snapshot.get("author") else "&ndash;"),
+            ("Saved (UTC)", _esc(snapshot.get("created_at"))),
+            ("Note", f"<span class=\"note\">{_esc(snapshot.get('note'))}</span>"
+             if snapshot.get("note") else "&ndash;"),
+            ("Data set", _esc(ds_name)),
+            ("Data set SHA-256", f"<span class=\"mono\">{_esc(sha)}</span>{sha_note}"),
+            ("Respondents", _num(n_rows)),
+            ("Kept items", _esc(", ".join(items))),
+            ("Software", f"Scalewright {_esc(version)}"),
+        ]),
+        "</section>",
+        "<section><h2>Analysis settings</h2>",
+        _kv_table(_settings_pairs(settings)) if settings else "<p class=\"muted\">Defaults.</p>",
+        "</section>",
+        "<section><h2>Reliability of the kept items</h2>",
+        _kv_table(_reliability_pairs(reliability)) if reliability
+        else "<p class=\"muted\">No reliability results were stored.</p>",
+        _constructs_section(analysis.get("constructs")),
+        "</section>",
+        "<section><h2>Removed items, in order</h2>",
+        _removed_section(snapshot),
+        "</section>",
+        "<section><h2>Item statistics</h2>",
+        _items_section(analysis.get("items") or [], meta),
+        "</section>",
+        "<section><h2>Factor loadings</h2>",
+        (f"<p>{_num(efa.get('n_factors'))} factor(s), extraction {_esc(settings.get('extraction', ''))}, "
+         f"rotation {_esc(settings.get('rotation', ''))}.</p>" if efa else ""),
+        _loadings_section(efa, items) if efa else "<p class=\"muted\">No factor solution was stored.</p>",
+        "</section>",
+    ]
+    warnings = [w for w in (analysis.get("warnings") or []) if w]
+    if warnings:
+        parts.append("<section><h2>Warnings from the analysis</h2><ul>"
+                     + "".join(f"<li>{_esc(w)}</li>" for w in warnings) + "</ul></section>")
+    parts += [
+        "<section><h2>Cautions</h2><div class=\"caution\"><ul>",
+        "".join(f"<li>{_esc(c)}</li>" for c in CAUTIONS),
+        "</ul></div></section>",
+        f"<footer>Scalewright {_esc(version)} &middot; report generated {_esc(generated)} UTC &middot; "
+        f"data set SHA-256 <span class=\"mono\">{_esc(sha)}</span></footer>",
+        "</body></html>",
+    ]
+    return "\n".join(p for p in parts if p)
