@@ -1,0 +1,799 @@
+"""Internal-consistency reliability: alpha, its Feldt interval, omega, Guttman's lambdas, split half.
+
+Everything except :func:`cronbach_alpha` works from a covariance matrix, so the engine can keep the
+full-pool covariance of a dataset and answer for any set of active items by taking a submatrix:
+nothing is recomputed from the raw responses when an item is dropped.
+
+All functions are pure (numpy/scipy/pandas only) and return frozen dataclasses with ``to_dict()``
+giving plain JSON types.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import optimize, stats
+
+from .errors import InputError
+
+__all__ = [
+    "AlphaResult", "GuttmanLambdas", "OmegaResult", "OneFactorFit", "ReliabilityResult",
+    "cronbach_alpha", "feldt_ci", "guttman_lambdas", "mcdonald_omega", "one_factor_loadings",
+    "reliability_from_cov", "spearman_brown", "spearman_brown_factor",
+]
+
+# Lower bound of a uniqueness in the bounded (Heywood) one-factor fit, as psych::fa and
+# factor_analyzer use for minres.
+_PSI_MIN = 0.005
+_FIT_TOL = 1e-9
+_FIT_MAX_ITER = 1000
+
+
+def _num(x) -> float | None:
+    """A finite float, or None (JSON has no NaN)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------------------------
+# Input checks
+# --------------------------------------------------------------------------------------------
+
+def _item_label(j: int, names) -> str:
+    return f"'{names[j]}'" if names is not None else f"number {j + 1}"
+
+
+def _check_cov(cov, *, names=None, min_items: int = 2, what: str = "covariance matrix") -> np.ndarray:
+    S = np.asarray(cov, dtype=float)
+    if S.ndim != 2 or S.shape[0] != S.shape[1]:
+        raise InputError(f"The {what} must be square; got shape {tuple(S.shape)}.", code="bad_shape",
+                         details={"shape": list(S.shape)})
+    k = S.shape[0]
+    if names is not None and len(names) != k:
+        raise InputError(f"Expected {k} item names for a {k} x {k} {what}, got {len(names)}.",
+                         code="bad_shape", details={"names": len(names), "items": k})
+    if k < min_items:
+        raise InputError(f"At least {min_items} items are needed; {k} given.", code="too_few_items",
+                         details={"items": k, "needed": min_items})
+    bad = ~np.isfinite(S)
+    if bad.any():
+        i, j = (int(v) for v in np.argwhere(bad)[0])
+        if i == j:
+            msg = f"Item {_item_label(i, names)} has no usable variance (too few answers)."
+        else:
+            msg = (f"Items {_item_label(i, names)} and {_item_label(j, names)} were answered together "
+                   "by fewer than two respondents, so their covariance is missing.")
+        raise InputError(msg, code="missing_covariance",
+                         details={"items": [names[i], names[j]] if names is not None else [i, j]})
+    if not np.allclose(S, S.T, rtol=1e-8, atol=1e-10):
+        raise InputError(f"The {what} is not symmetric.", code="bad_matrix")
+    d = np.diag(S)
+    scale = max(float(np.max(np.abs(d))), 1e-300)
+    flat = np.flatnonzero(d <= 1e-12 * scale)
+    if flat.size:
+        j = int(flat[0])
+        raise InputError(f"Item {_item_label(j, names)} has no variance (every answer is the same); it "
+                         "cannot enter a reliability analysis. Leave it out of the active items.",
+                         code="no_variance",
+                         details={"item": names[j] if names is not None else j})
+    return S
+
+
+def _cov_to_corr(S: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    sd = np.sqrt(np.diag(S))
+    R = S / np.outer(sd, sd)
+    np.fill_diagonal(R, 1.0)
+    return R, sd
+
+
+# --------------------------------------------------------------------------------------------
+# Published single-method functions
+# --------------------------------------------------------------------------------------------
+
+def _alpha(S: np.ndarray) -> float:
+    k = S.shape[0]
+    total = S.sum()
+    if total <= 0:
+        return float("nan")
+    return k / (k - 1) * (1.0 - np.trace(S) / total)
+
+
+def feldt_ci(alpha: float, k: int, n: int, ci: float = 0.95) -> tuple[float, float]:
+    """Feldt's confidence interval for coefficient alpha.
+
+    Parameters
+    ----------
+    alpha : float
+        Sample coefficient alpha.
+    k : int
+        Number of items (at least 2).
+    n : int
+        Number of respondents (at least 2).
+    ci : float
+        Coverage, e.g. 0.95.
+
+    Returns
+    -------
+    (lower, upper) : tuple of float
+
+    Notes
+    -----
+    :math:`(1-\\alpha)/(1-\\hat\\alpha)` follows an F distribution with :math:`n-1` and
+    :math:`(n-1)(k-1)` degrees of freedom, so
+
+    .. math::
+
+        \\left[\\,1 - (1-\\hat\\alpha) F_{1-(1-c)/2},\\;\\; 1 - (1-\\hat\\alpha) F_{(1-c)/2}\\,\\right].
+
+    This is the interval pingouin and psych report.
+
+    References
+    ----------
+    Feldt, L. S. (1965). The approximate sampling distribution of Kuder-Richardson reliability
+    coefficient twenty. Psychometrika, 30(3), 357-370.
+    Feldt, L. S., Woodruff, D. J., & Salih, F. A. (1987). Statistical inference for coefficient
+    alpha. Applied Psychological Measurement, 11(1), 93-103.
+
+    Examples
+    --------
+    >>> [round(v, 3) for v in feldt_ci(0.85, 7, 89)]
+    [0.797, 0.893]
+    """
+    if not 0 < ci < 1:
+        raise InputError(f"The confidence level must be between 0 and 1; got {ci}.", code="bad_ci",
+                         details={"ci": ci})
+    if k < 2 or n < 2:
+        raise InputError(f"Feldt's interval needs at least 2 items and 2 respondents; got k={k}, n={n}.",
+                         code="too_few", details={"k": k, "n": n})
+    df1 = n - 1
+    df2 = df1 * (k - 1)
+    tail = (1.0 - ci) / 2.0
+    lower = 1.0 - (1.0 - alpha) * stats.f.isf(tail, df1, df2)
+    upper = 1.0 - (1.0 - alpha) * stats.f.isf(1.0 - tail, df1, df2)
+    return float(lower), float(upper)
+
+
+def spearman_brown(rho: float, factor: float) -> float:
+    """Reliability of a test lengthened (or shortened) by ``factor`` with parallel items.
+
+    Notes
+    -----
+    :math:`\\rho^* = \\dfrac{m\\rho}{1 + (m-1)\\rho}`.
+
+    References
+    ----------
+    Spearman, C. (1910). Correlation calculated from faulty data. British Journal of Psychology,
+    3(3), 271-295.  Brown, W. (1910). Some experimental results in the correlation of mental
+    abilities. British Journal of Psychology, 3(3), 296-322.
+
+    Examples
+    --------
+    >>> round(spearman_brown(0.70, 2), 4)
+    0.8235
+    """
+    if factor <= 0:
+        raise InputError(f"The lengthening factor must be positive; got {factor}.", code="bad_factor",
+                         details={"factor": factor})
+    return float(factor * rho / (1.0 + (factor - 1.0) * rho))
+
+
+def spearman_brown_factor(rho: float, target: float) -> float:
+    """Factor by which a test with reliability ``rho`` must be lengthened to reach ``target``.
+
+    Notes
+    -----
+    The Spearman-Brown formula solved for the factor:
+    :math:`m = \\dfrac{\\rho^*(1-\\rho)}{\\rho(1-\\rho^*)}`.  Needs :math:`0 < \\rho < 1` and
+    :math:`0 < \\rho^* < 1`.
+
+    References
+    ----------
+    Spearman (1910); Brown (1910), see :func:`spearman_brown`.
+
+    Examples
+    --------
+    >>> round(spearman_brown_factor(0.70, 0.90), 3)
+    3.857
+    """
+    if not (0 < rho < 1 and 0 < target < 1):
+        raise InputError("The Spearman-Brown projection needs a current and a target reliability strictly "
+                         f"between 0 and 1; got {rho} and {target}.", code="bad_reliability",
+                         details={"rho": rho, "target": target})
+    return float(target * (1.0 - rho) / (rho * (1.0 - target)))
+
+
+@dataclass(frozen=True)
+class AlphaResult:
+    """Cronbach's alpha with its Feldt interval."""
+
+    alpha: float | None
+    ci: tuple[float | None, float | None]
+    ci_level: float
+    n: int
+    k: int
+    missing: str
+
+    def to_dict(self) -> dict:
+        return {"alpha": _num(self.alpha), "ci": [_num(v) for v in self.ci], "ci_level": self.ci_level,
+                "n": self.n, "k": self.k, "missing": self.missing}
+
+
+def cronbach_alpha(responses, *, missing: str = "pairwise", ci: float = 0.95) -> AlphaResult:
+    """Cronbach's coefficient alpha of a respondents x items table.
+
+    Parameters
+    ----------
+    responses : pandas.DataFrame or array_like, shape (n, k)
+        Numeric answers (reverse-keyed items already reverse-scored), ``NaN`` for missing.
+    missing : {"pairwise", "listwise"}
+        ``"pairwise"``: each covariance from the respondents who answered both items (pandas'
+        ``DataFrame.cov``); ``n`` is then the number of rows.  ``"listwise"``: rows with any missing
+        answer are dropped first.
+    ci : float
+        Coverage of Feldt's interval.
+
+    Returns
+    -------
+    AlphaResult
+
+    Notes
+    -----
+    .. math::
+
+        \\alpha = \\frac{k}{k-1}\\left(1 - \\frac{\\operatorname{tr} S}{\\mathbf 1' S \\mathbf 1}\\right)
+
+    with :math:`S` the item covariance matrix; the same definition and interval as
+    ``pingouin.cronbach_alpha`` and R's ``psych::alpha``.
+
+    References
+    ----------
+    Cronbach, L. J. (1951). Coefficient alpha and the internal structure of tests.
+    Psychometrika, 16(3), 297-334.
+    Feldt, L. S. (1965), see :func:`feldt_ci`.
+    """
+    if missing not in ("pairwise", "listwise"):
+        raise InputError(f"The missing-data policy must be 'pairwise' or 'listwise'; got {missing!r}.",
+                         code="bad_missing", details={"missing": missing})
+    df = responses if isinstance(responses, pd.DataFrame) else pd.DataFrame(np.asarray(responses, float))
+    nonnum = [str(c) for c in df.columns if df[c].dtype.kind not in "biuf"]
+    if nonnum:
+        raise InputError(f"Column '{nonnum[0]}' is not numeric; alpha needs numeric answers.",
+                         code="bad_column", details={"column": nonnum[0]})
+    if missing == "listwise":
+        df = df.dropna(axis=0, how="any")
+    n, k = df.shape
+    if k < 2:
+        raise InputError(f"At least 2 items are needed for alpha; {k} given.", code="too_few_items",
+                         details={"items": k})
+    if n < 2:
+        raise InputError(f"At least 2 respondents are needed for alpha; {n} left.",
+                         code="too_few_respondents", details={"respondents": n})
+    names = [str(c) for c in df.columns]
+    S = _check_cov(df.cov().to_numpy(), names=names)
+    a = _alpha(S)
+    lo, hi = feldt_ci(a, k, n, ci) if math.isfinite(a) else (None, None)
+    return AlphaResult(alpha=_num(a), ci=(lo, hi), ci_level=ci, n=int(n), k=int(k), missing=missing)
+
+
+@dataclass(frozen=True)
+class GuttmanLambdas:
+    """Guttman's lower bounds lambda1, lambda2, lambda3 (= alpha) and lambda6."""
+
+    lambda1: float | None
+    lambda2: float | None
+    lambda3: float | None
+    lambda6: float | None
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {"lambda1": _num(self.lambda1), "lambda2": _num(self.lambda2),
+                "lambda3": _num(self.lambda3), "lambda6": _num(self.lambda6),
+                "warnings": list(self.warnings)}
+
+
+def _lambda6(S: np.ndarray, total: float) -> tuple[float | None, str | None]:
+    R, _sd = _cov_to_corr(S)
+    w = np.linalg.eigvalsh(R)
+    if w[0] <= 1e-10 * max(w[-1], 1.0):
+        return None, ("The item covariance matrix is singular (an item is a linear combination of "
+                      "others) or not positive definite, so Guttman's lambda6 is not reported.")
+    inv_diag = np.diag(np.linalg.inv(S))
+    err = 1.0 / inv_diag          # residual variance of each item regressed on all the others
+    return 1.0 - err.sum() / total, None
+
+
+def guttman_lambdas(cov) -> GuttmanLambdas:
+    """Guttman's (1945) lower bounds to reliability from an item covariance matrix.
+
+    Parameters
+    ----------
+    cov : array_like, shape (k, k)
+        Item covariance matrix (use a correlation matrix for the standardized versions).
+
+    Returns
+    -------
+    GuttmanLambdas
+
+    Notes
+    -----
+    With :math:`V = \\mathbf 1'S\\mathbf 1` the variance of the total score,
+
+    .. math::
+
+        \\lambda_1 = 1 - \\frac{\\operatorname{tr} S}{V}, \\quad
+        \\lambda_2 = \\lambda_1 + \\frac{\\sqrt{\\tfrac{k}{k-1}\\sum_{i\\ne j}\\sigma_{ij}^2}}{V}, \\quad
+        \\lambda_3 = \\frac{k}{k-1}\\lambda_1 = \\alpha, \\quad
+        \\lambda_6 = 1 - \\frac{\\sum_j e_j^2}{V},
+
+    where :math:`e_j^2 = 1/(S^{-1})_{jj}` is the residual variance of item :math:`j` regressed
+    linearly on all the other items (Guttman's definition, in the covariance metric).  For a
+    correlation matrix :math:`e_j^2 = 1 - \\mathrm{SMC}_j`, as in ``psych::alpha``'s "G6(smc)".
+
+    References
+    ----------
+    Guttman, L. (1945). A basis for analyzing test-retest reliability. Psychometrika, 10(4),
+    255-282.
+    """
+    S = _check_cov(cov)
+    k = S.shape[0]
+    total = S.sum()
+    warnings: list[str] = []
+    if total <= 0:
+        warnings.append("The total-score variance is not positive, so Guttman's lambdas are undefined.")
+        return GuttmanLambdas(None, None, None, None, warnings)
+    l1 = 1.0 - np.trace(S) / total
+    off = S - np.diag(np.diag(S))
+    l2 = l1 + math.sqrt(k / (k - 1) * float((off ** 2).sum())) / total
+    l3 = k / (k - 1) * l1
+    l6, msg = _lambda6(S, total)
+    if msg:
+        warnings.append(msg)
+    return GuttmanLambdas(float(l1), float(l2), float(l3), None if l6 is None else float(l6), warnings)
+
+
+# --------------------------------------------------------------------------------------------
+# One-factor model and omega
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class OneFactorFit:
+    """A one-factor minres (unweighted least squares) fit to a correlation matrix."""
+
+    loadings: np.ndarray = field(compare=False)
+    uniquenesses: np.ndarray = field(compare=False)
+    converged: bool
+    n_iter: int
+    method: str  # "fixed-point" or "bounded-lbfgsb" (after a Heywood case or non-convergence)
+    heywood: tuple[int, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {"loadings": [float(v) for v in self.loadings],
+                "uniquenesses": [float(v) for v in self.uniquenesses],
+                "converged": self.converged, "n_iter": self.n_iter, "method": self.method,
+                "heywood": list(self.heywood)}
+
+
+def _off_diagonal(R: np.ndarray) -> np.ndarray:
+    Ro = R.copy()
+    np.fill_diagonal(Ro, 0.0)
+    return Ro
+
+
+def _pc_start(R: np.ndarray) -> np.ndarray:
+    w, v = np.linalg.eigh(R)
+    lam = v[:, -1] * math.sqrt(max(w[-1], 1e-12))
+    return lam if lam.sum() >= 0 else -lam
+
+
+def _fit_batch(Ro: np.ndarray, L0: np.ndarray, mask: np.ndarray, *, tol: float = _FIT_TOL,
+               max_iter: int = _FIT_MAX_ITER) -> tuple[np.ndarray, np.ndarray, int]:
+    """Minres one-factor fits of many item subsets at once (damped fixed-point iteration).
+
+    Row ``b`` of ``mask`` selects the items of subset ``b``; ``L0`` holds starting loadings (zero
+    outside the subset).  Minimising :math:`\\sum_{i<j}(r_{ij}-l_il_j)^2` over :math:`l_i` with the
+    others fixed gives :math:`l_i = \\sum_{j\\ne i} r_{ij}l_j / \\sum_{j\\ne i} l_j^2`; the undamped
+    simultaneous update oscillates (with equal correlations it maps :math:`a \\to r/a`), the
+    average of old and new value converges (it is then Heron's square-root iteration).  A fixed
+    point has zero gradient of the minres objective, i.e. it is the minres/ULS solution.
+
+    Returns the loadings, a boolean vector of converged rows, and the iterations used.
+    """
+    L = np.where(mask, L0, 0.0)
+    done = np.zeros(L.shape[0], dtype=bool)
+    it = 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for it in range(1, max_iter + 1):
+            act = ~done
+            La = L[act]
+            Ma = mask[act]
+            num = La @ Ro
+            den = (La * La).sum(axis=1, keepdims=True) - La * La
+            new = np.where(Ma, 0.5 * La + 0.5 * num / den, 0.0)
+            step = np.abs(new - La).max(axis=1)
+            finite = np.isfinite(step)
+            L[act] = np.where(finite[:, None], new, La)
+            newly = finite & (step < tol)
+            idx = np.flatnonzero(act)
+            done[idx[newly]] = True
+            # rows that blew up are abandoned (left unconverged) for the caller's fallback
+            done[idx[~finite]] = True
+            if done.all():
+                break
+    converged = done & np.isfinite(L).all(axis=1)
+    # rows abandoned because of non-finite steps are not converged
+    with np.errstate(divide="ignore", invalid="ignore"):
+        num = L @ Ro
+        den = (L * L).sum(axis=1, keepdims=True) - L * L
+        resid = np.where(mask, np.abs(num / den - L), 0.0).max(axis=1)
+    converged &= np.isfinite(resid) & (resid < 1e-5)
+    return L, converged, it
+
+
+def _fit_bounded(R: np.ndarray, start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, bool, int]:
+    """Minres over the uniquenesses with L-BFGS-B, uniquenesses bounded to [0.005, 1].
+
+    Objective :math:`f(\\psi) = \\tfrac12\\sum_{m\\ge2}\\mu_m^2` with :math:`\\mu_m` the eigenvalues
+    of :math:`R - \\Psi`; analytic gradient :math:`\\partial f/\\partial\\psi_i = l_i^2 - (1-\\psi_i)`.
+    """
+    k = R.shape[0]
+
+    def fg(psi):
+        S = R - np.diag(psi)
+        w, v = np.linalg.eigh(S)
+        top = max(w[-1], 0.0)
+        f = 0.5 * (float((S * S).sum()) - top * top)
+        g = top * v[:, -1] ** 2 - (1.0 - psi)
+        return f, g
+
+    if start is None:
+        try:
+            smc = 1.0 - 1.0 / np.diag(np.linalg.inv(R))
+        except np.linalg.LinAlgError:
+            smc = np.full(k, 0.5)
+        psi0 = 1.0 - smc
+    else:
+        psi0 = 1.0 - np.asarray(start) ** 2
+    psi0 = np.clip(psi0, _PSI_MIN, 1.0)
+    res = optimize.minimize(fg, psi0, jac=True, method="L-BFGS-B", bounds=[(_PSI_MIN, 1.0)] * k,
+                            options={"maxiter": 2000, "ftol": 1e-14, "gtol": 1e-10})
+    psi = res.x
+    w, v = np.linalg.eigh(R - np.diag(psi))
+    lam = v[:, -1] * math.sqrt(max(w[-1], 0.0))
+    if lam.sum() < 0:
+        lam = -lam
+    return lam, psi, bool(res.success), int(res.nit)
+
+
+def one_factor_loadings(corr, start=None) -> OneFactorFit:
+    """Minres (unweighted least squares) loadings of a one-factor model for a correlation matrix.
+
+    Parameters
+    ----------
+    corr : array_like, shape (k, k)
+        Correlation matrix, ``k >= 3`` (with two items a one-factor model is not identified).
+    start : array_like, shape (k,), optional
+        Starting loadings (warm start, e.g. the solution for a superset of the items).  Default:
+        the first principal component's loadings.
+
+    Returns
+    -------
+    OneFactorFit
+        Loadings (sign chosen so they sum to a positive number), uniquenesses ``1 - l**2``,
+        convergence and the indices of Heywood items.
+
+    Notes
+    -----
+    Minres minimises the sum of squared off-diagonal residuals
+    :math:`\\sum_{i<j}(r_{ij} - l_i l_j)^2` (Harman & Jones 1966), which gives the same solution as
+    the ULS fit over uniquenesses that ``psych::fa(fm="minres")`` and factor_analyzer use while no
+    communality reaches 1.  It is solved by a damped fixed-point iteration (see ``_fit_batch``;
+    typically 20-60 cheap matrix-vector products).  If a communality reaches 1 (Heywood case) or
+    the iteration does not converge, the ULS objective over the uniquenesses is minimised with
+    L-BFGS-B and an analytic gradient, uniquenesses bounded below by 0.005 as psych does.
+
+    References
+    ----------
+    Harman, H. H., & Jones, W. H. (1966). Factor analysis by minimizing residuals (minres).
+    Psychometrika, 31(3), 351-368.
+    """
+    R = _check_cov(corr, min_items=3, what="correlation matrix")
+    k = R.shape[0]
+    if not np.allclose(np.diag(R), 1.0, atol=1e-8):
+        raise InputError("one_factor_loadings needs a correlation matrix (ones on the diagonal).",
+                         code="bad_matrix")
+    l0 = _pc_start(R) if start is None else np.asarray(start, dtype=float).reshape(-1)
+    if l0.size != k:
+        raise InputError(f"Expected {k} starting loadings, got {l0.size}.", code="bad_shape",
+                         details={"start": int(l0.size), "items": k})
+    if not np.all(np.isfinite(l0)) or np.abs(l0).sum() == 0:
+        l0 = _pc_start(R)
+    L, conv, it = _fit_batch(_off_diagonal(R), l0[None, :], np.ones((1, k), dtype=bool))
+    lam = L[0]
+    if lam.sum() < 0:
+        lam = -lam
+    method = "fixed-point"
+    psi = 1.0 - lam ** 2
+    heywood: tuple[int, ...] = ()
+    if not conv[0] or np.any(psi <= 0.0):
+        lam, psi, ok, it = _fit_bounded(R, None if not conv[0] else lam)
+        method = "bounded-lbfgsb"
+        conv = np.array([ok])
+        heywood = tuple(int(i) for i in np.flatnonzero(psi <= _PSI_MIN + 1e-6))
+    return OneFactorFit(loadings=lam, uniquenesses=psi, converged=bool(conv[0]), n_iter=int(it),
+                        method=method, heywood=heywood)
+
+
+@dataclass(frozen=True)
+class OmegaResult:
+    """McDonald's omega total from a one-factor model."""
+
+    omega_total: float | None
+    loadings: tuple[float, ...]            # covariance metric
+    standardized_loadings: tuple[float, ...]
+    converged: bool
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {"omega_total": _num(self.omega_total), "loadings": [float(v) for v in self.loadings],
+                "standardized_loadings": [float(v) for v in self.standardized_loadings],
+                "converged": self.converged, "warnings": list(self.warnings)}
+
+
+def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult:
+    sd = np.sqrt(np.diag(S))
+    lam = fit.loadings * sd
+    omega = float(lam.sum() ** 2 / S.sum())
+    warnings = []
+    if not fit.converged:
+        warnings.append("The one-factor model behind omega did not converge; omega is approximate.")
+    for j in fit.heywood:
+        warnings.append(f"Item {_item_label(j, names)} reached a communality of 1 in the one-factor model "
+                        "(Heywood case); its uniqueness was held at 0.005 and omega rests on a boundary "
+                        "solution.")
+    neg = [j for j in range(len(lam)) if fit.loadings[j] < 0]
+    if neg:
+        which = ", ".join(_item_label(j, names) for j in neg)
+        warnings.append(f"Item(s) {which} load negatively on the common factor; if they are reverse-keyed, "
+                        "declare them so they are reverse-scored.")
+    return OmegaResult(omega_total=omega, loadings=tuple(float(v) for v in lam),
+                       standardized_loadings=tuple(float(v) for v in fit.loadings),
+                       converged=fit.converged, warnings=warnings)
+
+
+def mcdonald_omega(cov, *, start=None, names=None) -> OmegaResult:
+    """McDonald's omega total from a one-factor minres model.
+
+    Parameters
+    ----------
+    cov : array_like, shape (k, k)
+        Item covariance matrix, ``k >= 3``.
+    start : array_like, optional
+        Starting standardized loadings for the one-factor fit (warm start).
+    names : sequence of str, optional
+        Item names, used in warnings.
+
+    Returns
+    -------
+    OmegaResult
+
+    Notes
+    -----
+    The one-factor model is fitted by minres to the correlation matrix
+    (:func:`one_factor_loadings`) and its loadings are rescaled to the covariance metric,
+    :math:`\\lambda_i = l_i s_i`.  Omega total is the share of the observed total-score variance
+    due to the common factor,
+
+    .. math::
+
+        \\omega_t = \\frac{(\\sum_i \\lambda_i)^2}{\\mathbf 1' S \\mathbf 1}.
+
+    Under tau-equivalence (equal :math:`\\lambda_i`) and a population covariance matrix this
+    equals coefficient alpha.  Fitting on the correlation matrix makes omega independent of the
+    items' units, and for a one-factor covariance structure the rescaled loadings are exactly the
+    covariance-metric loadings.
+
+    References
+    ----------
+    McDonald, R. P. (1999). Test theory: A unified treatment. Mahwah, NJ: Erlbaum (ch. 6).
+    Revelle, W., & Zinbarg, R. E. (2009). Coefficients alpha, beta, omega, and the glb.
+    Psychometrika, 74(1), 145-154.
+    """
+    S = _check_cov(cov, names=names, min_items=3)
+    R, _sd = _cov_to_corr(S)
+    return _omega_from_fit(S, one_factor_loadings(R, start=start), names)
+
+
+# --------------------------------------------------------------------------------------------
+# The whole reliability block from a covariance matrix
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class ReliabilityResult:
+    """Every internal-consistency statistic of one set of items (see ``reliability_from_cov``)."""
+
+    k: int
+    n: int
+    n_complete: int
+    min_pair_n: int | None
+    missing: str | None
+    alpha: float | None
+    alpha_ci: tuple[float | None, float | None]
+    ci_level: float
+    alpha_standardized: float | None
+    omega_total: float | None
+    lambda2: float | None
+    lambda6: float | None
+    split_half: float | None
+    mean_inter_item_r: float | None
+    inter_item_r_range: tuple[float | None, float | None]
+    scale_mean: float | None
+    scale_sd: float | None
+    sem: float | None
+    items_for_80: int | None
+    items_for_90: int | None
+    loadings: tuple[float, ...] = field(default=(), compare=False)  # standardized one-factor loadings
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {
+            "k": self.k, "n": self.n, "n_complete": self.n_complete, "min_pair_n": self.min_pair_n,
+            "missing": self.missing, "alpha": _num(self.alpha),
+            "alpha_ci": [_num(v) for v in self.alpha_ci], "ci_level": self.ci_level,
+            "alpha_standardized": _num(self.alpha_standardized), "omega_total": _num(self.omega_total),
+            "lambda2": _num(self.lambda2), "lambda6": _num(self.lambda6),
+            "split_half": _num(self.split_half), "mean_inter_item_r": _num(self.mean_inter_item_r),
+            "inter_item_r_range": [_num(v) for v in self.inter_item_r_range],
+            "scale_mean": _num(self.scale_mean), "scale_sd": _num(self.scale_sd), "sem": _num(self.sem),
+            "items_for_80": self.items_for_80, "items_for_90": self.items_for_90,
+            "loadings": [float(v) for v in self.loadings], "warnings": list(self.warnings),
+        }
+
+
+def _items_needed(alpha: float, k: int, target: float) -> int | None:
+    if not (math.isfinite(alpha) and 0 < alpha < 1):
+        return None
+    m = spearman_brown_factor(alpha, target) * k
+    return int(math.ceil(m - 1e-9))
+
+
+def split_half_odd_even(S: np.ndarray) -> tuple[float, float]:
+    """Odd-even split-half reliability from a covariance matrix, Spearman-Brown corrected.
+
+    The halves are the 1st, 3rd, 5th... and the 2nd, 4th, 6th... items in the given order; returns
+    ``(r between half scores, 2r/(1+r))``.
+    """
+    k = S.shape[0]
+    a = np.zeros(k)
+    a[0::2] = 1.0
+    b = 1.0 - a
+    va, vb, cab = a @ S @ a, b @ S @ b, a @ S @ b
+    r = cab / math.sqrt(va * vb)
+    return float(r), float(2 * r / (1 + r)) if r > -1 else float("nan")
+
+
+def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float = 0.95,
+                         min_pair_n: int | None = None, names=None, missing: str | None = "pairwise",
+                         start=None) -> ReliabilityResult:
+    """All internal-consistency statistics of a set of items from their covariance matrix.
+
+    Parameters
+    ----------
+    cov : array_like, shape (k, k)
+        Item covariance matrix (reverse-keyed items already reverse-scored), typically a submatrix
+        of the cached full-pool matrix.
+    n : int
+        Respondents the covariances rest on (all rows under pairwise deletion, complete rows under
+        listwise deletion); used for Feldt's interval, as pingouin and psych do.
+    n_complete : int
+        Respondents who answered every one of these items (reported).
+    means : array_like, shape (k,), optional
+        Item means; ``scale_mean`` is their sum (None without them).
+    ci : float
+        Coverage of Feldt's interval for alpha.
+    min_pair_n : int, optional
+        Smallest number of respondents behind any covariance (reported; a warning when it is under
+        half of ``n``).
+    names : sequence of str, optional
+        Item names for warnings.
+    missing : str, optional
+        The missing-data policy used, echoed in the result.
+    start : array_like, optional
+        Starting standardized loadings for omega's one-factor fit (e.g. the previous solution).
+
+    Returns
+    -------
+    ReliabilityResult
+        ``alpha``, ``alpha_ci`` (Feldt), ``alpha_standardized``, ``omega_total``, ``lambda2``,
+        ``lambda6``, ``split_half``, ``mean_inter_item_r``, ``inter_item_r_range``, ``scale_mean``,
+        ``scale_sd``, ``sem``, ``n_complete``, ``min_pair_n``, ``items_for_80``/``items_for_90``,
+        the standardized one-factor ``loadings``, and ``warnings``.
+
+    Notes
+    -----
+    * alpha :math:`= \\frac{k}{k-1}(1 - \\operatorname{tr}S/\\mathbf 1'S\\mathbf 1)` (Cronbach 1951);
+      Feldt (1965) interval, see :func:`feldt_ci`.
+    * Standardized alpha :math:`= k\\bar r/(1 + (k-1)\\bar r)` with :math:`\\bar r` the mean
+      off-diagonal correlation of :math:`D^{-1/2}SD^{-1/2}`.
+    * omega total: :func:`mcdonald_omega` (needs 3 items; None with 2).
+    * lambda2 and lambda6: :func:`guttman_lambdas` (covariance metric).
+    * Split half: odd-even halves (1st, 3rd, ... vs 2nd, 4th, ... item in the given order), their
+      correlation stepped up by Spearman-Brown :math:`2r/(1+r)`.
+    * Scale SD :math:`=\\sqrt{\\mathbf 1'S\\mathbf 1}`; SEM = scale SD :math:`\\sqrt{1-\\alpha}`.
+    * Items for .80/.90: :math:`\\lceil k\\, m\\rceil` with :math:`m` from
+      :func:`spearman_brown_factor`, assuming added items like the present ones.
+
+    References
+    ----------
+    Cronbach (1951); Feldt (1965); Guttman (1945); McDonald (1999); Spearman (1910); Brown (1910).
+    See the functions named above.
+    """
+    if names is not None:
+        names = [str(s) for s in names]
+    S = _check_cov(cov, names=names)
+    k = S.shape[0]
+    if n < 2:
+        raise InputError(f"At least 2 respondents are needed; got {n}.", code="too_few_respondents",
+                         details={"respondents": n})
+    warnings: list[str] = []
+    total = float(S.sum())
+    R, sd = _cov_to_corr(S)
+    iu = np.triu_indices(k, 1)
+    rs = R[iu]
+    rbar = float(rs.mean())
+    if np.any(np.abs(rs) > 1 + 1e-9):
+        warnings.append("Some pairwise correlations exceed 1 in absolute value: the pairwise-complete "
+                        "covariances are inconsistent (much missing data); consider listwise deletion.")
+
+    alpha = _alpha(S)
+    avg_cov = float(S[iu].mean())
+    if avg_cov < 0:
+        warnings.append(f"The average inter-item covariance is negative ({avg_cov:.3g}), so alpha is negative "
+                        "and meaningless; check whether reverse-keyed items have been reverse-scored.")
+    if math.isfinite(alpha):
+        lo, hi = feldt_ci(alpha, k, n, ci)
+        sem = math.sqrt(total) * math.sqrt(1 - alpha) if alpha <= 1 else None
+    else:
+        warnings.append("The total-score variance is not positive, so alpha is undefined.")
+        lo = hi = sem = None
+
+    alpha_std = k * rbar / (1 + (k - 1) * rbar) if 1 + (k - 1) * rbar != 0 else float("nan")
+    lam = guttman_lambdas(S) if total > 0 else GuttmanLambdas(None, None, None, None, [])
+    warnings.extend(lam.warnings)
+
+    if k >= 3:
+        om = _omega_from_fit(S, one_factor_loadings(R, start=start), names)
+        omega, loadings = om.omega_total, om.standardized_loadings
+        warnings.extend(om.warnings)
+    else:
+        omega, loadings = None, ()
+        warnings.append("Omega needs at least 3 items (a one-factor model of 2 items is not identified).")
+
+    _r, sh = split_half_odd_even(S) if total > 0 else (None, None)
+
+    scale_mean = None
+    if means is not None:
+        mu = np.asarray(means, dtype=float).reshape(-1)
+        if mu.size != k:
+            raise InputError(f"Expected {k} item means, got {mu.size}.", code="bad_shape",
+                             details={"means": int(mu.size), "items": k})
+        scale_mean = float(mu.sum())
+
+    if min_pair_n is not None and min_pair_n < 0.5 * n:
+        warnings.append(f"Some item pairs were answered together by only {min_pair_n} of {n} respondents; "
+                        "their pairwise covariances rest on few cases.")
+
+    return ReliabilityResult(
+        k=int(k), n=int(n), n_complete=int(n_complete),
+        min_pair_n=None if min_pair_n is None else int(min_pair_n), missing=missing,
+        alpha=_num(alpha), alpha_ci=(_num(lo), _num(hi)), ci_level=float(ci),
+        alpha_standardized=_num(alpha_std), omega_total=_num(omega),
+        lambda2=_num(lam.lambda2), lambda6=_num(lam.lambda6), split_half=_num(sh),
+        mean_inter_item_r=_num(rbar), inter_item_r_range=(_num(rs.min()), _num(rs.max())),
+        scale_mean=_num(scale_mean), scale_sd=_num(math.sqrt(total)) if total > 0 else None,
+        sem=_num(sem), items_for_80=_items_needed(alpha, k, 0.80), items_for_90=_items_needed(alpha, k, 0.90),
+        loadings=tuple(float(v) for v in loadings), warnings=warnings,
+    )
