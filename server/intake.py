@@ -1,0 +1,855 @@
+"""Reading a response file (CSV, TSV, other delimited text, XLSX) and its codebook into a validated matrix.
+
+The one public entry point is :func:`read_responses`.  It returns a :class:`ParsedDataset`: the RAW
+responses (not reverse-scored) as an ``n_rows x k`` float64 array with NaN for missing, one
+:class:`ItemMeta` per item, the respondent IDs when an ID column exists, and a list of warnings written
+as sentences.  Anything that makes the file unusable raises :class:`server.stats.errors.InputError`
+naming the file, column, row (1-based as in the file, the header being row 1) and value.
+
+Pure computation: pandas, numpy and the standard library; no FastAPI here.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import re
+import warnings as _warnings
+from dataclasses import asdict, dataclass, field
+from pathlib import PurePath
+
+import numpy as np
+import pandas as pd
+
+from .stats.errors import InputError
+
+__all__ = ["ItemMeta", "ParsedDataset", "read_responses", "read_codebook", "Codebook", "CodebookEntry"]
+
+CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
+DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
+SAMPLE_BYTES = 256 * 1024
+MAX_LISTED = 5  # how many bad cells / names an error or warning lists before "and N more"
+EXTRA_NA_VALUES = ["."]  # SAS / SPSS exports write "." for system-missing
+
+# Column names (lower case, letters and digits only) that identify respondents rather than items.
+ID_NAMES = {
+    "id", "ids", "respondent", "respondentid", "respondentno", "respondentnumber", "participant",
+    "participantid", "participantno", "subject", "subjectid", "subj", "case", "caseid", "caseno",
+    "casenumber", "record", "recordid", "responseid", "response", "userid", "user", "pid", "sid", "uid",
+    "personid", "idno", "idnumber", "resp", "respid", "rid",
+}
+# Column names that are demographics or survey metadata, never items.
+NON_ITEM_NAMES = {
+    "age", "ageyears", "ageyr", "ageyrs", "agemo", "agemonths", "agey", "agem", "dob", "dateofbirth", "gender", "sex", "education", "edu", "income", "country", "nationality", "ethnicity",
+    "race", "language", "occupation", "job", "year", "birthyear", "yearofbirth", "date", "time", "timestamp",
+    "datetime", "startdate", "enddate", "starttime", "endtime", "submitdate", "submitted", "recordeddate",
+    "duration", "durationinseconds", "durationseconds", "seconds", "minutes", "progress", "finished",
+    "status", "ipaddress", "ip", "latitude", "longitude", "lat", "lon", "locationlatitude",
+    "locationlongitude", "email", "name", "firstname", "lastname", "comment", "comments", "notes", "note",
+    "remarks", "feedback", "group", "condition", "cond", "site", "wave", "cohort", "weight", "zip",
+    "zipcode", "postcode", "postalcode", "region", "state", "city", "school", "class", "grade",
+    "maritalstatus", "children", "employment", "distributionchannel", "userlanguage", "consent",
+}
+
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
+_DECIMAL_DOT = re.compile(r"^\s*[-+]?\d+\.\d+\s*$")
+
+
+@dataclass
+class ItemMeta:
+    """One item (a column of responses) and what is known about it.
+
+    ``range_source`` says where ``min`` and ``max`` come from: ``"codebook"``, ``"form"`` (the
+    ``scale_min``/``scale_max`` fields) or ``"observed"`` (the smallest and largest answers given).
+    """
+
+    name: str
+    text: str
+    construct: str | None
+    reverse: bool
+    min: float
+    max: float
+    n_missing: int
+    range_source: str
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass
+class ParsedDataset:
+    """A response file read into a matrix: rows are respondents, columns are items.
+
+    ``responses`` holds RAW values (reverse-keyed items are NOT reverse-scored), NaN = missing.
+    ``ids`` are the respondent IDs (as text) when an ID column was used, else ``None``.
+    """
+
+    name: str
+    items: list[ItemMeta]
+    responses: np.ndarray
+    ids: list[str] | None
+    id_column: str | None
+    n_rows: int
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def item_names(self) -> list[str]:
+        return [it.name for it in self.items]
+
+    def meta(self) -> dict:
+        """Everything except the response matrix, as plain JSON-ready values."""
+        return {"name": self.name, "n_rows": self.n_rows, "items": [it.to_dict() for it in self.items],
+                "warnings": list(self.warnings), "id_column": self.id_column}
+
+
+@dataclass(frozen=True)
+class CodebookEntry:
+    item: str
+    text: str
+    construct: str | None
+    reverse: bool
+    min: float | None
+    max: float | None
+
+
+@dataclass(frozen=True)
+class Codebook:
+    entries: dict[str, CodebookEntry]
+    warnings: tuple[str, ...] = ()
+
+
+# --------------------------------------------------------------------------------------------------------
+# small helpers
+
+
+def _norm(name: str) -> str:
+    return re.sub(r"[^0-9a-z]", "", str(name).lower())
+
+
+def _quote_list(names, limit: int = MAX_LISTED) -> str:
+    names = list(names)
+    shown = ", ".join(f"'{n}'" for n in names[:limit])
+    if len(names) > limit:
+        shown += f" and {len(names) - limit} more"
+    return shown
+
+
+def _fmt_num(x: float) -> str:
+    x = float(x)
+    return str(int(x)) if x.is_integer() else f"{x:g}"
+
+
+def _plural(n: int, one: str, many: str | None = None) -> str:
+    return f"{n} {one if n == 1 else (many or one + 's')}"
+
+
+def _is_xlsx(raw: bytes, filename: str) -> bool:
+    return raw[:4] == b"PK\x03\x04" or PurePath(filename or "").suffix.lower() in (".xlsx", ".xlsm")
+
+
+def _decode_bytes(raw: bytes, filename: str) -> tuple[bytes, str, list[str]]:
+    """Return (bytes to parse, pandas encoding name, warnings). UTF-16 is re-encoded to UTF-8."""
+    notes: list[str] = []
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            raw = raw.decode("utf-16").encode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise InputError(f"The file '{filename}' starts like UTF-16 text but cannot be decoded: {exc}.",
+                             code="bad_encoding", details={"file": filename}) from exc
+        return raw, "utf-8", notes
+    try:
+        raw.decode("utf-8")  # validity check only; the text itself is not kept
+        return raw, ("utf-8-sig" if raw[:3] == b"\xef\xbb\xbf" else "utf-8"), notes
+    except UnicodeDecodeError as exc:
+        notes.append(f"The file '{filename}' is not valid UTF-8 (first bad byte at position {exc.start}); "
+                     "it was read as Latin-1 (ISO-8859-1), so check that accented letters look right.")
+        return raw, "latin-1", notes
+
+
+def _sample_text(raw: bytes, encoding: str) -> tuple[str, bool]:
+    """The first SAMPLE_BYTES decoded, cut at the last complete line. Returns (text, whole_file)."""
+    whole = len(raw) <= SAMPLE_BYTES
+    chunk = raw if whole else raw[:SAMPLE_BYTES]
+    if not whole:
+        cut = chunk.rfind(b"\n")
+        if cut > 0:
+            chunk = chunk[:cut]
+    return chunk.decode(encoding, errors="replace"), whole
+
+
+def _detect_delimiter(sample: str, filename: str, *, allow_single: bool = False) -> str:
+    """Pick the delimiter whose field count is the same on every sampled line (most fields wins)."""
+    lines = [ln for ln in sample.splitlines() if ln.strip()][:200]
+    best, best_key = None, None
+    for order, delim in enumerate(CANDIDATE_DELIMITERS):
+        try:
+            counts = [len(r) for r in csv.reader(io.StringIO("\n".join(lines)), delimiter=delim) if r]
+        except csv.Error:
+            continue
+        if not counts:
+            continue
+        header = counts[0]
+        if header < 2:
+            continue
+        consistency = sum(c == header for c in counts) / len(counts)
+        key = (consistency >= 0.999, consistency, header, -order)
+        if best_key is None or key > best_key:
+            best, best_key = delim, key
+    if best is None and allow_single:
+        return ","
+    if best is None:
+        raise InputError(
+            f"The file '{filename}' is not a table: its first line has a single column. Expected a header "
+            "row of column names and one row per respondent, separated by commas, semicolons or tabs.",
+            code="not_a_table", details={"file": filename})
+    return best
+
+
+def _detect_decimal_comma(sample: str, delim: str) -> bool:
+    if delim == ",":
+        return False
+    n_comma = n_dot = 0
+    for row in csv.reader(io.StringIO(sample), delimiter=delim):
+        for cell in row:
+            if _DECIMAL_COMMA.match(cell):
+                n_comma += 1
+            elif _DECIMAL_DOT.match(cell):
+                n_dot += 1
+    return n_comma > n_dot
+
+
+def _scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple[list[str], np.ndarray]:
+    """Check every record has as many fields as the header; return (header, file row number per record).
+
+    Row numbers are 1-based lines of the file (the header is row 1); blank lines are skipped, as the
+    parser skips them. One Python step per line, never per cell.
+    """
+    if b'"' not in raw:
+        lines = raw.split(b"\n")
+        del raw
+        dbyte = delim.encode()
+        header_line, header_no = None, 0
+        rows: list[int] = []
+        expected = 0
+        for no, line in enumerate(lines, start=1):
+            if line.endswith(b"\r"):
+                line = line[:-1]
+            if not line:
+                continue
+            if header_line is None:
+                header_line, header_no = line, no
+                expected = line.count(dbyte) + 1
+                continue
+            found = line.count(dbyte) + 1
+            if found != expected:
+                _raise_ragged(filename, no, expected, found, delim)
+            rows.append(no)
+        if header_line is None:
+            raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+        header = next(csv.reader([header_line.decode(encoding, errors="replace")], delimiter=delim))
+        return header, np.asarray(rows, dtype=np.int64)
+    text = raw.decode(encoding, errors="replace")
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim)
+    header: list[str] | None = None
+    rows = []
+    prev_line = 0
+    try:
+        for rec in reader:
+            start = prev_line + 1
+            prev_line = reader.line_num
+            if not rec:
+                continue
+            if header is None:
+                header = rec
+                continue
+            if len(rec) != len(header):
+                _raise_ragged(filename, start, len(header), len(rec), delim)
+            rows.append(start)
+    except csv.Error as exc:
+        raise InputError(f"The file '{filename}' could not be read as a table near row {prev_line + 1}: {exc}.",
+                         code="not_a_table", details={"file": filename, "row": prev_line + 1}) from exc
+    if header is None:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    return header, np.asarray(rows, dtype=np.int64)
+
+
+def _raise_ragged(filename: str, row: int, expected: int, found: int, delim: str):
+    raise InputError(
+        f"Row {row} of '{filename}' has {found} fields but the header has {expected} "
+        f"({DELIMITER_NAMES.get(delim, repr(delim))}-separated). Every row must have one value per column "
+        "(leave a cell empty for a missing answer).",
+        code="ragged_row", details={"file": filename, "row": row, "expected": expected, "found": found,
+                                    "delimiter": delim})
+
+
+def _unnamed(header: list) -> list[int]:
+    return [j for j, h in enumerate(header)
+            if h is None or (isinstance(h, float) and np.isnan(h)) or not str(h).strip().lstrip("\ufeff").strip()]
+
+
+def _clean_header(header: list, filename: str) -> list[str]:
+    names = []
+    for j, h in enumerate(header):
+        h = "" if h is None or (isinstance(h, float) and np.isnan(h)) else str(h).strip()
+        if h.startswith("\ufeff"):
+            h = h[1:].strip()
+        names.append(h)
+    seen: dict[str, int] = {}
+    for j, h in enumerate(names):
+        if not h:
+            continue
+        if h in seen:
+            raise InputError(
+                f"The file '{filename}' has the column name '{h}' twice (columns {seen[h] + 1} and {j + 1}). "
+                "Column names must be unique.",
+                code="duplicate_columns",
+                details={"file": filename, "column": h, "positions": [seen[h] + 1, j + 1]})
+        seen[h] = j
+    # Unnamed columns get a positional name that cannot clash with a real one.
+    out = []
+    for j, h in enumerate(names):
+        if not h:
+            h = f"column {j + 1}"
+            while h in seen:
+                h += "_"
+        out.append(h)
+    return out
+
+
+def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
+                    ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
+    """Read delimited text. Returns (frame, file row numbers, warnings, info)."""
+    if b"\x00" in raw[:SAMPLE_BYTES]:
+        raise InputError(f"The file '{filename}' is not a table: it contains binary data. Upload a CSV, TSV "
+                         "or XLSX file.", code="not_a_table", details={"file": filename})
+    raw, encoding, notes = _decode_bytes(raw, filename)
+    sample, _ = _sample_text(raw, encoding)
+    if not sample.strip().lstrip("\ufeff").strip():
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    delim = _detect_delimiter(sample.lstrip("\ufeff"), filename, allow_single=as_strings)
+    decimal_comma = (not as_strings) and _detect_decimal_comma(sample, delim)
+    header, row_numbers = _scan_records(raw, encoding, delim, filename)
+    names = _clean_header(header, filename)
+    opts = dict(sep=delim, header=0, names=names, engine="c", skip_blank_lines=True,
+                skipinitialspace=True, encoding=encoding, index_col=False)
+    if as_strings:
+        opts.update(dtype=str, keep_default_na=False)
+    else:
+        opts.update(na_values=EXTRA_NA_VALUES, decimal="," if decimal_comma else ".")
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            df = pd.read_csv(io.BytesIO(raw), **opts)
+    except pd.errors.EmptyDataError as exc:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file",
+                         details={"file": filename}) from exc
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError) as exc:
+        raise InputError(f"The file '{filename}' could not be read as a table: {exc}", code="not_a_table",
+                         details={"file": filename}) from exc
+    if len(row_numbers) != len(df):  # multi-line cells or odd quoting: fall back to record positions
+        row_numbers = np.arange(2, len(df) + 2, dtype=np.int64)
+    info = {"format": "delimited", "delimiter": delim, "encoding": encoding, "decimal_comma": decimal_comma,
+            "unnamed": [names[j] for j in _unnamed(header)]}
+    return df, row_numbers, notes, info
+
+
+def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
+               ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
+    notes: list[str] = []
+    if raw[:4] == b"\xd0\xcf\x11\xe0":
+        raise InputError(f"The file '{filename}' is an old Excel 97-2003 (.xls) workbook; save it as .xlsx "
+                         "or CSV.", code="unsupported_format", details={"file": filename})
+    try:
+        book = pd.ExcelFile(io.BytesIO(raw), engine="openpyxl")
+        sheets = book.sheet_names
+        grid = pd.read_excel(book, sheet_name=sheets[0], header=None, dtype=object if as_strings else None)
+    except InputError:
+        raise
+    except Exception as exc:  # openpyxl raises many types for damaged or foreign files
+        raise InputError(f"The file '{filename}' could not be opened as an XLSX workbook "
+                         f"({type(exc).__name__}: {exc}).", code="not_a_table",
+                         details={"file": filename}) from exc
+    if len(sheets) > 1:
+        notes.append(f"The workbook '{filename}' has {len(sheets)} sheets; only the first, '{sheets[0]}', "
+                     "was read.")
+    grid = grid.dropna(how="all", axis=1)
+    nonblank = np.flatnonzero(grid.notna().any(axis=1).to_numpy())
+    if grid.shape[1] == 0 or len(nonblank) == 0:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    first = nonblank[0]
+    header = [grid.iat[first, j] for j in range(grid.shape[1])]
+    names = _clean_header([_cell_text(h) for h in header], filename)
+    body = grid.iloc[first + 1:]
+    keep = body.notna().any(axis=1).to_numpy()
+    row_numbers = (np.arange(first + 1, len(grid), dtype=np.int64) + 1)[keep]
+    body = body.loc[keep]
+    body.columns = names
+    body = body.reset_index(drop=True)
+    if as_strings:
+        body = body.map(_cell_text)
+    else:
+        body = body.infer_objects()
+    if len(names) < 2 and not as_strings:
+        raise InputError(f"The file '{filename}' is not a table: its first sheet has a single column.",
+                         code="not_a_table", details={"file": filename})
+    return body, row_numbers, notes, {"format": "xlsx", "sheet": sheets[0],
+                                      "unnamed": [names[j] for j in _unnamed(header)]}
+
+
+def _cell_text(v) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        if np.isnan(v):
+            return ""
+        return _fmt_num(v)
+    if isinstance(v, (bool, np.bool_)):
+        return "true" if v else "false"
+    return str(v).strip()
+
+
+def _read_table(raw: bytes, filename: str, *, as_strings: bool = False):
+    if raw is None or len(raw) == 0 or not raw.strip():
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    if _is_xlsx(raw, filename):
+        return _read_xlsx(raw, filename, as_strings=as_strings)
+    return _read_delimited(raw, filename, as_strings=as_strings)
+
+
+# --------------------------------------------------------------------------------------------------------
+# codebook
+
+_CB_ALIASES = {
+    "item": {"item", "items", "itemname", "name", "variable", "var", "column", "itemid", "code"},
+    "text": {"text", "itemtext", "wording", "label", "statement", "question", "content", "stem"},
+    "construct": {"construct", "factor", "scale", "subscale", "dimension", "domain", "facet", "trait"},
+    "reverse": {"reverse", "reversed", "reversekeyed", "reversescored", "reverscoded", "reversecoded", "keyed",
+                "key", "rev"},
+    "min": {"min", "minimum", "scalemin", "low", "lowest"},
+    "max": {"max", "maximum", "scalemax", "high", "highest"},
+}
+_REVERSE_TRUE = {"1", "yes", "y", "true", "t", "r", "rev", "reverse", "reversed", "-", "-1", "neg", "negative"}
+_REVERSE_FALSE = {"0", "no", "n", "false", "f", "", "+", "pos", "positive", "nan", "none", "forward"}
+
+
+def read_codebook(raw: bytes, filename: str) -> Codebook:
+    """Read a codebook (CSV or XLSX) with columns item, text, construct, reverse, optional min and max.
+
+    ``reverse`` accepts 1/0, yes/no, true/false, R (and +/- keying). Raises InputError naming the codebook
+    file, row and value for anything it cannot use.
+    """
+    df, row_numbers, notes, _ = _read_table(raw, filename, as_strings=True)
+    cols: dict[str, str] = {}
+    for c in df.columns:
+        key = _norm(c)
+        for role, aliases in _CB_ALIASES.items():
+            if key in aliases and role not in cols:
+                cols[role] = c
+                break
+    if "item" not in cols:
+        raise InputError(
+            f"The codebook '{filename}' has no 'item' column (found {_quote_list(df.columns, 10)}). It needs "
+            "the columns item, text, construct, reverse and optionally min and max.",
+            code="bad_codebook", details={"file": filename, "columns": [str(c) for c in df.columns]})
+    entries: dict[str, CodebookEntry] = {}
+    first_row: dict[str, int] = {}
+
+    def cell(i: int, role: str) -> str:
+        if role not in cols:
+            return ""
+        v = df[cols[role]].iat[i]
+        return "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip()
+
+    def number(i: int, role: str) -> float | None:
+        s = cell(i, role)
+        if s == "":
+            return None
+        try:
+            return float(s.replace(",", "."))
+        except ValueError:
+            raise InputError(
+                f"The codebook '{filename}' has '{s}' in column '{cols[role]}', row {row_numbers[i]}; "
+                f"{role} must be a number.", code="bad_codebook",
+                details={"file": filename, "column": cols[role], "row": int(row_numbers[i]), "value": s}
+            ) from None
+
+    for i in range(len(df)):
+        name = cell(i, "item")
+        row = int(row_numbers[i])
+        if not name:
+            continue
+        if name in entries:
+            raise InputError(f"The codebook '{filename}' lists item '{name}' twice (rows {first_row[name]} and "
+                             f"{row}).", code="bad_codebook",
+                             details={"file": filename, "column": cols["item"], "row": row, "value": name})
+        rev_text = cell(i, "reverse")
+        rev_key = rev_text.lower()
+        if rev_key in _REVERSE_TRUE:
+            reverse = True
+        elif rev_key in _REVERSE_FALSE:
+            reverse = False
+        else:
+            raise InputError(
+                f"The codebook '{filename}' has '{rev_text}' in column '{cols['reverse']}', row {row} "
+                f"(item '{name}'); reverse must be 1/0, yes/no, true/false or R.", code="bad_codebook",
+                details={"file": filename, "column": cols["reverse"], "row": row, "value": rev_text})
+        lo, hi = number(i, "min"), number(i, "max")
+        if (lo is None) != (hi is None):
+            raise InputError(f"The codebook '{filename}' gives only one of min and max for item '{name}' "
+                             f"(row {row}); give both or neither.", code="bad_codebook",
+                             details={"file": filename, "row": row, "item": name})
+        if lo is not None and not lo < hi:
+            raise InputError(f"The codebook '{filename}' gives min {_fmt_num(lo)} and max {_fmt_num(hi)} for "
+                             f"item '{name}' (row {row}); min must be below max.", code="bad_codebook",
+                             details={"file": filename, "row": row, "item": name, "value": [lo, hi]})
+        construct = cell(i, "construct") or None
+        entries[name] = CodebookEntry(item=name, text=cell(i, "text"), construct=construct, reverse=reverse,
+                                      min=lo, max=hi)
+        first_row[name] = row
+    if not entries:
+        raise InputError(f"The codebook '{filename}' lists no items.", code="bad_codebook",
+                         details={"file": filename})
+    return Codebook(entries=entries, warnings=tuple(notes))
+
+
+# --------------------------------------------------------------------------------------------------------
+# the response file
+
+
+def _column_kind(name: str) -> str | None:
+    key = _norm(name)
+    if key in ID_NAMES or re.search(r"(^|[ _.\-])id$", str(name).strip().lower()):
+        return "id"
+    if key in NON_ITEM_NAMES:
+        return "demographic"
+    return None
+
+
+def _looks_like_dates(values: pd.Series) -> bool:
+    sample = values.dropna().astype(str).head(20)
+    if sample.empty or not sample.str.contains(r"\d").all():
+        return False
+    if not sample.str.contains(r"[-/:.]").all():
+        return False
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore")
+        parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
+    return bool(parsed.notna().all())
+
+
+def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = None,
+                   codebook_filename: str | None = None, missing_codes: list[float] | None = None,
+                   id_column: str | None = None, scale_min: float | None = None,
+                   scale_max: float | None = None) -> ParsedDataset:
+    """Read a response file (rows = respondents, columns = items) and its optional codebook.
+
+    Parameters
+    ----------
+    raw, filename
+        The file's bytes and its name (used in messages and to recognise XLSX).
+    codebook_raw, codebook_filename
+        Optional codebook (CSV or XLSX) with columns item, text, construct, reverse, optional min, max.
+    missing_codes
+        Values that mean "no answer" (e.g. ``[-9, 99]``); they become NaN.
+    id_column
+        The column holding respondent IDs; by default a column named like ``id``/``respondent`` or a text
+        column of unique values is used.
+    scale_min, scale_max
+        The response range of every item when the codebook does not give one.
+
+    Returns
+    -------
+    ParsedDataset
+        RAW responses (not reverse-scored), NaN = missing; items in file order.
+
+    Notes
+    -----
+    Delimiter (comma, semicolon, tab, vertical bar) and decimal comma are detected from the first
+    256 KB; text is read as UTF-8 (with or without BOM) or, failing that, Latin-1 with a warning.
+    Columns that are not items (IDs, free text, dates, demographics) are left out with a warning.
+    Values outside the declared range are set to missing with a warning; rows with no answer at all are
+    dropped with a warning.
+    """
+    filename = filename or "upload"
+    notes: list[str] = []
+    if (scale_min is None) != (scale_max is None):
+        raise InputError("Give both scale_min and scale_max, or neither.", code="bad_range",
+                         details={"scale_min": scale_min, "scale_max": scale_max})
+    if scale_min is not None:
+        scale_min, scale_max = float(scale_min), float(scale_max)
+        if not (np.isfinite(scale_min) and np.isfinite(scale_max) and scale_min < scale_max):
+            raise InputError(f"scale_min ({_fmt_num(scale_min)}) must be below scale_max "
+                             f"({_fmt_num(scale_max)}).", code="bad_range",
+                             details={"scale_min": scale_min, "scale_max": scale_max})
+    codes = [float(c) for c in (missing_codes or [])]
+
+    codebook: Codebook | None = None
+    if codebook_raw is not None and len(codebook_raw) > 0:
+        codebook = read_codebook(codebook_raw, codebook_filename or "codebook")
+        notes.extend(codebook.warnings)
+
+    df, row_numbers, read_notes, _info = _read_table(raw, filename)
+    notes.extend(read_notes)
+    columns = [str(c) for c in df.columns]
+    unnamed = set(_info.get("unnamed", ()))
+
+    # Codebook names are matched exactly, then ignoring case.
+    cb_for: dict[str, CodebookEntry] = {}
+    if codebook is not None:
+        lower = {c.lower(): c for c in columns}
+        for name, entry in codebook.entries.items():
+            if name in columns:
+                cb_for[name] = entry
+            elif name.lower() in lower and lower[name.lower()] not in cb_for:
+                cb_for[lower[name.lower()]] = entry
+
+    if id_column is not None:
+        id_column = str(id_column).strip()
+        if id_column not in columns:
+            match = [c for c in columns if c.lower() == id_column.lower()]
+            if not match:
+                raise InputError(f"The ID column '{id_column}' is not in '{filename}' (its columns are "
+                                 f"{_quote_list(columns, 10)}).", code="unknown_column",
+                                 details={"file": filename, "column": id_column, "columns": columns[:50]})
+            id_column = match[0]
+
+    # ---- classify the columns
+    left_out: list[tuple[str, str]] = []  # (column, why)
+    item_cols: list[str] = []
+    values: dict[str, np.ndarray] = {}
+    bad_cells: list[dict] = []
+    bad_counts: dict[str, int] = {}
+    chosen_id = id_column
+    n = len(df)
+    for c in columns:
+        if c == id_column:
+            continue
+        s = df[c]
+        in_codebook = c in cb_for
+        if s.isna().all():
+            left_out.append((c, "empty"))
+            continue
+        if pd.api.types.is_bool_dtype(s.dtype):
+            left_out.append((c, "true/false values"))
+            continue
+        if pd.api.types.is_datetime64_any_dtype(s.dtype):
+            left_out.append((c, "dates"))
+            continue
+        kind = None if in_codebook else _column_kind(c)
+        if pd.api.types.is_numeric_dtype(s.dtype):
+            if kind == "id":
+                if chosen_id is None:
+                    chosen_id = c
+                else:
+                    left_out.append((c, "ID-like name"))
+                continue
+            if kind == "demographic":
+                left_out.append((c, "demographic or survey-metadata name"))
+                continue
+            values[c] = s.to_numpy(dtype=np.float64, na_value=np.nan)
+            item_cols.append(c)
+            continue
+        # text-typed column: an item column with a few bad cells, or a non-item column
+        num = pd.to_numeric(s, errors="coerce")
+        nonnull = s.notna().to_numpy()
+        isnum = num.notna().to_numpy()
+        share = isnum[nonnull].mean() if nonnull.any() else 0.0
+        if kind == "id" and not in_codebook:
+            if chosen_id is None:
+                chosen_id = c
+            else:
+                left_out.append((c, "ID-like name"))
+            continue
+        if in_codebook or (share >= 0.5 and kind is None):
+            bad = np.flatnonzero(nonnull & ~isnum)
+            bad_counts[c] = len(bad)
+            for i in bad[:MAX_LISTED]:
+                bad_cells.append({"column": c, "row": int(row_numbers[i]), "value": str(s.iat[i])})
+            values[c] = num.to_numpy(dtype=np.float64, na_value=np.nan)
+            item_cols.append(c)
+            continue
+        if kind == "demographic":
+            left_out.append((c, "demographic or survey-metadata name"))
+        elif _looks_like_dates(s):
+            left_out.append((c, "dates"))
+        elif chosen_id is None and id_column is None and s.notna().all() and s.nunique() == n and n >= 3:
+            chosen_id = c
+        else:
+            left_out.append((c, "text"))
+
+    if bad_cells:
+        first = bad_cells[0]
+        shown = "; ".join(f"column '{b['column']}', row {b['row']}: '{b['value']}'" for b in bad_cells[:MAX_LISTED])
+        total = sum(bad_counts.values())
+        raise InputError(
+            f"The file '{filename}' has {_plural(total, 'non-numeric cell')} in item columns that are not "
+            f"declared missing codes ({shown}{'; ...' if total > MAX_LISTED else ''}). Fix them, or declare "
+            "them as missing codes.",
+            code="non_numeric",
+            details={"file": filename, "column": first["column"], "row": first["row"], "value": first["value"],
+                     "cells": bad_cells[:MAX_LISTED], "counts": bad_counts})
+
+    # A first (or unnamed) column of unique, increasing integers numbers the rows: not an item.
+    for c in list(item_cols):
+        if c in cb_for or n < 10 or not (c == columns[0] or c in unnamed):
+            continue
+        v = values[c]
+        if (not np.isnan(v).any() and np.all(v == np.round(v)) and np.all(np.diff(v) > 0)
+                and v[-1] - v[0] >= n - 1):
+            item_cols.remove(c)
+            del values[c]
+            if chosen_id is None:
+                chosen_id = c
+            else:
+                left_out.append((c, "row numbers"))
+
+    if chosen_id is not None and chosen_id != id_column:
+        notes.append(f"Column '{chosen_id}' was used as the respondent ID (not an item); name another column "
+                     "as the ID column if that is wrong.")
+    if left_out:
+        why = "; ".join(f"'{c}' ({w})" for c, w in left_out[:10])
+        more = f"; and {len(left_out) - 10} more" if len(left_out) > 10 else ""
+        one = len(left_out) == 1
+        notes.append(f"{_plural(len(left_out), 'column')} that "
+                     f"{'does not look like an item was' if one else 'do not look like items were'} "
+                     f"left out: {why}{more}.")
+
+    # ---- the matrix
+    k = len(item_cols)
+    responses = np.empty((n, k), dtype=np.float64)
+    for j, c in enumerate(item_cols):
+        responses[:, j] = values.pop(c)
+    ids_series = df[chosen_id] if chosen_id is not None else None
+    del df, values
+
+    if codes:
+        hit = np.isin(responses, np.asarray(codes))
+        n_hit = int(hit.sum())
+        responses[hit] = np.nan
+        if n_hit:
+            notes.append(f"Missing codes {', '.join(_fmt_num(c) for c in codes)} marked "
+                         f"{_plural(n_hit, 'cell')} as missing.")
+
+    # ---- ranges: codebook, else form, else observed
+    mins = np.full(k, np.nan)
+    maxs = np.full(k, np.nan)
+    sources: list[str] = []
+    for j, c in enumerate(item_cols):
+        e = cb_for.get(c)
+        if e is not None and e.min is not None:
+            mins[j], maxs[j] = e.min, e.max
+            sources.append("codebook")
+        elif scale_min is not None:
+            mins[j], maxs[j] = scale_min, scale_max
+            sources.append("form")
+        else:
+            sources.append("observed")
+    declared = np.array([s != "observed" for s in sources], dtype=bool)
+    if declared.any():
+        with np.errstate(invalid="ignore"):
+            outside = (responses < mins) | (responses > maxs)
+        outside[:, ~declared] = False
+        per_item = outside.sum(axis=0)
+        if per_item.any():
+            responses[outside] = np.nan
+            listed = [f"'{item_cols[j]}' {int(per_item[j])} (range {_fmt_num(mins[j])}-{_fmt_num(maxs[j])})"
+                      for j in np.flatnonzero(per_item)]
+            notes.append(f"{_plural(int(per_item.sum()), 'value')} outside the item's range "
+                         f"{'was' if per_item.sum() == 1 else 'were'} set to missing: "
+                         f"{', '.join(listed[:10])}{' and more' if len(listed) > 10 else ''}.")
+        del outside
+
+    # ---- rows with no answer at all
+    empty_rows = np.isnan(responses).all(axis=1) if k else np.ones(n, dtype=bool)
+    n_empty = int(empty_rows.sum())
+    if n_empty:
+        rows = row_numbers[empty_rows]
+        shown = ", ".join(str(int(r)) for r in rows[:MAX_LISTED]) + (", ..." if n_empty > MAX_LISTED else "")
+        notes.append(f"{_plural(n_empty, 'row')} with no item answers {'was' if n_empty == 1 else 'were'} "
+                     f"dropped (file rows {shown}); {_plural(n - n_empty, 'row')} remain.")
+        keep = ~empty_rows
+        responses = responses[keep]
+        row_numbers = row_numbers[keep]
+        if ids_series is not None:
+            ids_series = ids_series[keep]
+    n_rows = responses.shape[0]
+
+    # ---- items that have no valid answer left
+    all_nan = np.isnan(responses).all(axis=0) if n_rows else np.ones(k, dtype=bool)
+    if k and all_nan.any() and n_rows:
+        gone = [item_cols[j] for j in np.flatnonzero(all_nan)]
+        notes.append(f"{_plural(len(gone), 'item')} with no valid answer left {'was' if len(gone) == 1 else 'were'}"
+                     f" left out: {_quote_list(gone, 10)}.")
+        keep_cols = ~all_nan
+        responses = responses[:, keep_cols]
+        item_cols = [c for c, kp in zip(item_cols, keep_cols) if kp]
+        mins, maxs = mins[keep_cols], maxs[keep_cols]
+        sources = [s for s, kp in zip(sources, keep_cols) if kp]
+        k = len(item_cols)
+
+    if k < 2:
+        raise InputError(
+            f"The file '{filename}' has {_plural(k, 'item column')}{': ' + _quote_list(item_cols) if k else ''}; "
+            "at least 2 are needed. Columns left out: "
+            f"{', '.join(f'{c} ({w})' for c, w in left_out[:10]) or 'none'}.",
+            code="too_few_items",
+            details={"file": filename, "items": item_cols, "left_out": [c for c, _ in left_out],
+                     "id_column": chosen_id})
+    if n_rows < 3:
+        raise InputError(f"The file '{filename}' has {_plural(n_rows, 'respondent')} with answers; at least 3 "
+                         "are needed.", code="too_few_respondents",
+                         details={"file": filename, "n_rows": n_rows})
+
+    obs_min = np.nanmin(responses, axis=0)
+    obs_max = np.nanmax(responses, axis=0)
+    observed = np.array([s == "observed" for s in sources], dtype=bool)
+    mins[observed], maxs[observed] = obs_min[observed], obs_max[observed]
+    if observed.any():
+        notes.append(f"No response range was given for {_plural(int(observed.sum()), 'item')}; the range was "
+                     "taken from the answers observed (give scale_min and scale_max or a codebook with min and "
+                     "max if the scale is wider).")
+    constant = np.flatnonzero(obs_min == obs_max)
+    for j in constant:
+        notes.append(f"Item '{item_cols[j]}' is constant (every answer is {_fmt_num(obs_min[j])}); "
+                     "it has no variance.")
+
+    n_missing = np.isnan(responses).sum(axis=0)
+
+    # ---- codebook agreement
+    if codebook is not None:
+        matched_entries = {e.item for e in cb_for.values()}
+        absent = [name for name in codebook.entries if name not in matched_entries]
+        if absent:
+            notes.append(f"{_plural(len(absent), 'codebook item')} {'is' if len(absent) == 1 else 'are'} not in "
+                         f"the file: {_quote_list(absent, 10)}.")
+        uncoded = [c for c in item_cols if c not in cb_for]
+        if uncoded:
+            notes.append(f"{_plural(len(uncoded), 'item')} in the file {'is' if len(uncoded) == 1 else 'are'} not "
+                         f"in the codebook (no text, construct or keying): {_quote_list(uncoded, 10)}.")
+
+    items = []
+    for j, c in enumerate(item_cols):
+        e = cb_for.get(c)
+        items.append(ItemMeta(name=c, text=e.text if e else "", construct=e.construct if e else None,
+                              reverse=bool(e.reverse) if e else False, min=float(mins[j]), max=float(maxs[j]),
+                              n_missing=int(n_missing[j]), range_source=sources[j]))
+
+    ids = None
+    if ids_series is not None:
+        ids = [_id_text(v) for v in ids_series.tolist()]
+        dup = len(ids) - len(set(ids))
+        if dup:
+            notes.append(f"The ID column '{chosen_id}' has {_plural(dup, 'repeated value')}.")
+
+    name = PurePath(filename).stem or filename
+    return ParsedDataset(name=name, items=items, responses=np.ascontiguousarray(responses), ids=ids,
+                         id_column=chosen_id, n_rows=n_rows, warnings=notes)
+
+
+def _id_text(v) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        return "" if np.isnan(v) else _fmt_num(v)
+    return str(v).strip()

@@ -1,0 +1,157 @@
+"""Store: SQLite in WAL mode, raw files byte for byte, immutable snapshots, restarts."""
+from __future__ import annotations
+
+import hashlib
+import math
+import sqlite3
+import threading
+
+import numpy as np
+import pytest
+
+from server.store import DB_NAME, SQLiteStore, Store, StoreBackend
+
+RAW = b"id,Q1,Q2\r\n1,1,2\r\n2,3,4\r\n3,5,\xe9\r\n"  # CRLF and a Latin-1 byte: must come back unchanged
+
+
+def _add(store, raw=RAW, **kw):
+    args = dict(name="pilot", raw=raw, filename="pilot.csv", codebook_raw=None, codebook_filename=None,
+                options={"missing_codes": [-9.0], "id_column": None}, meta={"n_rows": 3})
+    args.update(kw)
+    return store.add_dataset(**args)
+
+
+def test_store_is_sqlite_behind_the_interface(tmp_path):
+    store = Store(tmp_path)
+    assert Store is SQLiteStore
+    assert isinstance(store, StoreBackend)
+    assert (tmp_path / DB_NAME).exists()
+
+
+def test_wal_mode_is_on(tmp_path):
+    store = Store(tmp_path)
+    assert store.journal_mode() == "wal"
+    # A fresh connection from outside sees WAL too (it is stored in the database file).
+    con = sqlite3.connect(tmp_path / DB_NAME)
+    assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    con.close()
+
+
+def test_dataset_round_trip_keeps_bytes_and_hash(tmp_path):
+    store = Store(tmp_path)
+    rec = _add(store, codebook_raw=b"item,text\nQ1,I belong\n", codebook_filename="cb.csv")
+    assert rec["sha256"] == hashlib.sha256(RAW).hexdigest()  # hashlib on the same bytes
+    assert rec["codebook_sha256"] == hashlib.sha256(b"item,text\nQ1,I belong\n").hexdigest()
+    assert store.read_raw(rec["id"]) == RAW
+    assert store.read_codebook(rec["id"]) == b"item,text\nQ1,I belong\n"
+    got = store.get_dataset(rec["id"])
+    assert got == rec
+    assert got["options"] == {"missing_codes": [-9.0], "id_column": None}
+    assert got["meta"] == {"n_rows": 3}
+    assert got["created_at"].endswith("Z")
+
+
+def test_no_codebook_reads_none(tmp_path):
+    store = Store(tmp_path)
+    rec = _add(store)
+    assert store.read_codebook(rec["id"]) is None
+    assert rec["codebook_filename"] is None
+
+
+def test_list_newest_first_and_delete(tmp_path):
+    store = Store(tmp_path)
+    a, b, c = (_add(store, name=n) for n in "abc")
+    assert [d["id"] for d in store.list_datasets()] == [c["id"], b["id"], a["id"]]
+    assert store.delete_dataset(b["id"]) is True
+    assert store.delete_dataset(b["id"]) is False
+    assert store.get_dataset(b["id"]) is None
+    assert not (tmp_path / "datasets" / b["id"]).exists()
+    with pytest.raises(KeyError):
+        store.read_raw(b["id"])
+    assert [d["id"] for d in store.list_datasets()] == [c["id"], a["id"]]
+
+
+def test_unknown_and_malformed_ids(tmp_path):
+    store = Store(tmp_path)
+    assert store.get_dataset("nope") is None
+    assert store.get_snapshot("nope") is None
+    assert store.list_snapshots("nope") == []
+    with pytest.raises(KeyError):
+        store.read_raw("../../etc")
+    with pytest.raises(KeyError):
+        store.add_snapshot("nope", {"name": "x"})
+
+
+def test_snapshots_list_newest_first_and_round_trip(tmp_path):
+    store = Store(tmp_path)
+    ds = _add(store)
+    other = _add(store, name="other")
+    record = {"name": "v1", "items": ["Q1", "Q2"], "reliability": {"alpha": 0.1 + 0.2, "omega": float("nan")},
+              "n": np.int64(3), "loadings": np.array([[0.5, 0.25]])}
+    s1 = store.add_snapshot(ds["id"], record)
+    s2 = store.add_snapshot(ds["id"], {"name": "v2", "parent": s1["id"]})
+    store.add_snapshot(other["id"], {"name": "elsewhere"})
+    assert s1["id"] != s2["id"]
+    assert s1["dataset_id"] == ds["id"] and s1["created_at"].endswith("Z")
+    got = store.get_snapshot(s1["id"])
+    assert set(got) == set(s1) and got["id"] == s1["id"] and got["items"] == ["Q1", "Q2"]
+    assert got["reliability"]["alpha"] == 0.1 + 0.2  # floats round-trip exactly
+    assert math.isnan(got["reliability"]["omega"])
+    assert got["n"] == 3 and got["loadings"] == [[0.5, 0.25]]
+    assert [s["name"] for s in store.list_snapshots(ds["id"])] == ["v2", "v1"]
+    assert "id" not in record  # the caller's dict is not changed
+
+
+def test_snapshots_are_immutable_even_through_sql(tmp_path):
+    store = Store(tmp_path)
+    ds = _add(store)
+    snap = store.add_snapshot(ds["id"], {"name": "v1"})
+    assert not hasattr(store, "update_snapshot") and not hasattr(store, "delete_snapshot")
+    con = sqlite3.connect(tmp_path / DB_NAME)
+    with pytest.raises(sqlite3.DatabaseError, match="immutable"):
+        con.execute("UPDATE snapshots SET record = '{}' WHERE id = ?", (snap["id"],))
+    with pytest.raises(sqlite3.DatabaseError, match="immutable"):
+        con.execute("DELETE FROM snapshots WHERE id = ?", (snap["id"],))
+    con.close()
+    # Deleting the dataset keeps its snapshots.
+    store.delete_dataset(ds["id"])
+    assert store.get_snapshot(snap["id"])["name"] == "v1"
+
+
+def test_restart_sees_everything(tmp_path):
+    store = Store(tmp_path)
+    ds = _add(store)
+    snap = store.add_snapshot(ds["id"], {"name": "v1"})
+    del store
+    again = Store(tmp_path)
+    assert again.get_dataset(ds["id"])["sha256"] == hashlib.sha256(RAW).hexdigest()
+    assert again.read_raw(ds["id"]) == RAW
+    assert again.get_snapshot(snap["id"])["name"] == "v1"
+
+
+def test_concurrent_snapshot_saves_all_land(tmp_path):
+    store = Store(tmp_path)
+    ds = _add(store)
+    ids: list[str] = []
+    lock = threading.Lock()
+
+    def work(t):
+        for i in range(10):
+            s = store.add_snapshot(ds["id"], {"name": f"{t}-{i}"})
+            with lock:
+                ids.append(s["id"])
+
+    threads = [threading.Thread(target=work, args=(t,)) for t in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    listed = store.list_snapshots(ds["id"])
+    assert len(listed) == 40 and len(set(ids)) == 40
+    assert {s["id"] for s in listed} == set(ids)
+
+
+def test_no_temp_files_left(tmp_path):
+    store = Store(tmp_path)
+    ds = _add(store)
+    assert sorted(p.name for p in (tmp_path / "datasets" / ds["id"]).iterdir()) == ["raw"]
