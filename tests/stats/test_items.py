@@ -1,0 +1,124 @@
+"""Item-level reliability (item-rest r, alpha/omega if deleted, pruning path) against references.
+
+Sources: pingouin 0.7 (cronbach_alpha on the data without the item), numpy (correlation of each item
+with the sum of the others), Denis (2016) worked example, and our own mcdonald_omega on the submatrix
+(itself tested against factor_analyzer in test_reliability.py).
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pingouin as pg
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from server.stats.errors import InputError
+from server.stats.items import alpha_if_deleted, item_table, pruning_path
+from server.stats.reliability import mcdonald_omega, reliability_from_cov
+
+REF = Path(__file__).resolve().parents[1] / "reference" / "reliability"
+
+
+@pytest.fixture(scope="module")
+def pg_alpha_data() -> pd.DataFrame:
+    d = pg.read_dataset("cronbach_alpha")
+    return d.pivot(index="Subj", columns="Items", values="Scores")
+
+
+@pytest.fixture(scope="module")
+def holzinger() -> pd.DataFrame:
+    import semopy
+    path = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
+    return pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]
+
+
+def test_item_table_against_pingouin_and_numpy(pg_alpha_data):
+    names = list(pg_alpha_data.columns)
+    rows = item_table(pg_alpha_data.cov().to_numpy(), names=names)
+    assert [r["name"] for r in rows] == names
+    X = pg_alpha_data.to_numpy(dtype=float)
+    for j, row in enumerate(rows):
+        rest = np.delete(X, j, axis=1).sum(axis=1)
+        ref_r = np.corrcoef(X[:, j], rest)[0, 1]
+        assert row["item_rest_r"] == pytest.approx(ref_r, abs=1e-12)  # numpy: item vs sum of the others
+        ref_a = pg.cronbach_alpha(pg_alpha_data.drop(columns=names[j]))[0]
+        assert row["alpha_if_deleted"] == pytest.approx(ref_a, abs=1e-12)  # pingouin without the item
+
+
+def test_denis_item_1():
+    denis = pd.read_csv(REF / "denis2016_cronbach.csv")
+    rows = item_table(denis.cov().to_numpy(), names=list(denis.columns))
+    assert round(rows[0]["item_rest_r"], 3) == 0.712  # Denis (2016): corrected item-total r of Item_1
+
+
+def test_omega_if_deleted_equals_omega_of_submatrix(holzinger, pg_alpha_data):
+    for data in (holzinger, pg_alpha_data):
+        S = data.cov().to_numpy()
+        k = S.shape[0]
+        rows = item_table(S, names=list(data.columns))
+        for j in range(k):
+            keep = [i for i in range(k) if i != j]
+            ref = mcdonald_omega(S[np.ix_(keep, keep)]).omega_total
+            assert rows[j]["omega_if_deleted"] == pytest.approx(ref, abs=1e-6)
+
+
+def test_item_table_small_sets():
+    S = np.array([[1.0, 0.4, 0.3], [0.4, 1.0, 0.5], [0.3, 0.5, 1.0]])
+    rows = item_table(S, names=["a", "b", "c"])
+    assert all(r["omega_if_deleted"] is None for r in rows)  # 2 items left: omega not identified
+    assert rows[0]["alpha_if_deleted"] == pytest.approx(2 * 0.5 / 1.5)  # alpha of b, c: 2r/(1+r)
+    rows2 = item_table(S[:2, :2], names=["a", "b"])
+    assert rows2[0]["alpha_if_deleted"] is None
+
+
+def test_pruning_path_against_pingouin(pg_alpha_data):
+    names = list(pg_alpha_data.columns)
+    S = pg_alpha_data.cov().to_numpy()
+    path = pruning_path(S, names=names)
+    assert path[0]["removed"] is None and path[0]["n_items"] == 10
+    assert path[0]["alpha"] == pytest.approx(pg.cronbach_alpha(pg_alpha_data)[0], abs=1e-12)  # pingouin
+    assert [p["n_items"] for p in path] == list(range(10, 2, -1))
+    kept = list(names)
+    for step in path[1:]:
+        # the removed item is the one whose removal leaves the highest alpha (pingouin per candidate)
+        cand = {c: pg.cronbach_alpha(pg_alpha_data[[x for x in kept if x != c]])[0] for c in kept}
+        best = max(cand.values())
+        assert cand[step["removed"]] == pytest.approx(best, abs=1e-12)
+        kept.remove(step["removed"])
+        assert step["alpha"] == pytest.approx(pg.cronbach_alpha(pg_alpha_data[kept])[0], abs=1e-12)
+        idx = [names.index(x) for x in kept]
+        ref_omega = mcdonald_omega(S[np.ix_(idx, idx)]).omega_total
+        assert step["omega_total"] == pytest.approx(ref_omega, abs=1e-6)
+
+
+def test_pruning_path_min_items(holzinger):
+    S = holzinger.cov().to_numpy()
+    path = pruning_path(S, names=list(holzinger.columns), min_items=5)
+    assert path[-1]["n_items"] == 5 and len(path) == 5
+    with pytest.raises(InputError):
+        pruning_path(S, names=list(holzinger.columns), min_items=1)
+    with pytest.raises(InputError):
+        pruning_path(S, names=["too", "few"])
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), k=st.integers(3, 12))
+def test_alpha_if_deleted_equals_alpha_without_item(seed, k):
+    rng = np.random.default_rng(seed)
+    A = rng.normal(size=(k, k + 3))
+    S = A @ A.T / (k + 3) + np.diag(rng.uniform(0.1, 1.0, size=k))
+    ad = alpha_if_deleted(S)
+    for j in range(k):
+        keep = [i for i in range(k) if i != j]
+        direct = reliability_from_cov(S[np.ix_(keep, keep)], n=50, n_complete=50).alpha
+        assert ad[j] == pytest.approx(direct, abs=1e-10)
+
+
+def test_item_table_json_plain_types(holzinger):
+    import json
+    rows = item_table(holzinger.cov().to_numpy(), names=list(holzinger.columns))
+    path = pruning_path(holzinger.cov().to_numpy(), names=list(holzinger.columns))
+    assert json.dumps({"items": rows, "path": path}, allow_nan=False)
