@@ -20,12 +20,12 @@ import numpy as np
 
 __all__ = [
     "FORMULA_PREFIXES",
-    "neutralise_cell",
     "format_number",
-    "write_csv",
-    "scoring_key_csv",
+    "neutralise_cell",
     "responses_csv",
     "safe_filename",
+    "scoring_key_csv",
+    "write_csv",
 ]
 
 #: First characters that make a spreadsheet evaluate a cell (OWASP CSV injection guidance).

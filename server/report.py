@@ -10,11 +10,11 @@ from __future__ import annotations
 import html
 import math
 from collections.abc import Mapping, Sequence
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from . import __version__
 
-__all__ = ["render_report", "CAUTIONS", "PURPOSE"]
+__all__ = ["CAUTIONS", "PURPOSE", "render_report"]
 
 PURPOSE = (
     "Scalewright is a local dashboard for teams who build rating scales. It takes the responses to a draft "
@@ -24,24 +24,24 @@ PURPOSE = (
 )
 
 CAUTIONS = (
-    "Internal consistency (alpha, omega and the other coefficients here) describes how the items hang "
-    "together in this sample; it is not evidence of validity, and it does not show that the scale measures "
-    "what it was written to measure.",
-    "Exploratory factor analysis and the flags shown are aids to judgement. The thresholds are rules of "
-    "thumb, and removing items because of them capitalises on chance in this sample: confirm the structure "
-    "in new data.",
-    "A scale used for decisions about people (clinical, educational, hiring or similar) needs validity "
-    "evidence, norms and review under the applicable professional testing standards and local rules before "
-    "such use.",
-    "Report every removed item and the reason for its removal together with the final scale "
-    "(Flake & Fried, 2020, on undisclosed measurement flexibility).",
+    ("Internal consistency (alpha, omega and the other coefficients here) describes how the items hang "
+     "together in this sample; it is not evidence of validity, and it does not show that the scale measures "
+     "what it was written to measure."),
+    ("Exploratory factor analysis and the flags shown are aids to judgement. The thresholds are rules of "
+     "thumb, and removing items because of them capitalises on chance in this sample: confirm the structure "
+     "in new data."),
+    ("A scale used for decisions about people (clinical, educational, hiring or similar) needs validity "
+     "evidence, norms and review under the applicable professional testing standards and local rules before "
+     "such use."),
+    ("Report every removed item and the reason for its removal together with the final scale "
+     "(Flake & Fried, 2020, on undisclosed measurement flexibility)."),
 )
 
 _CSS = """
 :root { --ink:#1d232b; --muted:#5b6572; --line:#d5dae1; --accent:#2a5d9f; --omega:#b5541b; }
 * { box-sizing: border-box; }
 body { font: 13px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-serif; color: var(--ink);
-       margin: 0 auto; max-width: 1000px; padding: 24px; }
+       margin: 0 auto; max-width: 1120px; padding: 24px; }
 h1 { font-size: 22px; margin: 0 0 4px; }
 h2 { font-size: 16px; margin: 28px 0 8px; border-bottom: 2px solid var(--ink); padding-bottom: 2px; }
 h3 { font-size: 14px; margin: 16px 0 6px; }
@@ -61,6 +61,7 @@ table.kv th { width: 16em; background: none; font-weight: 500; color: var(--mute
            -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 .caution li { margin: 4px 0; }
 .note { white-space: pre-wrap; }
+span.text { display: inline-block; min-width: 16em; }
 svg text { font: 11px system-ui, Arial, sans-serif; fill: var(--ink); }
 footer { margin-top: 32px; border-top: 1px solid var(--line); padding-top: 8px; color: var(--muted); }
 @page { margin: 14mm; }
@@ -133,6 +134,12 @@ _LABELS = {
     "n_factors": "Factors",
     "pa_iterations": "Parallel-analysis iterations",
     "kmo": "Kaiser-Meyer-Olkin (KMO)",
+    "inter_item_r_range": "Range of inter-item correlations",
+    "items_for_80": "Items needed for alpha .80 (Spearman-Brown)",
+    "items_for_90": "Items needed for alpha .90 (Spearman-Brown)",
+    "min_pairwise_n": "Smallest pairwise n",
+    "min_pair_n": "Smallest pairwise n",
+    "n_complete_rows": "Complete cases",
     "rmsr": "RMSR",
     "rmsea": "RMSEA",
     "tli": "TLI",
@@ -168,9 +175,15 @@ _RELIABILITY_ORDER = ("alpha", "alpha_standardized", "omega_total", "omega_hiera
                       "n_items", "n_complete", "missing")
 
 
+#: Keys of a reliability block that are bookkeeping, not results to print.
+_RELIABILITY_SKIP = {"k", "n", "ci_level", "loadings", "warnings", "items", "min_pair_n"}
+
+
 def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
     pairs = []
-    shown = set()
+    shown = set(_RELIABILITY_SKIP)
+    if "min_pairwise_n" not in block and "min_pair_n" in block:
+        shown.discard("min_pair_n")
     keys = [k for k in _RELIABILITY_ORDER if k in block] + [k for k in block if k not in _RELIABILITY_ORDER]
     for key in keys:
         if key in shown or key.endswith("_ci") and key[:-3] in block:
@@ -180,7 +193,9 @@ def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
         ci = block.get(f"{key}_ci")
         if ci is not None:
             lo, hi = (ci.get("lower"), ci.get("upper")) if isinstance(ci, Mapping) else (tuple(ci) + (None, None))[:2]
-            text += f" <span class=\"muted\">(95% CI {_num(lo)} to {_num(hi)})</span>"
+            level = block.get("ci_level", 0.95) if key == "alpha" else 0.95
+            level = f"{level * 100:.0f}%" if _is_number(level) else "95%"
+            text += f" <span class=\"muted\">({level} CI {_num(lo)} to {_num(hi)})</span>"
         pairs.append((_esc(_label(key)), text))
     return pairs
 
@@ -219,8 +234,8 @@ def _trail_svg(steps: Sequence[Mapping]) -> str:
     def y(v: float) -> float:
         return top + (height - top - bottom) * (1 - (v - lo) / (hi - lo))
 
-    parts = [f"<svg role=\"img\" aria-label=\"Alpha and omega after each removal\" width=\"{width}\" "
-             f"height=\"{height}\" viewBox=\"0 0 {width} {height}\">"]
+    parts = [(f"<svg role=\"img\" aria-label=\"Alpha and omega after each removal\" width=\"{width}\" "
+             f"height=\"{height}\" viewBox=\"0 0 {width} {height}\">")]
     # grid and y axis
     tick = 0.05 if hi - lo <= 0.4 else 0.1
     t = math.ceil(lo / tick - 1e-9) * tick
@@ -327,8 +342,8 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
     head_html = "".join(f"<th class=\"num\">{h}</th>" if i in num_idx else f"<th>{h}</th>"
                         for i, h in enumerate(head))
     out = [f"<table class=\"heat\"><thead><tr>{head_html}</tr></thead><tbody>{''.join(body)}</tbody></table>",
-           "<p class=\"muted\">Pattern loadings; shading grows with the size of the loading (blue positive, red "
-           "negative); the largest loading of each item is bold. h\u00b2 is the communality.</p>"]
+           ("<p class=\"muted\">Pattern loadings; shading grows with the size of the loading (blue positive, red "
+           "negative); the largest loading of each item is bold. h\u00b2 is the communality.</p>")]
     all_flags = [f for item in order for f in flags.get(item, [])]
     all_flags += [f for k, fl in flags.items() if k not in rows for f in fl]
     if all_flags:
@@ -349,7 +364,15 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
     variance = efa.get("variance")
     fit = efa.get("fit")
     pairs = []
-    if variance is not None:
+    if isinstance(variance, Mapping):
+        rows = [[_esc(_label(k))] + [_num(x, 3) for x in v] for k, v in variance.items()
+                if isinstance(v, list) and len(v) == n_factors]
+        if rows:
+            out.append("<h3>Variance explained</h3>")
+            out.append(_table([""] + [_esc(lab) for lab in labels], rows, num_cols=set(range(1, n_factors + 1))))
+        if variance.get("basis"):
+            out.append(f"<p class=\"muted\">{_esc(variance['basis'])}</p>")
+    elif variance is not None:
         pairs.append(("Variance explained", _value(variance)))
     if isinstance(fit, Mapping):
         pairs += [(_esc(_label(k)), _value(v)) for k, v in fit.items()]
@@ -375,9 +398,9 @@ def _items_section(rows: Sequence[Mapping], meta: Mapping[str, Mapping]) -> str:
     body = []
     for r in rows:
         name = r.get("name", r.get("item"))
-        m = meta.get(str(name), {})
-        body.append([_esc(name), _esc(m.get("text") or ""), _esc(m.get("construct") or ""),
-                     "yes" if m.get("reverse") else ""]
+        m = meta.get(str(name)) or r
+        body.append([_esc(name), f"<span class=\"text\">{_esc(m.get('text') or '')}</span>",
+                     _esc(m.get("construct") or ""), "yes" if m.get("reverse") else ""]
                     + [_num(r.get(key), digits) if digits else _num(r.get(key)) for key, _, digits in cols])
     return _table(header, body, num_cols=set(range(4, 4 + len(cols))))
 
@@ -469,7 +492,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         sha_note = (" <strong>The data set now on the server has a different SHA-256 "
                     f"({_esc(dataset['sha256'])}).</strong>")
     n_rows = dataset.get("n_rows") or (analysis.get("dataset") or {}).get("n_rows")
-    generated = datetime.now(timezone.utc).replace(microsecond=0).isoformat()
+    generated = datetime.now(UTC).replace(microsecond=0).isoformat()
     version = snapshot.get("software_version") or __version__
 
     parts = [
@@ -528,8 +551,8 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "<section><h2>Cautions</h2><div class=\"caution\"><ul>",
         "".join(f"<li>{_esc(c)}</li>" for c in CAUTIONS),
         "</ul></div></section>",
-        f"<footer>Scalewright {_esc(version)} &middot; report generated {_esc(generated)} UTC &middot; "
-        f"data set SHA-256 <span class=\"mono\">{_esc(sha)}</span></footer>",
+        (f"<footer>Scalewright {_esc(version)} &middot; report generated {_esc(generated)} UTC &middot; "
+        f"data set SHA-256 <span class=\"mono\">{_esc(sha)}</span></footer>"),
         "</body></html>",
     ]
     return "\n".join(p for p in parts if p)
