@@ -1,0 +1,478 @@
+"""Factorability and how many factors to keep: KMO/MSA, Bartlett, parallel analysis, MAP, Kaiser.
+
+All functions take a correlation matrix (and the sample size where a test needs it); none
+needs the raw responses, so the engine can work from its cached full-pool matrix.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import stats
+
+from server.stats.errors import InputError
+
+__all__ = [
+    "KMOResult",
+    "MAPResult",
+    "ParallelResult",
+    "bartlett_sphericity",
+    "factorability_summary",
+    "kaiser_count",
+    "kmo",
+    "parallel_analysis",
+    "random_correlation_eigenvalues",
+    "retention_summary",
+    "smc",
+    "velicer_map",
+]
+
+_BATCH = 128  # random matrices decomposed per batch; fixed so a seed gives the same draws
+
+
+@dataclass(frozen=True)
+class KMOResult:
+    """Kaiser-Meyer-Olkin measure of sampling adequacy.
+
+    Attributes
+    ----------
+    kmo : float
+        Overall measure.
+    msa : ndarray (k,)
+        Measure of sampling adequacy per item.
+    """
+
+    kmo: float
+    msa: np.ndarray
+
+
+@dataclass(frozen=True)
+class ParallelResult:
+    """Horn's parallel analysis.
+
+    Attributes
+    ----------
+    n_factors : int
+        Number of leading observed eigenvalues above their random threshold.
+    observed : ndarray (k,)
+        Observed eigenvalues (of R, or of the reduced matrix for ``variant="factors"``).
+    threshold : ndarray (k,)
+        The ``percentile`` of the random eigenvalues at each position.
+    variant : str
+        ``"components"`` or ``"factors"``.
+    random_mean : ndarray (k,)
+        Mean random eigenvalue at each position.
+    iterations : int
+    percentile : float
+    seed : int or None
+    """
+
+    n_factors: int
+    observed: np.ndarray
+    threshold: np.ndarray
+    variant: str
+    random_mean: np.ndarray = field(default_factory=lambda: np.empty(0))
+    iterations: int = 0
+    percentile: float = 95.0
+    seed: int | None = None
+
+
+@dataclass(frozen=True)
+class MAPResult:
+    """Velicer's minimum average partial test.
+
+    Attributes
+    ----------
+    n_factors : int
+        Number of components at the minimum average squared partial correlation.
+    values : ndarray (k,)
+        Average squared partial correlation after removing 0, 1, ..., k-1 components.
+    values4 : ndarray (k,)
+        The same with fourth powers (O'Connor 2000).
+    n_factors4 : int
+        Number of components at the minimum of ``values4``.
+    """
+
+    n_factors: int
+    values: np.ndarray
+    values4: np.ndarray
+    n_factors4: int = 0
+
+
+# ----------------------------------------------------------------------------------------------
+# helpers
+
+def _corr(R, names=None) -> np.ndarray:
+    A = np.asarray(R, dtype=float)
+    if A.ndim != 2 or A.shape[0] != A.shape[1]:
+        raise InputError(f"Expected a square correlation matrix, got shape {list(A.shape)}.", code="bad_shape",
+                         details={"shape": list(A.shape)})
+    if A.shape[0] < 2:
+        raise InputError(f"At least 2 items are needed; got {A.shape[0]}.", code="too_few_items",
+                         details={"items": int(A.shape[0])})
+    if not np.isfinite(A).all():
+        raise InputError("The correlation matrix has missing or infinite entries.", code="bad_value")
+    if not np.allclose(A, A.T, atol=1e-8):
+        raise InputError("The correlation matrix is not symmetric.", code="bad_value")
+    return (A + A.T) / 2
+
+
+def _inverse(R: np.ndarray, names=None) -> np.ndarray:
+    """Inverse of a correlation matrix, or an InputError naming what makes it singular."""
+    lam = np.linalg.eigvalsh(R)[0]
+    if lam <= 1e-10 * R.shape[0]:
+        k = R.shape[0]
+        names = list(names) if names is not None else [f"item{j + 1}" for j in range(k)]
+        off = np.abs(R - np.eye(k))
+        i, j = np.unravel_index(np.argmax(off), off.shape)
+        if off[i, j] > 0.9999:
+            msg = (f"Items '{names[i]}' and '{names[j]}' are perfectly correlated (r = {R[i, j]:.4f}), "
+                   "probably duplicates; the correlation matrix is singular. Drop one of them.")
+            details = {"items": [names[i], names[j]], "r": float(R[i, j])}
+        else:
+            msg = (f"The correlation matrix is singular (smallest eigenvalue {lam:.3g}): some item is an "
+                   "exact combination of others. Drop a redundant item.")
+            details = {"smallest_eigenvalue": float(lam)}
+        raise InputError(msg, code="singular_matrix", details=details)
+    return np.linalg.inv(R)
+
+
+def smc(R) -> np.ndarray:
+    """Squared multiple correlation of each item with all others: ``1 - 1 / diag(R^-1)``."""
+    A = _corr(R)
+    return 1.0 - 1.0 / np.diag(_inverse(A))
+
+
+def kaiser_count(eigs) -> int:
+    """Number of eigenvalues greater than 1 (Kaiser 1960), for comparison only.
+
+    References
+    ----------
+    Kaiser, H. F. (1960). The application of electronic computers to factor analysis.
+    Educational and Psychological Measurement, 20(1), 141-151.
+    """
+    return int(np.sum(np.asarray(eigs, dtype=float) > 1.0))
+
+
+# ----------------------------------------------------------------------------------------------
+# factorability
+
+def kmo(R, *, names=None) -> KMOResult:
+    """Kaiser-Meyer-Olkin measure of sampling adequacy, overall and per item.
+
+    Parameters
+    ----------
+    R : array-like (k, k)
+        Correlation matrix (positive definite).
+
+    Returns
+    -------
+    KMOResult
+
+    Notes
+    -----
+    With ``q_ij = -(R^-1)_ij / sqrt((R^-1)_ii (R^-1)_jj)`` the partial (anti-image) correlations,
+    ``KMO = sum_{i!=j} r_ij^2 / (sum_{i!=j} r_ij^2 + sum_{i!=j} q_ij^2)`` and ``MSA_i`` is the same
+    ratio over row ``i``.
+
+    References
+    ----------
+    Kaiser, H. F. (1970). A second generation little jiffy. Psychometrika, 35(4), 401-415.
+    Kaiser, H. F., & Rice, J. (1974). Little jiffy, mark IV. Educational and Psychological
+    Measurement, 34(1), 111-117.
+    """
+    A = _corr(R)
+    inv = _inverse(A, names)
+    d = np.sqrt(np.diag(inv))
+    Q = -inv / d[:, None] / d[None, :]
+    off = ~np.eye(A.shape[0], dtype=bool)
+    r2 = np.where(off, A * A, 0.0)
+    q2 = np.where(off, Q * Q, 0.0)
+    msa = r2.sum(axis=1) / (r2.sum(axis=1) + q2.sum(axis=1))
+    overall = r2.sum() / (r2.sum() + q2.sum())
+    return KMOResult(kmo=float(overall), msa=msa)
+
+
+def bartlett_sphericity(R, n: int, *, names=None) -> tuple[float, int, float]:
+    """Bartlett's test that the population correlation matrix is the identity.
+
+    Parameters
+    ----------
+    R : array-like (k, k)
+        Correlation matrix.
+    n : int
+        Number of respondents.
+
+    Returns
+    -------
+    (chi2, df, p)
+
+    Notes
+    -----
+    ``chi2 = -(n - 1 - (2k + 5) / 6) ln |R|`` on ``k (k - 1) / 2`` degrees of freedom.
+
+    References
+    ----------
+    Bartlett, M. S. (1951). The effect of standardization on a chi-square approximation in
+    factor analysis. Biometrika, 38(3/4), 337-344.
+    """
+    A = _corr(R)
+    k = A.shape[0]
+    _check_n(n, k)
+    sign, logdet = np.linalg.slogdet(A)
+    if sign <= 0 or not np.isfinite(logdet):
+        _inverse(A, names)  # raises a message naming the cause
+        raise InputError("The correlation matrix has a non-positive determinant.", code="singular_matrix")
+    chi2 = -(n - 1 - (2 * k + 5) / 6.0) * logdet
+    df = k * (k - 1) // 2
+    return float(chi2), int(df), float(stats.chi2.sf(chi2, df))
+
+
+def _check_n(n, k):
+    if not isinstance(n, (int, np.integer)) or n < 3:
+        raise InputError(f"The number of respondents must be an integer of at least 3; got {n!r}.",
+                         code="too_few_rows", details={"n": n if isinstance(n, (int, float)) else str(n)})
+
+
+# ----------------------------------------------------------------------------------------------
+# parallel analysis
+
+def random_correlation_eigenvalues(n: int, k: int, *, iterations: int = 500, variant: str = "components",
+                                   seed: int | None = None) -> np.ndarray:
+    """Eigenvalues (descending) of ``iterations`` correlation matrices of n x k normal data.
+
+    Returns an array (iterations, k).
+
+    Notes
+    -----
+    The cross-product matrix of n centred normal observations is Wishart(n - 1, I).  It is drawn
+    directly by the Bartlett decomposition ``W = L L'`` with ``L`` lower triangular,
+    ``L_ii^2 ~ chi2(n - 1 - i)`` (i = 0..k-1) and ``L_ij ~ N(0, 1)`` below the diagonal, then
+    scaled to a correlation matrix; batches are decomposed by one stacked ``eigvalsh``.  This
+    avoids simulating and correlating n x k data, and its cost does not grow with n.  For the
+    ``"factors"`` variant the diagonal is replaced by the squared multiple correlations,
+    ``1 - 1 / diag(R^-1)``, where ``diag(R^-1)_i = W_ii * sum_j (L^-1)_ji^2``.
+
+    References
+    ----------
+    Bartlett, M. S. (1933). On the theory of statistical regression. Proceedings of the Royal
+    Society of Edinburgh, 53, 260-283.
+    """
+    if variant not in ("components", "factors"):
+        raise InputError(f"Unknown parallel-analysis variant {variant!r}; use 'components' or 'factors'.",
+                         code="bad_option", details={"variant": variant})
+    if not isinstance(iterations, (int, np.integer)) or iterations < 1:
+        raise InputError(f"iterations must be a positive integer; got {iterations!r}.", code="bad_option",
+                         details={"iterations": str(iterations)})
+    if n - 1 < k:
+        raise InputError(f"Parallel analysis needs more respondents than items (n = {n}, k = {k}).",
+                         code="too_few_rows", details={"n": int(n), "k": int(k)})
+    rng = np.random.default_rng(seed)
+    dof = (n - 1) - np.arange(k)
+    il = np.tril_indices(k, -1)
+    out = np.empty((iterations, k))
+    for start in range(0, iterations, _BATCH):
+        b = min(_BATCH, iterations - start)
+        L = np.zeros((b, k, k))
+        L[:, np.arange(k), np.arange(k)] = np.sqrt(rng.chisquare(dof, size=(b, k)))
+        L[:, il[0], il[1]] = rng.standard_normal((b, il[0].size))
+        W = L @ L.transpose(0, 2, 1)
+        d = 1.0 / np.sqrt(np.einsum("bii->bi", W))
+        R = W * d[:, :, None] * d[:, None, :]
+        if variant == "factors":
+            Linv = np.linalg.inv(L)
+            diag_winv = np.einsum("bji,bji->bi", Linv, Linv)
+            rinv_diag = diag_winv / (d * d)
+            idx = np.arange(k)
+            R[:, idx, idx] = 1.0 - 1.0 / rinv_diag
+        out[start:start + b] = np.linalg.eigvalsh(R)[:, ::-1]
+    return out
+
+
+def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iterations: int = 500,
+                      percentile: float = 95, variant: str = "components", seed: int | None = None
+                      ) -> ParallelResult:
+    """Horn's parallel analysis against random normal data of the same size.
+
+    Parameters
+    ----------
+    n, k : int
+        Respondents and items.
+    observed_eigenvalues : array-like (k,), optional
+        Observed eigenvalues; used as given (they must match ``variant``).
+    R : array-like (k, k), optional
+        Observed correlation matrix; when given, the observed eigenvalues are computed from it
+        for the chosen variant (``observed_eigenvalues`` is then ignored).
+    iterations : int
+        Number of random matrices.
+    percentile : float
+        Threshold percentile of the random eigenvalues at each position (Glorfeld 1995: 95).
+    variant : {"components", "factors"}
+        ``"components"``: eigenvalues of R.  ``"factors"``: eigenvalues of the reduced matrix
+        with squared multiple correlations on the diagonal, for observed and random alike.
+    seed : int, optional
+        Seed for ``numpy.random.default_rng``; the same seed gives the same result.
+
+    Returns
+    -------
+    ParallelResult
+        ``n_factors`` counts the leading observed eigenvalues that exceed their threshold,
+        stopping at the first that does not.
+
+    References
+    ----------
+    Horn, J. L. (1965). A rationale and test for the number of factors in factor analysis.
+    Psychometrika, 30(2), 179-185.
+    Glorfeld, L. W. (1995). An improvement on Horn's parallel analysis methodology for selecting
+    the correct number of factors to retain. Educational and Psychological Measurement, 55(3),
+    377-393.
+    """
+    if variant not in ("components", "factors"):
+        raise InputError(f"Unknown parallel-analysis variant {variant!r}; use 'components' or 'factors'.",
+                         code="bad_option", details={"variant": variant})
+    if not (0 < percentile < 100):
+        raise InputError(f"percentile must be between 0 and 100; got {percentile!r}.", code="bad_option",
+                         details={"percentile": percentile})
+    _check_n(n, k)
+    if R is not None:
+        A = _corr(R)
+        if A.shape[0] != k:
+            raise InputError(f"R has {A.shape[0]} items but k = {k}.", code="bad_shape")
+        if variant == "factors":
+            A = A.copy()
+            np.fill_diagonal(A, smc(A))
+        observed = np.linalg.eigvalsh(A)[::-1]
+    elif observed_eigenvalues is not None:
+        observed = np.sort(np.asarray(observed_eigenvalues, dtype=float))[::-1]
+        if observed.shape != (k,):
+            raise InputError(f"Expected {k} observed eigenvalues; got {observed.size}.", code="bad_shape")
+    else:
+        raise InputError("Parallel analysis needs the observed eigenvalues or the correlation matrix.",
+                         code="bad_input")
+    rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
+    threshold = np.percentile(rand, percentile, axis=0)
+    above = observed > threshold
+    n_factors = int(k if above.all() else np.argmin(above))
+    return ParallelResult(n_factors=n_factors, observed=observed, threshold=threshold, variant=variant,
+                          random_mean=rand.mean(axis=0), iterations=int(iterations),
+                          percentile=float(percentile), seed=seed)
+
+
+# ----------------------------------------------------------------------------------------------
+# MAP
+
+def velicer_map(R) -> MAPResult:
+    """Velicer's minimum average partial (MAP) test, squared and fourth-power versions.
+
+    Parameters
+    ----------
+    R : array-like (k, k)
+        Correlation matrix.
+
+    Returns
+    -------
+    MAPResult
+
+    Notes
+    -----
+    With ``A_m`` the loadings of the first m principal components (eigenvectors times the square
+    roots of their eigenvalues), the partial covariance is ``C_m = R - A_m A_m'`` and the partial
+    correlations ``C_m,ij / sqrt(C_m,ii C_m,jj)``.  ``values[m]`` is the mean squared
+    off-diagonal partial correlation (m = 0 is R itself), for m = 0..k-1; the number of
+    components is the m at the minimum (O'Connor's 2000 programs).  ``values4`` uses fourth
+    powers (Velicer, Eaton & Fava 2000).
+
+    References
+    ----------
+    Velicer, W. F. (1976). Determining the number of components from the matrix of partial
+    correlations. Psychometrika, 41(3), 321-327.
+    O'Connor, B. P. (2000). SPSS and SAS programs for determining the number of components using
+    parallel analysis and Velicer's MAP test. Behavior Research Methods, Instruments, &
+    Computers, 32(3), 396-402.
+    """
+    A = _corr(R)
+    k = A.shape[0]
+    w, V = np.linalg.eigh(A)
+    order = np.argsort(w)[::-1]
+    w, V = w[order], V[:, order]
+    load = V * np.sqrt(np.maximum(w, 0.0))
+    off = ~np.eye(k, dtype=bool)
+    denom = k * (k - 1)
+    values = np.empty(k)
+    values4 = np.empty(k)
+    values[0] = np.sum(np.where(off, A, 0.0) ** 2) / denom
+    values4[0] = np.sum(np.where(off, A, 0.0) ** 4) / denom
+    for m in range(1, k):
+        C = A - load[:, :m] @ load[:, :m].T
+        d = np.diag(C)
+        if np.any(d <= 1e-12):
+            values[m:] = np.nan
+            values4[m:] = np.nan
+            break
+        s = 1.0 / np.sqrt(d)
+        P = C * s[:, None] * s[None, :]
+        P2 = np.where(off, P * P, 0.0)
+        values[m] = P2.sum() / denom
+        values4[m] = np.sum(P2 * P2) / denom
+    return MAPResult(n_factors=int(np.nanargmin(values)), values=values, values4=values4,
+                     n_factors4=int(np.nanargmin(values4)))
+
+
+# ----------------------------------------------------------------------------------------------
+# JSON-ready summaries for the analysis endpoint
+
+def _floats(a, nd=6):
+    return [None if not np.isfinite(x) else round(float(x), nd) for x in np.asarray(a, dtype=float)]
+
+
+def retention_summary(R, n: int, *, iterations: int = 500, seed: int | None = None,
+                      variant: str = "components", percentile: float = 95) -> dict:
+    """How many factors: parallel analysis, MAP and Kaiser, ready for JSON.
+
+    Returns
+    -------
+    dict
+        ``{"parallel": {"n_factors", "observed", "threshold", "random_mean", "variant",
+        "iterations", "percentile", "seed"}, "map": {"n_factors", "values", "n_factors4",
+        "values4"}, "kaiser": {"n_factors", "eigenvalues"}, "suggested": int}`` where
+        ``suggested`` is parallel analysis's count, at least 1.
+    """
+    A = _corr(R)
+    k = A.shape[0]
+    pa = parallel_analysis(n, k, R=A, iterations=iterations, percentile=percentile, variant=variant,
+                           seed=seed)
+    mp = velicer_map(A)
+    eigs = np.linalg.eigvalsh(A)[::-1]
+    return {
+        "parallel": {"n_factors": pa.n_factors, "observed": _floats(pa.observed),
+                     "threshold": _floats(pa.threshold), "random_mean": _floats(pa.random_mean),
+                     "variant": pa.variant, "iterations": pa.iterations, "percentile": pa.percentile,
+                     "seed": seed},
+        "map": {"n_factors": mp.n_factors, "values": _floats(mp.values, 8),
+                "n_factors4": mp.n_factors4, "values4": _floats(mp.values4, 8)},
+        "kaiser": {"n_factors": kaiser_count(eigs), "eigenvalues": _floats(eigs)},
+        "suggested": max(1, pa.n_factors),
+    }
+
+
+def factorability_summary(R, n: int, *, names=None) -> dict:
+    """KMO, MSA per item, Bartlett's test and the determinant, ready for JSON.
+
+    Returns
+    -------
+    dict
+        ``{"kmo": float, "msa": {item: float} (list when names is None),
+        "bartlett": {"chi2", "df", "p"}, "determinant": float}``.
+    """
+    A = _corr(R)
+    k_res = kmo(A, names=names)
+    chi2, df, p = bartlett_sphericity(A, n, names=names)
+    msa = _floats(k_res.msa)
+    if names is not None:
+        msa = dict(zip([str(s) for s in names], msa))
+    return {
+        "kmo": round(k_res.kmo, 6),
+        "msa": msa,
+        "bartlett": {"chi2": round(chi2, 4), "df": df, "p": float(p)},
+        "determinant": float(np.linalg.det(A)),
+    }

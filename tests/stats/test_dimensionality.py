@@ -1,0 +1,240 @@
+"""Factorability (KMO, Bartlett) and factor retention (parallel analysis, MAP, Kaiser)."""
+from __future__ import annotations
+
+import json
+import os
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from server.stats.correlation import pearson_matrix
+from server.stats.dimensionality import (
+    bartlett_sphericity,
+    factorability_summary,
+    kaiser_count,
+    kmo,
+    parallel_analysis,
+    random_correlation_eigenvalues,
+    retention_summary,
+    smc,
+    velicer_map,
+)
+from server.stats.errors import InputError
+
+HS_ITEMS = [f"x{i}" for i in range(1, 10)]
+
+
+@pytest.fixture(scope="module")
+def hs():
+    """Holzinger & Swineford (1939), 301 pupils, tests x1..x9, as shipped by semopy."""
+    import semopy
+    path = os.path.join(os.path.dirname(semopy.__file__), "examples", "holzinger_swineford39_data.csv")
+    return pd.read_csv(path)[HS_ITEMS]
+
+
+@pytest.fixture(scope="module")
+def hs_R(hs):
+    return pearson_matrix(hs).matrix
+
+
+def _factor_data(n, loadings, seed):
+    rng = np.random.default_rng(seed)
+    L = np.asarray(loadings, float)
+    F = rng.standard_normal((n, L.shape[1]))
+    U = np.sqrt(1 - (L ** 2).sum(axis=1))
+    return F @ L.T + rng.standard_normal((n, L.shape[0])) * U
+
+
+def _three_factor_loadings():
+    L = np.zeros((12, 3))
+    for j in range(12):
+        L[j, j // 4] = 0.7
+    return L
+
+
+# ---------------------------------------------------------------------------------------------
+# KMO and Bartlett
+
+def test_hs_kmo(hs, hs_R):
+    res = kmo(hs_R)
+    assert round(res.kmo, 3) == 0.752  # issue 3: Holzinger & Swineford KMO 0.752
+    from factor_analyzer.factor_analyzer import calculate_kmo
+    msa_ref, kmo_ref = calculate_kmo(hs)
+    assert res.kmo == pytest.approx(kmo_ref, abs=1e-10)  # factor_analyzer 0.5.1 calculate_kmo
+    np.testing.assert_allclose(res.msa, msa_ref, atol=1e-10)  # factor_analyzer calculate_kmo per item
+
+
+def test_hs_bartlett(hs, hs_R):
+    chi2, df, p = bartlett_sphericity(hs_R, 301)
+    assert round(chi2, 1) == 904.1 and df == 36  # issue 3: Bartlett chi-square 904.1 on 36 df
+    from factor_analyzer.factor_analyzer import calculate_bartlett_sphericity
+    chi_ref, p_ref = calculate_bartlett_sphericity(hs)
+    assert chi2 == pytest.approx(chi_ref, rel=1e-10)  # factor_analyzer calculate_bartlett_sphericity
+    assert p == pytest.approx(p_ref, rel=1e-6)  # factor_analyzer calculate_bartlett_sphericity
+
+
+def test_factorability_summary_shape(hs_R):
+    out = factorability_summary(hs_R, 301, names=HS_ITEMS)
+    assert set(out) == {"kmo", "msa", "bartlett", "determinant"}
+    assert list(out["msa"]) == HS_ITEMS
+    assert set(out["bartlett"]) == {"chi2", "df", "p"}
+    assert out["determinant"] == pytest.approx(np.linalg.det(hs_R))  # numpy.linalg.det
+    json.dumps(out)
+    assert isinstance(factorability_summary(hs_R, 301)["msa"], list)
+
+
+def test_identity_matrix_is_unfactorable():
+    chi2, df, p = bartlett_sphericity(np.eye(5), 100)
+    assert chi2 == pytest.approx(0.0, abs=1e-12) and df == 10 and p == pytest.approx(1.0)  # |I| = 1
+
+
+def test_duplicated_item_gives_clear_message():
+    R = np.array([[1.0, 0.5, 0.5], [0.5, 1.0, 1.0], [0.5, 1.0, 1.0]])
+    with pytest.raises(InputError) as err:
+        kmo(R, names=["a", "b", "c"])
+    assert err.value.code == "singular_matrix"
+    assert "'b' and 'c' are perfectly correlated" in err.value.message
+    with pytest.raises(InputError):
+        bartlett_sphericity(R, 50, names=["a", "b", "c"])
+
+
+def test_smc_matches_regression_r2(hs):
+    """SMC of x1 equals the R^2 of regressing x1 on x2..x9 (statsmodels OLS)."""
+    import statsmodels.api as sm
+    R = pearson_matrix(hs).matrix
+    fit = sm.OLS(hs["x1"], sm.add_constant(hs[HS_ITEMS[1:]])).fit()
+    assert smc(R)[0] == pytest.approx(fit.rsquared, abs=1e-10)  # statsmodels OLS rsquared
+
+
+# ---------------------------------------------------------------------------------------------
+# parallel analysis
+
+def test_hs_parallel_analysis_keeps_three(hs_R):
+    for seed in (1, 2):
+        pa = parallel_analysis(301, 9, R=hs_R, iterations=500, seed=seed)
+        assert pa.n_factors == 3  # issue 3: parallel analysis keeps 3 for Holzinger & Swineford
+        assert pa.variant == "components"
+    np.testing.assert_allclose(pa.observed, np.sort(np.linalg.eigvalsh(hs_R))[::-1], atol=1e-12)  # numpy eigvalsh
+    pf = parallel_analysis(301, 9, R=hs_R, iterations=500, seed=1, variant="factors")
+    assert pf.n_factors == 3  # reduced-matrix variant agrees on these data
+    assert kaiser_count(pa.observed) == 3  # eigenvalues 3.216, 1.639, 1.365 > 1 (numpy eigvalsh)
+
+
+def test_parallel_analysis_same_seed_same_result(hs_R):
+    a = parallel_analysis(301, 9, R=hs_R, iterations=200, seed=42)
+    b = parallel_analysis(301, 9, R=hs_R, iterations=200, seed=42)
+    c = parallel_analysis(301, 9, R=hs_R, iterations=200, seed=43)
+    assert np.array_equal(a.threshold, b.threshold) and a.n_factors == b.n_factors
+    assert not np.array_equal(a.threshold, c.threshold)
+
+
+def _naive_eigenvalues(n, k, iterations, seed, variant="components"):
+    rng = np.random.default_rng(seed)
+    out = np.empty((iterations, k))
+    for i in range(iterations):
+        R = np.corrcoef(rng.standard_normal((n, k)), rowvar=False)
+        if variant == "factors":
+            np.fill_diagonal(R, 1 - 1 / np.diag(np.linalg.inv(R)))
+        out[i] = np.linalg.eigvalsh(R)[::-1]
+    return out
+
+
+@pytest.mark.parametrize("variant", ["components", "factors"])
+def test_wishart_eigenvalues_match_naive_simulation(variant):
+    """Bartlett-decomposition draws have the same eigenvalue distribution as simulate-correlate.
+
+    A small n makes the check sensitive: drawing with n instead of n - 1 degrees of freedom
+    moves the means by 3 to 10 standard errors here."""
+    n, k, it = 12, 6, 3000
+    fast = random_correlation_eigenvalues(n, k, iterations=it, variant=variant, seed=1)
+    slow = _naive_eigenvalues(n, k, it, seed=2, variant=variant)
+    se = np.sqrt(fast.var(axis=0) / it + slow.var(axis=0) / it)
+    assert np.all(np.abs(fast.mean(axis=0) - slow.mean(axis=0)) < 4 * se)  # Monte-Carlo error, 4 SE
+    # spread agrees too (ratio of SDs near 1)
+    assert np.all(np.abs(fast.std(axis=0) / slow.std(axis=0) - 1) < 0.12)
+    if variant == "components":
+        np.testing.assert_allclose(fast.sum(axis=1), k, atol=1e-10)  # trace of a correlation matrix
+
+
+def test_parallel_analysis_recovers_three_simulated_factors():
+    X = _factor_data(500, _three_factor_loadings(), seed=4)
+    R = np.corrcoef(X, rowvar=False)
+    assert parallel_analysis(500, 12, R=R, iterations=300, seed=0).n_factors == 3  # simulation truth
+    assert parallel_analysis(500, 12, R=R, iterations=300, seed=0, variant="factors").n_factors == 3
+    assert velicer_map(R).n_factors == 3  # simulation truth
+
+
+def test_parallel_analysis_random_data_keeps_none():
+    X = np.random.default_rng(9).standard_normal((400, 10))
+    R = np.corrcoef(X, rowvar=False)
+    assert parallel_analysis(400, 10, R=R, iterations=300, seed=0).n_factors == 0  # pure noise
+
+
+def test_parallel_analysis_accepts_eigenvalues_and_checks_input(hs_R):
+    eig = np.linalg.eigvalsh(hs_R)
+    a = parallel_analysis(301, 9, observed_eigenvalues=eig, iterations=100, seed=3)
+    b = parallel_analysis(301, 9, R=hs_R, iterations=100, seed=3)
+    assert a.n_factors == b.n_factors and np.array_equal(a.threshold, b.threshold)
+    with pytest.raises(InputError):
+        parallel_analysis(301, 9, iterations=100)
+    with pytest.raises(InputError):
+        parallel_analysis(301, 9, R=hs_R, variant="pcs")
+    with pytest.raises(InputError):
+        parallel_analysis(8, 9, R=hs_R)
+
+
+# ---------------------------------------------------------------------------------------------
+# MAP
+
+def test_hs_map_keeps_two(hs_R):
+    res = velicer_map(hs_R)
+    assert res.n_factors == 2  # issue 3: MAP keeps 2 for Holzinger & Swineford
+    assert res.values.shape == (9,) and res.values4.shape == (9,)
+    off = hs_R[~np.eye(9, dtype=bool)]
+    assert res.values[0] == pytest.approx(np.mean(off ** 2))  # step 0 is the mean squared correlation
+    assert res.values4[0] == pytest.approx(np.mean(off ** 4))
+
+
+def test_map_partial_correlations_match_regression_residuals():
+    """After m components, MAP's partial correlation equals the correlation of residuals from
+    regressing two items on the first m component scores (statsmodels OLS)."""
+    import statsmodels.api as sm
+    X = _factor_data(300, _three_factor_loadings(), seed=8)
+    Z = (X - X.mean(0)) / X.std(0, ddof=1)
+    R = np.corrcoef(Z, rowvar=False)
+    w, V = np.linalg.eigh(R)
+    V = V[:, ::-1]
+    m = 2
+    scores = Z @ V[:, :m]
+    e0 = sm.OLS(Z[:, 0], scores).fit().resid
+    e5 = sm.OLS(Z[:, 5], scores).fit().resid
+    ref = np.corrcoef(e0, e5)[0, 1]
+    load = V[:, :m] * np.sqrt(w[::-1][:m])
+    C = R - load @ load.T
+    ours = C[0, 5] / np.sqrt(C[0, 0] * C[5, 5])
+    assert ours == pytest.approx(ref, abs=1e-10)  # statsmodels OLS residual correlation
+    res = velicer_map(R)
+    s = 1 / np.sqrt(np.diag(C))
+    P = C * s[:, None] * s[None, :]
+    assert res.values[m] == pytest.approx(np.mean(P[~np.eye(12, dtype=bool)] ** 2))
+
+
+# ---------------------------------------------------------------------------------------------
+# summaries
+
+def test_retention_summary(hs_R):
+    out = retention_summary(hs_R, 301, iterations=200, seed=5)
+    assert set(out) == {"parallel", "map", "kaiser", "suggested"}
+    assert out["suggested"] == out["parallel"]["n_factors"] == 3  # issue 3: parallel analysis keeps 3
+    assert out["map"]["n_factors"] == 2  # issue 3: MAP keeps 2
+    assert out["kaiser"]["n_factors"] == 3
+    assert len(out["parallel"]["threshold"]) == 9
+    json.dumps(out)
+    assert out == retention_summary(hs_R, 301, iterations=200, seed=5)
+
+
+def test_suggested_is_at_least_one():
+    X = np.random.default_rng(9).standard_normal((400, 6))
+    out = retention_summary(np.corrcoef(X, rowvar=False), 400, iterations=100, seed=1)
+    assert out["parallel"]["n_factors"] == 0 and out["suggested"] == 1
