@@ -105,8 +105,9 @@ def flag_items(pattern, *, names: Sequence[str], communalities=None, factor_labe
     * ``misplaced``: the primary factor is labelled with a construct other than the item's own;
     * ``heywood``: reported by the extraction, or communality ``>= heywood_communality``;
     * ``reverse_suspect`` (item not declared reverse): item-rest r below ``item_rest_min`` (0), or the
-      primary loading's sign is opposite to the typical sign of its construct's other items on that
-      factor (to the factor's direction when the item has no construct-mates there).
+      primary loading (of at least ``cross_min`` in size, so noise-level loadings are ignored) has the
+      sign opposite to the median loading of its construct's other items on that factor (opposite to
+      the factor's direction, which is positive, when it has no construct-mates there).
 
     References
     ----------
