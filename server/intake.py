@@ -22,7 +22,7 @@ import pandas as pd
 
 from .stats.errors import InputError
 
-__all__ = ["ItemMeta", "ParsedDataset", "read_responses", "read_codebook", "Codebook", "CodebookEntry"]
+__all__ = ["Codebook", "CodebookEntry", "ItemMeta", "ParsedDataset", "read_codebook", "read_responses"]
 
 CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
@@ -227,7 +227,7 @@ def _scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple
         lines = raw.split(b"\n")
         del raw
         dbyte = delim.encode()
-        header_line, header_no = None, 0
+        header_line, _header_no = None, 0
         rows: list[int] = []
         expected = 0
         for no, line in enumerate(lines, start=1):
@@ -236,7 +236,7 @@ def _scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple
             if not line:
                 continue
             if header_line is None:
-                header_line, header_no = line, no
+                header_line, _header_no = line, no
                 expected = line.count(dbyte) + 1
                 continue
             found = line.count(dbyte) + 1
@@ -248,8 +248,7 @@ def _scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple
         header = next(csv.reader([header_line.decode(encoding, errors="replace")], delimiter=delim))
         return header, np.asarray(rows, dtype=np.int64)
     text = raw.decode(encoding, errors="replace")
-    if text.startswith("\ufeff"):
-        text = text[1:]
+    text = text.removeprefix("\ufeff")
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim)
     header: list[str] | None = None
     rows = []
@@ -331,8 +330,8 @@ def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
     decimal_comma = (not as_strings) and _detect_decimal_comma(sample, delim)
     header, row_numbers = _scan_records(raw, encoding, delim, filename)
     names = _clean_header(header, filename)
-    opts = dict(sep=delim, header=0, names=names, engine="c", skip_blank_lines=True,
-                skipinitialspace=True, encoding=encoding, index_col=False)
+    opts = {"sep": delim, "header": 0, "names": names, "engine": "c", "skip_blank_lines": True,
+                "skipinitialspace": True, "encoding": encoding, "index_col": False}
     if as_strings:
         opts.update(dtype=str, keep_default_na=False)
     else:

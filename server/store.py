@@ -29,7 +29,7 @@ from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 
-__all__ = ["StoreBackend", "SQLiteStore", "Store", "DB_NAME", "new_id", "utc_now"]
+__all__ = ["DB_NAME", "SQLiteStore", "Store", "StoreBackend", "new_id", "utc_now"]
 
 DB_NAME = "scalewright.sqlite3"
 SCHEMA_VERSION = 1
@@ -71,7 +71,7 @@ def new_id() -> str:
 
 def utc_now() -> str:
     """The current time as ISO 8601 UTC with microseconds, e.g. ``2026-12-02T01:40:00.123456Z``."""
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def _json_default(o: Any):

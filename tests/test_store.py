@@ -15,8 +15,8 @@ RAW = b"id,Q1,Q2\r\n1,1,2\r\n2,3,4\r\n3,5,\xe9\r\n"  # CRLF and a Latin-1 byte: 
 
 
 def _add(store, raw=RAW, **kw):
-    args = dict(name="pilot", raw=raw, filename="pilot.csv", codebook_raw=None, codebook_filename=None,
-                options={"missing_codes": [-9.0], "id_column": None}, meta={"n_rows": 3})
+    args = {"name": "pilot", "raw": raw, "filename": "pilot.csv", "codebook_raw": None, "codebook_filename": None,
+                "options": {"missing_codes": [-9.0], "id_column": None}, "meta": {"n_rows": 3}}
     args.update(kw)
     return store.add_dataset(**args)
 

@@ -1,4 +1,211 @@
-"""Placeholder: filled in by its owner."""
-from fastapi import APIRouter
+"""Datasets API: upload (multipart), list, read and delete response files.
 
-router = APIRouter()
+``POST /api/datasets`` takes multipart form data: ``file`` (CSV, TSV or other delimited text, XLSX),
+optional ``codebook`` (CSV or XLSX), and optional fields ``missing_codes`` ("-9,99"), ``id_column``,
+``scale_min``, ``scale_max`` and ``name``.  It answers 201 with :class:`~server.api.schemas.DatasetOut`.
+Bad files are 4xx with the one JSON error shape, naming file, column, row and value; an upload over
+``settings.max_upload_bytes`` is 413 (checked from Content-Length first, and counted while reading).
+"""
+from __future__ import annotations
+
+import math
+from pathlib import PurePath
+
+from fastapi import APIRouter, Request, Response
+from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import JSONResponse
+from starlette.datastructures import UploadFile
+from starlette.formparsers import MultiPartException, MultiPartParser
+
+from ..intake import read_responses
+from ..stats.errors import InputError
+from .errors import ApiError, not_found
+from .schemas import DatasetOut
+
+router = APIRouter(tags=["datasets"])
+
+# Room for the multipart boundaries, part headers and the small form fields around the files.
+MULTIPART_SLACK = 64 * 1024
+
+
+class _TooLarge(Exception):
+    pass
+
+
+def _too_large(limit: int, what: str = "The upload") -> ApiError:
+    mb = limit / (1024 * 1024)
+    return ApiError(413, "too_large",
+                    f"{what} is larger than the limit of {mb:g} MB (the server's max_upload_mb setting).",
+                    {"limit_bytes": limit})
+
+
+def _text_field(form, name: str) -> str | None:
+    value = form.get(name)
+    if value is None or isinstance(value, UploadFile):
+        return None
+    value = str(value).strip()
+    return value or None
+
+
+def _number_field(form, name: str) -> float | None:
+    text = _text_field(form, name)
+    if text is None:
+        return None
+    try:
+        value = float(text.replace(",", "."))
+    except ValueError:
+        value = math.nan
+    if not math.isfinite(value):
+        raise ApiError(422, "bad_field", f"The field '{name}' must be a number; got '{text}'.",
+                       {"field": name, "value": text})
+    return value
+
+
+def parse_missing_codes(text: str | None) -> list[float]:
+    """'-9, 99' -> [-9.0, 99.0]; separators: comma, semicolon or whitespace."""
+    if not text:
+        return []
+    codes = []
+    for part in text.replace(";", ",").replace(" ", ",").split(","):
+        part = part.strip()
+        if not part:
+            continue
+        try:
+            value = float(part)
+        except ValueError:
+            value = math.nan
+        if not math.isfinite(value):
+            raise ApiError(422, "bad_field", f"Missing codes must be numbers separated by commas "
+                           f"(e.g. -9,99); '{part}' is not a number.", {"field": "missing_codes", "value": part})
+        codes.append(value)
+    return codes
+
+
+async def _read_form(request: Request, limit: int):
+    ctype = request.headers.get("content-type", "")
+    if not ctype.lower().startswith("multipart/form-data"):
+        raise ApiError(415, "unsupported_media_type", "Send the response file as multipart/form-data with the "
+                       "field 'file' (and optionally 'codebook').", {"content_type": ctype})
+    length = request.headers.get("content-length")
+    if length and length.isdigit() and int(length) > limit + MULTIPART_SLACK:
+        raise _too_large(limit)
+
+    async def counted():
+        total = 0
+        async for chunk in request.stream():
+            total += len(chunk)
+            if total > limit + MULTIPART_SLACK:
+                raise _TooLarge()
+            yield chunk
+
+    parser = MultiPartParser(request.headers, counted(), max_files=4, max_fields=32)
+    try:
+        return await parser.parse()
+    except _TooLarge:
+        raise _too_large(limit) from None
+    except MultiPartException as exc:
+        raise ApiError(400, "bad_multipart", f"The upload could not be read as multipart form data: "
+                       f"{exc.message}", {}) from None
+
+
+async def _file_field(form, name: str, limit: int) -> tuple[bytes, str] | None:
+    value = form.get(name)
+    if not isinstance(value, UploadFile):
+        return None
+    filename = PurePath(value.filename or name).name or name
+    data = await value.read()
+    if not data and not value.filename:  # a browser sends an empty part when no file was chosen
+        return None
+    if len(data) > limit:
+        raise _too_large(limit, f"The file '{filename}'")
+    return data, filename
+
+
+def _parse(raw: bytes, filename: str, **kw):
+    try:
+        return read_responses(raw, filename, **kw)
+    except InputError:
+        raise
+    except Exception as exc:  # never a 500 for a bad file: name the file and what went wrong
+        raise InputError(f"The file '{filename}' could not be read ({type(exc).__name__}: {exc}).",
+                         code="unreadable_file", details={"file": filename}) from exc
+
+
+def dataset_out(record: dict) -> dict:
+    """The public JSON shape of a stored dataset record (DatasetOut)."""
+    meta = record.get("meta") or {}
+    items = meta.get("items") or []
+    return {
+        "id": record["id"], "name": record["name"], "n_rows": int(meta.get("n_rows", 0)),
+        "n_items": len(items), "items": items, "warnings": list(meta.get("warnings") or []),
+        "sha256": record["sha256"], "id_column": meta.get("id_column"), "created_at": record["created_at"],
+        "filename": record["filename"], "codebook_filename": record.get("codebook_filename"),
+        "size_bytes": int(record.get("size_bytes", 0)), "options": record.get("options") or {},
+    }
+
+
+def _forget(request: Request, dataset_id: str) -> None:
+    forget = getattr(request.app.state.engine, "forget", None)
+    if callable(forget):
+        forget(dataset_id)
+
+
+@router.post("/datasets", status_code=201, responses={201: {"model": DatasetOut}})
+async def upload_dataset(request: Request):
+    """Upload a response file (and optional codebook); answers 201 with the dataset and its warnings."""
+    limit = request.app.state.settings.max_upload_bytes
+    form = await _read_form(request, limit)
+    try:
+        upload = await _file_field(form, "file", limit)
+        if upload is None:
+            raise ApiError(422, "missing_file", "Choose a response file to upload (form field 'file').",
+                           {"field": "file"})
+        raw, filename = upload
+        codebook = await _file_field(form, "codebook", limit)
+        cb_raw, cb_name = codebook if codebook else (None, None)
+        if len(raw) + len(cb_raw or b"") > limit:
+            raise _too_large(limit)
+        options = {
+            "missing_codes": parse_missing_codes(_text_field(form, "missing_codes")),
+            "id_column": _text_field(form, "id_column"),
+            "scale_min": _number_field(form, "scale_min"),
+            "scale_max": _number_field(form, "scale_max"),
+        }
+        name = _text_field(form, "name")
+    finally:
+        await form.close()
+
+    parsed = await run_in_threadpool(_parse, raw, filename, codebook_raw=cb_raw, codebook_filename=cb_name,
+                                     **options)
+    meta = parsed.meta()
+    meta.pop("name", None)
+    store = request.app.state.store
+    record = await run_in_threadpool(
+        store.add_dataset, name=(name or parsed.name)[:200], raw=raw, filename=filename, codebook_raw=cb_raw,
+        codebook_filename=cb_name, options=options, meta=meta)
+    _forget(request, record["id"])
+    return JSONResponse(dataset_out(record), status_code=201)
+
+
+@router.get("/datasets", responses={200: {"model": list[DatasetOut]}})
+def list_datasets(request: Request):
+    """All datasets, newest first."""
+    return [dataset_out(r) for r in request.app.state.store.list_datasets()]
+
+
+@router.get("/datasets/{dataset_id}", responses={200: {"model": DatasetOut}})
+def get_dataset(dataset_id: str, request: Request):
+    """One dataset (the same shape as the upload's answer)."""
+    record = request.app.state.store.get_dataset(dataset_id)
+    if record is None:
+        raise not_found("dataset", dataset_id)
+    return dataset_out(record)
+
+
+@router.delete("/datasets/{dataset_id}", status_code=204)
+def delete_dataset(dataset_id: str, request: Request):
+    """Delete a dataset and its raw files (its snapshots are kept). 404 if unknown."""
+    if not request.app.state.store.delete_dataset(dataset_id):
+        raise not_found("dataset", dataset_id)
+    _forget(request, dataset_id)
+    return Response(status_code=204)
