@@ -100,7 +100,7 @@ def _validate(body: SnapshotIn, known: list[str]) -> list[dict]:
         code = normalise_code(r.code)
         if code is not None and code not in REASON_CODES:
             raise _bad("unknown_reason_code", f"Removed item '{r.item}' has the code '{r.code}'; use one of "
-                       + ", ".join(REASON_CODES) + " (or none).", item=r.item, code=r.code,
+                       + ", ".join(REASON_CODES) + " (or none).", item=r.item, reason_code=r.code,
                        allowed=list(REASON_CODES))
         removed.append({"item": r.item, "reason": reason, "code": code})
     return removed
@@ -265,7 +265,10 @@ def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
         "software_version": __version__,
         "parent": body.parent,
     }
-    stored = store.add_snapshot(dataset_id, snapshot)
+    try:
+        stored = store.add_snapshot(dataset_id, snapshot)
+    except KeyError:  # the data set was deleted while we computed
+        raise not_found("dataset", dataset_id) from None
     return JSONResponse(jsonable_encoder(stored), status_code=201)
 
 

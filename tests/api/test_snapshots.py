@@ -158,7 +158,7 @@ def test_compare(client, dataset_id):
     ra, rb = a["analysis"]["reliability"], b["analysis"]["reliability"]
     assert cmp_["coefficients"]["alpha"] == {"a": ra["alpha"], "b": rb["alpha"], "change": rb["alpha"] - ra["alpha"]}
     assert cmp_["coefficients"]["omega_total"]["change"] == rb["omega_total"] - ra["omega_total"]
-    assert cmp_["coefficients"]["n_items"] == {"a": 7, "b": 7, "change": 0}
+    assert cmp_["coefficients"]["n_items"] == {"a": 7, "b": 6, "change": -1}
     common = {row["item"]: row for row in cmp_["loadings"]}
     assert set(common) == set(KEPT) - {"Q7"}
     for item, row in common.items():
