@@ -552,7 +552,7 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
             raise InputError(f"Every unit needs the same number of ratings; row {i + 1} has {totals[i]:g} "
                              f"and row 1 has {totals[0]:g}.", code="unequal_raters",
                              details={"row": i + 1})
-        m = int(round(totals[0])) if table.size else 0
+        m = round(float(totals[0])) if table.size else 0
     else:
         arr = np.asarray(data, dtype=object)
         if arr.ndim != 2:

@@ -99,7 +99,7 @@ def _compare(a: np.ndarray, b: np.ndarray, *, ci: float) -> dict:
 
 
 def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
-           items_second: list[str] | None = None, ci: float = 0.95) -> dict:
+           items_second: list[str] | None = None, ids: list[str] | None = None, ci: float = 0.95) -> dict:
     """Test-retest (or parallel-forms) stability of a scale's total score and of each item.
 
     Parameters
@@ -113,6 +113,8 @@ def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
     items, items_second : list of str, optional
         Item names of the two matrices (for the per-item results); ``items_second`` names the
         parallel form's items, paired with ``items`` by position.
+    ids : list of str, optional
+        Respondent IDs of the rows, returned beside the plotted scores as ``score_ids``.
     ci : float
         Confidence level.
 
@@ -125,7 +127,7 @@ def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
         ``interpretation`` (Koo & Li reading of the recommended ICC's interval), ``sem``,
         ``mdc95``, ``mean_difference``, ``mean_difference_ci``, ``sd_difference``,
         ``limits_of_agreement {lower, upper}``, ``means``/``sds`` per wave, ``scores``
-        (``[[first, second], ...]`` per kept respondent), ``per_item`` (list with the same
+        (``[[first, second], ...]`` per kept respondent), ``score_ids`` (their IDs when given), ``per_item`` (list with the same
         statistics per item pair, plus ``item`` and ``item_second``), ``formulas``, ``warnings``.
 
     Notes
@@ -193,6 +195,12 @@ def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
     out["items"] = items
     out["items_second"] = items_second
     out["scores"] = [[float(x), float(y)] for x, y in zip(ta[both], tb[both])]
+    if ids is not None:
+        if len(ids) != A.shape[0]:
+            raise InputError(f"{len(ids)} IDs were given for {A.shape[0]} rows.", code="mismatched_rows")
+        out["score_ids"] = [str(i) for i, keep in zip(ids, both) if keep]
+    else:
+        out["score_ids"] = None
     per_item: list[dict] = []
     if A.shape[1] == B.shape[1]:
         for j in range(A.shape[1]):
@@ -204,7 +212,6 @@ def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
         warnings.append("Per-item results need the same number of items in both forms; they are omitted.")
     out["per_item"] = per_item
     out["formulas"] = {"sem": SEM_FORMULA, "mdc95": MDC_FORMULA, "limits_of_agreement": LOA_FORMULA}
-    for w in out["icc"]["warnings"]:
-        warnings.append(w)
+    warnings.extend(out["icc"]["warnings"])
     out["warnings"] = warnings
     return out

@@ -13,9 +13,18 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from server.stats.agreement import (ICC_FORMS, agreement_summary, cohen_kappa, fleiss_kappa, icc,
-                                    koo_li_label, krippendorff_alpha, landis_koch_label, percent_agreement,
-                                    weighted_kappa)
+from server.stats.agreement import (
+    ICC_FORMS,
+    agreement_summary,
+    cohen_kappa,
+    fleiss_kappa,
+    icc,
+    koo_li_label,
+    krippendorff_alpha,
+    landis_koch_label,
+    percent_agreement,
+    weighted_kappa,
+)
 from server.stats.errors import InputError
 
 REF = Path(__file__).resolve().parents[1] / "reference" / "agreement"
