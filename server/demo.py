@@ -43,8 +43,9 @@ def _add(store, name: str, responses: Path, role: str) -> str:
     parsed = read_responses(raw, responses.name, codebook_raw=codebook_raw,
                             codebook_filename=DEMO_CODEBOOK.name,
                             missing_codes=DEMO_OPTIONS["missing_codes"], id_column=DEMO_OPTIONS["id_column"])
-    meta = {"n_rows": parsed.n_rows, "items": [item.to_dict() for item in parsed.items],
-            "warnings": list(parsed.warnings), "id_column": parsed.id_column, "demo": role}
+    meta = parsed.meta()          # the same metadata an upload stores (routes_datasets)
+    meta.pop("name", None)
+    meta["demo"] = role
     record = store.add_dataset(name=name, raw=raw, filename=responses.name, codebook_raw=codebook_raw,
                                codebook_filename=DEMO_CODEBOOK.name, options=dict(DEMO_OPTIONS), meta=meta)
     return record["id"]

@@ -277,3 +277,20 @@ def test_demo_start_loads_once_across_restarts(tmp_path):
     second = create_app(settings).state.store.list_datasets()    # a restart on the same data folder
     assert sorted(r["name"] for r in first) == sorted([DEMO_NAME, DEMO_RETEST_NAME])
     assert [r["id"] for r in second] == [r["id"] for r in first]
+
+
+def test_demo_datasets_are_listed_by_the_api(tmp_path):
+    pytest.importorskip("server.intake")
+    from fastapi.testclient import TestClient
+
+    from server.app import create_app
+    from server.settings import Settings
+
+    with TestClient(create_app(Settings(data_dir=tmp_path / "data", demo=True))) as client:
+        listed = {d["name"]: d for d in client.get("/api/datasets").json()}
+    assert set(listed) == {DEMO_NAME, DEMO_RETEST_NAME}
+    wave1, wave2 = listed[DEMO_NAME], listed[DEMO_RETEST_NAME]
+    assert (wave1["n_rows"], wave2["n_rows"]) == (400, 150)
+    assert wave1["id_column"] == wave2["id_column"] == "respondent"
+    assert wave1["options"]["missing_codes"] == [-9]
+    assert {"W1", "C3", "O8"} <= {it["name"] for it in wave1["items"]}
