@@ -505,8 +505,12 @@ def _previous_matrix(previous, names: list[str]) -> tuple[np.ndarray | None, lis
     rows = [i for i, n in enumerate(names) if n in loads]
     if not rows:
         return None, [], []
-    M = np.array([[np.nan if v is None else float(v) for v in loads[names[i]]] for i in rows], dtype=float)
-    if M.ndim != 2 or not np.all(np.isfinite(M)):
+    try:
+        M = np.array([[np.nan if v is None else float(v) for v in loads[names[i]]] for i in rows], dtype=float)
+    except (TypeError, ValueError):
+        raise InputError("The previous solution's loadings must be lists of numbers of one length, one "
+                         "list per item.", code="bad_previous", details={}) from None
+    if M.ndim != 2 or M.shape[1] == 0 or not np.all(np.isfinite(M)):
         return None, [], []
     labels = list(prev.get("factors") or [f"Factor {j + 1}" for j in range(M.shape[1])])
     return M, rows, labels

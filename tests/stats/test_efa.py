@@ -269,3 +269,17 @@ def test_bad_input():
         efa.extract(R + np.triu(np.full((3, 3), 0.01), 1), 1)
     with pytest.raises(InputError, match="Unknown rotation"):
         efa.factor_analysis(R, 1, rotation="spin")
+
+
+def test_previous_with_other_factor_counts_and_bad_previous():
+    R, names, constructs, _, _ = simulate(n=1500)
+    two = efa.factor_analysis(R, 2, n=1500, names=names, constructs=constructs)
+    three = efa.factor_analysis(R, 3, n=1500, names=names, constructs=constructs, previous=two.to_dict())
+    assert three.factors[:2] == ["A", "B"]  # the two matched factors keep their places
+    assert "had 2 factors" in three.match
+    np.testing.assert_allclose(np.diag(efa.congruence(three.pattern[:, :2], two.pattern)), 1.0, atol=0.1)
+    with pytest.raises(InputError, match="one length") as e:
+        efa.factor_analysis(R, 2, n=1500, names=names, previous={"loadings": {"A1": [1, 2], "A2": [1]}})
+    assert e.value.code == "bad_previous"
+    unrelated = efa.factor_analysis(R, 2, n=1500, names=names, previous={"loadings": {"zz": [1.0, 0.0]}})
+    assert "shares no items" in unrelated.match

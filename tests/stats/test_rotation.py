@@ -90,7 +90,7 @@ def test_pattern_phi_T_consistent(method):
     np.testing.assert_allclose(np.diag(res.phi), 1.0, atol=1e-10)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=12, deadline=None)
 @given(arrays(np.float64, (7, 3), elements=st.floats(-0.9, 0.9, allow_nan=False)))
 def test_oblique_rotations_reproduce_the_common_part(A):
     # any rotation leaves the reproduced correlations A A' = P phi P' unchanged (identity, Harman 1976)
