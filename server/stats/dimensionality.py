@@ -289,6 +289,27 @@ def random_correlation_eigenvalues(n: int, k: int, *, iterations: int = 500, var
     return out
 
 
+_REFERENCE_CACHE: dict = {}
+_REFERENCE_CACHE_SIZE = 64
+
+
+def _random_reference(n, k, iterations, variant, seed, percentile):
+    """Percentile and mean of the random eigenvalues; memoised for integer seeds (same draws)."""
+    key = (n, k, iterations, variant, seed, percentile)
+    seeded = isinstance(seed, (int, np.integer)) and not isinstance(seed, bool)
+    if seeded and key in _REFERENCE_CACHE:
+        threshold, mean = _REFERENCE_CACHE[key]
+        return threshold.copy(), mean.copy()
+    rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
+    threshold = np.percentile(rand, percentile, axis=0)
+    mean = rand.mean(axis=0)
+    if seeded:
+        if len(_REFERENCE_CACHE) >= _REFERENCE_CACHE_SIZE:
+            _REFERENCE_CACHE.pop(next(iter(_REFERENCE_CACHE)))
+        _REFERENCE_CACHE[key] = (threshold.copy(), mean.copy())
+    return threshold, mean
+
+
 def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iterations: int = 500,
                       percentile: float = 95, variant: str = "components", seed: int | None = None
                       ) -> ParallelResult:
@@ -311,7 +332,9 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
         ``"components"``: eigenvalues of R.  ``"factors"``: eigenvalues of the reduced matrix
         with squared multiple correlations on the diagonal, for observed and random alike.
     seed : int, optional
-        Seed for ``numpy.random.default_rng``; the same seed gives the same result.
+        Seed for ``numpy.random.default_rng``; the same seed gives the same result.  With an
+        integer seed the random thresholds are memoised per (n, k, iterations, variant, seed,
+        percentile), so a repeated request does not redraw them.
 
     Returns
     -------
@@ -334,6 +357,9 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
         raise InputError(f"percentile must be between 0 and 100; got {percentile!r}.", code="bad_option",
                          details={"percentile": percentile})
     _check_n(n, k)
+    if not isinstance(iterations, (int, np.integer)) or isinstance(iterations, bool) or iterations < 1:
+        raise InputError(f"iterations must be a positive integer; got {iterations!r}.", code="bad_option",
+                         details={"iterations": str(iterations)})
     if R is not None:
         A = _corr(R)
         if A.shape[0] != k:
@@ -349,12 +375,12 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
     else:
         raise InputError("Parallel analysis needs the observed eigenvalues or the correlation matrix.",
                          code="bad_input")
-    rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
-    threshold = np.percentile(rand, percentile, axis=0)
+    threshold, random_mean = _random_reference(int(n), int(k), int(iterations), variant, seed,
+                                               float(percentile))
     above = observed > threshold
     n_factors = int(k if above.all() else np.argmin(above))
     return ParallelResult(n_factors=n_factors, observed=observed, threshold=threshold, variant=variant,
-                          random_mean=rand.mean(axis=0), iterations=int(iterations),
+                          random_mean=random_mean, iterations=int(iterations),
                           percentile=float(percentile), seed=seed)
 
 

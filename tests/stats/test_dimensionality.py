@@ -127,6 +127,13 @@ def test_parallel_analysis_same_seed_same_result(hs_R):
     c = parallel_analysis(301, 9, R=hs_R, iterations=200, seed=43)
     assert np.array_equal(a.threshold, b.threshold) and a.n_factors == b.n_factors
     assert not np.array_equal(a.threshold, c.threshold)
+    # the draws themselves are reproducible (not only the memoised thresholds)
+    e1 = random_correlation_eigenvalues(301, 9, iterations=300, seed=7)
+    e2 = random_correlation_eigenvalues(301, 9, iterations=300, seed=7)
+    assert np.array_equal(e1, e2)
+    # a memoised result is a copy: changing it does not change the next answer
+    a.threshold[:] = 0
+    assert np.array_equal(parallel_analysis(301, 9, R=hs_R, iterations=200, seed=42).threshold, b.threshold)
 
 
 def _naive_eigenvalues(n, k, iterations, seed, variant="components"):
