@@ -1,0 +1,60 @@
+// All network calls of the dashboard. Same origin only; the access token (when the server is shared on
+// the network) travels as a cookie set by ?token=, and also as a header when the page URL carries it.
+
+const pageToken = new URLSearchParams(location.search).get("token");
+
+export class ApiProblem extends Error {
+  constructor(status, body) {
+    const err = (body && body.error) || {};
+    super(err.message || `The server answered ${status}.`);
+    this.status = status;
+    this.code = err.code || "http_error";
+    this.details = err.details || {};
+  }
+}
+
+function withToken(url) {
+  if (!pageToken) return url;
+  const u = new URL(url, location.origin);
+  u.searchParams.set("token", pageToken);
+  return u.pathname + u.search;
+}
+
+async function call(method, url, { json, form, signal } = {}) {
+  const headers = {};
+  if (pageToken) headers["X-Scalewright-Token"] = pageToken;
+  let body;
+  if (json !== undefined) {
+    headers["Content-Type"] = "application/json";
+    body = JSON.stringify(json);
+  } else if (form) {
+    body = form;
+  }
+  const res = await fetch(url, { method, headers, body, signal, credentials: "same-origin" });
+  const text = await res.text();
+  let data = null;
+  try { data = text ? JSON.parse(text) : null; } catch { data = { error: { message: text.slice(0, 300) } }; }
+  if (!res.ok) throw new ApiProblem(res.status, data);
+  return data;
+}
+
+export const api = {
+  health: () => call("GET", "/api/health"),
+  listDatasets: () => call("GET", "/api/datasets"),
+  getDataset: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}`),
+  deleteDataset: (id) => call("DELETE", `/api/datasets/${encodeURIComponent(id)}`),
+  upload: (form) => call("POST", "/api/datasets", { form }),
+  analyse: (id, body, signal) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`, { json: body, signal }),
+  listSnapshots: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}/snapshots`),
+  saveSnapshot: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/snapshots`, { json: body }),
+  getSnapshot: (sid) => call("GET", `/api/snapshots/${encodeURIComponent(sid)}`),
+  compareSnapshots: (a, b) => call("GET", `/api/snapshots/${encodeURIComponent(a)}/compare/${encodeURIComponent(b)}`),
+  restoreSnapshot: (sid) => call("GET", `/api/snapshots/${encodeURIComponent(sid)}/restore`),
+  reportUrl: (sid) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/report`),
+  scoringKeyUrl: (sid) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/scoring-key`),
+  responsesUrl: (sid, scored) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/responses${scored ? "?scored=true" : ""}`),
+  retest: (body) => call("POST", "/api/retest", { json: body }),
+  agreement: (body) => call("POST", "/api/agreement", { json: body }),
+  postEvent: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/events`, { json: body }),
+  events: (id) => new EventSource(withToken(`/api/datasets/${encodeURIComponent(id)}/events`)),
+};

@@ -1,0 +1,187 @@
+// Every plotly call of the dashboard. plotly.min.js is served by our own server (/vendor/plotly.min.js).
+/* global Plotly */
+
+const INK = "#1d2a33";
+const MUTED = "#6b7780";
+const GRID = "#e3e0d8";
+export const ACCENT = "#23607a";   // deep blue-teal
+export const WARM = "#b8621b";     // burnt orange
+const OMEGA = "#6a4c93";           // plum
+// Diverging, colour-blind-safe (blue <-> orange through a warm paper white), centred on 0.
+const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
+
+const config = { displaylogo: false, responsive: true, displayModeBar: false };
+
+function fontSize() { return document.body.classList.contains("projector") ? 17 : 12; }
+
+function base(extra = {}) {
+  return {
+    font: { family: "system-ui, 'Segoe UI', Roboto, 'DejaVu Sans', sans-serif", size: fontSize(), color: INK },
+    paper_bgcolor: "rgba(0,0,0,0)", plot_bgcolor: "rgba(0,0,0,0)",
+    margin: { l: 60, r: 20, t: 36, b: 48 },
+    hoverlabel: { bgcolor: "#fffdf8", bordercolor: GRID, font: { color: INK } },
+    ...extra,
+  };
+}
+
+function draw(el, traces, layout) {
+  if (!window.Plotly) { el.textContent = "The chart library did not load."; return Promise.resolve(); }
+  return Plotly.react(el, traces, layout, config);
+}
+
+export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
+
+// rows: [{name, text, values: [...], flagged: bool, flagText}]; factors: labels
+export function loadingsHeatmap(el, { rows, factors, groups = [], title }) {
+  const y = rows.map((r) => (r.flagged ? `⚑ ${r.name}` : r.name));
+  const z = rows.map((r) => r.values);
+  const custom = rows.map((r) => factors.map(() => [r.text || "", r.flagText || ""]));
+  const trace = {
+    type: "heatmap", x: factors, y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
+    colorscale: DIVERGING, xgap: 2, ygap: 2,
+    texttemplate: "%{z:.2f}", textfont: { size: fontSize() - 1 },
+    hovertemplate: "<b>%{y}</b> on %{x}: %{z:.3f}<br>%{customdata[0]}<br><i>%{customdata[1]}</i><extra></extra>",
+    colorbar: { title: { text: "loading", side: "right" }, thickness: 10, len: 0.6, tickvals: [-1, -0.5, 0, 0.5, 1] },
+  };
+  const rowPx = document.body.classList.contains("projector") ? 30 : 22;
+  const longest = Math.max(4, ...y.map((s) => s.length));
+  // a rule between the groups of items that share a primary factor
+  const shapes = [];
+  for (let i = 1; i < groups.length; i += 1) {
+    if (groups[i] !== groups[i - 1]) shapes.push({ type: "line", xref: "paper", x0: -0.02, x1: 1, y0: i - 0.5, y1: i - 0.5, line: { color: INK, width: 2 } });
+  }
+  const layout = base({
+    title: { text: title, x: 0, y: 0.995, yanchor: "top", font: { size: fontSize() + 2 } },
+    height: Math.max(260, rows.length * rowPx + 110), shapes,
+    margin: { l: 16 + longest * fontSize() * 0.62, r: 20, t: 70, b: 20 },
+    xaxis: { side: "top", tickfont: { size: fontSize() } },
+    yaxis: { autorange: "reversed", tickfont: { size: fontSize() } },
+  });
+  return draw(el, [trace], layout);
+}
+
+export function factorCorrelations(el, { factors, matrix }) {
+  const trace = {
+    type: "heatmap", x: factors, y: factors, z: matrix, zmin: -1, zmax: 1, zmid: 0, colorscale: DIVERGING,
+    texttemplate: "%{z:.2f}", showscale: false, xgap: 2, ygap: 2,
+    hovertemplate: "%{y} with %{x}: %{z:.3f}<extra></extra>",
+  };
+  const layout = base({
+    title: { text: "Factor correlations", x: 0, font: { size: fontSize() + 1 } },
+    height: 90 + factors.length * 44, width: 110 + factors.length * 70,
+    margin: { l: 80, r: 10, t: 60, b: 10 }, xaxis: { side: "top" }, yaxis: { autorange: "reversed" },
+  });
+  return draw(el, [trace], layout);
+}
+
+// items: [{name, text, alpha_if_deleted}], alpha: current alpha
+export function alphaIfDeleted(el, { items, alpha }) {
+  const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
+  const trace = {
+    type: "scatter", mode: "markers", x: items.map((it) => it.name), y: items.map((it) => it.alpha_if_deleted),
+    customdata: items.map((it) => it.text || ""),
+    marker: { size: 11, color: better.map((b) => (b ? WARM : ACCENT)), symbol: better.map((b) => (b ? "triangle-up" : "circle")),
+      line: { width: 1, color: "#fff" } },
+    hovertemplate: "<b>%{x}</b>: alpha without it %{y:.3f}<br>%{customdata}<extra></extra>",
+    name: "alpha if this item is dropped",
+  };
+  const shapes = alpha == null ? [] : [{ type: "line", xref: "paper", x0: 0, x1: 1, y0: alpha, y1: alpha,
+    line: { color: INK, width: 2, dash: "dash" } }];
+  const annotations = alpha == null ? [] : [{ xref: "paper", x: 1, y: alpha, yanchor: "bottom", xanchor: "right",
+    text: `current alpha ${alpha.toFixed(3)}`, showarrow: false, font: { color: INK } }];
+  const layout = base({
+    title: { text: "Alpha if each item is dropped (above the line: the scale is better without it)", x: 0,
+      font: { size: fontSize() + 1 } },
+    height: 320, shapes, annotations, showlegend: false,
+    xaxis: { tickangle: -45, gridcolor: GRID }, yaxis: { title: { text: "alpha" }, gridcolor: GRID, tickformat: ".2f" },
+  });
+  return draw(el, [trace], layout);
+}
+
+// path: [{removed, n_items, alpha, omega_total}] (first entry: the current set, removed null)
+export function pruningPath(el, { path }) {
+  const x = path.map((p) => p.n_items);
+  const label = path.map((p) => (p.removed ? `after dropping ${p.removed}` : "current set"));
+  const alpha = { type: "scatter", mode: "lines+markers", name: "alpha", x, y: path.map((p) => p.alpha),
+    customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
+    hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
+  const omega = { type: "scatter", mode: "lines+markers", name: "omega (total)", x, y: path.map((p) => p.omega_total),
+    customdata: label, line: { color: OMEGA, width: 2, dash: "dot" }, marker: { size: 6, symbol: "diamond" },
+    hovertemplate: "%{x} items (%{customdata}): omega %{y:.3f}<extra></extra>" };
+  const layout = base({
+    title: { text: "Pruning path: dropping the item that costs least, one at a time", x: 0, font: { size: fontSize() + 1 } },
+    height: 320, legend: { orientation: "h", y: -0.25 },
+    xaxis: { title: { text: "items kept" }, range: [Math.max(...x) + 0.5, Math.min(...x) - 0.5], dtick: 1, gridcolor: GRID },
+    yaxis: { title: { text: "coefficient" }, gridcolor: GRID, tickformat: ".2f" },
+  });
+  return draw(el, [alpha, omega], layout);
+}
+
+export function scree(el, { observed, threshold, suggested, chosen }) {
+  const x = observed.map((_, i) => i + 1);
+  const traces = [
+    { type: "scatter", mode: "lines+markers", name: "observed eigenvalues", x, y: observed,
+      line: { color: ACCENT, width: 3 }, marker: { size: 8 }, hovertemplate: "factor %{x}: %{y:.3f}<extra></extra>" },
+  ];
+  if (threshold && threshold.length) {
+    traces.push({ type: "scatter", mode: "lines", name: "parallel-analysis threshold (random data)", x, y: threshold,
+      line: { color: WARM, width: 2, dash: "dash" }, hovertemplate: "random %{x}: %{y:.3f}<extra></extra>" });
+  }
+  const shapes = [];
+  if (chosen) shapes.push({ type: "line", x0: chosen + 0.5, x1: chosen + 0.5, yref: "paper", y0: 0, y1: 1,
+    line: { color: MUTED, width: 1, dash: "dot" } });
+  const layout = base({
+    title: { text: `Scree against parallel analysis (suggests ${suggested ?? "?"})`, x: 0, font: { size: fontSize() + 1 } },
+    height: 340, shapes, legend: { orientation: "h", y: -0.2 },
+    xaxis: { title: { text: "factor" }, dtick: 1, gridcolor: GRID }, yaxis: { title: { text: "eigenvalue" }, gridcolor: GRID },
+  });
+  return draw(el, traces, layout);
+}
+
+export function mapCurve(el, { values: all, best }) {
+  const values = all.slice(0, Math.max(6, (best ?? 0) * 2 + 3)); // the tail climbs steeply and hides the minimum
+  const x = values.map((_, i) => i);
+  const trace = { type: "scatter", mode: "lines+markers", x, y: values, line: { color: OMEGA, width: 2 },
+    marker: { size: x.map((i) => (i === best ? 13 : 7)), color: x.map((i) => (i === best ? WARM : OMEGA)) },
+    hovertemplate: "%{x} factors partialled out: %{y:.4f}<extra></extra>" };
+  const layout = base({
+    title: { text: `Velicer's MAP (lowest at ${best ?? "?"})`, x: 0, font: { size: fontSize() + 1 } }, height: 260,
+    xaxis: { title: { text: "factors partialled out" }, dtick: 1, gridcolor: GRID, range: [-0.3, values.length - 0.7] },
+    yaxis: { title: { text: "avg. squared partial r" }, gridcolor: GRID },
+  });
+  return draw(el, [trace], layout);
+}
+
+export function retestScatter(el, { x, y, ids, labelX, labelY }) {
+  const all = x.concat(y).filter((v) => v != null);
+  const lo = Math.min(...all);
+  const hi = Math.max(...all);
+  const pts = { type: "scatter", mode: "markers", x, y, text: ids, name: "respondents",
+    marker: { color: ACCENT, size: 7, opacity: 0.6 }, hovertemplate: "%{text}: %{x} then %{y}<extra></extra>" };
+  const identity = { type: "scatter", mode: "lines", x: [lo, hi], y: [lo, hi], name: "same score both times",
+    line: { color: WARM, dash: "dash", width: 2 }, hoverinfo: "skip" };
+  const layout = base({ title: { text: "Score in each wave", x: 0 }, height: 360, legend: { orientation: "h", y: -0.2 },
+    xaxis: { title: { text: labelX }, gridcolor: GRID }, yaxis: { title: { text: labelY }, gridcolor: GRID, scaleanchor: "x" } });
+  return draw(el, [pts, identity], layout);
+}
+
+export function blandAltman(el, { means, diffs, ids, meanDiff, loa }) {
+  const pts = { type: "scatter", mode: "markers", x: means, y: diffs, text: ids, name: "respondents",
+    marker: { color: ACCENT, size: 7, opacity: 0.6 }, hovertemplate: "%{text}: mean %{x:.2f}, difference %{y:.2f}<extra></extra>" };
+  const line = (v, label, dash) => ({ type: "line", xref: "paper", x0: 0, x1: 1, y0: v, y1: v, line: { color: WARM, dash, width: 2 }, name: label });
+  const shapes = [];
+  const annotations = [];
+  if (meanDiff != null) {
+    shapes.push(line(meanDiff, "mean difference", "solid"));
+    annotations.push({ xref: "paper", x: 1, y: meanDiff, xanchor: "right", yanchor: "bottom", showarrow: false, text: `mean ${meanDiff.toFixed(2)}` });
+  }
+  for (const v of loa || []) {
+    if (v == null) continue;
+    shapes.push(line(v, "limit of agreement", "dash"));
+    annotations.push({ xref: "paper", x: 1, y: v, xanchor: "right", yanchor: "bottom", showarrow: false, text: `limit ${v.toFixed(2)}` });
+  }
+  const layout = base({ title: { text: "Bland-Altman: difference against mean", x: 0 }, height: 360, shapes, annotations,
+    showlegend: false, xaxis: { title: { text: "mean of the two waves" }, gridcolor: GRID },
+    yaxis: { title: { text: "second minus first" }, gridcolor: GRID, zeroline: true } });
+  return draw(el, [pts], layout);
+}

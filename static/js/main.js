@@ -1,0 +1,364 @@
+// Wiring: load the state from the URL, run the refit queue, route between views, live collaboration.
+import { api } from "./api.js";
+import {
+  VIEWS, actions, allItems, analysisRequest, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
+  shared, state, undo, writeUrl,
+} from "./state.js";
+import { clear, fmt, h } from "./views/dom.js";
+import * as alphaView from "./views/alpha.js";
+import * as boardView from "./views/board.js";
+import * as factorsView from "./views/factors.js";
+import * as loadingsView from "./views/loadings.js";
+import * as settingsView from "./views/settings.js";
+import * as snapshotsView from "./views/snapshots.js";
+import * as stabilityView from "./views/stability.js";
+import * as startView from "./views/start.js";
+
+const views = { start: startView, board: boardView, loadings: loadingsView, alpha: alphaView, factors: factorsView,
+  settings: settingsView, snapshots: snapshotsView, stability: stabilityView };
+const LABELS = { start: "Start", board: "Items", loadings: "Loadings", alpha: "Alpha curves", factors: "How many factors",
+  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement" };
+const NEEDS_ANALYSIS = new Set(["board", "loadings", "alpha", "factors"]);
+
+const $ = (sel) => document.querySelector(sel);
+const main = () => $("#view");
+export const timings = { marks: [] };
+window.scalewright = { state, timings };
+
+// ---------------------------------------------------------------- rendering
+function renderTabs() {
+  const nav = clear($("#tabs"));
+  for (const v of VIEWS) {
+    const disabled = v !== "start" && !state.dataset;
+    nav.append(h("button", { role: "tab", id: `tab-${v}`, "aria-selected": String(state.view === v), disabled,
+      class: state.view === v ? "on" : "", text: LABELS[v], onclick: () => actions.show(v) }));
+  }
+}
+
+function renderSummary() {
+  const box = clear($("#summary"));
+  const a = state.analysis;
+  const p = state.previous;
+  document.body.classList.toggle("busy", state.pending);
+  $("#undo").disabled = !canUndo();
+  $("#redo").disabled = !canRedo();
+  $("#save-snapshot").disabled = !state.dataset;
+  $("#dataset-name").textContent = state.meta ? state.meta.name : "no dataset open";
+  if (!state.dataset) return;
+  const total = allItems().length;
+  const kept = total - state.dropped.length;
+  const delta = (key, get) => {
+    const now = get(a);
+    const before = p ? get(p) : null;
+    if (now == null || before == null || Math.abs(now - before) < 0.0005) return null;
+    const d = now - before;
+    return h("span", { class: `delta ${d > 0 ? "up" : "down"}`, text: `${d > 0 ? "+" : "−"}${fmt(Math.abs(d))}` });
+  };
+  const rel = a?.reliability || {};
+  const stat = (id, label, value, extra) => h("div", { class: "stat", id }, h("span", { class: "label", text: label }),
+    h("span", { class: "value", text: value }), extra);
+  box.append(
+    stat("stat-alpha", "α", fmt(rel.alpha), delta("alpha", (x) => x?.reliability?.alpha)),
+    stat("stat-ci", "95% CI", rel.alpha_ci ? `${fmt(rel.alpha_ci[0], 2)}–${fmt(rel.alpha_ci[1], 2)}` : "—"),
+    stat("stat-omega", "ω", fmt(rel.omega_total), delta("omega", (x) => x?.reliability?.omega_total)),
+    stat("stat-items", "items", `${kept} / ${total}`),
+    stat("stat-factors", "factors", a?.efa?.n_factors != null ? String(a.efa.n_factors) : "—"),
+    stat("stat-kmo", "KMO", fmt(a?.factorability?.kmo, 2)),
+  );
+  if (state.pending) box.append(h("span", { class: "spinner", role: "status", text: "refitting…" }));
+  if (state.error) box.append(h("span", { class: "error", role: "alert", text: state.error.message }));
+  const warnings = a?.warnings || [];
+  const w = clear($("#analysis-warnings"));
+  if (warnings.length) {
+    w.append(h("details", {}, h("summary", { text: `${warnings.length} note${warnings.length === 1 ? "" : "s"} from the analysis` }),
+      h("ul", {}, warnings.map((t) => h("li", { text: t })))));
+  }
+}
+
+function renderView() {
+  renderTabs();
+  const view = views[state.view] || startView;
+  const el = main();
+  el.setAttribute("aria-labelledby", `tab-${state.view}`);
+  if (NEEDS_ANALYSIS.has(state.view) && !state.analysis) {
+    clear(el).append(h("p", { class: "note", text: state.error ? state.error.message : "Computing…" }));
+    return;
+  }
+  view.render(el, state);
+}
+
+function renderAll() {
+  renderSummary();
+  renderView();
+  writeUrl();
+}
+
+// ---------------------------------------------------------------- refit queue (latest state wins)
+let inFlight = false;
+let debounce = null;
+let generation = 0;
+
+function refit({ immediate = false } = {}) {
+  if (!state.dataset || !state.meta) return;
+  state.pending = true;
+  renderSummary();
+  clearTimeout(debounce);
+  debounce = setTimeout(runRefit, immediate ? 0 : 40);
+}
+
+async function runRefit() {
+  if (inFlight) return; // the running request re-checks the state when it ends
+  inFlight = true;
+  const gen = ++generation;
+  const body = analysisRequest();
+  const key = JSON.stringify(body);
+  const started = performance.now();
+  let applied = false;
+  try {
+    const answer = await api.analyse(state.dataset, body);
+    if (JSON.stringify(analysisRequest()) === key) {
+      state.previous = state.analysis;
+      state.analysis = answer;
+      state.error = null;
+      applied = true;
+      const flags = answer?.efa?.flags || [];
+      for (const it of answer?.items || []) state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
+    }
+  } catch (e) {
+    if (gen === generation) state.error = e;
+  } finally {
+    inFlight = false;
+  }
+  if (!applied && JSON.stringify(analysisRequest()) !== key) { runRefit(); return; }
+  state.pending = false;
+  renderAll();
+  const ms = performance.now() - started;
+  timings.lastRefitMs = ms;
+  if (timings.clickAt) timings.lastClickToUpdateMs = performance.now() - timings.clickAt;
+  timings.marks.push({ what: "refit", ms, at: Date.now() });
+  document.body.dataset.fitted = String(gen);
+}
+
+// ---------------------------------------------------------------- actions
+function changed(action, detail, { push = false } = {}) {
+  writeUrl(push);
+  renderAll();
+  refit();
+  if (action) broadcast(action, detail);
+}
+
+Object.assign(actions, {
+  show(view) { state.view = view; writeUrl(true); renderAll(); },
+  async openDataset(id) {
+    state.dataset = id;
+    state.dropped = [];
+    state.reverse = null;
+    state.analysis = null;
+    state.previous = null;
+    state.lastFlags = {};
+    clearHistory();
+    state.view = "board";
+    await loadDataset();
+    writeUrl(true);
+  },
+  async upload(form) {
+    const record = await api.upload(form);
+    await refreshDatasets();
+    return record;
+  },
+  toggle(name) {
+    remember();
+    const i = state.dropped.indexOf(name);
+    if (i >= 0) state.dropped.splice(i, 1); else state.dropped.push(name);
+    timings.clickAt = performance.now();
+    changed(i >= 0 ? "restore" : "drop", name);
+  },
+  undo() { if (undo()) changed("undo", "undid the last change"); },
+  redo() { if (redo()) changed("redo", "redid a change"); },
+  sortBy(key) {
+    state.sort = state.sort.key === key ? { key, dir: -state.sort.dir } : { key, dir: key === "item_rest_r" ? 1 : key === "alpha_if_deleted" ? -1 : 1 };
+    renderView();
+  },
+  filter(part) { Object.assign(state.filter, part); renderView(); },
+  setStructure(on) { state.structure = on; renderView(); },
+  setSetting(key, value) { remember(); state.settings[key] = value; changed("settings", `${key}: ${value ?? "auto"}`); },
+  setThreshold(key, value) {
+    remember();
+    if (value == null) delete state.thresholds[key]; else state.thresholds[key] = value;
+    changed("settings", `threshold ${key}: ${value ?? "default"}`);
+  },
+  resetThresholds() { remember(); state.thresholds = {}; changed("settings", "thresholds back to defaults"); },
+  toggleReverse(name) {
+    remember();
+    const current = new Set(state.reverse ?? state.meta.items.filter((it) => it.reverse).map((it) => it.name));
+    if (current.has(name)) current.delete(name); else current.add(name);
+    state.reverse = allItems().filter((n) => current.has(n));
+    changed("settings", `reverse-keyed: ${name}`);
+  },
+  resetReverse() { remember(); state.reverse = null; changed("settings", "reverse-keyed items from the codebook"); },
+  async restoreSnapshot(id) {
+    try {
+      const r = await api.restoreSnapshot(id);
+      const items = r.items || r.kept || [];
+      const s = r.settings || {};
+      remember();
+      const keep = new Set(items);
+      const removedOrder = (r.removed || []).map((x) => x.item || x);
+      state.dropped = [...removedOrder.filter((n) => !keep.has(n)), ...allItems().filter((n) => !keep.has(n) && !removedOrder.includes(n))];
+      applyShared({ ...shared(), dropped: state.dropped, reverse: s.reverse ?? state.reverse, thresholds: s.thresholds || {},
+        settings: { correlation: s.correlation, extraction: s.extraction, rotation: s.rotation, missing: s.missing, n_factors: s.n_factors ?? null } });
+      for (const k of Object.keys(state.settings)) if (state.settings[k] === undefined) delete state.settings[k];
+      Object.assign(state.settings, Object.fromEntries(Object.entries({ correlation: "pearson", extraction: "minres", rotation: "oblimin", missing: "pairwise" }).filter(([k]) => !state.settings[k])));
+      state.view = "board";
+      changed("restore-snapshot", `restored snapshot ${r.name || id}`, { push: true });
+    } catch (e) {
+      toast(`Could not restore: ${e.message}`);
+    }
+  },
+  broadcast: (action, detail) => broadcast(action, detail),
+});
+
+// ---------------------------------------------------------------- data loading
+async function refreshDatasets() {
+  try {
+    const got = await api.listDatasets();
+    state.datasets = Array.isArray(got) ? got : got.datasets || [];
+  } catch (e) {
+    state.datasets = [];
+  }
+}
+
+async function loadDataset() {
+  try {
+    state.meta = await api.getDataset(state.dataset);
+    if (!state.meta.items && state.meta.meta) state.meta = { ...state.meta, ...state.meta.meta };
+  } catch (e) {
+    state.meta = null;
+    state.dataset = null;
+    state.view = "start";
+    renderAll();
+    toast(e.message);
+    return;
+  }
+  const known = new Set(allItems());
+  state.dropped = state.dropped.filter((n) => known.has(n));
+  connectLive();
+  renderAll();
+  refit({ immediate: true });
+}
+
+// ---------------------------------------------------------------- live collaboration
+let source = null;
+let sourceFor = null;
+
+function connectLive() {
+  if (sourceFor === state.dataset && source) return;
+  if (source) source.close();
+  sourceFor = state.dataset;
+  state.live.listener = null;
+  source = api.events(state.dataset);
+  source.addEventListener("hello", (e) => {
+    const msg = JSON.parse(e.data);
+    state.live.listener = msg.listener;
+    state.live.peers = msg.peers;
+    document.body.dataset.live = "on";
+    renderLive();
+  });
+  source.addEventListener("change", (e) => {
+    const msg = JSON.parse(e.data);
+    if (msg.sender && msg.sender === state.live.listener) return; // our own echo
+    const s = msg.state || {};
+    if (["drop", "restore", "undo", "redo", "settings", "restore-snapshot"].includes(msg.action) && s.dropped) {
+      remember();
+      const known = new Set(allItems());
+      applyShared({ ...s, dropped: (s.dropped || []).filter((n) => known.has(n)) });
+      writeUrl();
+      renderAll();
+      refit({ immediate: true });
+    }
+    const who = msg.who || "Someone";
+    const text = `${who}: ${msg.detail || msg.action}`;
+    state.live.feed.unshift({ text, at: msg.at });
+    state.live.feed = state.live.feed.slice(0, 30);
+    toast(text);
+    renderLive();
+  });
+  source.onerror = () => { document.body.dataset.live = "off"; renderLive(); };
+}
+
+function broadcast(action, detail) {
+  if (!state.dataset) return;
+  api.postEvent(state.dataset, { who: state.who || "", action, detail: String(detail || ""), sender: state.live.listener,
+    state: shared() }).catch(() => {});
+}
+
+function renderLive() {
+  const el = clear($("#live"));
+  const on = document.body.dataset.live === "on";
+  el.append(h("span", { class: `dot ${on ? "on" : "off"}`, "aria-hidden": "true" }),
+    h("span", { text: on ? "live" : "offline" }));
+  const feed = clear($("#feed"));
+  for (const f of state.live.feed.slice(0, 8)) feed.append(h("li", { text: `${(f.at || "").slice(11, 16)} ${f.text}` }));
+}
+
+let toastTimer = null;
+function toast(text) {
+  const t = $("#toast");
+  t.textContent = text;
+  t.hidden = false;
+  clearTimeout(toastTimer);
+  toastTimer = setTimeout(() => { t.hidden = true; }, 4000);
+}
+
+// ---------------------------------------------------------------- chrome wiring
+function wireChrome() {
+  $("#undo").addEventListener("click", () => actions.undo());
+  $("#redo").addEventListener("click", () => actions.redo());
+  $("#save-snapshot").addEventListener("click", () => snapshotsView.openDialog());
+  const who = $("#who");
+  who.value = state.who;
+  who.addEventListener("change", () => { state.who = who.value.trim(); localStorage.setItem("scalewright.who", state.who); });
+  const proj = $("#projector");
+  const applyProjector = () => {
+    document.body.classList.toggle("projector", state.projector);
+    proj.setAttribute("aria-pressed", String(state.projector));
+  };
+  applyProjector();
+  proj.addEventListener("click", () => {
+    state.projector = !state.projector;
+    localStorage.setItem("scalewright.projector", state.projector ? "1" : "0");
+    applyProjector();
+    renderView();
+  });
+  const dlg = $("#snapshot-dialog");
+  dlg.querySelector("form").addEventListener("submit", async (e) => {
+    e.preventDefault();
+    await snapshotsView.submitDialog();
+  });
+  dlg.querySelector("#snap-cancel").addEventListener("click", () => dlg.close());
+  document.addEventListener("keydown", (e) => {
+    if (dlg.open) return;
+    const inField = ["INPUT", "TEXTAREA", "SELECT"].includes(e.target.tagName);
+    const mod = e.ctrlKey || e.metaKey;
+    if (mod && !inField && (e.key === "z" || e.key === "Z")) { e.preventDefault(); if (e.shiftKey) actions.redo(); else actions.undo(); }
+    else if (mod && !inField && (e.key === "y" || e.key === "Y")) { e.preventDefault(); actions.redo(); }
+  });
+  window.addEventListener("popstate", async () => {
+    const before = state.dataset;
+    readUrl();
+    if (state.dataset !== before) { if (state.dataset) await loadDataset(); else renderAll(); } else { renderAll(); refit(); }
+  });
+}
+
+async function boot() {
+  const t0 = performance.now();
+  readUrl();
+  wireChrome();
+  renderAll();
+  await refreshDatasets();
+  if (state.dataset) await loadDataset(); else renderAll();
+  timings.bootMs = performance.now() - t0;
+  document.body.dataset.booted = "1";
+}
+
+boot();

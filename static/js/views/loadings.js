@@ -1,0 +1,78 @@
+// Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
+import { factorCorrelations, loadingsHeatmap } from "../charts.js";
+import { actions, itemMeta, state } from "../state.js";
+import { flagWord, flagsByItem } from "./board.js";
+import { clear, fmt, h, note, section, warningList } from "./dom.js";
+
+function asMatrix(obj, items) {
+  if (!obj) return null;
+  if (Array.isArray(obj)) return obj;
+  return items.map((n) => obj[n] || []);
+}
+
+export function ordered(efa) {
+  const items = Object.keys(efa.loadings || {});
+  const P = asMatrix(efa.loadings, items);
+  const rows = items.map((n, i) => {
+    const v = P[i];
+    let best = 0;
+    v.forEach((x, j) => { if (Math.abs(x) > Math.abs(v[best])) best = j; });
+    return { name: n, primary: best, size: Math.abs(v[best] ?? 0), i };
+  });
+  rows.sort((a, b) => a.primary - b.primary || b.size - a.size || a.i - b.i);
+  return rows;
+}
+
+export function render(container) {
+  clear(container);
+  const efa = state.analysis?.efa;
+  if (!efa || !efa.loadings || !Object.keys(efa.loadings).length) {
+    container.append(section("Loadings", note(efa?.warnings?.join(" ") || "No factor solution yet.")));
+    return;
+  }
+  const items = Object.keys(efa.loadings);
+  const showStructure = state.structure && efa.structure;
+  const M = asMatrix(showStructure ? efa.structure : efa.loadings, items);
+  const index = Object.fromEntries(items.map((n, i) => [n, i]));
+  const flags = flagsByItem(state.analysis);
+  const factors = efa.factors || M[0].map((_, j) => `F${j + 1}`);
+  const order = ordered(efa);
+  const rows = order.map(({ name }) => ({
+    name, text: itemMeta(name)?.text || "", values: M[index[name]],
+    flagged: Boolean(flags[name]?.length),
+    flagText: (flags[name] || []).map((f) => `${flagWord(f.kind)}: ${f.message}`).join(" · "),
+  }));
+
+  const toggle = h("div", { class: "segmented", role: "group", "aria-label": "Which loadings" },
+    h("button", { class: showStructure ? "" : "on", "aria-pressed": String(!showStructure), id: "show-pattern", text: "Pattern",
+      onclick: () => actions.setStructure(false) }),
+    h("button", { class: showStructure ? "on" : "", "aria-pressed": String(Boolean(showStructure)), id: "show-structure", text: "Structure",
+      disabled: !efa.structure, onclick: () => actions.setStructure(true) }));
+  const heat = h("div", { class: "chart", id: "heatmap" });
+  const phi = h("div", { class: "chart small", id: "phi" });
+  const side = h("div", { class: "side" }, phi);
+  if (efa.communalities) {
+    const comm = asMatrix(efa.communalities, items);
+    side.append(h("p", { class: "muted", text: "Lowest communalities (the share of an item's variance the factors explain):" }));
+    const lows = items.map((n, i) => [n, Array.isArray(efa.communalities) ? comm[i] : efa.communalities[n]])
+      .filter(([, c]) => c != null).sort((x, y) => x[1] - y[1]).slice(0, 4);
+    side.append(h("ul", { class: "plain" }, lows.map(([n, c]) => h("li", { text: `${n}: ${fmt(c, 2)}` }))));
+  }
+  const fit = efa.fit || {};
+  const fitText = [efa.extraction || state.settings.extraction, efa.rotation || state.settings.rotation,
+    fit.rmsr != null ? `RMSR ${fmt(fit.rmsr, 3)}` : null, fit.rmsea != null ? `RMSEA ${fmt(fit.rmsea, 3)}` : null,
+    fit.tli != null ? `TLI ${fmt(fit.tli, 3)}` : null, efa.converged === false ? "did not converge" : null].filter(Boolean).join(" · ");
+
+  container.append(section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
+    h("div", { class: "toolbar" }, toggle, h("span", { class: "muted", text: fitText })),
+    h("p", { class: "muted", text: "Items are grouped by the factor they load on most; ⚑ marks a flagged item (hover for why). Blue is negative, orange positive." }),
+    h("div", { class: "heat-layout" }, heat, side),
+    warningList(efa.warnings, "About this solution")));
+  loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
+    .then(() => heat.setAttribute("data-rendered", String(Date.now())));
+  if (efa.factor_correlations && efa.factor_correlations.length > 1) {
+    factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
+  } else {
+    phi.append(note(efa.n_factors > 1 ? "Orthogonal rotation: the factors are uncorrelated by construction." : "One factor: no factor correlations."));
+  }
+}

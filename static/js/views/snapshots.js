@@ -1,0 +1,149 @@
+// Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
+import { api } from "../api.js";
+import { actions, keptItems, state } from "../state.js";
+import { flagWord } from "./board.js";
+import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
+
+export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
+  ["redundant", "redundant"], ["wording", "wording"], ["floor-ceiling", "floor/ceiling"], ["other", "other"]];
+const CODE_OF_FLAG = { cross_loading: "cross-loading", weak_loading: "weak", misplaced: "belongs-elsewhere", reverse_suspect: "wording", heywood: "other" };
+
+let snapshots = [];
+let compareWith = null;
+let comparison = null;
+let message = null;
+
+export function defaultReason(item) {
+  const flags = state.lastFlags[item] || [];
+  if (!flags.length) return { reason: "", code: "" };
+  return { reason: flags.map((f) => f.message).join(" "), code: CODE_OF_FLAG[flags[0].kind] || "other" };
+}
+
+export function openDialog() {
+  const dlg = document.getElementById("snapshot-dialog");
+  const body = clear(dlg.querySelector(".dialog-body"));
+  const removed = [...state.dropped];
+  body.append(h("p", { text: `${keptItems().length} items kept, ${removed.length} removed. Give each removal a reason: it goes into the record and the report.` }));
+  const list = h("ol", { class: "reasons" });
+  for (const item of removed) {
+    const d = defaultReason(item);
+    list.append(h("li", {},
+      h("label", { class: "reason" }, h("strong", { text: item }),
+        h("input", { type: "text", class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, size: 60,
+          dataset: { item }, placeholder: "Why it goes (required)", "aria-label": `Reason for removing ${item}` }),
+        h("select", { class: "reason-code", dataset: { item }, "aria-label": `Reason code for ${item}` },
+          CODES.map(([v, label]) => h("option", { value: v, text: label, selected: v === d.code }))))));
+  }
+  if (removed.length) body.append(list); else body.append(note("No items removed: the snapshot records the full pool."));
+  dlg.querySelector("#snap-author").value = state.who || "";
+  dlg.querySelector(".dialog-error").textContent = "";
+  dlg.showModal();
+}
+
+export async function submitDialog() {
+  const dlg = document.getElementById("snapshot-dialog");
+  const err = dlg.querySelector(".dialog-error");
+  const removed = state.dropped.map((item) => {
+    const text = dlg.querySelector(`.reason-text[data-item="${CSS.escape(item)}"]`);
+    const code = dlg.querySelector(`.reason-code[data-item="${CSS.escape(item)}"]`);
+    const r = { item, reason: text ? text.value.trim() : "" };
+    if (code && code.value) r.code = code.value;
+    return r;
+  });
+  const missing = removed.filter((r) => !r.reason).map((r) => r.item);
+  if (missing.length) { err.textContent = `Give a reason for: ${missing.join(", ")}.`; return false; }
+  const body = {
+    name: dlg.querySelector("#snap-name").value.trim() || `Trim of ${new Date().toLocaleString()}`,
+    author: dlg.querySelector("#snap-author").value.trim(),
+    note: dlg.querySelector("#snap-note").value.trim(),
+    items: keptItems(), removed,
+    settings: { ...state.settings, reverse: state.reverse, thresholds: Object.keys(state.thresholds).length ? state.thresholds : null },
+  };
+  try {
+    const saved = await api.saveSnapshot(state.dataset, body);
+    dlg.close();
+    message = `Saved “${saved.name || body.name}”.`;
+    actions.broadcast("snapshot", `saved snapshot ${saved.name || body.name}`);
+    actions.show("snapshots");
+    return true;
+  } catch (e) {
+    err.textContent = e.message;
+    return false;
+  }
+}
+
+async function load() {
+  const got = await api.listSnapshots(state.dataset);
+  snapshots = Array.isArray(got) ? got : got.snapshots || [];
+}
+
+function coef(s, key) {
+  if (typeof s[key] === "number") return s[key];
+  const rel = s.reliability || s.results?.reliability || s.analysis?.reliability || s.summary || {};
+  return rel[key];
+}
+
+export async function render(container) {
+  clear(container);
+  container.append(section("Snapshots", note("Loading…")));
+  try { await load(); } catch (e) { clear(container).append(section("Snapshots", note(e.message, "error"))); return; }
+  clear(container);
+  const rows = snapshots.map((s) => {
+    const kept = (s.items || []).length;
+    const removed = (s.removed || []).length;
+    const actionsCell = h("span", { class: "actions" },
+      h("button", { text: "Restore", title: "Load this snapshot's items and settings", onclick: () => actions.restoreSnapshot(s.id) }),
+      h("a", { href: api.reportUrl(s.id), target: "_blank", rel: "noopener", text: "Report" }),
+      h("a", { href: api.scoringKeyUrl(s.id), download: "", text: "Scoring key" }),
+      h("button", { text: compareWith === s.id ? "Comparing…" : "Compare", "aria-pressed": String(compareWith === s.id),
+        onclick: () => pickCompare(container, s.id) }));
+    return [h("span", { class: "snap-name", text: s.name || s.id }), s.author || "—", (s.created_at || "").replace("T", " ").slice(0, 16),
+      `${kept} kept / ${removed} removed`, fmt(coef(s, "alpha")), fmt(coef(s, "omega_total")), s.note || "", actionsCell];
+  });
+  container.append(section("Snapshots",
+    message ? h("p", { class: "ok", role: "status", text: message }) : null,
+    h("div", { class: "toolbar" }, h("button", { class: "primary", id: "open-snapshot", text: "Save a snapshot…", onclick: () => openDialog() }),
+      h("span", { class: "muted", text: "A snapshot is permanent: the kept items, every removal with its reason, the settings and the numbers at that moment." })),
+    rows.length ? table(["Name", "By", "Saved", "Items", "α", "ω", "Note", ""], rows, { className: "grid snapshots", caption: "Newest first" })
+      : note("No snapshots yet."),
+    compareWith ? note("Pick a second snapshot to compare with.") : null,
+    comparison ? renderComparison(comparison) : null));
+  message = null;
+}
+
+async function pickCompare(container, id) {
+  if (!compareWith) { compareWith = id; comparison = null; render(container); return; }
+  if (compareWith === id) { compareWith = null; render(container); return; }
+  try { comparison = await api.compareSnapshots(compareWith, id); } catch (e) { comparison = { error: e.message }; }
+  compareWith = null;
+  render(container);
+}
+
+function renderComparison(c) {
+  if (c.error) return note(c.error, "error");
+  const parts = [];
+  const added = c.items_added || c.added || [];
+  const removed = c.items_removed || c.removed || [];
+  parts.push(h("p", { text: `Items added: ${added.length ? added.map((x) => x.item || x).join(", ") : "none"}. Items removed: ${removed.length ? removed.map((x) => x.item || x).join(", ") : "none"}.` }));
+  const changes = c.coefficients || c.coefficient_changes || {};
+  const show = (k, v) => (k === "n_items" || k === "n_complete" ? (v ?? "—") : fmt(v));
+  const rows = Object.entries(changes).map(([k, v]) => (typeof v === "object" && v !== null
+    ? [k.replace(/_/g, " "), show(k, v.a), show(k, v.b), show(k, v.change)] : [k, "", "", fmt(v)]));
+  if (rows.length) parts.push(table(["Coefficient", "First", "Second", "Change"], rows, { className: "grid" }));
+  const lc = c.loadings || [];
+  const labelsA = c.a?.factors || [];
+  const labelsB = c.b?.factors || [];
+  const moved = lc.filter((r) => r.primary_a && r.primary_b)
+    .map((r) => ({ ...r, shift: Math.abs((r.primary_b.loading ?? 0) - (r.primary_a.loading ?? 0)) + (r.primary_a.factor !== r.primary_b.factor ? 1 : 0) }))
+    .sort((x, y) => y.shift - x.shift).slice(0, 12);
+  if (moved.length) {
+    parts.push(table(["Item", "Primary before", "Primary after"], moved.map((r) => [r.item,
+      `${labelsA[r.primary_a.factor] ?? `F${r.primary_a.factor + 1}`} ${fmt(r.primary_a.loading, 2)}`,
+      `${labelsB[r.primary_b.factor] ?? `F${r.primary_b.factor + 1}`} ${fmt(r.primary_b.loading, 2)}`]),
+    { className: "grid", caption: "Items whose main loading moved most" }));
+  }
+  parts.push(warningList(c.warnings));
+  return h("div", { class: "comparison", id: "comparison" }, h("h3", { text: `Comparing ${c.a?.name || c.first?.name || "first"} with ${c.b?.name || c.second?.name || "second"}` }), parts);
+}
+
+export { flagWord };

@@ -1,0 +1,132 @@
+// Stability and agreement: two waves (test-retest / parallel forms) and a rater table.
+import { api } from "../api.js";
+import { blandAltman, retestScatter } from "../charts.js";
+import { keptItems, state } from "../state.js";
+import { clear, fmt, h, note, section, select, table, warningList } from "./dom.js";
+
+let retestResult = null;
+let agreementResult = null;
+let pick = { first: null, second: null, score: "sum", level: "ordinal", text: "" };
+
+const num = (v, d = 3) => (typeof v === "number" ? fmt(v, d) : v == null ? "—" : String(v));
+const ci = (c) => (Array.isArray(c) && c.length === 2 ? `${fmt(c[0], 2)} to ${fmt(c[1], 2)}` : "—");
+
+export function parseRatings(text) {
+  const lines = text.split(/\r?\n/).map((l) => l.trim()).filter(Boolean);
+  if (!lines.length) return { ratings: [], units: [] };
+  const delim = lines[0].includes("\t") ? "\t" : lines[0].includes(";") ? ";" : ",";
+  let rows = lines.map((l) => l.split(delim).map((c) => c.trim().replace(/^"|"$/g, "")));
+  const isNum = (c) => c === "" || c === "NA" || c === "." || !Number.isNaN(Number(c));
+  if (rows[0].some((c) => !isNum(c))) rows = rows.slice(1); // header
+  let units = rows.map((_, i) => String(i + 1));
+  if (rows.length && rows.every((r) => !isNum(r[0]))) { units = rows.map((r) => r[0]); rows = rows.map((r) => r.slice(1)); }
+  const ratings = rows.map((r) => r.map((c) => (c === "" || c === "NA" || c === "." ? null : Number.isNaN(Number(c)) ? c : Number(c))));
+  return { ratings, units };
+}
+
+function iccTable(icc) {
+  if (!icc || typeof icc !== "object") return null;
+  const rows = Object.entries(icc).filter(([, v]) => v && typeof v === "object" && "value" in v)
+    .map(([form, v]) => [form, num(v.value), ci(v.ci), num(v.f, 2), `${num(v.df1, 0)}, ${num(v.df2, 0)}`, v.p == null ? "—" : v.p < 0.001 ? "< .001" : fmt(v.p, 3)]);
+  return rows.length ? table(["ICC form", "Value", "95% CI", "F", "df", "p"], rows, { className: "grid icc", caption: "Intraclass correlations (McGraw & Wong 1996 names)" }) : null;
+}
+
+function pairsOf(r) {
+  const p = r.scores || r.pairs || r.points;
+  if (!p) return null;
+  if (Array.isArray(p)) return { ids: p.map((x) => x.id), x: p.map((x) => x.first), y: p.map((x) => x.second) };
+  return { ids: p.ids || p.id || [], x: p.first || p.x || [], y: p.second || p.y || [] };
+}
+
+function renderRetest(box) {
+  const r = retestResult;
+  if (!r) return;
+  if (r.error) { box.append(note(r.error, "error")); return; }
+  const pairs = pairsOf(r);
+  const facts = [["Matched respondents", r.n_matched], ["Only in the first wave", r.n_only_first ?? (r.only_first || []).length],
+    ["Only in the second wave", r.n_only_second ?? (r.only_second || []).length], ["Pearson r", num(r.pearson_r)], ["Spearman ρ", num(r.spearman_rho)],
+    ["SEM", num(r.sem, 2)], ["Smallest detectable change (MDC95)", num(r.mdc95, 2)], ["Mean difference", num(r.mean_difference, 2)],
+    ["Limits of agreement", ci(r.limits_of_agreement)]];
+  const interp = typeof r.interpretation === "object" && r.interpretation ? r.interpretation.text || r.interpretation.label || JSON.stringify(r.interpretation) : r.interpretation;
+  box.append(h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v ?? "—") })])));
+  if (interp) box.append(h("p", { class: "interpretation", text: interp }));
+  const t = iccTable(r.icc);
+  if (t) box.append(t);
+  if (pairs && pairs.x.length) {
+    const sc = h("div", { class: "chart", id: "retest-scatter" });
+    const ba = h("div", { class: "chart", id: "bland-altman" });
+    box.append(h("div", { class: "two" }, sc, ba));
+    retestScatter(sc, { x: pairs.x, y: pairs.y, ids: pairs.ids, labelX: "first wave", labelY: "second wave" });
+    const means = pairs.x.map((x, i) => (x + pairs.y[i]) / 2);
+    const diffs = pairs.x.map((x, i) => pairs.y[i] - x);
+    blandAltman(ba, { means, diffs, ids: pairs.ids, meanDiff: r.mean_difference, loa: r.limits_of_agreement });
+  }
+  box.append(warningList(r.warnings));
+}
+
+function renderAgreement(box) {
+  const r = agreementResult;
+  if (!r) return;
+  if (r.error) { box.append(note(r.error, "error")); return; }
+  const rows = [];
+  const add = (label, v) => {
+    if (v == null) return;
+    if (typeof v === "number") rows.push([label, num(v), "—", ""]);
+    else if (typeof v === "object" && "value" in v) rows.push([label, num(v.value), ci(v.ci), v.label || v.interpretation || v.reason || ""]);
+  };
+  add("Percent agreement", r.percent_agreement);
+  add("Cohen's κ", r.cohen_kappa);
+  if (r.weighted_kappa) { add("Weighted κ (linear)", r.weighted_kappa.linear); add("Weighted κ (quadratic)", r.weighted_kappa.quadratic); }
+  add("Fleiss' κ", r.fleiss_kappa);
+  add("Krippendorff's α", r.krippendorff_alpha);
+  box.append(h("p", { text: `${r.n_units} units, ${r.n_raters} raters.` }));
+  box.append(table(["Coefficient", "Value", "95% CI", "Reading"], rows, { className: "grid agreement", caption: "Verbal labels follow Landis & Koch (1977), a convention, not a test." }));
+  const t = iccTable(r.icc);
+  if (t) box.append(t);
+  box.append(warningList(r.warnings));
+}
+
+export function render(container) {
+  clear(container);
+  const datasets = state.datasets.map((d) => [d.id, d.name || d.id]);
+  pick.first ||= state.dataset;
+  pick.second ||= (datasets.find(([id]) => id !== state.dataset) || [null])[0];
+  const retestBox = h("div", { class: "result", id: "retest-result" });
+  const run = h("button", { class: "primary", id: "run-retest", text: "Compare the waves", onclick: async () => {
+    run.disabled = true;
+    try {
+      retestResult = await api.retest({ first: pick.first, second: pick.second, items: keptItems(), score: pick.score });
+    } catch (e) { retestResult = { error: e.message }; }
+    run.disabled = false;
+    clear(retestBox); renderRetest(retestBox);
+  } });
+  const textArea = h("textarea", { id: "ratings-text", rows: 8, cols: 50, placeholder: "One row per unit, one column per rater (comma or tab separated); a header row and a first column of unit labels are recognised; empty = missing.",
+    oninput: (e) => { pick.text = e.target.value; } });
+  textArea.value = pick.text;
+  const fileIn = h("input", { type: "file", accept: ".csv,.tsv,.txt", id: "ratings-file", onchange: async (e) => {
+    const f = e.target.files[0]; if (!f) return; pick.text = await f.text(); textArea.value = pick.text;
+  } });
+  const agreeBox = h("div", { class: "result", id: "agreement-result" });
+  const runAgree = h("button", { class: "primary", id: "run-agreement", text: "Compute agreement", onclick: async () => {
+    const { ratings } = parseRatings(pick.text);
+    runAgree.disabled = true;
+    try { agreementResult = await api.agreement({ ratings, level: pick.level }); } catch (e) { agreementResult = { error: e.message }; }
+    runAgree.disabled = false;
+    clear(agreeBox); renderAgreement(agreeBox);
+  } });
+  container.append(
+    section("Test-retest or parallel forms",
+      note(`Scores are built from the ${keptItems().length} items kept now, scored the same way in both waves; respondents are matched by their ID column.`),
+      h("div", { class: "toolbar" },
+        h("label", {}, "First wave ", select(datasets, pick.first, (v) => { pick.first = v; }, { id: "wave-first" })),
+        h("label", {}, "Second wave ", select(datasets, pick.second, (v) => { pick.second = v; }, { id: "wave-second" })),
+        h("label", {}, "Score ", select([["sum", "sum"], ["mean", "mean"]], pick.score, (v) => { pick.score = v; })), run),
+      retestBox),
+    section("Rater agreement",
+      h("div", { class: "toolbar" }, h("label", {}, "Upload ", fileIn),
+        h("label", {}, "Level ", select([["nominal", "nominal"], ["ordinal", "ordinal"], ["interval", "interval"], ["ratio", "ratio"]], pick.level, (v) => { pick.level = v; })),
+        runAgree),
+      textArea, agreeBox));
+  renderRetest(retestBox);
+  renderAgreement(agreeBox);
+}

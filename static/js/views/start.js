@@ -1,0 +1,114 @@
+// Start: upload a response file (+ optional codebook), see intake warnings and the detected items,
+// or open an existing dataset (the demo among them).
+import { actions, state } from "../state.js";
+import { clear, h, note, section, table, warningList } from "./dom.js";
+
+let lastUpload = null; // {record, error}
+
+export function render(container) {
+  clear(container);
+  const responsesInput = h("input", { type: "file", id: "file-responses", name: "file",
+    accept: ".csv,.tsv,.txt,.xlsx,text/csv,text/tab-separated-values" });
+  const codebookInput = h("input", { type: "file", id: "file-codebook", name: "codebook", accept: ".csv,.xlsx,text/csv" });
+  const missing = h("input", { type: "text", id: "missing-codes", placeholder: "e.g. -9, 99", size: 10 });
+  const idColumn = h("input", { type: "text", id: "id-column", placeholder: "e.g. respondent", size: 14 });
+  const smin = h("input", { type: "number", id: "scale-min", placeholder: "from data", step: "any", size: 6 });
+  const smax = h("input", { type: "number", id: "scale-max", placeholder: "from data", step: "any", size: 6 });
+  const chosen = h("p", { class: "chosen", text: "No file chosen yet." });
+
+  const showChosen = () => {
+    const f = responsesInput.files[0];
+    const c = codebookInput.files[0];
+    chosen.textContent = f ? `Responses: ${f.name}${c ? ` · codebook: ${c.name}` : ""}` : "No file chosen yet.";
+  };
+  responsesInput.addEventListener("change", showChosen);
+  codebookInput.addEventListener("change", showChosen);
+
+  const drop = h("div", { class: "dropzone", tabindex: 0, role: "button",
+    "aria-label": "Drop a response file here, or press Enter to choose one" },
+  h("strong", { text: "Drop a response file here" }),
+  h("span", { text: " (CSV, TSV or XLSX: one row per respondent, one column per item). A second file named like *codebook* is taken as the codebook." }));
+  drop.addEventListener("click", () => responsesInput.click());
+  drop.addEventListener("keydown", (e) => { if (e.key === "Enter" || e.key === " ") { e.preventDefault(); responsesInput.click(); } });
+  drop.addEventListener("dragover", (e) => { e.preventDefault(); drop.classList.add("over"); });
+  drop.addEventListener("dragleave", () => drop.classList.remove("over"));
+  drop.addEventListener("drop", (e) => {
+    e.preventDefault();
+    drop.classList.remove("over");
+    const files = [...e.dataTransfer.files];
+    const cb = files.find((f) => /codebook|items|key/i.test(f.name));
+    const resp = files.find((f) => f !== cb) || files[0];
+    const dtR = new DataTransfer(); if (resp) dtR.items.add(resp); responsesInput.files = dtR.files;
+    if (cb && cb !== resp) { const dtC = new DataTransfer(); dtC.items.add(cb); codebookInput.files = dtC.files; }
+    showChosen();
+  });
+
+  const status = h("div", { class: "upload-status", "aria-live": "polite" });
+  const submit = h("button", { class: "primary", type: "submit", id: "upload-button", text: "Read the file" });
+  const form = h("form", { class: "upload", onsubmit: async (e) => {
+    e.preventDefault();
+    const f = responsesInput.files[0];
+    if (!f) { status.textContent = "Choose a response file first."; return; }
+    const fd = new FormData();
+    fd.append("file", f, f.name);
+    if (codebookInput.files[0]) fd.append("codebook", codebookInput.files[0], codebookInput.files[0].name);
+    if (missing.value.trim()) fd.append("missing_codes", missing.value.trim());
+    if (idColumn.value.trim()) fd.append("id_column", idColumn.value.trim());
+    if (smin.value !== "") fd.append("scale_min", smin.value);
+    if (smax.value !== "") fd.append("scale_max", smax.value);
+    submit.disabled = true;
+    status.textContent = "Reading…";
+    try {
+      lastUpload = { record: await actions.upload(fd) };
+    } catch (err) {
+      lastUpload = { error: err };
+    } finally {
+      submit.disabled = false;
+    }
+    render(container);
+  } },
+  drop,
+  h("div", { class: "fields" },
+    h("label", {}, "Responses ", responsesInput),
+    h("label", {}, "Codebook (optional: item, text, construct, reverse, min, max) ", codebookInput),
+    h("label", {}, "Missing-value codes ", missing),
+    h("label", {}, "ID column ", idColumn),
+    h("label", {}, "Lowest answer ", smin),
+    h("label", {}, "Highest answer ", smax)),
+  chosen, submit, status);
+
+  container.append(section("Bring a draft item pool",
+    note("Files stay on this machine: they are read by the Scalewright server you started and kept in its data folder."),
+    form));
+
+  if (lastUpload) container.append(uploadResult(lastUpload));
+
+  const rows = state.datasets.map((d) => [
+    h("button", { class: "link", text: d.name || d.id, onclick: () => actions.openDataset(d.id) }),
+    d.n_rows ?? d.meta?.n_rows ?? "—",
+    (d.items || d.meta?.items || []).length || d.n_items || "—",
+    (d.created_at || "").replace("T", " ").slice(0, 16),
+  ]);
+  container.append(section("Open a dataset",
+    rows.length ? table(["Dataset", "Respondents", "Items", "Added"], rows, { className: "grid datasets" })
+      : note("No datasets yet. Upload one above, or start the server with --demo for the invented workshop data.")));
+}
+
+function uploadResult({ record, error }) {
+  if (error) {
+    return section("The file could not be read",
+      h("p", { class: "error", role: "alert", text: error.message }),
+      Object.keys(error.details || {}).length
+        ? h("p", { class: "muted", text: Object.entries(error.details).map(([k, v]) => `${k}: ${JSON.stringify(v)}`).join(" · ") })
+        : null);
+  }
+  const items = record.items || [];
+  const constructs = new Set(items.map((it) => it.construct).filter(Boolean));
+  return section(`Read: ${record.name}`,
+    h("p", { text: `${record.n_rows} respondents, ${items.length} items${constructs.size ? `, ${constructs.size} constructs` : ""}.` }),
+    warningList(record.warnings, "What the reader noticed"),
+    table(["Item", "Wording", "Construct", "Reverse", "Range", "Missing"],
+      items.map((it) => [it.name, it.text || "", it.construct || "—", it.reverse ? "yes" : "", `${it.min}–${it.max}`, it.n_missing ?? 0]),
+      { className: "grid preview" }),
+    h("button", { class: "primary", id: "open-uploaded", text: "Start trimming", onclick: () => { lastUpload = null; actions.openDataset(record.id); } }));
+}
