@@ -202,7 +202,7 @@ def _ml_discrepancy(R: np.ndarray, L: np.ndarray, psi: np.ndarray) -> float:
 # --------------------------------------------------------------------------- extraction
 
 def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
-            max_iter: int = 1000, tol: float = 1e-8, names: Sequence[str] | None = None) -> Extraction:
+            max_iter: int = 1000, tol: float | None = None, names: Sequence[str] | None = None) -> Extraction:
     """Extract ``n_factors`` unrotated factors from a correlation matrix.
 
     Parameters
@@ -216,8 +216,9 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
         Sample size (not needed for the estimates; kept for symmetry with :func:`fit_indices`).
     max_iter : int
         Iteration limit of the optimiser (minres, ML) or of the principal-axis iteration.
-    tol : float
-        Gradient tolerance (minres, ML) or largest change of a communality (paf).
+    tol : float, optional
+        Gradient tolerance of L-BFGS-B (minres, ML; default 1e-8) or the largest change of a communality
+        between principal-axis iterations (paf; default 1e-6).
     names : sequence of str, optional
         Item names, used in warnings.
 
@@ -245,6 +246,9 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
     """
     R, nm, warnings = _check_R(R, names)
     k = R.shape[0]
+    if isinstance(max_iter, bool) or int(max_iter) != max_iter or max_iter < 1:
+        raise InputError(f"The iteration limit must be a positive whole number; got {max_iter}.",
+                         code="bad_option", details={"max_iter": max_iter})
     if method not in METHODS:
         raise InputError(f"Unknown extraction method '{method}'; choose one of {', '.join(METHODS)}.",
                          code="bad_option", details={"extraction": method})
@@ -280,7 +284,7 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
             new = np.sum(L * L, axis=1)
             delta = float(np.max(np.abs(new - h2)))
             h2 = new
-            if delta < max(tol, 1e-12):
+            if delta < (1e-6 if tol is None else max(tol, 1e-12)):
                 converged = True
                 break
         objective = float("nan")
@@ -293,7 +297,8 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
         start = np.clip(1.0 - smc, PSI_LOWER, 1.0)
         res = optimize.minimize(fun, start, args=(R, m), jac=True, method="L-BFGS-B",
                                 bounds=[(PSI_LOWER, 1.0)] * k,
-                                options={"maxiter": max_iter, "ftol": 1e-14, "gtol": tol})
+                                options={"maxiter": max_iter, "ftol": 1e-14,
+                                         "gtol": 1e-8 if tol is None else tol})
         psi = res.x
         converged = bool(res.success)
         it = int(res.nit)
@@ -401,7 +406,7 @@ def congruence(A, B) -> np.ndarray:
     return np.nan_to_num(C)
 
 
-def _variance(pattern: np.ndarray, structure: np.ndarray, k: int) -> np.ndarray:
+def _variance(pattern: np.ndarray, structure: np.ndarray) -> np.ndarray:
     return np.sum(pattern * structure, axis=0)
 
 
@@ -610,7 +615,7 @@ def factor_analysis(R, n_factors: int, *, n: int | None = None, names: Sequence[
     m = P.shape[1]
 
     # sort by variance explained
-    var = _variance(P, P @ phi, k)
+    var = _variance(P, P @ phi)
     order = np.argsort(-var, kind="stable")
     P, phi = P[:, order], phi[np.ix_(order, order)]
     # reflect so each factor's loadings sum positive
@@ -647,7 +652,7 @@ def factor_analysis(R, n_factors: int, *, n: int | None = None, names: Sequence[
     P = P * sgn[None, :]
     phi = phi * np.outer(sgn, sgn)
     S = P @ phi
-    var = _variance(P, S, k)
+    var = _variance(P, S)
     labels = _label_factors(P, constructs)
     fit = fit_indices(R, ex.loadings, ex.uniquenesses, n, method)
     variance = {
