@@ -485,6 +485,7 @@ class EFAResult:
             "flags": [dict(x) for x in self.flags],
             "rotation": self.rotation,
             "method": self.method,
+            "extraction": self.method,
             "match": self.match,
             "heywood": [self.names[i] for i in self.extraction.heywood],
             "thresholds": dict(self.thresholds),

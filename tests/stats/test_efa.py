@@ -180,7 +180,7 @@ def test_factor_identity_kept_after_dropping_an_item(hs_R):
 
 # ----------------------------------------------------------------------------- simulated structure
 
-def simulate(n=4000, seed=11):
+def simulate(n=4000, seed=11, raw=False):
     """Two factors (r .3): A1-A6 on F1, B1-B6 on F2; A6 cross-loads; B6 is coded B but measures F1;
     A5 is reverse-worded (negative loading) and not declared reverse."""
     rng = np.random.default_rng(seed)
@@ -195,6 +195,8 @@ def simulate(n=4000, seed=11):
     F = rng.multivariate_normal([0, 0], phi, size=n)
     u = np.sqrt(1 - np.sum((L @ phi) * L, axis=1))
     X = F @ L.T + rng.standard_normal((n, 12)) * u
+    if raw:
+        return X, names, constructs, L, phi
     return np.corrcoef(X.T), names, constructs, L, phi
 
 
@@ -218,6 +220,22 @@ def test_simulated_structure_is_recovered_and_flagged():
     res2 = efa.factor_analysis(R, 2, n=4000, names=names, constructs=constructs,
                                reverse=[n == "A5" for n in names])
     assert ("A5", "reverse_suspect") not in {(f["item"], f["kind"]) for f in res2.flags}
+
+
+def test_simulated_structure_from_polychoric_correlations():
+    from server.stats.correlation import polychoric_matrix
+    X, names, constructs, L, phi = simulate(n=3000, seed=5, raw=True)
+    # five ordered categories with uneven thresholds: the polychoric matrix estimates the latent
+    # correlations (Olsson 1979), so the generating loadings are recovered as with continuous data
+    cuts = np.array([-1.5, -0.5, 0.3, 1.2])
+    Y = np.searchsorted(cuts, X).astype(float) + 1
+    pc = polychoric_matrix(Y, names=names)
+    res = efa.factor_analysis(pc.matrix, 2, n=3000, names=names, constructs=constructs)
+    assert res.factors == ["A", "B"]
+    np.testing.assert_allclose(res.pattern, L, atol=0.08)
+    kinds = {(f["item"], f["kind"]) for f in res.flags}
+    assert {("A6", "cross_loading"), ("B6", "misplaced"), ("A5", "reverse_suspect")} <= kinds
+    assert {item for item, _ in kinds} == {"A5", "A6", "B6"}
 
 
 # ----------------------------------------------------------------------------- boundaries
