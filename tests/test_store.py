@@ -155,3 +155,59 @@ def test_no_temp_files_left(tmp_path):
     store = Store(tmp_path)
     ds = _add(store)
     assert sorted(p.name for p in (tmp_path / "datasets" / ds["id"]).iterdir()) == ["raw"]
+
+
+_SAVER = r"""
+import sys
+sys.path.insert(0, sys.argv[1])
+from server.store import Store
+store = Store(sys.argv[2])
+dataset_id = sys.argv[3]
+i = 0
+while True:
+    rec = store.add_snapshot(dataset_id, {"name": f"s{i}", "payload": [i + j / 7 for j in range(4000)]})
+    print(rec["id"], i, flush=True)  # acknowledged only after the transaction committed
+    i += 1
+"""
+
+
+def test_kill_9_while_saving_loses_no_acknowledged_snapshot(tmp_path):
+    import os
+    import signal
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    ds = _add(Store(tmp_path))
+    acked: dict[str, int] = {}
+    for stop_after in (5, 20, 40):  # kill at a few different moments, restarting in between
+        child = subprocess.Popen([sys.executable, "-c", _SAVER, str(root), str(tmp_path), ds["id"]],
+                                 stdout=subprocess.PIPE, text=True)
+        seen = 0
+        for line in child.stdout:
+            sid, i = line.split()
+            acked[sid] = int(i)
+            seen += 1
+            if seen >= stop_after:
+                os.kill(child.pid, signal.SIGKILL)
+                break
+        rest, _ = child.communicate(timeout=30)
+        for line in rest.splitlines():  # acknowledgements printed before the kill landed
+            if line.strip():
+                sid, i = line.split()
+                acked[sid] = int(i)
+        assert child.returncode == -signal.SIGKILL
+        store = Store(tmp_path)  # "restart"
+        con = sqlite3.connect(tmp_path / DB_NAME)
+        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        con.close()
+        listed = store.list_snapshots(ds["id"])
+        for snap in listed:  # nothing half-written: every stored snapshot is whole
+            i = int(snap["name"][1:])
+            assert snap["payload"] == [i + j / 7 for j in range(4000)]
+        stored_ids = {s["id"] for s in listed}
+        assert set(acked) <= stored_ids
+        for sid, i in acked.items():
+            assert store.get_snapshot(sid)["name"] == f"s{i}"
+    assert len(acked) >= 65
