@@ -264,9 +264,21 @@ def pearson_matrix(X, *, missing: str = "pairwise", names=None, smooth: str | No
     R = np.clip((R + R.T) / 2, -1.0, 1.0)
     np.fill_diagonal(R, 1.0)
     warnings: list[str] = []
+    _warn_perfect(R, names, warnings, "Pearson correlation", "their answers are exact linear functions of "
+                  "each other")
     R, smoothed, lam = _maybe_smooth(R, smooth, "Pearson", names, warnings)
     return CorrelationResult(matrix=R, n_pair=n, warnings=warnings, names=names, method="pearson",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam)
+
+
+def _warn_perfect(R, names, warnings, label, why):
+    iu, ju = np.triu_indices(R.shape[0], 1)
+    edge = np.abs(R[iu, ju]) > 0.9999
+    if edge.any():
+        f = np.nonzero(edge)[0][0]
+        warnings.append(f"{int(edge.sum())} item pair(s) have a {label} of +-1 (for example '{names[iu[f]]}' "
+                        f"and '{names[ju[f]]}', r = {R[iu[f], ju[f]]:.4f}): {why}, which often means a "
+                        "duplicated item. Drop one of each such pair.")
 
 
 def _check_variance(arr: np.ndarray, names: list[str]) -> None:
@@ -535,11 +547,11 @@ def _codes(arr: np.ndarray, names: list[str], max_categories: int):
 def _all_tables(codes: np.ndarray, m: int) -> np.ndarray:
     """(k, k, m, m) contingency tables of every pair, pairwise complete, via one matrix product."""
     n, k = codes.shape
-    onehot = np.zeros((n, k, m), dtype=np.float64)
+    onehot = np.zeros((n, k, m), dtype=np.float32)  # integer counts < 2**24 are exact in float32
     r, c = np.nonzero(codes >= 0)
     onehot[r, c, codes[r, c]] = 1.0
     flat = onehot.reshape(n, k * m)
-    T = flat.T @ flat
+    T = (flat.T @ flat).astype(np.float64)
     return T.reshape(k, m, k, m).transpose(0, 2, 1, 3)
 
 
@@ -678,12 +690,8 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
         first = np.nonzero(~conv)[0][0]
         warnings.append(f"The polychoric estimate did not converge for {int((~conv).sum())} item pair(s) "
                         f"(for example '{names[iu[first]]}' x '{names[ju[first]]}').")
-    edge = np.abs(rho) > 0.9999
-    if edge.any():
-        first = np.nonzero(edge)[0][0]
-        warnings.append(f"{int(edge.sum())} item pair(s) have a polychoric correlation at +-1 (for example "
-                        f"'{names[iu[first]]}' x '{names[ju[first]]}'): their answers are perfectly ordered "
-                        "together, which often means duplicated items.")
+    _warn_perfect(R, names, warnings, "polychoric correlation", "their answers are perfectly ordered "
+                  "together")
     R, smoothed, lam = _maybe_smooth(R, smooth, "polychoric", names, warnings)
     return CorrelationResult(matrix=R, n_pair=n_pair, warnings=warnings, names=names, method="polychoric",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam,

@@ -218,7 +218,7 @@ def bartlett_sphericity(R, n: int, *, names=None) -> tuple[float, int, float]:
     """
     A = _corr(R)
     k = A.shape[0]
-    _check_n(n, k)
+    n = _check_n(n, k)
     sign, logdet = np.linalg.slogdet(A)
     if sign <= 0 or not np.isfinite(logdet):
         _inverse(A, names)  # raises a message naming the cause
@@ -229,9 +229,12 @@ def bartlett_sphericity(R, n: int, *, names=None) -> tuple[float, int, float]:
 
 
 def _check_n(n, k):
-    if not isinstance(n, (int, np.integer)) or n < 3:
+    if isinstance(n, (float, np.floating)) and float(n).is_integer():
+        n = int(n)
+    if not isinstance(n, (int, np.integer)) or isinstance(n, bool) or n < 3:
         raise InputError(f"The number of respondents must be an integer of at least 3; got {n!r}.",
                          code="too_few_rows", details={"n": n if isinstance(n, (int, float)) else str(n)})
+    return int(n)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -356,7 +359,7 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
     if not (0 < percentile < 100):
         raise InputError(f"percentile must be between 0 and 100; got {percentile!r}.", code="bad_option",
                          details={"percentile": percentile})
-    _check_n(n, k)
+    n = _check_n(n, k)
     if not isinstance(iterations, (int, np.integer)) or isinstance(iterations, bool) or iterations < 1:
         raise InputError(f"iterations must be a positive integer; got {iterations!r}.", code="bad_option",
                          details={"iterations": str(iterations)})

@@ -260,6 +260,13 @@ def test_duplicated_item_is_warned_and_smoothed():
     assert res.smoothed and np.linalg.eigvalsh(res.matrix)[0] > 0
 
 
+def test_duplicated_item_named_in_pearson_warning():
+    X = _ordinal_pool()
+    X = np.column_stack([X, 2 * X[:, 3] + 1])
+    res = pearson_matrix(X, smooth=None)
+    assert any("'item4' and 'item9'" in w and "duplicated item" in w for w in res.warnings)
+
+
 def test_listwise_polychoric_uses_complete_rows():
     X = _ordinal_pool(missing=0.05)
     res = polychoric_matrix(X, missing="listwise")
@@ -312,5 +319,7 @@ def test_pd_matrix_unchanged_and_warning_text():
     pool = np.column_stack([_ordinal_pool()[:, :2]] * 2)  # duplicated columns: singular
     res = pearson_matrix(pool)
     assert res.smoothed
-    assert "was not positive definite (smallest eigenvalue" in res.warnings[0]
-    assert "changed by at most" in res.warnings[0]
+    smooth_msg = [w for w in res.warnings if "smoothed" in w]
+    assert len(smooth_msg) == 1
+    assert "was not positive definite (smallest eigenvalue" in smooth_msg[0]
+    assert "changed by at most" in smooth_msg[0]

@@ -189,6 +189,9 @@ def test_parallel_analysis_accepts_eigenvalues_and_checks_input(hs_R):
         parallel_analysis(301, 9, R=hs_R, variant="pcs")
     with pytest.raises(InputError):
         parallel_analysis(8, 9, R=hs_R)
+    with pytest.raises(InputError):
+        parallel_analysis(301, 9, R=hs_R, iterations=0)
+    assert bartlett_sphericity(hs_R, 301.0) == bartlett_sphericity(hs_R, 301)  # integral float n accepted
 
 
 # ---------------------------------------------------------------------------------------------
