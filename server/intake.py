@@ -603,15 +603,15 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             elif name.lower() in lower and lower[name.lower()] not in cb_for:
                 cb_for[lower[name.lower()]] = entry
 
-    if id_column is not None:
-        id_column = str(id_column).strip()
-        if id_column not in columns:
-            match = [c for c in columns if c.lower() == id_column.lower()]
-            if not match:
-                raise InputError(f"The ID column '{id_column}' is not in '{filename}' (its columns are "
-                                 f"{_quote_list(columns, 10)}).", code="unknown_column",
-                                 details={"file": filename, "column": id_column, "columns": columns[:50]})
-            id_column = match[0]
+    id_column = str(id_column).strip() if id_column is not None else None
+    id_column = id_column or None
+    if id_column is not None and id_column not in columns:
+        match = [c for c in columns if c.lower() == id_column.lower()]
+        if not match:
+            raise InputError(f"The ID column '{id_column}' is not in '{filename}' (its columns are "
+                             f"{_quote_list(columns, 10)}).", code="unknown_column",
+                             details={"file": filename, "column": id_column, "columns": columns[:50]})
+        id_column = match[0]
 
     # ---- classify the columns
     left_out: list[tuple[str, str]] = []  # (column, why)
@@ -650,16 +650,25 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             item_cols.append(c)
             continue
         # text-typed column: an item column with a few bad cells, or a non-item column
-        num = pd.to_numeric(s, errors="coerce")
-        nonnull = s.notna().to_numpy()
-        isnum = num.notna().to_numpy()
-        share = isnum[nonnull].mean() if nonnull.any() else 0.0
-        if kind == "id" and not in_codebook:
+        if kind == "id":
             if chosen_id is None:
                 chosen_id = c
             else:
                 left_out.append((c, "ID-like name"))
             continue
+        num = pd.to_numeric(s, errors="coerce")
+        nonnull = s.notna().to_numpy()
+        isnum = num.notna().to_numpy()
+        comma = nonnull & ~isnum
+        if comma.any():  # "3,5" in a comma-separated file (quoted): a decimal comma
+            fixed = pd.to_numeric(s[comma].astype(str).str.strip().where(
+                lambda t: t.str.match(_DECIMAL_COMMA.pattern)).str.replace(",", ".", regex=False),
+                errors="coerce")
+            if fixed.notna().any():
+                num = num.copy()
+                num[comma] = fixed.to_numpy()
+                isnum = num.notna().to_numpy()
+        share = isnum[nonnull].mean() if nonnull.any() else 0.0
         if in_codebook or (share >= 0.5 and kind is None):
             bad = np.flatnonzero(nonnull & ~isnum)
             bad_counts[c] = len(bad)
@@ -676,6 +685,10 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             chosen_id = c
         else:
             left_out.append((c, "text"))
+
+    if columns and all(_is_number(c) for c in columns):
+        notes.append(f"Every column name in '{filename}' is a number ({_quote_list(columns, 3)}); the first row "
+                     "was read as column names. If it holds answers, add a header row of item names.")
 
     if bad_cells:
         first = bad_cells[0]
@@ -844,6 +857,14 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     name = PurePath(filename).stem or filename
     return ParsedDataset(name=name, items=items, responses=np.ascontiguousarray(responses), ids=ids,
                          id_column=chosen_id, n_rows=n_rows, warnings=notes)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 def _id_text(v) -> str:

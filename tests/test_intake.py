@@ -302,3 +302,20 @@ def test_responses_are_raw_not_reverse_scored():
     np.testing.assert_array_equal(d.responses[:, 0], [1, 2, 3, 4])
     assert d.responses.dtype == np.float64 and d.responses.shape == (4, 3)
     assert d.meta()["items"][0] == d.items[0].to_dict()
+
+
+def test_quoted_decimal_comma_in_a_comma_file():
+    d = read_responses(b'Q1,Q2,Q3\n1,"2,5",3\n2,3,4\n3,4,5\n', "x.csv")
+    np.testing.assert_array_equal(d.responses[:, 1], [2.5, 3, 4])
+
+
+def test_numeric_header_is_a_warning_and_blank_id_column_means_none():
+    d = read_responses(b"1,2,3\n1,2,3\n2,3,4\n3,4,5\n", "x.csv", id_column="  ")
+    assert d.id_column is None and d.n_rows == 3
+    assert any("first row was read as column names" in w for w in d.warnings)
+
+
+def test_multiline_quoted_cell_keeps_row_numbers():
+    raw = b'Q1,Q2,note\n1,2,"two\nlines"\n2,x,"y"\n3,4,z\n'
+    err = _err(raw)
+    assert (err.details["column"], err.details["row"], err.details["value"]) == ("Q2", 4, "x")
