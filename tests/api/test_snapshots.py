@@ -317,3 +317,30 @@ def test_everything_survives_a_restart(settings, dataset_id, client):
         assert fresh.get(f"/api/snapshots/{b['id']}/report").status_code == 200
         live = fresh.post(f"/api/datasets/{dataset_id}/analysis", json={**SETTINGS, "items": KEPT}).json()
         assert live == b["analysis"]  # a fresh engine recomputes the same numbers
+
+
+def test_reverse_override_reaches_the_key_and_the_scored_responses(client, dataset_id, data):
+    df, _, _ = data
+    kept = KEPT + ["Q4"]
+    snap = save(client, dataset_id, items=kept, removed=[REMOVED[0]], settings={**SETTINGS, "reverse": []}).json()
+    assert snap["analysis"]["settings"]["reverse"] == []
+    key = pd.read_csv(io.BytesIO(client.get(f"/api/snapshots/{snap['id']}/scoring-key").content))
+    assert key["reverse"].tolist() == [False] * 7
+    scored = pd.read_csv(io.BytesIO(client.get(f"/api/snapshots/{snap['id']}/responses?scored=true").content))
+    np.testing.assert_array_equal(scored[kept].to_numpy(float), df[kept].to_numpy(float))  # nothing reversed
+    assert client.get(f"/api/snapshots/{snap['id']}/restore").json()["settings"]["reverse"] == []
+
+
+def test_snapshots_are_immutable_and_outlive_their_dataset(client, dataset_id):
+    snap = save(client, dataset_id).json()
+    assert client.delete(f"/api/snapshots/{snap['id']}").status_code == 405
+    assert client.put(f"/api/snapshots/{snap['id']}", json={"name": "changed"}).status_code == 405
+    assert client.delete(f"/api/datasets/{dataset_id}").status_code in (200, 204)
+    assert client.get(f"/api/snapshots/{snap['id']}").json() == snap
+    assert [s["id"] for s in client.get(f"/api/datasets/{dataset_id}/snapshots").json()] == [snap["id"]]
+    report = client.get(f"/api/snapshots/{snap['id']}/report")
+    assert report.status_code == 200 and snap["dataset_sha256"] in report.text
+    key = client.get(f"/api/snapshots/{snap['id']}/scoring-key")
+    assert key.status_code == 200  # the key was stored with the snapshot
+    r = client.get(f"/api/snapshots/{snap['id']}/responses")
+    assert r.status_code == 404 and r.json()["error"]["details"] == {"dataset": dataset_id}
