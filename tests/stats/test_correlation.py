@@ -323,3 +323,37 @@ def test_pd_matrix_unchanged_and_warning_text():
     assert len(smooth_msg) == 1
     assert "was not positive definite (smallest eigenvalue" in smooth_msg[0]
     assert "changed by at most" in smooth_msg[0]
+
+
+def test_higham_published_example_and_statsmodels():
+    A = np.array([[1.0, 1.0, 0.0], [1.0, 1.0, 1.0], [0.0, 1.0, 1.0]])
+    H, lam, changed = smooth_to_pd(A, method="higham", min_eigenvalue=1e-12)
+    assert changed and round(lam, 4) == -0.4142  # 1 - sqrt(2) (numpy eigvalsh)
+    assert round(H[0, 1], 4) == 0.7607 and round(H[1, 2], 4) == 0.7607  # Higham 2002, Section 4 example (from memory)
+    assert round(H[0, 2], 4) == 0.1573  # Higham 2002 example (from memory)
+    import warnings
+
+    from statsmodels.stats.correlation_tools import corr_clipped, corr_nearest
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = corr_nearest(A, threshold=1e-12, n_fact=1000)
+    np.testing.assert_allclose(H, ref, atol=1e-4)  # statsmodels corr_nearest
+    E, _, _ = smooth_to_pd(A, method="eigen", min_eigenvalue=1e-12)
+    np.testing.assert_allclose(E, corr_clipped(A, threshold=1e-12), atol=1e-8)  # statsmodels corr_clipped
+
+
+def test_mixed_category_counts_match_pairwise_tables():
+    """Binary, 3-, 5- and 7-category items in one matrix (tables padded to 7 x 7 internally)."""
+    rng = np.random.default_rng(21)
+    f = rng.standard_normal(600)
+    Z = 0.7 * f[:, None] + np.sqrt(0.51) * rng.standard_normal((600, 4))
+    cuts = [[0.2], [-0.6, 0.5], [-1.3, -0.4, 0.4, 1.3], [-1.5, -0.9, -0.3, 0.3, 0.9, 1.5]]
+    X = np.column_stack([np.digitize(Z[:, j], c) for j, c in enumerate(cuts)]).astype(float)
+    X[rng.random(X.shape) < 0.04] = np.nan
+    R = polychoric_matrix(X).matrix
+    for i in range(4):
+        for j in range(i + 1, 4):
+            ok = ~np.isnan(X[:, i]) & ~np.isnan(X[:, j])
+            tab = pd.crosstab(X[ok, i], X[ok, j]).to_numpy()
+            assert R[i, j] == pytest.approx(polychoric_pair(tab), abs=1e-9)
+            assert abs(R[i, j] - 0.49) < 0.12  # simulation truth 0.7 x 0.7
