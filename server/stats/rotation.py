@@ -88,7 +88,7 @@ def _vgq_oblimin(L: np.ndarray, gamma: float) -> tuple[float, np.ndarray]:
     L2 = L * L
     X = L2 @ (np.ones((m, m)) - np.eye(m))
     if gamma != 0:
-        X = X - (gamma / k) * (np.ones((k, k)) @ X)
+        X = X - gamma * X.mean(axis=0, keepdims=True)
     return float(np.sum(L2 * X) / 4.0), L * X
 
 

@@ -73,6 +73,8 @@ def test_ml_fit_indices(hs_R):
     assert round(fit["p"], 4) == round(float(p_ref), 4)  # factor_analyzer sufficiency p
     assert round(fit["chi2"], 2) == 22.38  # R factanal on these data: "22.38 on 12 degrees of freedom", from memory
     assert "Bartlett" in fit["chi2_correction"]
+    # the extraction's criterion at its minimum is the ML discrepancy behind that chi-square
+    assert (301 - 1 - 23 / 6 - 2) * ex.objective == pytest.approx(float(chi2_ref), rel=1e-6)
     # RMSEA interval: the bounds are the noncentralities where the noncentral chi-square CDF at the
     # observed chi2 is .95 and .05 (Steiger 1990), checked with scipy.stats.ncx2
     dfn, n = fit["df"], 301
