@@ -516,6 +516,11 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
 # the response file
 
 
+def _stem(name: str) -> str:
+    """An item name without its trailing number: 'Q12' -> 'q', 'belong_3' -> 'belong'."""
+    return re.sub(r"[\s_.\-]*\d+$", "", str(name).strip().lower())
+
+
 def _column_kind(name: str) -> str | None:
     key = _norm(name)
     if key in ID_NAMES or re.search(r"(^|[ _.\-])id$", str(name).strip().lower()):
@@ -613,6 +618,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                              details={"file": filename, "column": id_column, "columns": columns[:50]})
         id_column = match[0]
 
+    # With a codebook, a column it does not list stays an item only when it is named like the codebook's
+    # items (Q21 beside Q1..Q20); anything else (visits_per_month, a score) is left out with a warning.
+    cb_stems = {_stem(name) for name in codebook.entries} - {""} if codebook is not None else set()
+
+    def outside_codebook(column: str) -> bool:
+        return codebook is not None and column not in cb_for and _stem(column) not in cb_stems
+
     # ---- classify the columns
     left_out: list[tuple[str, str]] = []  # (column, why)
     item_cols: list[str] = []
@@ -646,6 +658,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             if kind == "demographic":
                 left_out.append((c, "demographic or survey-metadata name"))
                 continue
+            if outside_codebook(c):
+                left_out.append((c, "not in the codebook"))
+                continue
             values[c] = s.to_numpy(dtype=np.float64, na_value=np.nan)
             item_cols.append(c)
             continue
@@ -669,6 +684,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                 num[comma] = fixed.to_numpy()
                 isnum = num.notna().to_numpy()
         share = isnum[nonnull].mean() if nonnull.any() else 0.0
+        if not in_codebook and share >= 0.5 and kind is None and outside_codebook(c):
+            left_out.append((c, "not in the codebook"))
+            continue
         if in_codebook or (share >= 0.5 and kind is None):
             bad = np.flatnonzero(nonnull & ~isnum)
             bad_counts[c] = len(bad)

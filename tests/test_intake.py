@@ -319,3 +319,15 @@ def test_multiline_quoted_cell_keeps_row_numbers():
     raw = b'Q1,Q2,note\n1,2,"two\nlines"\n2,x,"y"\n3,4,z\n'
     err = _err(raw)
     assert (err.details["column"], err.details["row"], err.details["value"]) == ("Q2", 4, "x")
+
+
+def test_with_a_codebook_unlisted_columns_named_unlike_items_are_left_out():
+    raw = b"Q1,Q2,Q3,visits_per_month,score\n1,2,3,4,9\n2,3,4,1,12\n3,4,5,2,10\n"
+    cb = b"item,text,construct,reverse\nQ1,a,x,0\nQ2,b,x,0\n"
+    d = read_responses(raw, "f.csv", codebook_raw=cb, codebook_filename="cb.csv")
+    assert d.item_names == ["Q1", "Q2", "Q3"]  # Q3 is named like the codebook's items: kept, with a warning
+    assert any("not in the codebook" in w and "'Q3'" in w for w in d.warnings)
+    left = next(w for w in d.warnings if "left out" in w)
+    assert "'visits_per_month' (not in the codebook)" in left and "'score' (not in the codebook)" in left
+    # Without a codebook the same numeric columns are items.
+    assert read_responses(raw, "f.csv").item_names == ["Q1", "Q2", "Q3", "visits_per_month", "score"]
