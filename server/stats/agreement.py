@@ -39,6 +39,29 @@ KOO_LI_SOURCE = ("Koo & Li (2016) bands applied to the 95% confidence interval: 
                  ".75-.90 good, >.90 excellent")
 
 _BOOT = 2000
+_CHUNK_CELLS = 2_000_000   # bootstrap weights are drawn in blocks of at most this many cells (16 MB)
+
+
+def _boot_weights(n: int, n_boot: int, seed: int, width: int | None = None):
+    """Blocks of bootstrap weights: row b counts how often each of the n units was drawn in resample b.
+
+    ``width`` is the number of cells each resample needs downstream (default n), which sets the block size.
+    """
+    rng = np.random.default_rng(seed)
+    step = max(1, min(n_boot, _CHUNK_CELLS // max(width or n, n, 1)))
+    done = 0
+    while done < n_boot:
+        size = min(step, n_boot - done)
+        yield rng.multinomial(n, np.full(n, 1 / n), size=size).astype(float)
+        done += size
+
+
+def _percentile_ci(reps: np.ndarray, ci: float) -> list[float] | None:
+    reps = reps[np.isfinite(reps)]
+    if not reps.size:
+        return None
+    a = 1 - ci
+    return [float(np.quantile(reps, a / 2)), float(np.quantile(reps, 1 - a / 2))]
 
 
 # --------------------------------------------------------------------------------------------- helpers
@@ -588,17 +611,15 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
     se0 = math.sqrt(max(var0, 0.0))
     zval = kappa / se0 if se0 > 0 else None
     # bootstrap: resample units with replacement (weights = multinomial counts), vectorised
-    rng = np.random.default_rng(seed)
-    W = rng.multinomial(N, np.full(N, 1 / N), size=n_boot).astype(float)
     Pi = ((table ** 2).sum(axis=1) - m) / (m * (m - 1))
-    Pbar = W @ Pi / N
-    pjb = W @ table / (N * m)
-    peb = (pjb ** 2).sum(axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        kb = (Pbar - peb) / (1 - peb)
-    kb = kb[np.isfinite(kb)]
-    a = 1 - ci
-    interval = [float(np.quantile(kb, a / 2)), float(np.quantile(kb, 1 - a / 2))] if kb.size else None
+    reps = []
+    for W in _boot_weights(N, n_boot, seed):
+        Pbar = W @ Pi / N
+        pjb = W @ table / (N * m)
+        peb = (pjb ** 2).sum(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            reps.append((Pbar - peb) / (1 - peb))
+    interval = _percentile_ci(np.concatenate(reps), ci)
     out = {"value": float(kappa), "ci": interval, "se0": se0, "z": _num(zval),
            "p": _num(2 * sps.norm.sf(abs(zval))) if zval is not None else None,
            "label": landis_koch_label(kappa), "reason": None}
@@ -689,35 +710,48 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     if values.size < 2:
         return _undefined(f"Every pairable rating is {values[0]:g}: with one value there is no expected "
                           f"disagreement and alpha is undefined.", **info)
-    idx = {v: i for i, v in enumerate(values)}
     V = values.size
-    cnt = np.zeros((P.shape[0], V))
-    for u, row in enumerate(P):
-        for v in row[~np.isnan(row)]:
-            cnt[u, idx[v]] += 1
-    mu = cnt.sum(axis=1)
-    # per-unit coincidences, (U, V, V)
-    Ou = (cnt[:, :, None] * cnt[:, None, :] - cnt[:, :, None] * np.eye(V)[None]) / (mu - 1)[:, None, None]
+    U = P.shape[0]
+    cnt = np.zeros((U, V))
+    rows, cols = np.nonzero(~np.isnan(P))
+    np.add.at(cnt, (rows, np.searchsorted(values, P[rows, cols])), 1)
+    inv = 1 / (cnt.sum(axis=1) - 1)                       # 1 / (m_u - 1)
+    # coincidences o_ck = sum_u (n_uc n_uk - [c = k] n_uc) / (m_u - 1); margins n_c = sum_u n_uc
+    o = (cnt * inv[:, None]).T @ cnt - np.diag(inv @ cnt)
+    nv = cnt.sum(axis=0)
 
-    def alpha_from(o: np.ndarray) -> np.ndarray:
-        nv = o.sum(axis=-2)
-        n = nv.sum(axis=-1)
-        d = _kripp_distance(values, nv, level)
-        e = (nv[..., :, None] * nv[..., None, :] - nv[..., :, None] * np.eye(V)) / (n - 1)[..., None, None]
+    def alpha_of(o_: np.ndarray, nv_: np.ndarray) -> np.ndarray:
+        d = _kripp_distance(values, nv_, level)
+        n = nv_.sum(axis=-1)
+        # expected coincidences e_ck = n_c (n_k - [c = k]) / (n - 1); d_cc = 0, so the diagonal drops out
+        de = (nv_[..., :, None] * nv_[..., None, :] * d).sum(axis=(-2, -1)) / (n - 1)
         with np.errstate(divide="ignore", invalid="ignore"):
-            return 1 - (o * d).sum(axis=(-2, -1)) / (e * d).sum(axis=(-2, -1))
+            return 1 - (o_ * d).sum(axis=(-2, -1)) / de
 
-    o = Ou.sum(axis=0)
-    value = float(alpha_from(o))
-    U = Ou.shape[0]
-    rng = np.random.default_rng(seed)
-    W = rng.multinomial(U, np.full(U, 1 / U), size=n_boot).astype(float)
-    ob = (W @ Ou.reshape(U, V * V)).reshape(n_boot, V, V)
-    ab = alpha_from(ob)
-    ab = ab[np.isfinite(ab)]
-    a = 1 - ci
-    interval = [float(np.quantile(ab, a / 2)), float(np.quantile(ab, 1 - a / 2))] if ab.size else None
+    value = float(alpha_of(o, nv))
+    reps = []
+    ci_note = None
+    if level != "ordinal":
+        # the difference function is fixed, so each unit's observed disagreement is one number
+        d = _kripp_distance(values, nv, level)
+        do_u = ((cnt @ d) * cnt).sum(axis=1) * inv
+        for W in _boot_weights(U, n_boot, seed):
+            nb = W @ cnt
+            de = ((nb @ d) * nb).sum(axis=1) / (nb.sum(axis=1) - 1)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                reps.append(1 - (W @ do_u) / de)
+    elif V <= 60:
+        # ordinal distances depend on the margins, so each resample needs its own coincidence matrix
+        for W in _boot_weights(U, n_boot, seed, width=4 * V * V):
+            ob = np.einsum("bu,uc,uk->bck", W * inv, cnt, cnt, optimize=True)
+            ob -= (W @ (cnt * inv[:, None]))[:, :, None] * np.eye(V)
+            reps.append(alpha_of(ob, W @ cnt))
+    else:
+        ci_note = f"No interval: ordinal data with {V} distinct values are too many for the bootstrap."
+    interval = _percentile_ci(np.concatenate(reps), ci) if reps else None
     out = {"value": value, "ci": interval, "label": landis_koch_label(value), "reason": None}
+    if ci_note:
+        out["ci_reason"] = ci_note
     out.update(info)
     return out
 
