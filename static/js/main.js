@@ -136,13 +136,16 @@ async function runRefit() {
   timings.lastRefitMs = ms;
   if (timings.clickAt) timings.lastClickToUpdateMs = performance.now() - timings.clickAt;
   timings.marks.push({ what: "refit", ms, at: Date.now() });
+  if (timings.firstFitMs == null && state.analysis) timings.firstFitMs = performance.now(); // since navigation start
   document.body.dataset.fitted = String(gen);
 }
 
 // ---------------------------------------------------------------- actions
 function changed(action, detail, { push = false } = {}) {
   writeUrl(push);
-  renderAll();
+  renderSummary();
+  // The board and settings show the change at once; charts wait for the new analysis (no stale redraw).
+  if (!NEEDS_ANALYSIS.has(state.view) || state.view === "board") renderView();
   refit();
   if (action) broadcast(action, detail);
 }

@@ -3,6 +3,8 @@ import { alphaIfDeleted, pruningPath } from "../charts.js";
 import { state } from "../state.js";
 import { clear, fmt, h, note, section, table } from "./dom.js";
 
+let renders = 0;
+
 export function render(container) {
   clear(container);
   const a = state.analysis;
@@ -31,7 +33,7 @@ export function render(container) {
       h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v) })])))),
     path,
     h("p", { class: "muted", text: "The pruning path drops, at each step, the item whose removal leaves the highest alpha. Where it levels off is where a short form stops paying for its brevity. Alpha rising is not the same as the scale measuring the right thing." })));
-  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha }).then(() => curve.setAttribute("data-rendered", String(Date.now())));
+  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha }).then(() => curve.setAttribute("data-rendered", String((renders += 1))));
   const p = a.pruning_path || [];
   const full = p.length && p[0].removed == null ? p : [{ removed: null, n_items: (a.items || []).length, alpha: rel.alpha, omega_total: rel.omega_total }, ...p];
   pruningPath(path, { path: full });

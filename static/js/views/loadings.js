@@ -23,6 +23,8 @@ export function ordered(efa) {
   return rows;
 }
 
+let renders = 0;
+
 export function render(container) {
   clear(container);
   const efa = state.analysis?.efa;
@@ -69,7 +71,7 @@ export function render(container) {
     h("div", { class: "heat-layout" }, heat, side),
     warningList(efa.warnings, "About this solution")));
   loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
-    .then(() => heat.setAttribute("data-rendered", String(Date.now())));
+    .then(() => heat.setAttribute("data-rendered", String((renders += 1))));
   if (efa.factor_correlations && efa.factor_correlations.length > 1) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
   } else {
