@@ -304,3 +304,22 @@ def test_previous_with_other_factor_counts_and_bad_previous():
     assert e.value.code == "bad_previous"
     unrelated = efa.factor_analysis(R, 2, n=1500, names=names, previous={"loadings": {"zz": [1.0, 0.0]}})
     assert "shares no items" in unrelated.match
+
+
+@pytest.mark.parametrize("method", ["minres", "ml"])
+def test_objective_gradients_match_finite_differences(hs_R, method):
+    # the analytic gradients over the uniquenesses against scipy.optimize.check_grad
+    psi = np.linspace(0.3, 0.7, 9)
+    if method == "ml":
+        args = (hs_R, 3, float(np.linalg.slogdet(hs_R)[1]))
+        fun = efa._ml_fun
+    else:
+        args = (hs_R, 3)
+        fun = efa._uls_fun
+    err = optimize.check_grad(lambda p: fun(p, *args)[0], lambda p: fun(p, *args)[1], psi, epsilon=1e-7)
+    assert err < 1e-5 * (1 + np.linalg.norm(fun(psi, *args)[1]))  # scipy check_grad
+    # and the ML criterion equals factanal's form computed from all eigenvalues (R's factanal.fn)
+    if method == "ml":
+        sc = 1 / np.sqrt(psi)
+        e = np.sort(np.linalg.eigvalsh(hs_R * np.outer(sc, sc)))[::-1][3:]
+        assert fun(psi, *args)[0] == pytest.approx(-(np.sum(np.log(e) - e) - 3 + 9), rel=1e-10)

@@ -132,3 +132,24 @@ def test_bad_input_raises_input_error():
     bad[2, 1] = np.nan
     with pytest.raises(InputError, match="row 2"):
         rot.oblimin(bad)
+
+
+@pytest.mark.parametrize("criterion", [
+    lambda L: rot._vgq_oblimin(L, 0.0),
+    lambda L: rot._vgq_oblimin(L, 0.5),
+    lambda L: rot._vgq_geomin(L, 0.01),
+    rot._vgq_quartimax,
+])
+def test_criterion_gradients_match_finite_differences(criterion):
+    # analytic dQ/dL against forward differences from scipy.optimize.approx_fprime
+    from scipy.optimize import approx_fprime
+    L0 = np.random.default_rng(3).uniform(-0.8, 0.8, size=(6, 3))
+    num = approx_fprime(L0.ravel(), lambda x: criterion(x.reshape(6, 3))[0], 1e-7)
+    np.testing.assert_allclose(criterion(L0)[1].ravel(), num, atol=1e-5)  # scipy approx_fprime, 5 decimals
+
+
+def test_kaiser_normalised_oblimin_keeps_the_convention():
+    A = harman_unrotated()
+    res = rot.oblimin(A, normalize=True)
+    np.testing.assert_allclose(res.pattern, A @ np.linalg.inv(res.T).T, atol=1e-10)
+    np.testing.assert_allclose(res.pattern @ res.phi @ res.pattern.T, A @ A.T, atol=1e-8)
