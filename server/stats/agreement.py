@@ -35,6 +35,8 @@ ICC_DESCRIPTIONS = {
 
 LANDIS_KOCH_SOURCE = ("Landis & Koch (1977) bands, a convention rather than a finding: <0 poor, 0-.20 slight, "
                       ".21-.40 fair, .41-.60 moderate, .61-.80 substantial, .81-1 almost perfect")
+KRIPPENDORFF_SOURCE = ("Krippendorff (2004) guidance, a convention: alpha >= .800 reliable, .667-.800 tentative "
+                       "conclusions only, < .667 unreliable")
 KOO_LI_SOURCE = ("Koo & Li (2016) bands applied to the 95% confidence interval: <.50 poor, .50-.75 moderate, "
                  ".75-.90 good, >.90 excellent")
 
@@ -152,6 +154,26 @@ def landis_koch_label(value: float | None) -> str | None:
         if value <= upper:
             return label
     return "almost perfect"
+
+
+def krippendorff_label(value: float | None) -> str | None:
+    """Krippendorff's own reading of alpha (a convention, like every such band).
+
+    Returns ``reliable`` (alpha >= .800), ``tentative`` (.667 <= alpha < .800) or ``unreliable``;
+    None for None.
+
+    References
+    ----------
+    Krippendorff, K. (2004). Content analysis: an introduction to its methodology (2nd ed.).
+    Thousand Oaks, CA: Sage.
+    """
+    if value is None or not math.isfinite(value):
+        return None
+    if value >= 0.8:
+        return "reliable"
+    if value >= 0.667:
+        return "tentative"
+    return "unreliable"
 
 
 def _koo_li_band(x: float) -> str:
@@ -669,7 +691,8 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     -------
     dict
         ``value, ci, ci_method, level, n_units, n_pairable_units, n_values (pairable values),
-        label, label_source, reason``.
+        label (Krippendorff's reliable/tentative/unreliable), label_source, reason``, and ``ci_reason``
+        when no interval could be computed.
 
     Notes
     -----
@@ -701,7 +724,7 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     info = {"level": level, "n_units": int(Y.shape[0]), "n_pairable_units": int(pairable.sum()),
             "n_values": int(m_u[pairable].sum()),
             "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
-            "label_source": LANDIS_KOCH_SOURCE}
+            "label_source": KRIPPENDORFF_SOURCE}
     if Y.shape[1] < 2:
         return _undefined("Krippendorff's alpha needs at least two raters.", **info)
     if P.shape[0] == 0:
@@ -749,7 +772,7 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     else:
         ci_note = f"No interval: ordinal data with {V} distinct values are too many for the bootstrap."
     interval = _percentile_ci(np.concatenate(reps), ci) if reps else None
-    out = {"value": value, "ci": interval, "label": landis_koch_label(value), "reason": None}
+    out = {"value": value, "ci": interval, "label": krippendorff_label(value), "reason": None}
     if ci_note:
         out["ci_reason"] = ci_note
     out.update(info)
@@ -954,6 +977,7 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> d
         warnings.extend(out["icc"]["warnings"][1:] if n_missing else out["icc"]["warnings"])
     else:
         out["icc"] = _undefined(f"The ICC treats ratings as interval-level numbers; these are {level}.")
-    out["conventions"] = {"kappa_labels": LANDIS_KOCH_SOURCE, "icc_labels": KOO_LI_SOURCE}
+    out["conventions"] = {"kappa_labels": LANDIS_KOCH_SOURCE, "alpha_labels": KRIPPENDORFF_SOURCE,
+                          "icc_labels": KOO_LI_SOURCE}
     out["warnings"] = warnings
     return out

@@ -21,6 +21,7 @@ from server.stats.agreement import (
     icc,
     koo_li_label,
     krippendorff_alpha,
+    krippendorff_label,
     landis_koch_label,
     percent_agreement,
     weighted_kappa,
@@ -264,6 +265,25 @@ def test_landis_koch_bands():
     assert [landis_koch_label(v) for v in (-0.1, 0.1, 0.3, 0.5, 0.7, 0.9)] == [
         "poor", "slight", "fair", "moderate", "substantial", "almost perfect"]
     assert landis_koch_label(None) is None
+
+
+def test_krippendorff_label_bands():
+    # Krippendorff (2004) guidance (.800 / .667), a convention
+    assert [krippendorff_label(v) for v in (0.85, 0.7, 0.5)] == [
+        "reliable", "tentative", "unreliable"]  # from memory
+
+
+def test_icc_invariances():
+    # identities: adding a constant to every rating changes no ICC; a constant per rater changes no
+    # consistency ICC but lowers the absolute-agreement ICC
+    Y = shrout_fleiss()
+    base = icc(Y)
+    shifted = icc(Y + 10)
+    per_rater = icc(Y + np.array([0.0, 3.0, -2.0, 5.0]))
+    for form in ICC_FORMS:
+        assert shifted[form]["value"] == pytest.approx(base[form]["value"])
+    assert per_rater["ICC(C,1)"]["value"] == pytest.approx(base["ICC(C,1)"]["value"])
+    assert per_rater["ICC(A,1)"]["value"] < base["ICC(A,1)"]["value"]
 
 
 def test_koo_li_label_reads_the_interval():
