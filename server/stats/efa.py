@@ -46,8 +46,16 @@ from . import flags as _flags
 from . import rotation as _rotation
 from .errors import InputError
 
-__all__ = ["Extraction", "EFAResult", "extract", "fit_indices", "factor_analysis",
-           "congruence", "METHODS", "PSI_LOWER"]
+__all__ = [
+    "METHODS",
+    "PSI_LOWER",
+    "EFAResult",
+    "Extraction",
+    "congruence",
+    "extract",
+    "factor_analysis",
+    "fit_indices",
+]
 
 METHODS = ("minres", "ml", "paf")
 #: lower bound of the uniquenesses in minres/ML (as R's factanal, psych::fa and factor_analyzer)

@@ -23,16 +23,23 @@ Browne, M. W. (2001). An overview of analytic rotation in exploratory factor ana
 """
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 
 from .errors import InputError
 
 __all__ = [
-    "RotationResult", "oblimin", "geomin", "quartimax", "varimax", "promax", "rotate",
-    "ROTATIONS", "OBLIQUE",
+    "OBLIQUE",
+    "ROTATIONS",
+    "RotationResult",
+    "geomin",
+    "oblimin",
+    "promax",
+    "quartimax",
+    "rotate",
+    "varimax",
 ]
 
 #: rotation names accepted by :func:`rotate`
@@ -84,7 +91,7 @@ class RotationResult:
 # Each returns (Q, dQ/dL).  Formulas as in GPArotation (Bernaards & Jennrich 2005).
 
 def _vgq_oblimin(L: np.ndarray, gamma: float) -> tuple[float, np.ndarray]:
-    k, m = L.shape
+    m = L.shape[1]
     L2 = L * L
     X = L2 @ (np.ones((m, m)) - np.eye(m))
     if gamma != 0:

@@ -203,7 +203,7 @@ def simulate(n=4000, seed=11, raw=False):
 
 
 def test_simulated_structure_is_recovered_and_flagged():
-    R, names, constructs, L, phi = simulate()
+    R, names, constructs, L, _phi = simulate()
     res = efa.factor_analysis(R, 2, n=4000, names=names, constructs=constructs, method="minres",
                               rotation="oblimin")
     assert res.factors == ["A", "B"]
@@ -226,7 +226,7 @@ def test_simulated_structure_is_recovered_and_flagged():
 
 def test_simulated_structure_from_polychoric_correlations():
     from server.stats.correlation import polychoric_matrix
-    X, names, constructs, L, phi = simulate(n=3000, seed=5, raw=True)
+    X, names, constructs, L, _phi = simulate(n=3000, seed=5, raw=True)
     # five ordered categories with uneven thresholds: the polychoric matrix estimates the latent
     # correlations (Olsson 1979), so the generating loadings are recovered as with continuous data
     cuts = np.array([-1.5, -0.5, 0.3, 1.2])
@@ -264,7 +264,7 @@ def test_heywood_case_is_reported_not_hidden(method):
 
 
 def test_duplicated_item_gives_a_clear_message():
-    R, names, constructs, _, _ = simulate(n=800)
+    R, names, _constructs, _, _ = simulate(n=800)
     R2 = np.zeros((13, 13))
     idx = list(range(12)) + [0]
     R2[:] = R[np.ix_(idx, idx)]
