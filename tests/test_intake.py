@@ -10,6 +10,8 @@ import pandas as pd
 import pingouin
 import pytest
 import semopy
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from server.intake import read_codebook, read_responses
 from server.stats.errors import InputError
@@ -331,3 +333,35 @@ def test_with_a_codebook_unlisted_columns_named_unlike_items_are_left_out():
     assert "'visits_per_month' (not in the codebook)" in left and "'score' (not in the codebook)" in left
     # Without a codebook the same numeric columns are items.
     assert read_responses(raw, "f.csv").item_names == ["Q1", "Q2", "Q3", "visits_per_month", "score"]
+
+
+# ---- property: whatever the delimiter, decimal mark, line ends and encoding, the numbers come back
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(data=st.data(), n=st.integers(3, 12), k=st.integers(2, 6),
+       delim=st.sampled_from([",", ";", "\t", "|"]), crlf=st.booleans(), bom=st.booleans(),
+       halves=st.booleans())
+def test_round_trip_through_text(data, n, k, delim, crlf, bom, halves):
+    cells = data.draw(st.lists(st.lists(st.one_of(st.none(), st.integers(1, 7)), min_size=k, max_size=k),
+                               min_size=n, max_size=n))
+    expected = np.array([[np.nan if v is None else v + (0.5 if halves else 0.0) for v in row] for row in cells])
+    keep = ~np.isnan(expected).all(axis=1)
+    if keep.sum() < 3 or np.isnan(expected[keep]).all(axis=0).any():
+        return  # too few answered rows or an empty column: other tests cover those errors
+    comma_decimal = halves and delim != ","
+
+    def fmt(v):
+        if np.isnan(v):
+            return ""
+        text = f"{v:g}"
+        return text.replace(".", ",") if comma_decimal else text
+    eol = "\r\n" if crlf else "\n"
+    lines = [delim.join(f"item{j + 1}" for j in range(k))]
+    lines += [delim.join(fmt(v) for v in row) for row in expected]
+    raw = (("\ufeff" if bom else "") + eol.join(lines) + eol).encode("utf-8")
+    d = read_responses(raw, "prop.csv")
+    assert d.item_names == [f"item{j + 1}" for j in range(k)]
+    np.testing.assert_array_equal(d.responses, expected[keep])
+    assert d.n_rows == int(keep.sum())
+    assert [it.n_missing for it in d.items] == np.isnan(expected[keep]).sum(axis=0).tolist()
