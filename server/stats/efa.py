@@ -324,14 +324,18 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
                                 options={"maxiter": max_iter, "ftol": 1e-14,
                                          "gtol": 1e-8 if tol is None else tol})
         psi = res.x
-        converged = bool(res.success)
         it = int(res.nit)
         objective = float(res.fun)
+        # L-BFGS-B can stop on a line-search failure at an optimum; accept that when the projected
+        # gradient (zero where a bound is active and the gradient points outwards) has vanished
+        g = np.asarray(res.jac, dtype=float)
+        pg = np.where(((psi <= PSI_LOWER) & (g > 0)) | ((psi >= 1.0) & (g < 0)), 0.0, g)
+        converged = bool(res.success) or (it < max_iter and float(np.max(np.abs(pg))) < 1e-6)
         L = _ml_loadings(psi, R, m) if method == "ml" else _uls_loadings(psi, R, m)
         h2 = np.sum(L * L, axis=1)
         if not converged:
-            warnings.append(f"The {'ML' if method == 'ml' else 'minres'} fit did not converge in "
-                            f"{max_iter} iterations ({res.message}).")
+            warnings.append(f"The {'ML' if method == 'ml' else 'minres'} fit stopped after {it} iterations "
+                            f"without converging ({res.message}); treat its loadings with caution.")
         heywood = [i for i in range(k) if psi[i] <= PSI_LOWER * (1 + 1e-6) or h2[i] >= 1.0 - 1e-9]
     # canonical sign: each unrotated factor's loadings sum positive
     sgn = np.where(L.sum(axis=0) < 0, -1.0, 1.0)

@@ -323,3 +323,11 @@ def test_objective_gradients_match_finite_differences(hs_R, method):
         sc = 1 / np.sqrt(psi)
         e = np.sort(np.linalg.eigvalsh(hs_R * np.outer(sc, sc)))[::-1][3:]
         assert fun(psi, *args)[0] == pytest.approx(-(np.sum(np.log(e) - e) - 3 + 9), rel=1e-10)
+
+
+def test_non_convergence_is_a_warning(hs_R):
+    ex = efa.extract(hs_R, 3, method="ml", max_iter=2)
+    assert not ex.converged
+    assert any("without converging" in w for w in ex.warnings)
+    paf = efa.extract(hs_R, 3, method="paf", max_iter=2)
+    assert not paf.converged and any("did not converge in 2 iterations" in w for w in paf.warnings)
