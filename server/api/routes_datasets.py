@@ -33,7 +33,7 @@ class _TooLarge(Exception):
 
 
 def _too_large(limit: int, what: str = "The upload") -> ApiError:
-    mb = limit / (1024 * 1024)
+    mb = round(limit / (1024 * 1024), 3)
     return ApiError(413, "too_large",
                     f"{what} is larger than the limit of {mb:g} MB (the server's max_upload_mb setting).",
                     {"limit_bytes": limit})

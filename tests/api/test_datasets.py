@@ -190,6 +190,7 @@ def test_413_from_content_length(small_client):
     raw = _big_csv(40_000)  # 240 kB > 100 kB + multipart slack
     err = _error(_upload(small_client, raw), 413)
     assert err["code"] == "too_large" and err["details"]["limit_bytes"] == 104_857
+    assert "limit of 0.1 MB" in err["message"]
 
 
 def test_413_counted_while_reading_without_content_length(small_client):
