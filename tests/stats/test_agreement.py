@@ -1,6 +1,6 @@
 """Agreement coefficients against published examples and reference libraries.
 
-Sources: Shrout & Fleiss (1979) Table 2; pingouin 0.7 (`icc` data set and `intraclass_corr`);
+Sources: Shrout & Fleiss (1979) worked example; pingouin 0.7 (`icc` data set and `intraclass_corr`);
 statsmodels 0.15 test tables and their SAS printout; scikit-learn `cohen_kappa_score`;
 Krippendorff (2011) and the `krippendorff` package. See tests/reference/agreement/README.md.
 """
@@ -31,7 +31,7 @@ from server.stats.errors import InputError
 REF = Path(__file__).resolve().parents[1] / "reference" / "agreement"
 
 
-def shrout_fleiss() -> np.ndarray:
+def shrout_fleiss() -> np.ndarray:  # ratings typed in from memory; checked by the six published ICCs
     return pd.read_csv(REF / "shrout_fleiss_1979.csv").drop(columns="target").to_numpy(float)
 
 
@@ -50,16 +50,16 @@ def expand(table) -> tuple[list[int], list[int]]:
 
 
 # ------------------------------------------------------------------------------------------------ ICC
-def test_icc_shrout_fleiss_1979_table_2():
+def test_icc_shrout_fleiss_1979():
     # Mapping of names: Shrout & Fleiss ICC(1,1) = McGraw & Wong ICC(1,1); ICC(2,1) = ICC(A,1);
     # ICC(3,1) = ICC(C,1); ICC(1,4) = ICC(1,k); ICC(2,4) = ICC(A,k); ICC(3,4) = ICC(C,k) with k = 4 judges.
     r = icc(shrout_fleiss())
-    assert round(r["ICC(1,1)"]["value"], 2) == 0.17  # Shrout & Fleiss 1979, Table 4, ICC(1,1)
-    assert round(r["ICC(A,1)"]["value"], 2) == 0.29  # Shrout & Fleiss 1979, Table 4, ICC(2,1)
-    assert round(r["ICC(C,1)"]["value"], 2) == 0.71  # Shrout & Fleiss 1979, Table 4, ICC(3,1)
-    assert round(r["ICC(1,k)"]["value"], 2) == 0.44  # Shrout & Fleiss 1979, Table 4, ICC(1,4)
-    assert round(r["ICC(A,k)"]["value"], 2) == 0.62  # Shrout & Fleiss 1979, Table 4, ICC(2,4)
-    assert round(r["ICC(C,k)"]["value"], 2) == 0.91  # Shrout & Fleiss 1979, Table 4, ICC(3,4)
+    assert round(r["ICC(1,1)"]["value"], 2) == 0.17  # Shrout & Fleiss 1979, published ICC(1,1)
+    assert round(r["ICC(A,1)"]["value"], 2) == 0.29  # Shrout & Fleiss 1979, published ICC(2,1)
+    assert round(r["ICC(C,1)"]["value"], 2) == 0.71  # Shrout & Fleiss 1979, published ICC(3,1)
+    assert round(r["ICC(1,k)"]["value"], 2) == 0.44  # Shrout & Fleiss 1979, published ICC(1,4)
+    assert round(r["ICC(A,k)"]["value"], 2) == 0.62  # Shrout & Fleiss 1979, published ICC(2,4)
+    assert round(r["ICC(C,k)"]["value"], 2) == 0.91  # Shrout & Fleiss 1979, published ICC(3,4)
     assert r["n_units"] == 6 and r["n_raters"] == 4 and r["n_dropped"] == 0
     assert r["ICC(1,1)"]["df1"] == 5 and r["ICC(1,1)"]["df2"] == 18   # one-way: n-1, n(k-1)
     assert r["ICC(A,1)"]["df2"] == 15                                 # two-way: (n-1)(k-1)
@@ -287,7 +287,7 @@ def test_icc_invariances():
 
 
 def test_koo_li_label_reads_the_interval():
-    assert koo_li_label([0.83, 0.94]) == "good to excellent"  # Koo & Li (2016), worked wording
+    assert koo_li_label([0.83, 0.94]) == "good to excellent"  # Koo & Li (2016) wording, from memory
     assert koo_li_label([0.2, 0.4]) == "poor"  # Koo & Li (2016) bands
     assert koo_li_label(None, 0.6).startswith("moderate")
 
