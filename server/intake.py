@@ -135,7 +135,7 @@ def _quote_list(names, limit: int = MAX_LISTED) -> str:
 
 def _fmt_num(x: float) -> str:
     x = float(x)
-    return str(int(x)) if x.is_integer() else f"{x:g}"
+    return str(int(x)) if x.is_integer() else f"{x:g}"  # is_integer() is False for inf and nan
 
 
 def _plural(n: int, one: str, many: str | None = None) -> str:
@@ -752,6 +752,16 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         responses[:, j] = values.pop(c)
     ids_series = df[chosen_id] if chosen_id is not None else None
     del df, values
+    infinite = np.isinf(responses)
+    if infinite.any():
+        rows_i, cols_j = np.nonzero(infinite)
+        cells = [{"column": item_cols[j], "row": int(row_numbers[i]), "value": _fmt_num(responses[i, j])}
+                 for i, j in zip(rows_i[:MAX_LISTED], cols_j[:MAX_LISTED])]
+        shown = "; ".join(f"column '{b['column']}', row {b['row']}: '{b['value']}'" for b in cells)
+        raise InputError(
+            f"The file '{filename}' has {_plural(len(rows_i), 'infinite value')} in item columns ({shown}); "
+            "answers must be finite numbers.", code="non_numeric",
+            details={"file": filename, **cells[0], "cells": cells})
 
     if codes:
         hit = np.isin(responses, np.asarray(codes))
