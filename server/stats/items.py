@@ -14,10 +14,9 @@ import math
 import numpy as np
 
 from .errors import InputError
-from .reliability import (_check_cov, _cov_to_corr, _fit_batch, _num, _off_diagonal,
-                          one_factor_loadings)
+from .reliability import _check_cov, _cov_to_corr, _fit_batch, _num, _off_diagonal, one_factor_loadings
 
-__all__ = ["item_table", "pruning_path", "alpha_if_deleted", "item_rest_correlations"]
+__all__ = ["alpha_if_deleted", "item_rest_correlations", "item_table", "pruning_path"]
 
 
 def _names(names, k: int) -> list[str]:
@@ -87,9 +86,8 @@ def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = N
     m = mask[ok_rows]
     L0 = np.where(m, np.asarray(start, dtype=float)[None, :], 0.0)
     L, conv, _ = _fit_batch(_off_diagonal(R), L0, m)
-    heywood = (np.where(m, L * L, 0.0) >= 1.0).any(axis=1)
-    redo = np.flatnonzero(~conv | heywood)
-    for b in redo:  # rare: fit this subset on its own (bounded fit on a Heywood case)
+    redo = np.flatnonzero(~conv)
+    for b in redo:  # rare: fit this subset on its own (L-BFGS-B fallback)
         idx = np.flatnonzero(m[b])
         fit = one_factor_loadings(R[np.ix_(idx, idx)], start=start[idx])
         L[b] = 0.0
@@ -98,7 +96,7 @@ def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = N
     signs[signs == 0] = 1.0
     lam = L * signs * sd[None, :]
     mf = m.astype(float)
-    V = np.einsum("bi,ij,bj->b", mf, S, mf)
+    V = ((mf @ S) * mf).sum(axis=1)
     out[ok_rows] = lam.sum(axis=1) ** 2 / V
     return out
 
@@ -194,22 +192,24 @@ def pruning_path(cov, *, names, min_items: int = 3, start=None) -> list[dict]:
     alphas = [m / (m - 1) * (1 - t / V) if V > 0 else math.nan]
     removed: list[int | None] = [None]
     masks = [alive.copy()]
-    while m > min_items:
-        Vj = V - 2 * c + d
-        with np.errstate(divide="ignore", invalid="ignore"):
-            a = (m - 1) / (m - 2) * (1.0 - (t - d) / Vj)
-        a = np.where(alive & (Vj > 0), a, -np.inf)
-        j = int(np.argmax(a))
-        if not np.isfinite(a[j]):
-            break
-        V = V - 2 * c[j] + d[j]
-        t -= d[j]
-        c = c - S[:, j]
-        alive[j] = False
-        m -= 1
-        alphas.append(float(a[j]))
-        removed.append(j)
-        masks.append(alive.copy())
+    dead = np.zeros(k)                  # -inf once an item is removed
+    with np.errstate(divide="ignore", invalid="ignore"):
+        while m > min_items:
+            Vj = V - 2 * c + d
+            # alpha without j is (m-1)/(m-2) * (1 - (t - d_j) / Vj); the factor does not change the argmax
+            score = np.where(Vj > 0, 1.0 - (t - d) / Vj, -np.inf) + dead
+            j = int(np.argmax(score))
+            if not np.isfinite(score[j]):
+                break
+            alphas.append((m - 1) / (m - 2) * float(score[j]))
+            V = V - 2 * c[j] + d[j]
+            t -= d[j]
+            c = c - S[:, j]
+            alive[j] = False
+            dead[j] = -np.inf
+            m -= 1
+            removed.append(j)
+            masks.append(alive.copy())
     st = None
     if start is not None:
         st = np.asarray(start, dtype=float)

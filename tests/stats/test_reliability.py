@@ -20,9 +20,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from server.stats.errors import InputError
-from server.stats.reliability import (cronbach_alpha, feldt_ci, guttman_lambdas, mcdonald_omega,
-                                      one_factor_loadings, reliability_from_cov, spearman_brown,
-                                      spearman_brown_factor)
+from server.stats.reliability import (
+    cronbach_alpha,
+    feldt_ci,
+    guttman_lambdas,
+    mcdonald_omega,
+    one_factor_loadings,
+    reliability_from_cov,
+    spearman_brown,
+    spearman_brown_factor,
+)
 
 REF = Path(__file__).resolve().parents[1] / "reference" / "reliability"
 
@@ -224,11 +231,20 @@ def test_heywood_case_is_bounded_and_warned():
     # r12 r13 / r23 = 1.28 > 1: the exact one-factor solution needs a communality above 1
     R = np.array([[1.0, 0.8, 0.8], [0.8, 1.0, 0.5], [0.8, 0.5, 1.0]])
     fit = one_factor_loadings(R)
-    assert fit.method == "bounded-lbfgsb" and fit.heywood == (0,)
+    assert fit.converged and fit.heywood == (0,)
     ref = _fa_minres_loadings(R, is_corr=True)
     np.testing.assert_allclose(fit.loadings, ref, atol=2e-3)  # factor_analyzer minres, psi >= 0.005
     om = mcdonald_omega(R)
     assert any("Heywood" in w for w in om.warnings)
+    # a larger set: item 0 correlates .6 with seven items that correlate .25 among themselves
+    R8 = np.full((8, 8), 0.25)
+    R8[0, 1:] = R8[1:, 0] = 0.6
+    np.fill_diagonal(R8, 1.0)
+    fit8 = one_factor_loadings(R8)
+    assert fit8.heywood == (0,) and fit8.converged
+    ref8 = _fa_minres_loadings(R8, is_corr=True)
+    np.testing.assert_allclose(fit8.loadings, ref8, atol=1e-4)  # factor_analyzer minres, psi >= 0.005
+    np.testing.assert_allclose(fit8.uniquenesses, 1 - ref8 ** 2, atol=2e-4)  # factor_analyzer: 1 - h2
 
 
 def test_omega_needs_three_items():
