@@ -571,7 +571,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     -----
     Delimiter (comma, semicolon, tab, vertical bar) and decimal comma are detected from the first
     256 KB; text is read as UTF-8 (with or without BOM) or, failing that, Latin-1 with a warning.
-    Columns that are not items (IDs, free text, dates, demographics) are left out with a warning.
+    Columns that are not items (IDs, free text, dates, demographics) are left out with a warning; with
+    a codebook, a numeric column it does not list is kept as an item (with a warning) only when it is named
+    like the codebook's items (``Q21`` beside ``Q1``..``Q20``), else left out.
     Values outside the declared range are set to missing with a warning; rows with no answer at all are
     dropped with a warning.
     """
@@ -593,10 +595,10 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         codebook = read_codebook(codebook_raw, codebook_filename or "codebook")
         notes.extend(codebook.warnings)
 
-    df, row_numbers, read_notes, _info = _read_table(raw, filename)
+    df, row_numbers, read_notes, info = _read_table(raw, filename)
     notes.extend(read_notes)
     columns = [str(c) for c in df.columns]
-    unnamed = set(_info.get("unnamed", ()))
+    unnamed = set(info.get("unnamed", ()))
 
     # Codebook names are matched exactly, then ignoring case.
     cb_for: dict[str, CodebookEntry] = {}
@@ -674,14 +676,14 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         num = pd.to_numeric(s, errors="coerce")
         nonnull = s.notna().to_numpy()
         isnum = num.notna().to_numpy()
-        comma = nonnull & ~isnum
-        if comma.any():  # "3,5" in a comma-separated file (quoted): a decimal comma
-            fixed = pd.to_numeric(s[comma].astype(str).str.strip().where(
+        unparsed = nonnull & ~isnum
+        if unparsed.any():  # "3,5" in a comma-separated file (quoted): a decimal comma
+            fixed = pd.to_numeric(s[unparsed].astype(str).str.strip().where(
                 lambda t: t.str.match(_DECIMAL_COMMA.pattern)).str.replace(",", ".", regex=False),
                 errors="coerce")
             if fixed.notna().any():
                 num = num.copy()
-                num[comma] = fixed.to_numpy()
+                num[unparsed] = fixed.to_numpy()
                 isnum = num.notna().to_numpy()
         share = isnum[nonnull].mean() if nonnull.any() else 0.0
         if not in_codebook and share >= 0.5 and kind is None and outside_codebook(c):
