@@ -55,6 +55,7 @@ export const api = {
   responsesUrl: (sid, scored) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/responses${scored ? "?scored=true" : ""}`),
   retest: (body) => call("POST", "/api/retest", { json: body }),
   agreement: (body) => call("POST", "/api/agreement", { json: body }),
+  agreementUpload: (form) => call("POST", "/api/agreement/upload", { form }),
   postEvent: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/events`, { json: body }),
   events: (id) => new EventSource(withToken(`/api/datasets/${encodeURIComponent(id)}/events`)),
 };

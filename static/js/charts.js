@@ -154,14 +154,16 @@ export function mapCurve(el, { values: all, best }) {
 
 export function retestScatter(el, { x, y, ids, labelX, labelY }) {
   const all = x.concat(y).filter((v) => v != null);
-  const lo = Math.min(...all);
-  const hi = Math.max(...all);
+  const pad = (Math.max(...all) - Math.min(...all)) * 0.04 || 1;
+  const lo = Math.min(...all) - pad;
+  const hi = Math.max(...all) + pad;
   const pts = { type: "scatter", mode: "markers", x, y, text: ids, name: "respondents",
     marker: { color: ACCENT, size: 7, opacity: 0.6 }, hovertemplate: "%{text}: %{x} then %{y}<extra></extra>" };
   const identity = { type: "scatter", mode: "lines", x: [lo, hi], y: [lo, hi], name: "same score both times",
     line: { color: WARM, dash: "dash", width: 2 }, hoverinfo: "skip" };
   const layout = base({ title: { text: "Score in each wave", x: 0 }, height: 360, legend: { orientation: "h", y: -0.2 },
-    xaxis: { title: { text: labelX }, gridcolor: GRID }, yaxis: { title: { text: labelY }, gridcolor: GRID, scaleanchor: "x" } });
+    xaxis: { title: { text: labelX }, gridcolor: GRID, range: [lo, hi], zeroline: false },
+    yaxis: { title: { text: labelY }, gridcolor: GRID, range: [lo, hi], zeroline: false } });
   return draw(el, [pts, identity], layout);
 }
 

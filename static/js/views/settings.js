@@ -3,10 +3,11 @@ import { DEFAULT_SETTINGS, actions, allItems, itemMeta, state } from "../state.j
 import { clear, h, note, section, select } from "./dom.js";
 
 export const THRESHOLDS = [
-  ["primary", 0.40, "Weak: primary loading below"],
-  ["communality", 0.20, "Weak: communality below"],
-  ["cross", 0.30, "Cross-loading: a second loading of at least"],
-  ["gap", 0.20, "Cross-loading: and less than this below the primary"],
+  ["primary_min", 0.40, "Weak: primary loading below (Howard 2016)"],
+  ["communality_min", 0.20, "Weak: communality below"],
+  ["cross_min", 0.30, "Cross-loading: a second loading of at least (Howard 2016)"],
+  ["cross_gap", 0.20, "Cross-loading: and less than this below the primary (Howard 2016)"],
+  ["item_rest_min", 0.0, "Reverse suspect: item-rest r below"],
 ];
 
 export function render(container) {
@@ -18,7 +19,7 @@ export function render(container) {
   const thresholdInputs = THRESHOLDS.map(([key, def, label]) => {
     const current = state.thresholds[key] ?? served[key] ?? def;
     return h("label", { class: "threshold" }, h("span", { text: label }),
-      h("input", { type: "number", step: "0.05", min: "0", max: "1", value: String(current), id: `th-${key}`,
+      h("input", { type: "number", step: "0.05", min: "-1", max: "1", value: String(current), id: `th-${key}`,
         onchange: (e) => { const v = Number(e.target.value); if (!Number.isNaN(v)) actions.setThreshold(key, v === def ? null : v); } }));
   });
   const declared = new Set(state.reverse ?? (state.meta?.items || []).filter((it) => it.reverse).map((it) => it.name));

@@ -6,36 +6,50 @@ import { clear, fmt, h, note, section, select, table, warningList } from "./dom.
 
 let retestResult = null;
 let agreementResult = null;
-let pick = { first: null, second: null, score: "sum", level: "ordinal", text: "" };
+const pick = { first: null, second: null, score: "sum", level: "ordinal", text: "", file: null, fileText: null };
 
 const num = (v, d = 3) => (typeof v === "number" ? fmt(v, d) : v == null ? "—" : String(v));
 const ci = (c) => (Array.isArray(c) && c.length === 2 ? `${fmt(c[0], 2)} to ${fmt(c[1], 2)}` : "—");
 
 export function parseRatings(text) {
   const lines = text.split(/\r?\n/).map((l) => l.trim()).filter(Boolean);
-  if (!lines.length) return { ratings: [], units: [] };
+  if (!lines.length) return { ratings: [], units: [], hasUnits: false };
   const delim = lines[0].includes("\t") ? "\t" : lines[0].includes(";") ? ";" : ",";
   let rows = lines.map((l) => l.split(delim).map((c) => c.trim().replace(/^"|"$/g, "")));
   const isNum = (c) => c === "" || c === "NA" || c === "." || !Number.isNaN(Number(c));
   if (rows[0].some((c) => !isNum(c))) rows = rows.slice(1); // header
   let units = rows.map((_, i) => String(i + 1));
-  if (rows.length && rows.every((r) => !isNum(r[0]))) { units = rows.map((r) => r[0]); rows = rows.map((r) => r.slice(1)); }
+  const hasUnits = rows.length > 0 && rows.every((r) => !isNum(r[0]));
+  if (hasUnits) { units = rows.map((r) => r[0]); rows = rows.map((r) => r.slice(1)); }
   const ratings = rows.map((r) => r.map((c) => (c === "" || c === "NA" || c === "." ? null : Number.isNaN(Number(c)) ? c : Number(c))));
-  return { ratings, units };
+  return { ratings, units, hasUnits };
 }
 
-function iccTable(icc) {
+const val = (v) => (v && typeof v === "object" && "value" in v ? v.value : v);
+
+function iccTable(icc, recommended) {
   if (!icc || typeof icc !== "object") return null;
+  if ("value" in icc && !("ICC(1,1)" in icc)) return icc.reason ? note(`ICC: ${icc.reason}`) : null;
   const rows = Object.entries(icc).filter(([, v]) => v && typeof v === "object" && "value" in v)
-    .map(([form, v]) => [form, num(v.value), ci(v.ci), num(v.f, 2), `${num(v.df1, 0)}, ${num(v.df2, 0)}`, v.p == null ? "—" : v.p < 0.001 ? "< .001" : fmt(v.p, 3)]);
-  return rows.length ? table(["ICC form", "Value", "95% CI", "F", "df", "p"], rows, { className: "grid icc", caption: "Intraclass correlations (McGraw & Wong 1996 names)" }) : null;
+    .map(([form, v]) => [form === recommended ? `${form} (recommended)` : form, v.value == null ? (v.reason || "undefined") : num(v.value),
+      ci(v.ci), num(v.f, 2), v.df1 == null ? "—" : `${num(v.df1, 0)}, ${num(v.df2, 0)}`,
+      v.p == null ? "—" : v.p < 0.001 ? "< .001" : fmt(v.p, 3)]);
+  return rows.length ? table(["ICC form", "Value", "95% CI", "F", "df", "p"], rows,
+    { className: "grid icc", caption: "Intraclass correlations, McGraw & Wong (1996) names; ICC(1,1) is Shrout & Fleiss' one-way form." }) : null;
 }
 
 function pairsOf(r) {
-  const p = r.scores || r.pairs || r.points;
-  if (!p) return null;
-  if (Array.isArray(p)) return { ids: p.map((x) => x.id), x: p.map((x) => x.first), y: p.map((x) => x.second) };
-  return { ids: p.ids || p.id || [], x: p.first || p.x || [], y: p.second || p.y || [] };
+  const p = r.scores;
+  if (!Array.isArray(p) || !p.length) return null;
+  const ids = r.score_ids || p.map((_, i) => `#${i + 1}`);
+  return { ids, x: p.map((xy) => xy[0]), y: p.map((xy) => xy[1]) };
+}
+
+function withCi(v) {
+  if (v == null) return "—";
+  if (typeof v === "number") return num(v);
+  if (v.value == null) return v.reason || "undefined";
+  return v.ci ? `${num(v.value)} (${ci(v.ci)})` : num(v.value);
 }
 
 function renderRetest(box) {
@@ -43,23 +57,31 @@ function renderRetest(box) {
   if (!r) return;
   if (r.error) { box.append(note(r.error, "error")); return; }
   const pairs = pairsOf(r);
-  const facts = [["Matched respondents", r.n_matched], ["Only in the first wave", r.n_only_first ?? (r.only_first || []).length],
-    ["Only in the second wave", r.n_only_second ?? (r.only_second || []).length], ["Pearson r", num(r.pearson_r)], ["Spearman ρ", num(r.spearman_rho)],
-    ["SEM", num(r.sem, 2)], ["Smallest detectable change (MDC95)", num(r.mdc95, 2)], ["Mean difference", num(r.mean_difference, 2)],
-    ["Limits of agreement", ci(r.limits_of_agreement)]];
-  const interp = typeof r.interpretation === "object" && r.interpretation ? r.interpretation.text || r.interpretation.label || JSON.stringify(r.interpretation) : r.interpretation;
+  const loa = r.limits_of_agreement || {};
+  const loaPair = Array.isArray(loa) ? loa : [loa.lower, loa.upper];
+  const count = (x) => (x == null ? "—" : typeof x === "object" ? x.count : x);
+  const facts = [["Matched respondents", `${r.n_matched}${r.n != null && r.n !== r.n_matched ? ` (${r.n} with complete scores)` : ""}`],
+    ["Only in the first wave", count(r.only_first)], ["Only in the second wave", count(r.only_second)],
+    ["Pearson r (95% CI)", withCi(r.pearson_r)], ["Spearman ρ (95% CI)", withCi(r.spearman_rho)],
+    ["SEM", num(val(r.sem), 2)], ["Smallest detectable change (MDC95)", num(val(r.mdc95), 2)],
+    ["Mean difference (second − first)", num(r.mean_difference, 2)], ["Limits of agreement", ci(loaPair)]];
   box.append(h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v ?? "—") })])));
-  if (interp) box.append(h("p", { class: "interpretation", text: interp }));
-  const t = iccTable(r.icc);
+  if (r.recommended) {
+    box.append(h("p", { class: "interpretation", id: "retest-reading",
+      text: `${r.recommended}: ${num(val(r.icc?.[r.recommended]))}, read as ${r.interpretation || "—"} from its interval.` }));
+    box.append(h("p", { class: "muted", text: `${r.recommended_why || ""} ${r.interpretation_source || ""}`.trim() }));
+  }
+  const t = iccTable(r.icc, r.recommended);
   if (t) box.append(t);
-  if (pairs && pairs.x.length) {
+  if (pairs) {
     const sc = h("div", { class: "chart", id: "retest-scatter" });
     const ba = h("div", { class: "chart", id: "bland-altman" });
-    box.append(h("div", { class: "two" }, sc, ba));
-    retestScatter(sc, { x: pairs.x, y: pairs.y, ids: pairs.ids, labelX: "first wave", labelY: "second wave" });
+    box.append(h("div", { class: "two even" }, sc, ba));
+    const label = r.score === "mean" ? "mean score" : "sum score";
+    retestScatter(sc, { x: pairs.x, y: pairs.y, ids: pairs.ids, labelX: `first wave (${label})`, labelY: `second wave (${label})` });
     const means = pairs.x.map((x, i) => (x + pairs.y[i]) / 2);
     const diffs = pairs.x.map((x, i) => pairs.y[i] - x);
-    blandAltman(ba, { means, diffs, ids: pairs.ids, meanDiff: r.mean_difference, loa: r.limits_of_agreement });
+    blandAltman(ba, { means, diffs, ids: pairs.ids, meanDiff: r.mean_difference, loa: loaPair });
   }
   box.append(warningList(r.warnings));
 }
@@ -72,16 +94,19 @@ function renderAgreement(box) {
   const add = (label, v) => {
     if (v == null) return;
     if (typeof v === "number") rows.push([label, num(v), "—", ""]);
-    else if (typeof v === "object" && "value" in v) rows.push([label, num(v.value), ci(v.ci), v.label || v.interpretation || v.reason || ""]);
+    else if (typeof v === "object" && "value" in v) {
+      rows.push([label, v.value == null ? "undefined" : num(v.value), ci(v.ci), v.value == null ? (v.reason || "") : (v.label || "")]);
+    }
   };
-  add("Percent agreement", r.percent_agreement);
+  add("Percent agreement (all raters agree)", r.percent_agreement);
   add("Cohen's κ", r.cohen_kappa);
   if (r.weighted_kappa) { add("Weighted κ (linear)", r.weighted_kappa.linear); add("Weighted κ (quadratic)", r.weighted_kappa.quadratic); }
   add("Fleiss' κ", r.fleiss_kappa);
-  add("Krippendorff's α", r.krippendorff_alpha);
-  box.append(h("p", { text: `${r.n_units} units, ${r.n_raters} raters.` }));
-  box.append(table(["Coefficient", "Value", "95% CI", "Reading"], rows, { className: "grid agreement", caption: "Verbal labels follow Landis & Koch (1977), a convention, not a test." }));
-  const t = iccTable(r.icc);
+  add(`Krippendorff's α (${r.level || pick.level})`, r.krippendorff_alpha);
+  box.append(h("p", { text: `${r.n_units} units, ${r.n_raters} raters${r.n_missing ? `, ${r.n_missing} missing ratings` : ""}.` }));
+  box.append(table(["Coefficient", "Value", "95% CI", "Reading"], rows, { className: "grid agreement",
+    caption: r.conventions?.kappa_labels || "Verbal labels follow Landis & Koch (1977), a convention, not a test." }));
+  const t = iccTable(r.icc, r.recommended);
   if (t) box.append(t);
   box.append(warningList(r.warnings));
 }
@@ -104,13 +129,23 @@ export function render(container) {
     oninput: (e) => { pick.text = e.target.value; } });
   textArea.value = pick.text;
   const fileIn = h("input", { type: "file", accept: ".csv,.tsv,.txt", id: "ratings-file", onchange: async (e) => {
-    const f = e.target.files[0]; if (!f) return; pick.text = await f.text(); textArea.value = pick.text;
+    const f = e.target.files[0]; if (!f) return;
+    pick.text = await f.text(); textArea.value = pick.text; pick.file = f; pick.fileText = pick.text;
   } });
   const agreeBox = h("div", { class: "result", id: "agreement-result" });
   const runAgree = h("button", { class: "primary", id: "run-agreement", text: "Compute agreement", onclick: async () => {
-    const { ratings } = parseRatings(pick.text);
     runAgree.disabled = true;
-    try { agreementResult = await api.agreement({ ratings, level: pick.level }); } catch (e) { agreementResult = { error: e.message }; }
+    try {
+      if (pick.file && pick.text === pick.fileText) { // the uploaded file as it is: the server reads it
+        const form = new FormData();
+        form.append("file", pick.file, pick.file.name);
+        form.append("level", pick.level);
+        form.append("id_column", parseRatings(pick.text).hasUnits ? "yes" : "no");
+        agreementResult = await api.agreementUpload(form);
+      } else {
+        agreementResult = await api.agreement({ ratings: parseRatings(pick.text).ratings, level: pick.level });
+      }
+    } catch (e) { agreementResult = { error: e.message }; }
     runAgree.disabled = false;
     clear(agreeBox); renderAgreement(agreeBox);
   } });
