@@ -192,6 +192,31 @@ def _cell(v: str):
     return None if s == "" else s
 
 
+def _looks_like_ids(columns: list[str], df: pd.DataFrame) -> bool:
+    """Auto-detect a first column of unit IDs: an ID-like header, or distinct values that are not all numbers.
+
+    A rater column whose every unit got a different category and some of them text is implausible, so
+    distinct text values mark labels such as L01, L02, ...
+    """
+    if len(columns) < 2 or df.empty:
+        return False
+    header = columns[0].strip().lower()
+    if header in _ID_HEADERS or header.startswith("unnamed"):
+        return True
+    values = [str(v).strip() for v in df.iloc[:, 0]]
+    if any(v == "" for v in values) or len(set(values)) != len(values) or len(values) < 2:
+        return False
+    return not all(_is_number(v) for v in values)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
 @router.post("/agreement/upload")
 async def post_agreement_upload(request: Request, file: Annotated[UploadFile, File()],
                                 level: Annotated[str, Form()],
@@ -217,9 +242,7 @@ async def post_agreement_upload(request: Request, file: Annotated[UploadFile, Fi
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, TypeError) as exc:
         raise ApiError(422, "bad_file", f"'{name}' could not be read as a table: {exc}", {"file": name}) from None
     columns = [str(c) for c in df.columns]
-    first_header = columns[0].strip().lower() if columns else ""
-    use_ids = (id_column == "yes" or (id_column == "auto" and len(columns) > 1 and
-                                      (first_header in _ID_HEADERS or first_header.startswith("unnamed"))))
+    use_ids = id_column == "yes" or (id_column == "auto" and _looks_like_ids(columns, df))
     unit_ids = None
     if use_ids:
         unit_ids = [str(v).strip() for v in df.iloc[:, 0]]

@@ -196,6 +196,17 @@ def test_agreement_upload_with_unit_ids(client):
     assert body["raters"] == ["A", "B", "C", "D"] and body["unit_ids"][:2] == ["1", "2"]
 
 
+def test_agreement_upload_detects_text_unit_labels(client):
+    csv = "log,amira,bo\nL01,1,2\nL02,3,3\nL03,2,2\nL04,4,4\n"
+    body = client.post("/api/agreement/upload", files={"file": ("c.csv", csv.encode(), "text/csv")},
+                       data={"level": "ordinal"}).json()
+    assert body["unit_ids"] == ["L01", "L02", "L03", "L04"] and body["raters"] == ["amira", "bo"]
+    assert body["percent_agreement"]["value"] == pytest.approx(0.75)  # common practice: 3 of 4
+    forced = client.post("/api/agreement/upload", files={"file": ("c.csv", csv.encode(), "text/csv")},
+                         data={"level": "nominal", "id_column": "no"}).json()
+    assert forced["n_raters"] == 3 and forced["unit_ids"] is None
+
+
 def test_agreement_upload_without_ids_semicolons(client):
     csv = "r1;r2\nyes;yes\nno;yes\nno;no\nyes;yes\n"
     body = client.post("/api/agreement/upload", files={"file": ("c.csv", csv.encode(), "text/csv")},
