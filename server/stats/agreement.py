@@ -904,7 +904,8 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> d
     dict
         ``level, n_units, n_raters, n_complete_units, n_missing, categories (text labels or None),
         percent_agreement, cohen_kappa, weighted_kappa {linear, quadratic}, fleiss_kappa,
-        krippendorff_alpha, icc, conventions, warnings``. Every coefficient slot is a dict with
+        krippendorff_alpha, icc, recommended (ICC form, or None), interpretation (Koo & Li reading of
+        its interval), conventions, warnings``. Every coefficient slot is a dict with
         ``value`` and ``reason``; a coefficient that does not apply (Cohen's kappa for three raters,
         weighted kappa for nominal data, ICC below interval level) has ``value: None`` and a reason.
 
@@ -974,9 +975,12 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> d
     out["krippendorff_alpha"] = krippendorff_alpha(Y, level, ci=ci)
     if level in ("interval", "ratio"):
         out["icc"] = icc(Y, ci=ci)
+        out["recommended"] = out["icc"]["recommended"]
+        out["interpretation"] = out["icc"]["interpretation"]
         warnings.extend(out["icc"]["warnings"][1:] if n_missing else out["icc"]["warnings"])
     else:
         out["icc"] = _undefined(f"The ICC treats ratings as interval-level numbers; these are {level}.")
+        out["recommended"] = out["interpretation"] = None
     out["conventions"] = {"kappa_labels": LANDIS_KOCH_SOURCE, "alpha_labels": KRIPPENDORFF_SOURCE,
                           "icc_labels": KOO_LI_SOURCE}
     out["warnings"] = warnings

@@ -312,6 +312,7 @@ def test_summary_interval_many_raters_has_icc_and_fleiss():
     assert s["icc"]["n_units"] == 8 and s["icc"]["n_dropped"] == 4
     assert s["cohen_kappa"]["value"] is None
     assert s["fleiss_kappa"]["n_units"] == 8
+    assert s["recommended"] == "ICC(A,1)" and s["interpretation"]
     assert s["warnings"]
 
 
