@@ -73,11 +73,19 @@ def item_rest_correlations(cov) -> np.ndarray:
     return np.where(Vj > 0, r, np.nan)
 
 
+def _start(R: np.ndarray, start) -> np.ndarray:
+    """Usable starting loadings: ``start`` if it has one finite value per item, else a fresh fit."""
+    if start is not None:
+        st = np.asarray(start, dtype=float).reshape(-1)
+        if st.size == R.shape[0] and np.all(np.isfinite(st)) and np.abs(st).sum() > 0:
+            return st
+    return one_factor_loadings(R).loadings
+
+
 def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = None) -> np.ndarray:
     """Omega total for each item subset (rows of ``mask``), fitted as one warm-started batch."""
     R, sd = _cov_to_corr(S)
-    if start is None:
-        start = one_factor_loadings(R).loadings
+    start = _start(R, start)
     sizes = mask.sum(axis=1)
     out = np.full(mask.shape[0], np.nan)
     ok_rows = sizes >= 3
@@ -136,9 +144,7 @@ def item_table(cov, *, names, start=None) -> list[dict]:
     r_rest = item_rest_correlations(S)
     a_del = alpha_if_deleted(S)
     if k >= 4:
-        R, _sd = _cov_to_corr(S)
-        st = np.asarray(start, dtype=float) if start is not None else one_factor_loadings(R).loadings
-        o_del = _omega_subsets(S, ~np.eye(k, dtype=bool), st)
+        o_del = _omega_subsets(S, ~np.eye(k, dtype=bool), start)
     else:
         o_del = np.full(k, np.nan)
     return [{"name": names[j], "item_rest_r": _num(r_rest[j]), "alpha_if_deleted": _num(a_del[j]),
@@ -184,37 +190,35 @@ def pruning_path(cov, *, names, min_items: int = 3, start=None) -> list[dict]:
         raise InputError(f"The pruning path must keep at least 2 items; min_items={min_items}.",
                          code="bad_min_items", details={"min_items": min_items})
     d = np.diag(S).copy()
-    c = S.sum(axis=1)
     V = float(S.sum())
     t = float(d.sum())
-    alive = np.ones(k, dtype=bool)
     m = k
     alphas = [m / (m - 1) * (1 - t / V) if V > 0 else math.nan]
     removed: list[int | None] = [None]
-    masks = [alive.copy()]
-    dead = np.zeros(k)                  # -inf once an item is removed
+    # Removing j leaves total variance V - e_j with e = 2 S1 - diag(S), and trace t - d_j.  Alpha
+    # without j is (m-1)/(m-2) (1 - (t - d_j) / (V - e_j)); the largest alpha is the largest
+    # (V - e_j) / (t - d_j).  Removed items get t - d_j = inf, so their score is 0 and never wins.
+    e = 2.0 * S.sum(axis=1) - d
+    tn = t - d
+    S2 = 2.0 * S
     with np.errstate(divide="ignore", invalid="ignore"):
         while m > min_items:
-            Vj = V - 2 * c + d
-            # alpha without j is (m-1)/(m-2) * (1 - (t - d_j) / Vj); the factor does not change the argmax
-            score = np.where(Vj > 0, 1.0 - (t - d) / Vj, -np.inf) + dead
+            Vj = V - e
+            score = Vj / tn
             j = int(np.argmax(score))
-            if not np.isfinite(score[j]):
+            if not (Vj[j] > 0 and tn[j] > 0):
                 break
-            alphas.append((m - 1) / (m - 2) * float(score[j]))
-            V = V - 2 * c[j] + d[j]
-            t -= d[j]
-            c = c - S[:, j]
-            alive[j] = False
-            dead[j] = -np.inf
+            alphas.append((m - 1) / (m - 2) * (1.0 - tn[j] / Vj[j]))
+            V = float(Vj[j])
+            tn -= d[j]
+            tn[j] = np.inf
+            e -= S2[j]
             m -= 1
             removed.append(j)
-            masks.append(alive.copy())
-    st = None
-    if start is not None:
-        st = np.asarray(start, dtype=float)
-    elif k >= 3:
-        st = one_factor_loadings(_cov_to_corr(S)[0]).loadings
-    omegas = _omega_subsets(S, np.array(masks), st) if k >= 3 else np.full(len(masks), np.nan)
+    step_of = np.full(k, len(removed))  # the step at which each item leaves (never: past the end)
+    for s_, j in enumerate(removed[1:], start=1):
+        step_of[j] = s_
+    masks = np.arange(len(removed))[:, None] < step_of[None, :]
+    omegas = _omega_subsets(S, masks, start) if k >= 3 else np.full(len(masks), np.nan)
     return [{"removed": None if r is None else names[r], "n_items": int(mk.sum()), "alpha": _num(a),
              "omega_total": _num(o)} for r, mk, a, o in zip(removed, masks, alphas, omegas)]

@@ -836,6 +836,8 @@ def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float 
     warnings.extend(lam.warnings)
 
     if k >= 3:
+        if start is not None and np.size(start) != k:
+            start = None  # loadings of another item set: start afresh
         om = _omega_from_fit(S, one_factor_loadings(R, start=start), names)
         omega, loadings = om.omega_total, om.standardized_loadings
         warnings.extend(om.warnings)

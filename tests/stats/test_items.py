@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 
 from server.stats.errors import InputError
 from server.stats.items import alpha_if_deleted, item_table, pruning_path
-from server.stats.reliability import mcdonald_omega
+from server.stats.reliability import mcdonald_omega, reliability_from_cov
 
 REF = Path(__file__).resolve().parents[1] / "reference" / "reliability"
 
@@ -63,6 +63,21 @@ def test_omega_if_deleted_equals_omega_of_submatrix(holzinger, pg_alpha_data):
             keep = [i for i in range(k) if i != j]
             ref = mcdonald_omega(S[np.ix_(keep, keep)]).omega_total
             assert rows[j]["omega_if_deleted"] == pytest.approx(ref, abs=1e-6)
+
+
+def test_warm_start_does_not_change_results(holzinger):
+    S = holzinger.cov().to_numpy()
+    names = list(holzinger.columns)
+    cold = item_table(S, names=names)
+    rel = reliability_from_cov(S, n=301, n_complete=301)
+    for start in (rel.loadings, np.full(9, 0.5), [0.1, 0.2]):  # last one: wrong length, ignored
+        warm = item_table(S, names=names, start=start)
+        for a, b in zip(cold, warm):
+            assert b["omega_if_deleted"] == pytest.approx(a["omega_if_deleted"], abs=1e-7)
+        path_warm = pruning_path(S, names=names, start=start)
+        path_cold = pruning_path(S, names=names)
+        assert [p["omega_total"] for p in path_warm] == pytest.approx([p["omega_total"] for p in path_cold],
+                                                                      abs=1e-7)
 
 
 def test_item_table_small_sets():
