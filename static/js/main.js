@@ -324,6 +324,7 @@ function wireChrome() {
   const proj = $("#projector");
   const applyProjector = () => {
     document.body.classList.toggle("projector", state.projector);
+    document.documentElement.classList.toggle("projector", state.projector);
     proj.setAttribute("aria-pressed", String(state.projector));
   };
   applyProjector();
