@@ -182,7 +182,7 @@ def _detect_delimiter(sample: str, filename: str, *, allow_single: bool = False)
     best, best_key = None, None
     for order, delim in enumerate(CANDIDATE_DELIMITERS):
         try:
-            counts = [len(r) for r in csv.reader(io.StringIO("\n".join(lines)), delimiter=delim) if r]
+            counts = [len(r) for r in csv.reader(io.StringIO("\n".join(lines), newline=""), delimiter=delim) if r]
         except csv.Error:
             continue
         if not counts:
@@ -208,7 +208,7 @@ def _detect_decimal_comma(sample: str, delim: str) -> bool:
     if delim == ",":
         return False
     n_comma = n_dot = 0
-    for row in csv.reader(io.StringIO(sample), delimiter=delim):
+    for row in csv.reader(io.StringIO(sample, newline=""), delimiter=delim):
         for cell in row:
             if _DECIMAL_COMMA.match(cell):
                 n_comma += 1
@@ -323,6 +323,8 @@ def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
         raise InputError(f"The file '{filename}' is not a table: it contains binary data. Upload a CSV, TSV "
                          "or XLSX file.", code="not_a_table", details={"file": filename})
     raw, encoding, notes = _decode_bytes(raw, filename)
+    if b"\r" in raw:  # one line end for the scanner and the parser alike: CRLF and lone CR become LF
+        raw = raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
     sample, _ = _sample_text(raw, encoding)
     if not sample.strip().lstrip("\ufeff").strip():
         raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
@@ -411,9 +413,15 @@ def _cell_text(v) -> str:
 def _read_table(raw: bytes, filename: str, *, as_strings: bool = False):
     if raw is None or len(raw) == 0 or not raw.strip():
         raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
-    if _is_xlsx(raw, filename):
-        return _read_xlsx(raw, filename, as_strings=as_strings)
-    return _read_delimited(raw, filename, as_strings=as_strings)
+    try:
+        if _is_xlsx(raw, filename):
+            return _read_xlsx(raw, filename, as_strings=as_strings)
+        return _read_delimited(raw, filename, as_strings=as_strings)
+    except InputError:
+        raise
+    except Exception as exc:  # a file nobody foresaw: still a message naming it, never a crash
+        raise InputError(f"The file '{filename}' could not be read as a table ({type(exc).__name__}: {exc}).",
+                         code="not_a_table", details={"file": filename}) from exc
 
 
 # --------------------------------------------------------------------------------------------------------

@@ -371,3 +371,31 @@ def test_infinite_values_are_errors():
     err = _err(b"Q1,Q2\n1,2\n2,3\n3,-inf\n4,3\n5,4\n")
     assert err.code == "non_numeric" and (err.details["column"], err.details["row"]) == ("Q2", 4)
     assert err.details["value"] == "-inf"
+
+
+@settings(max_examples=150, deadline=None)
+@given(blob=st.binary(max_size=300), name=st.sampled_from(["f.csv", "f.xlsx", "f.tsv"]))
+def test_any_bytes_give_a_dataset_or_an_input_error(blob, name):
+    try:
+        d = read_responses(blob, name)
+    except InputError as exc:
+        assert 400 <= exc.status < 500 and exc.details.get("file") == name
+    else:
+        assert d.responses.shape == (d.n_rows, len(d.items)) and d.n_rows >= 3 and len(d.items) >= 2
+
+
+@settings(max_examples=150, deadline=None)
+@given(data=st.data())
+def test_mangled_csv_gives_a_dataset_or_an_input_error(data):
+    text = "id,Q1,Q2,Q3,note\n1,1,2,3,a\n2,2,3,4,b\n3,4,5,5,c\n4,5,4,2,d\n"
+    alphabet = st.sampled_from(list(',;\t|"\n\r x-9.5é\x00') + ["\ufeff", "NA", ",,"])
+    for _ in range(data.draw(st.integers(1, 6))):
+        i = data.draw(st.integers(0, len(text)))
+        j = data.draw(st.integers(i, min(len(text), i + 4)))
+        text = text[:i] + data.draw(alphabet) + text[j:]
+    encoding = data.draw(st.sampled_from(["utf-8", "latin-1", "utf-16"]))
+    raw = text.encode(encoding, errors="replace")
+    try:
+        read_responses(raw, "m.csv", missing_codes=[-9])
+    except InputError as exc:
+        assert 400 <= exc.status < 500 and exc.details.get("file") == "m.csv"
