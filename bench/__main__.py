@@ -14,6 +14,8 @@ import time
 import traceback
 from pathlib import Path
 
+import server  # noqa: F401  (one BLAS thread, set before numpy loads)
+
 BENCH_DIR = Path(__file__).resolve().parent
 COLUMNS = ("target", "measured", "baseline", "ratio", "goal", "ok")
 

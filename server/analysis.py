@@ -141,7 +141,7 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnin
     factorability = _plain(factorability_summary(R, n_obs, names=names))
     retention = _plain(retention_summary(R, n_obs, iterations=s["pa_iterations"], seed=s["seed"],
                                          variant=s["pa_variant"]))
-    m = s["n_factors"] if s["n_factors"] is not None else int(retention["suggested"])
+    m = s["n_factors"] if s["n_factors"] is not None else max(1, int(retention["suggested"]))
     k = len(names)
     max_m = max(1, k // 2)
     efa: dict

@@ -158,16 +158,17 @@ class Engine:
         from .stats import correlation as corrmod
 
         def make():
-            X = self.dataset(dataset_id).responses
+            ds = self.dataset(dataset_id)
+            X, names = ds.responses, [it.name for it in ds.items]
             if missing == "listwise":
                 Xc = X[~np.isnan(X).any(axis=1)]
                 cov, n_pair = corrmod.pairwise_covariance(Xc)
             else:
                 cov, n_pair = corrmod.pairwise_covariance(X)
             if correlation == "polychoric":
-                res = corrmod.polychoric_matrix(X, missing=missing)
+                res = corrmod.polychoric_matrix(X, missing=missing, smooth=None, names=names)
             else:
-                res = corrmod.pearson_matrix(X, missing=missing)
+                res = corrmod.pearson_matrix(X, missing=missing, smooth=None, names=names)
             return FullPool(cov=cov, n_pair=n_pair, corr=np.asarray(res.matrix, dtype=float),
                             warnings=tuple(res.warnings))
 
@@ -230,6 +231,12 @@ class Engine:
         settings = self.resolve(dataset_id, request or {})
         key = (dataset_id, json.dumps(settings, sort_keys=True))
         return self._locked(key, self._answers, lambda: self._analyse(dataset_id, settings))
+
+    def reliability(self, dataset_id: str, request: dict | None = None) -> dict:
+        """The analysis without its factor sections (reliability, items, constructs, pruning path)."""
+        settings = self.resolve(dataset_id, request or {})
+        key = (dataset_id, "rel", json.dumps(settings, sort_keys=True))
+        return self._locked(key, self._answers, lambda: self._analyse(dataset_id, settings, with_efa=False))
 
     def _analyse(self, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict:
         from .analysis import assemble

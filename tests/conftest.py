@@ -1,6 +1,8 @@
 """Shared fixtures: a fresh app per test with a temporary data folder."""
 from __future__ import annotations
 
+import server  # noqa: F401  (sets one BLAS thread before numpy loads)
+
 import pytest
 from fastapi.testclient import TestClient
 

@@ -235,12 +235,7 @@ def test_demo_loads_through_intake(codebook):
     assert by_name["O2"].text == 'I say "our workshop", not "the workshop".'
 
 
-_KEPT_BY_INTAKE = pytest.mark.xfail(
-    strict=True, reason="server/intake.py keeps a numeric column that is not in the codebook as an item (with a "
-    "warning); the demo needs visits_per_month left out. Reported to the lead; remove this mark once fixed.")
-
-
-@pytest.mark.parametrize("column", ["joined", pytest.param("visits_per_month", marks=_KEPT_BY_INTAKE), "comment"])
+@pytest.mark.parametrize("column", ["joined", "visits_per_month", "comment"])
 def test_intake_leaves_out_the_non_item_column(column):
     parsed = _read_demo()
     assert column not in [it.name for it in parsed.items]
