@@ -230,3 +230,18 @@ def test_dataset_survives_a_restart(tmp_path):
         assert [d["id"] for d in c2.get("/api/datasets").json()] == [first["id"]]
         stored = c2.app.state.store.read_raw(first["id"])
         assert stored == raw  # kept byte for byte
+
+
+def test_an_uploaded_file_can_be_analysed(client):
+    import pandas as pd
+    import pingouin
+    import semopy
+
+    path = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
+    ds = _upload(client, path.read_bytes(), path.name).json()
+    assert [it["name"] for it in ds["items"]] == [f"x{i}" for i in range(1, 10)]
+    r = client.post(f"/api/datasets/{ds['id']}/analysis", json={})
+    assert r.status_code == 200, r.text
+    items = pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]
+    expected, _ = pingouin.cronbach_alpha(items)  # pingouin on the same nine columns (no missing values)
+    assert round(r.json()["reliability"]["alpha"], 6) == round(expected, 6)
