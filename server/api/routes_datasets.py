@@ -112,7 +112,7 @@ async def _file_field(form, name: str, limit: int) -> tuple[bytes, str] | None:
     value = form.get(name)
     if not isinstance(value, UploadFile):
         return None
-    filename = PurePath(value.filename or name).name or name
+    filename = (PurePath((value.filename or name).replace("\\", "/")).name or name)[:255]
     data = await value.read()
     if not data and not value.filename:  # a browser sends an empty part when no file was chosen
         return None

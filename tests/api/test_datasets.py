@@ -245,3 +245,8 @@ def test_an_uploaded_file_can_be_analysed(client):
     items = pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]
     expected, _ = pingouin.cronbach_alpha(items)  # pingouin on the same nine columns (no missing values)
     assert round(r.json()["reliability"]["alpha"], 6) == round(expected, 6)
+
+
+def test_client_paths_are_stripped_from_file_names(client):
+    body = _upload(client, filename="C:\\Users\\ana\\pilot data.csv").json()
+    assert body["filename"] == "pilot data.csv" and body["name"] == "pilot data"
