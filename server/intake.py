@@ -538,6 +538,14 @@ def _column_kind(name: str) -> str | None:
     return None
 
 
+def _looks_like_ids(values: pd.Series, n: int) -> bool:
+    """Short codes, all present and all different (free-text comments are longer and have spaces)."""
+    if n < 3 or not values.notna().all() or values.nunique() != n:
+        return False
+    text = values.astype(str).str.strip()
+    return bool(text.str.len().mean() <= 32 and text.str.contains(r"\s").mean() < 0.5)
+
+
 def _looks_like_dates(values: pd.Series) -> bool:
     sample = values.dropna().astype(str).head(20)
     if sample.empty or not sample.str.contains(r"\d").all():
@@ -709,7 +717,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             left_out.append((c, "demographic or survey-metadata name"))
         elif _looks_like_dates(s):
             left_out.append((c, "dates"))
-        elif chosen_id is None and id_column is None and s.notna().all() and s.nunique() == n and n >= 3:
+        elif chosen_id is None and id_column is None and _looks_like_ids(s, n):
             chosen_id = c
         else:
             left_out.append((c, "text"))

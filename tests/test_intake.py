@@ -399,3 +399,10 @@ def test_mangled_csv_gives_a_dataset_or_an_input_error(data):
         read_responses(raw, "m.csv", missing_codes=[-9])
     except InputError as exc:
         assert 400 <= exc.status < 500 and exc.details.get("file") == "m.csv"
+
+
+def test_unique_comments_are_not_taken_for_ids():
+    raw = b"Q1,Q2,remark\n1,2,liked the tea a lot\n2,3,too noisy on fridays\n3,4,more evening sessions please\n"
+    d = read_responses(raw, "f.csv")
+    assert d.id_column is None and d.ids is None
+    assert any("'remark' (text)" in w for w in d.warnings)
