@@ -24,9 +24,19 @@ function base(extra = {}) {
   };
 }
 
-function draw(el, traces, layout) {
-  if (!window.Plotly) { el.textContent = "The chart library did not load."; return Promise.resolve(); }
-  return Plotly.react(el, traces, layout, config);
+// plotly.min.js loads with `async` so the first analysis is requested while it is still being parsed.
+const plotlyReady = window.Plotly ? Promise.resolve(true) : new Promise((resolve) => {
+  const tag = document.querySelector('script[src$="plotly.min.js"]');
+  if (!tag) { resolve(false); return; }
+  tag.addEventListener("load", () => resolve(true));
+  tag.addEventListener("error", () => resolve(false));
+  setTimeout(() => resolve(Boolean(window.Plotly)), 15000);
+});
+
+async function draw(el, traces, layout) {
+  if (!window.Plotly && !(await plotlyReady)) { el.textContent = "The chart library did not load."; return; }
+  if (!el.isConnected) return;
+  await Plotly.react(el, traces, layout, config);
 }
 
 export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }

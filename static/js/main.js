@@ -99,7 +99,7 @@ let debounce = null;
 let generation = 0;
 
 function refit({ immediate = false } = {}) {
-  if (!state.dataset || !state.meta) return;
+  if (!state.dataset || (!state.meta && state.dropped.length)) return;
   state.pending = true;
   renderSummary();
   clearTimeout(debounce);
@@ -232,6 +232,8 @@ async function refreshDatasets() {
 }
 
 async function loadDataset() {
+  state.meta = null;
+  if (!state.dropped.length) refit({ immediate: true }); // the whole pool: no need to wait for the item list
   try {
     state.meta = await api.getDataset(state.dataset);
     if (!state.meta.items && state.meta.meta) state.meta = { ...state.meta, ...state.meta.meta };
@@ -247,7 +249,7 @@ async function loadDataset() {
   state.dropped = state.dropped.filter((n) => known.has(n));
   connectLive();
   renderAll();
-  refit({ immediate: true });
+  if (!state.analysis || state.dropped.length) refit({ immediate: true });
 }
 
 // ---------------------------------------------------------------- live collaboration
@@ -359,8 +361,10 @@ async function boot() {
   readUrl();
   wireChrome();
   renderAll();
-  await refreshDatasets();
-  if (state.dataset) await loadDataset(); else renderAll();
+  const lists = refreshDatasets();
+  if (state.dataset) await loadDataset();
+  await lists;
+  if (!state.dataset || state.view === "start" || state.view === "stability") renderAll();
   timings.bootMs = performance.now() - t0;
   document.body.dataset.booted = "1";
 }

@@ -86,13 +86,13 @@ export function itemMeta(name) { return state.meta ? state.meta.items.find((it) 
 
 export function analysisRequest() {
   const body = {
-    items: keptItems(),
     missing: state.settings.missing,
     correlation: state.settings.correlation,
     extraction: state.settings.extraction,
     rotation: state.settings.rotation,
     n_factors: state.settings.n_factors,
   };
+  if (state.dropped.length) body.items = keptItems(); // no items = the whole pool
   if (state.reverse) body.reverse = state.reverse;
   if (Object.keys(state.thresholds).length) body.thresholds = state.thresholds;
   return body;

@@ -106,6 +106,15 @@ def timings():
     """Collects timings during the session and writes them for ``make bench`` at the end."""
     out: dict[str, list] = {}
     yield out
+    if not out:
+        return
     TIMINGS_FILE.parent.mkdir(parents=True, exist_ok=True)
+    previous = {}
+    try:  # keep the timings of tests that did not run this time (e.g. a -k selection)
+        previous = json.loads(TIMINGS_FILE.read_text()).get("timings", {})
+    except (OSError, ValueError):
+        pass
     TIMINGS_FILE.write_text(json.dumps({"written_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-                                        "timings": out}, indent=2))
+                                        "units": "milliseconds, wall clock from the test driver unless "
+                                                 "the name ends in _in_page_ms (performance.now in the page)",
+                                        "timings": {**previous, **out}}, indent=2))
