@@ -180,7 +180,11 @@ def spearman_brown(rho: float, factor: float) -> float:
     if factor <= 0:
         raise InputError(f"The lengthening factor must be positive; got {factor}.", code="bad_factor",
                          details={"factor": factor})
-    return float(factor * rho / (1.0 + (factor - 1.0) * rho))
+    den = 1.0 + (factor - 1.0) * rho
+    if den == 0:
+        raise InputError(f"The Spearman-Brown formula is undefined for rho={rho} and factor={factor}.",
+                         code="bad_reliability", details={"rho": rho, "factor": factor})
+    return float(factor * rho / den)
 
 
 def spearman_brown_factor(rho: float, target: float) -> float:
@@ -565,7 +569,9 @@ def one_factor_loadings(corr, start=None) -> OneFactorFit:
     exceed 0.995 (a Heywood case) is held near that bound and listed in ``heywood``.  Solved by a
     rescaled fixed-point iteration over the loadings (see ``_fit_batch``; typically 8-30 cheap
     matrix-vector products); if that does not converge, the same criterion is minimised over the
-    uniquenesses with L-BFGS-B and an analytic gradient.
+    uniquenesses with L-BFGS-B and an analytic gradient.  As with any minres fit, items that share
+    little variance can give the criterion several local minima; the default start (the first
+    principal component) finds the usual solution whenever the items have a clear common factor.
 
     References
     ----------
@@ -617,7 +623,8 @@ class OmegaResult:
 def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult:
     sd = np.sqrt(np.diag(S))
     lam = fit.loadings * sd
-    omega = float(lam.sum() ** 2 / S.sum())
+    total = float(S.sum())
+    omega = float(lam.sum() ** 2 / total) if total > 0 else float("nan")
     warnings = []
     if not fit.converged:
         warnings.append("The one-factor model behind omega did not converge; omega is approximate.")
@@ -742,6 +749,8 @@ def split_half_odd_even(S: np.ndarray) -> tuple[float, float]:
     a[0::2] = 1.0
     b = 1.0 - a
     va, vb, cab = a @ S @ a, b @ S @ b, a @ S @ b
+    if not va * vb > 0:
+        return float("nan"), float("nan")
     r = cab / math.sqrt(va * vb)
     return float(r), float(2 * r / (1 + r)) if r > -1 else float("nan")
 

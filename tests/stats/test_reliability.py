@@ -350,3 +350,23 @@ def test_congeneric_population_loadings_are_recovered(seed, k):
     np.fill_diagonal(R, 1.0)
     fit = one_factor_loadings(R)
     np.testing.assert_allclose(fit.loadings, lam, atol=1e-6)
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), k=st.integers(2, 9), miss=st.floats(0.0, 0.6))
+def test_messy_pairwise_input_gives_plain_json_or_input_error(seed, k, miss):
+    # heavy pairwise missingness can make the covariance matrix indefinite: never a crash, never NaN in JSON
+    from server.stats.items import item_table, pruning_path
+    rng = np.random.default_rng(seed)
+    X = rng.integers(1, 6, size=(25, k)).astype(float)
+    X[rng.random(X.shape) < miss] = np.nan
+    S = pd.DataFrame(X).cov().to_numpy()
+    names = [f"i{j}" for j in range(k)]
+    try:
+        r = reliability_from_cov(S, n=25, n_complete=int((~np.isnan(X)).all(axis=1).sum()), names=names)
+        rows = item_table(S, names=names, start=r.loadings)
+        path = pruning_path(S, names=names, min_items=min(3, k), start=r.loadings)
+    except InputError as e:
+        assert e.code in {"no_variance", "missing_covariance"}
+        return
+    assert json.dumps({"r": r.to_dict(), "items": rows, "path": path}, allow_nan=False)
