@@ -21,7 +21,7 @@ from .errors import InputError
 __all__ = [
     "AlphaResult", "GuttmanLambdas", "OmegaResult", "OneFactorFit", "ReliabilityResult",
     "cronbach_alpha", "feldt_ci", "guttman_lambdas", "mcdonald_omega", "one_factor_loadings",
-    "reliability_from_cov", "spearman_brown", "spearman_brown_factor",
+    "reliability_from_cov", "spearman_brown", "spearman_brown_factor", "split_half_odd_even",
 ]
 
 # Lower bound of a uniqueness in the bounded (Heywood) one-factor fit, as psych::fa and
@@ -629,9 +629,9 @@ def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult
     if not fit.converged:
         warnings.append("The one-factor model behind omega did not converge; omega is approximate.")
     for j in fit.heywood:
-        warnings.append(f"Item {_item_label(j, names)} reached a communality of 1 in the one-factor model "
-                        "(Heywood case); its uniqueness was held at 0.005 and omega rests on a boundary "
-                        "solution.")
+        warnings.append(f"Item {_item_label(j, names)} is a Heywood case in the one-factor model (communality "
+                        f"{fit.loadings[j] ** 2:.3f}, at or above the 0.995 bound); omega rests on a boundary "
+                        "solution and may be overstated.")
     neg = [j for j in range(len(lam)) if fit.loadings[j] < 0]
     if neg:
         which = ", ".join(_item_label(j, names) for j in neg)
