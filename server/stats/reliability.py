@@ -238,7 +238,8 @@ def cronbach_alpha(responses, *, missing: str = "pairwise", ci: float = 0.95) ->
     missing : {"pairwise", "listwise"}
         ``"pairwise"``: each covariance from the respondents who answered both items (pandas'
         ``DataFrame.cov``); ``n`` is then the number of rows.  ``"listwise"``: rows with any missing
-        answer are dropped first.
+        answer are dropped first and ``n`` (for Feldt's interval) is the number of complete rows;
+        pingouin 0.7 keeps the original row count there, so its listwise interval is narrower.
     ci : float
         Coverage of Feldt's interval.
 
