@@ -42,7 +42,19 @@ async function draw(el, traces, layout) {
 export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
 
 // rows: [{name, text, values: [...], flagged: bool, flagText}]; factors: labels
-export function loadingsHeatmap(el, { rows, factors, groups = [], title }) {
+// Calls onPick(itemName) when a cell or a row is clicked (plotly_click); one handler per element.
+function onPoint(el, handler) {
+  if (!handler) return;
+  el._scalewrightPick = handler;
+  if (el._scalewrightBound) return;
+  el._scalewrightBound = true;
+  el.on("plotly_click", (ev) => {
+    const pt = ev && ev.points && ev.points[0];
+    if (pt && el._scalewrightPick) el._scalewrightPick(pt);
+  });
+}
+
+export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick }) {
   const y = rows.map((r) => (r.flagged ? `⚑ ${r.name}` : r.name));
   const z = rows.map((r) => r.values);
   const custom = rows.map((r) => factors.map(() => [r.text || "", r.flagText || ""]));
@@ -67,7 +79,9 @@ export function loadingsHeatmap(el, { rows, factors, groups = [], title }) {
     xaxis: { side: "top", tickfont: { size: fontSize() } },
     yaxis: { autorange: "reversed", tickfont: { size: fontSize() } },
   });
-  return draw(el, [trace], layout);
+  return draw(el, [trace], layout).then(() => {
+    if (window.Plotly) onPoint(el, onPick && ((pt) => onPick(rows[pt.pointIndex?.[0] ?? pt.pointNumber?.[0] ?? 0]?.name)));
+  });
 }
 
 export function factorCorrelations(el, { factors, matrix }) {
@@ -85,7 +99,7 @@ export function factorCorrelations(el, { factors, matrix }) {
 }
 
 // items: [{name, text, alpha_if_deleted}], alpha: current alpha
-export function alphaIfDeleted(el, { items, alpha }) {
+export function alphaIfDeleted(el, { items, alpha, onPick }) {
   const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
   const trace = {
     type: "scatter", mode: "markers", x: items.map((it) => it.name), y: items.map((it) => it.alpha_if_deleted),
@@ -105,14 +119,18 @@ export function alphaIfDeleted(el, { items, alpha }) {
     height: 320, shapes, annotations, showlegend: false,
     xaxis: { tickangle: -45, gridcolor: GRID }, yaxis: { title: { text: "alpha" }, gridcolor: GRID, tickformat: ".2f" },
   });
-  return draw(el, [trace], layout);
+  return draw(el, [trace], layout).then(() => {
+    if (window.Plotly) onPoint(el, onPick && ((pt) => onPick(items[pt.pointIndex]?.name)));
+  });
 }
 
 // path: [{removed, n_items, alpha, omega_total}] (first entry: the current set, removed null)
 export function pruningPath(el, { path }) {
   const x = path.map((p) => p.n_items);
   const label = path.map((p) => (p.removed ? `after dropping ${p.removed}` : "current set"));
-  const alpha = { type: "scatter", mode: "lines+markers", name: "alpha", x, y: path.map((p) => p.alpha),
+  const alpha = { type: "scatter", mode: "lines+markers+text", name: "alpha", x, y: path.map((p) => p.alpha),
+    text: path.map((p) => (p.removed ? `−${p.removed}` : "")), textposition: "top center",
+    textfont: { size: fontSize() - 2, color: MUTED },
     customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
     hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
   const omega = { type: "scatter", mode: "lines+markers", name: "omega (total)", x, y: path.map((p) => p.omega_total),

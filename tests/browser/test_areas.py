@@ -184,3 +184,21 @@ def test_timings_on_a_60_item_pool(page, server, timings):
         timings.setdefault("click_to_updated_heatmap_60_items_ms", []).append(
             round((time.perf_counter() - started) * 1000, 1))
     assert js_state(page, "s.dropped") == ["P07"]
+
+
+def test_click_a_heatmap_row_to_drop_that_item(page, server, demo):
+    open_dataset(page, server, demo["id"], view="loadings")
+    page.wait_for_selector("#heatmap[data-rendered]")
+    first_row = page.evaluate("[...document.querySelectorAll('#heatmap .ytick text')]"
+                              ".sort((a, b) => a.getBoundingClientRect().top - b.getBoundingClientRect().top)[0]"
+                              ".textContent").replace("⚑", "").strip()
+    n_rows = page.locator("#heatmap .ytick").count()
+    box = page.locator("#heatmap .nsewdrag").first.bounding_box()
+    page.mouse.click(box["x"] + box["width"] / 6, box["y"] + box["height"] / n_rows / 2)  # top row, first factor
+    page.wait_for_selector("#pick-drop")
+    assert first_row in page.inner_text("#pick-bar")
+    before = fitted_marker(page)
+    page.click("#pick-drop")
+    wait_refit(page, before)
+    assert js_state(page, "s.dropped") == [first_row]
+    assert first_row not in js_state(page, "Object.keys(s.analysis.efa.loadings)")

@@ -1,6 +1,6 @@
 // Alpha curves: alpha-if-deleted per item against the current alpha, the pruning path, per-construct coefficients.
 import { alphaIfDeleted, pruningPath } from "../charts.js";
-import { state } from "../state.js";
+import { actions, itemMeta, state } from "../state.js";
 import { clear, fmt, h, note, section, table } from "./dom.js";
 
 let renders = 0;
@@ -11,6 +11,16 @@ export function render(container) {
   if (!a) { container.append(note("No analysis yet.")); return; }
   const rel = a.reliability || {};
   const curve = h("div", { class: "chart", id: "alpha-curve" });
+  const pickBar = h("div", { class: "pick-bar", id: "pick-bar", "aria-live": "polite" });
+  const showPick = (name) => {
+    clear(pickBar);
+    const row = (a.items || []).find((r) => r.name === name);
+    if (!row) return;
+    pickBar.append(...[h("strong", { text: name }), " ", h("span", { text: itemMeta(name)?.text || "" }),
+      h("span", { class: "muted", text: ` · alpha without it ${fmt(row.alpha_if_deleted)} (now ${fmt(rel.alpha)})` }), " ",
+      h("button", { class: "primary", id: "pick-drop", text: `Drop ${name}`, onclick: () => { clear(pickBar); actions.toggle(name); } }),
+      " ", h("button", { text: "Close", onclick: () => clear(pickBar) })].filter(Boolean));
+  };
   const path = h("div", { class: "chart", id: "pruning-path" });
   const cons = Object.entries(a.constructs || {});
   const consTable = cons.length
@@ -28,12 +38,12 @@ export function render(container) {
     ["mean inter-item r", fmt(rel.mean_inter_item_r)], ["SEM", fmt(rel.sem, 2)],
     ["items for α .80 / .90", `${need80 ?? "—"} / ${need90 ?? "—"}`], ["complete cases", rel.n_complete ?? "—"],
   ];
-  container.append(section("Alpha curves",
+  container.append(section("Alpha curves", pickBar,
     h("div", { class: "two" }, curve, h("div", {}, consTable,
       h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v) })])))),
     path,
     h("p", { class: "muted", text: "The pruning path drops, at each step, the item whose removal leaves the highest alpha. Where it levels off is where a short form stops paying for its brevity. Alpha rising is not the same as the scale measuring the right thing." })));
-  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha }).then(() => curve.setAttribute("data-rendered", String((renders += 1))));
+  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha, onPick: showPick }).then(() => curve.setAttribute("data-rendered", String((renders += 1))));
   const p = a.pruning_path || [];
   const full = p.length && p[0].removed == null ? p : [{ removed: null, n_items: (a.items || []).length, alpha: rel.alpha, omega_total: rel.omega_total }, ...p];
   pruningPath(path, { path: full });

@@ -70,7 +70,7 @@ export function render(container) {
   });
 
   const head = (label, k, title) => {
-    const active = state.sort.key === k;
+    const active = state.sort.key === k && k !== "order";
     return h("th", { scope: "col", "aria-sort": active ? (dir > 0 ? "ascending" : "descending") : "none" },
       h("button", { class: "sort", title: title || `Sort by ${label}`, text: label + (active ? (dir > 0 ? " ▲" : " ▼") : ""),
         onclick: () => actions.sortBy(k) }));

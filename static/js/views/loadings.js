@@ -51,6 +51,17 @@ export function render(container) {
     h("button", { class: showStructure ? "on" : "", "aria-pressed": String(Boolean(showStructure)), id: "show-structure", text: "Structure",
       disabled: !efa.structure, onclick: () => actions.setStructure(true) }));
   const heat = h("div", { class: "chart", id: "heatmap" });
+  const pickBar = h("div", { class: "pick-bar", id: "pick-bar", "aria-live": "polite" });
+  const showPick = (name) => {
+    clear(pickBar);
+    if (!name) return;
+    const m = itemMeta(name) || {};
+    const f = flags[name] || [];
+    pickBar.append(...[h("strong", { text: name }), " ", h("span", { text: m.text || "" }),
+      f.length ? h("span", { class: "muted", text: ` · ${f.map((x) => x.message).join(" ")}` }) : null, " ",
+      h("button", { class: "primary", id: "pick-drop", text: `Drop ${name}`, onclick: () => { clear(pickBar); actions.toggle(name); } }),
+      " ", h("button", { text: "Close", onclick: () => clear(pickBar) })].filter(Boolean));
+  };
   const phi = h("div", { class: "chart small", id: "phi" });
   const side = h("div", { class: "side" }, phi);
   if (efa.communalities) {
@@ -67,10 +78,11 @@ export function render(container) {
 
   container.append(section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
     h("div", { class: "toolbar" }, toggle, h("span", { class: "muted", text: fitText })),
-    h("p", { class: "muted", text: "Items are grouped by the factor they load on most; ⚑ marks a flagged item (hover for why). Blue is negative, orange positive." }),
+    h("p", { class: "muted", text: "Items are grouped by the factor they load on most; ⚑ marks a flagged item (hover for why). Blue is negative, orange positive. Click a row to drop that item." }),
+    pickBar,
     h("div", { class: "heat-layout" }, heat, side),
     warningList(efa.warnings, "About this solution")));
-  loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
+  loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), onPick: showPick, title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((renders += 1))));
   if (efa.factor_correlations && efa.factor_correlations.length > 1) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
