@@ -4,6 +4,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import __version__
+from .stats.errors import InputError
 
 
 def _plain(obj):
@@ -114,14 +115,25 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
         "pruning_path": path,
     }
     if with_efa:
-        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnings,
+        rows = {r["name"]: r for r in items_out}
+        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings,
                                        min_pair))
     answer["warnings"] = list(dict.fromkeys(warnings))
     return _plain(answer)
 
 
-def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnings, n_obs):
-    from .stats.correlation import smooth_to_pd
+def _with_item_flags(flags, R, names, *, rows, thresholds):
+    """Add the model-free flags (near-duplicates, floor/ceiling) and keep the board's item order."""
+    from .stats.flags import item_level_flags
+
+    extra = item_level_flags(R, names=names, floor=[rows[n].get("floor") for n in names],
+                             ceiling=[rows[n].get("ceiling") for n in names], thresholds=thresholds)
+    order = {n: i for i, n in enumerate(names)}
+    return sorted(flags + extra, key=lambda f: order.get(f["item"], len(order)))
+
+
+def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings, n_obs):
+    from .stats.correlation import smooth_to_pd, smoothing_message
     from .stats.dimensionality import factorability_summary, retention_summary
     from .stats.efa import factor_analysis
 
@@ -130,35 +142,41 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, itab, warnin
     corr_warnings = list(pool.warnings)
     R_s, min_eig, changed = smooth_to_pd(R)
     if changed:
-        corr_warnings.append(f"The {s['correlation']} correlation matrix of the active items was not positive "
-                             f"definite (smallest eigenvalue {min_eig:.3f}) and was smoothed before the factor "
-                             f"analysis.")
+        corr_warnings.append(smoothing_message(R, R_s, min_eig, "eigen", label=s["correlation"], names=names))
         R = R_s
     warnings.extend(corr_warnings)
     correlations = {"type": s["correlation"], "items": names, "matrix": R, "smoothed": bool(changed),
                     "n": n_obs, "warnings": corr_warnings}
 
-    factorability = _plain(factorability_summary(R, n_obs, names=names))
-    retention = _plain(retention_summary(R, n_obs, iterations=s["pa_iterations"], seed=s["seed"],
-                                         variant=s["pa_variant"]))
-    m = s["n_factors"] if s["n_factors"] is not None else max(1, int(retention["suggested"]))
     k = len(names)
-    max_m = max(1, k // 2)
-    efa: dict
-    if k < 3:
-        efa = {"n_factors": 0, "warnings": ["A factor analysis needs at least 3 active items."], "flags": []}
-    else:
+    factorability = retention = None
+    efa: dict = {"n_factors": 0, "flags": [], "warnings": []}
+    try:
+        factorability = _plain(factorability_summary(R, n_obs, names=names))
+        if n_obs <= k:
+            raise InputError(f"A factor analysis needs more respondents than items (n = {n_obs}, k = {k}); "
+                             f"only the reliability sections are shown.", code="too_few_rows")
+        if k < 3:
+            raise InputError("A factor analysis needs at least 3 active items.", code="too_few_items")
+        retention = _plain(retention_summary(R, n_obs, iterations=s["pa_iterations"], seed=s["seed"],
+                                             variant=s["pa_variant"]))
+        m = s["n_factors"] if s["n_factors"] is not None else max(1, int(retention["suggested"]))
+        max_m = max(1, k // 2)
         if m > max_m:
             warnings.append(f"{m} factors is too many for {k} items; {max_m} were extracted.")
             m = max_m
         constructs = [meta[n].construct for n in names]
         reverse = [n in set(s["reverse"]) for n in names]
-        item_rest = [itab[n].get("item_rest_r") for n in names]
+        item_rest = [rows[n].get("item_rest_r") for n in names]
         previous = engine.reference_solution(dataset_id, s, m) if len(idx) < len(meta) else None
         res = factor_analysis(R, m, n=n_obs, names=names, method=s["extraction"], rotation=s["rotation"],
                               gamma=s["gamma"], constructs=constructs, previous=previous,
                               thresholds=s["thresholds"], item_rest_r=item_rest, reverse=reverse,
                               seed=s["seed"])
         efa = _plain(res)
-        warnings.extend(efa.get("warnings") or [])
+    except InputError as exc:
+        # The data do not support this part (too few people, a singular matrix...): a warning, not a failure.
+        efa["warnings"].append(exc.message)
+    warnings.extend(efa.get("warnings") or [])
+    efa["flags"] = _with_item_flags(efa.get("flags") or [], R, names, rows=rows, thresholds=s["thresholds"])
     return {"correlations": correlations, "factorability": factorability, "retention": retention, "efa": efa}

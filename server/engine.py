@@ -222,6 +222,9 @@ class Engine:
         if not (10 <= int(req["pa_iterations"]) <= 5000):
             raise InputError("'pa_iterations' must be between 10 and 5000.", code="bad_option",
                              details={"field": "pa_iterations", "value": req["pa_iterations"]})
+        from .stats.flags import resolve_thresholds
+
+        resolve_thresholds(req["thresholds"])  # unknown names or out-of-range values: a 4xx now
         req["pa_iterations"] = int(req["pa_iterations"])
         req["seed"] = int(req["seed"])
         req["gamma"] = float(req["gamma"])

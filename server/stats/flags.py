@@ -18,7 +18,7 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["DEFAULT_THRESHOLDS", "FLAG_KINDS", "flag_items", "resolve_thresholds"]
+__all__ = ["DEFAULT_THRESHOLDS", "FLAG_KINDS", "flag_items", "item_level_flags", "resolve_thresholds"]
 
 #: Default thresholds of the flag rules (all heuristics, overridable per request).
 DEFAULT_THRESHOLDS: dict[str, float] = {
@@ -28,9 +28,12 @@ DEFAULT_THRESHOLDS: dict[str, float] = {
     "cross_gap": 0.20,         # cross_loading: ... and less than this below the primary (Howard 2016)
     "item_rest_min": 0.0,      # reverse_suspect: item-rest r below this (common practice)
     "heywood_communality": 0.995,  # heywood: communality at or above this (psi at 0.005, the usual bound)
+    "redundant_r": 0.80,       # near_duplicate: |inter-item r| at or above this (common practice)
+    "extreme_share": 0.50,     # floor_ceiling: share of answers at one end at or above this (common practice)
 }
 
-FLAG_KINDS = ("cross_loading", "weak_loading", "misplaced", "heywood", "reverse_suspect")
+FLAG_KINDS = ("cross_loading", "weak_loading", "misplaced", "heywood", "reverse_suspect", "near_duplicate",
+              "floor_ceiling")
 
 _HEURISTIC = "These thresholds are heuristics, not tests."
 
@@ -189,4 +192,63 @@ def flag_items(pattern, *, names: Sequence[str], communalities=None, factor_labe
                 flags.append({"item": name, "kind": "reverse_suspect", "message": (
                     f"Item '{name}' is not declared reverse-keyed, but {' and '.join(why)}: it may be "
                     f"reverse-worded or miskeyed. {_HEURISTIC}")})
+    return flags
+
+
+def item_level_flags(R, *, names: Sequence[str], floor=None, ceiling=None,
+                     thresholds: Mapping[str, float] | None = None) -> list[dict]:
+    """Flags that need no factor model: near-duplicate pairs and answers piled at one end.
+
+    Parameters
+    ----------
+    R : array_like, shape (k, k)
+        Inter-item correlation matrix of the active items (after reverse-scoring).
+    names : sequence of str
+    floor, ceiling : array_like, optional
+        Share of each item's answers at the bottom / top of its response range.
+    thresholds : mapping, optional
+        Overrides of :data:`DEFAULT_THRESHOLDS` (``redundant_r``, ``extreme_share``).
+
+    Returns
+    -------
+    list of dict
+        ``{"item", "kind", "message"}``; a near-duplicate pair flags both items, each naming the other.
+
+    Notes
+    -----
+    Inter-item correlations far above the .15-.50 range that Clark & Watson (1995) recommend for a
+    broad construct usually mean two wordings of one statement, which inflate alpha without adding
+    information; ``redundant_r`` (.80) marks the pair. An item whose answers pile at one end
+    (``extreme_share``, .50) tells few respondents apart. Both cut-offs are rules of thumb.
+
+    References
+    ----------
+    Clark, L. A., & Watson, D. (1995). Constructing validity: basic issues in objective scale
+    development. Psychological Assessment, 7, 309-319.
+    """
+    A = np.asarray(R, dtype=float)
+    names = list(names)
+    k = len(names)
+    if A.shape != (k, k):
+        raise InputError(f"The correlation matrix is {A.shape[0]} x {A.shape[1]} but {k} item names were "
+                         f"given.", code="bad_names", details={"names": k, "shape": list(A.shape)})
+    th = resolve_thresholds(thresholds)
+    flags: list[dict] = []
+    off = np.abs(A) - np.eye(k) * 2
+    for i, name in enumerate(names):
+        mates = [t for t in np.argsort(-off[i]) if t != i and off[i, t] >= th["redundant_r"]]
+        if mates:
+            others = ", ".join(f"'{names[t]}' (r = {A[i, t]:.2f})" for t in mates)
+            flags.append({"item": name, "kind": "near_duplicate", "message": (
+                f"Item '{name}' correlates at least {th['redundant_r']:.2f} with {others}: the two may say the "
+                f"same thing twice, which raises alpha without adding information (Clark & Watson 1995). "
+                f"{_HEURISTIC}")})
+        for share, end in ((floor, "lowest"), (ceiling, "highest")):
+            if share is None:
+                continue
+            v = float(np.asarray(share, dtype=float)[i])
+            if np.isfinite(v) and v >= th["extreme_share"]:
+                flags.append({"item": name, "kind": "floor_ceiling", "message": (
+                    f"{v:.0%} of the answers to item '{name}' are at the {end} category (at least "
+                    f"{th['extreme_share']:.0%}): it tells few respondents apart. {_HEURISTIC}")})
     return flags

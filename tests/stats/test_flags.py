@@ -105,3 +105,19 @@ def test_every_flag_has_the_contract_shape():
 def test_names_must_match_rows():
     with pytest.raises(InputError, match="2 item names were given for 3 rows"):
         flag_items(np.zeros((3, 2)), names=["a", "b"])
+
+
+def test_item_level_flags_near_duplicate_and_ceiling():
+    from server.stats.flags import item_level_flags
+
+    rng = np.random.default_rng(11)
+    base = rng.standard_normal(500)
+    X = np.column_stack([base + rng.standard_normal(500) * s for s in (0.3, 0.3, 1.5)])
+    R = np.corrcoef(X, rowvar=False)  # numpy Pearson
+    flags = item_level_flags(R, names=["a", "b", "c"], ceiling=[0.1, 0.55, 0.49], floor=[0, 0, 0])
+    kinds = [(f["item"], f["kind"]) for f in flags]
+    assert R[0, 1] >= 0.80 and R[0, 2] < 0.80 and R[1, 2] < 0.80
+    assert ("a", "near_duplicate") in kinds and ("b", "near_duplicate") in kinds
+    assert ("b", "floor_ceiling") in kinds and ("c", "floor_ceiling") not in kinds  # .49 < .50 (common practice)
+    tight = item_level_flags(R, names=["a", "b", "c"], thresholds={"redundant_r": 0.99})
+    assert not tight
