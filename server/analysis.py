@@ -70,14 +70,16 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     means = np.array([desc[n]["mean"] for n in names], dtype=float)
     min_pair = _pair_n(n_pair)
 
-    rel = reliability_from_cov(cov, n=n_rel, n_complete=n_complete, means=means, min_pair_n=min_pair)
+    rel = reliability_from_cov(cov, n=n_rel, n_complete=n_complete, means=means, min_pair_n=min_pair,
+                               names=names, missing=s["missing"])
+    start = getattr(rel, "loadings", None)  # warm start for the omega-if-deleted and pruning-path fits
     reliability = _plain(rel)
     reliability["missing"] = s["missing"]
     reliability["n_items"] = len(names)
     reliability["min_pairwise_n"] = min_pair
     warnings.extend(reliability.get("warnings") or [])
 
-    itab = {r["name"]: r for r in _plain(item_table(cov, names=names))}
+    itab = {r["name"]: r for r in _plain(item_table(cov, names=names, start=start))}
     items_out = []
     for n in names:
         m = meta[n]
@@ -94,8 +96,14 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     for c, js in by_construct.items():
         if len(js) >= 2:
             sub = np.ix_(js, js)
-            block = _plain(reliability_from_cov(cov[sub], n=n_rel, n_complete=n_complete, means=means[js],
-                                                min_pair_n=_pair_n(n_pair[sub])))
+            Xc = X_raw[:, js]
+            if s["missing"] == "listwise":
+                n_c = n_cc = n_complete
+            else:
+                n_c, n_cc = int((~np.isnan(Xc).all(axis=1)).sum()), int((~np.isnan(Xc).any(axis=1)).sum())
+            block = _plain(reliability_from_cov(cov[sub], n=n_c, n_complete=n_cc, means=means[js],
+                                                min_pair_n=_pair_n(n_pair[sub]), names=[names[j] for j in js],
+                                                missing=s["missing"]))
             block["items"] = [names[j] for j in js]
             block["n_items"] = len(js)
         else:
@@ -103,7 +111,7 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
                      "warnings": [f"Construct '{c}' has only one active item; no reliability for it."]}
         constructs[c] = block
 
-    path = _plain(pruning_path(cov, names=names, min_items=min(3, len(names))))
+    path = _plain(pruning_path(cov, names=names, min_items=min(3, len(names)), start=start))
 
     answer = {
         "dataset": {"id": dataset_id, "name": ds.name, "n_rows": ds.n_rows, "n_items_total": len(names_all)},
