@@ -48,7 +48,7 @@ def server(tmp_path_factory):
     _require_browser()
     data = tmp_path_factory.mktemp("browser-data")
     port = _free_port()
-    log = open(data / "server.log", "wb")
+    log = open(data / "server.log", "wb")  # noqa: SIM115  (open for the server's whole life, closed below)
     proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port), "--data-dir", str(data / "d")],
                             cwd=ROOT, stdout=log, stderr=subprocess.STDOUT)
     base = f"http://127.0.0.1:{port}"

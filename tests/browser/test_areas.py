@@ -10,7 +10,7 @@ import httpx
 import numpy as np
 import pytest
 
-from .conftest import CHROMIUM_ARGS, DEMO, ROOT, _free_port  # noqa: F401  (CHROMIUM_ARGS kept for clarity)
+from .conftest import DEMO, ROOT, _free_port
 from .helpers import fitted_marker, js_state, open_dataset, upload, wait_js, wait_refit, wait_until_fitted
 
 pytestmark = pytest.mark.browser

@@ -4,7 +4,7 @@ import { clear, fmt, h, note, pct, select } from "./dom.js";
 
 export const FLAG_WORDS = {
   cross_loading: "cross-loads", weak_loading: "weak", misplaced: "elsewhere", heywood: "Heywood",
-  reverse_suspect: "reverse?",
+  reverse_suspect: "reverse?", near_duplicate: "duplicate?", floor_ceiling: "floor/ceiling",
 };
 export const flagWord = (kind) => FLAG_WORDS[kind] || String(kind || "flag").replace(/_/g, " ");
 

@@ -8,6 +8,7 @@ export const THRESHOLDS = [
   ["cross_min", 0.30, "Cross-loading: a second loading of at least (Howard 2016)"],
   ["cross_gap", 0.20, "Cross-loading: and less than this below the primary (Howard 2016)"],
   ["item_rest_min", 0.0, "Reverse suspect: item-rest r below"],
+  ["redundant_r", 0.80, "Near-duplicate: inter-item r of at least"],
 ];
 
 export function render(container) {
@@ -16,7 +17,10 @@ export function render(container) {
   const row = (label, control, help) => h("div", { class: "setting" }, h("label", {}, h("span", { class: "label", text: label }), control),
     h("p", { class: "muted", text: help }));
   const served = state.analysis?.efa?.thresholds || state.analysis?.settings?.thresholds || {};
-  const thresholdInputs = THRESHOLDS.map(([key, def, label]) => {
+  const known = new Set(THRESHOLDS.map(([k]) => k));
+  const extra = Object.entries(served).filter(([k, v]) => !known.has(k) && typeof v === "number")
+    .map(([k, v]) => [k, v, k.replace(/_/g, " ")]);
+  const thresholdInputs = [...THRESHOLDS, ...extra].map(([key, def, label]) => {
     const current = state.thresholds[key] ?? served[key] ?? def;
     return h("label", { class: "threshold" }, h("span", { text: label }),
       h("input", { type: "number", step: "0.05", min: "-1", max: "1", value: String(current), id: `th-${key}`,

@@ -6,7 +6,8 @@ import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
 
 export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
   ["redundant", "redundant"], ["wording", "wording"], ["floor-ceiling", "floor/ceiling"], ["other", "other"]];
-const CODE_OF_FLAG = { cross_loading: "cross-loading", weak_loading: "weak", misplaced: "belongs-elsewhere", reverse_suspect: "wording", heywood: "other" };
+const CODE_OF_FLAG = { cross_loading: "cross-loading", weak_loading: "weak", misplaced: "belongs-elsewhere", reverse_suspect: "wording", heywood: "other",
+  near_duplicate: "redundant", floor_ceiling: "floor-ceiling" };
 
 let snapshots = [];
 let compareWith = null;
