@@ -10,6 +10,10 @@ const OMEGA = "#6a4c93";           // plum
 // Diverging, colour-blind-safe (blue <-> orange through a warm paper white), centred on 0.
 const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
 
+// plotly reads a few HTML-like tags in labels and hover text; user text must stay text.
+// It decodes &lt; &gt; &amp; back to characters when it draws, so escaping them is exact.
+export const esc = (v) => String(v ?? "").replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;");
+
 const config = { displaylogo: false, responsive: true, displayModeBar: false };
 
 function fontSize() { return document.body.classList.contains("projector") ? 17 : 12; }
@@ -55,11 +59,11 @@ function onPoint(el, handler) {
 }
 
 export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick }) {
-  const y = rows.map((r) => (r.flagged ? `⚑ ${r.name}` : r.name));
+  const y = rows.map((r) => esc(r.flagged ? `⚑ ${r.name}` : r.name));
   const z = rows.map((r) => r.values);
-  const custom = rows.map((r) => factors.map(() => [r.text || "", r.flagText || ""]));
+  const custom = rows.map((r) => factors.map(() => [esc(r.text), esc(r.flagText)]));
   const trace = {
-    type: "heatmap", x: factors, y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
+    type: "heatmap", x: factors.map(esc), y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
     colorscale: DIVERGING, xgap: 2, ygap: 2,
     texttemplate: "%{z:.2f}", textfont: { size: fontSize() - 1 },
     hovertemplate: "<b>%{y}</b> on %{x}: %{z:.3f}<br>%{customdata[0]}<br><i>%{customdata[1]}</i><extra></extra>",
@@ -84,7 +88,8 @@ export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick 
   });
 }
 
-export function factorCorrelations(el, { factors, matrix }) {
+export function factorCorrelations(el, { factors: labels, matrix }) {
+  const factors = labels.map(esc);
   const trace = {
     type: "heatmap", x: factors, y: factors, z: matrix, zmin: -1, zmax: 1, zmid: 0, colorscale: DIVERGING,
     texttemplate: "%{z:.2f}", showscale: false, xgap: 2, ygap: 2,
@@ -102,8 +107,8 @@ export function factorCorrelations(el, { factors, matrix }) {
 export function alphaIfDeleted(el, { items, alpha, onPick }) {
   const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
   const trace = {
-    type: "scatter", mode: "markers", x: items.map((it) => it.name), y: items.map((it) => it.alpha_if_deleted),
-    customdata: items.map((it) => it.text || ""),
+    type: "scatter", mode: "markers", x: items.map((it) => esc(it.name)), y: items.map((it) => it.alpha_if_deleted),
+    customdata: items.map((it) => esc(it.text)),
     marker: { size: 11, color: better.map((b) => (b ? WARM : ACCENT)), symbol: better.map((b) => (b ? "triangle-up" : "circle")),
       line: { width: 1, color: "#fff" } },
     hovertemplate: "<b>%{x}</b>: alpha without it %{y:.3f}<br>%{customdata}<extra></extra>",
@@ -127,9 +132,9 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
 // path: [{removed, n_items, alpha, omega_total}] (first entry: the current set, removed null)
 export function pruningPath(el, { path }) {
   const x = path.map((p) => p.n_items);
-  const label = path.map((p) => (p.removed ? `after dropping ${p.removed}` : "current set"));
+  const label = path.map((p) => (p.removed ? `after dropping ${esc(p.removed)}` : "current set"));
   const alpha = { type: "scatter", mode: "lines+markers+text", name: "alpha", x, y: path.map((p) => p.alpha),
-    text: path.map((p) => (p.removed ? `−${p.removed}` : "")), textposition: "top center",
+    text: path.map((p) => (p.removed ? `−${esc(p.removed)}` : "")), textposition: "top center",
     textfont: { size: fontSize() - 2, color: MUTED },
     customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
     hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
@@ -185,7 +190,7 @@ export function retestScatter(el, { x, y, ids, labelX, labelY }) {
   const pad = (Math.max(...all) - Math.min(...all)) * 0.04 || 1;
   const lo = Math.min(...all) - pad;
   const hi = Math.max(...all) + pad;
-  const pts = { type: "scatter", mode: "markers", x, y, text: ids, name: "respondents",
+  const pts = { type: "scatter", mode: "markers", x, y, text: ids.map(esc), name: "respondents",
     marker: { color: ACCENT, size: 7, opacity: 0.6 }, hovertemplate: "%{text}: %{x} then %{y}<extra></extra>" };
   const identity = { type: "scatter", mode: "lines", x: [lo, hi], y: [lo, hi], name: "same score both times",
     line: { color: WARM, dash: "dash", width: 2 }, hoverinfo: "skip" };
@@ -196,7 +201,7 @@ export function retestScatter(el, { x, y, ids, labelX, labelY }) {
 }
 
 export function blandAltman(el, { means, diffs, ids, meanDiff, loa }) {
-  const pts = { type: "scatter", mode: "markers", x: means, y: diffs, text: ids, name: "respondents",
+  const pts = { type: "scatter", mode: "markers", x: means, y: diffs, text: ids.map(esc), name: "respondents",
     marker: { color: ACCENT, size: 7, opacity: 0.6 }, hovertemplate: "%{text}: mean %{x:.2f}, difference %{y:.2f}<extra></extra>" };
   const line = (v, label, dash) => ({ type: "line", xref: "paper", x0: 0, x1: 1, y0: v, y1: v, line: { color: WARM, dash, width: 2 }, name: label });
   const shapes = [];
