@@ -15,7 +15,7 @@ def upload(base: str, responses: bytes, filename: str, codebook: bytes | None = 
     return r.json()
 
 
-def wait_js(page, predicate: str, arg=None, timeout: float = 20_000, poll: float = 0.02):
+def wait_js(page, predicate: str, arg=None, timeout: float = 30_000, poll: float = 0.02):
     """Poll ``predicate`` (a JS function source, called with ``arg``) until it is truthy.
 
     Playwright's own wait_for_function evaluates through ``new Function``, which the page's
@@ -34,7 +34,7 @@ def fitted_marker(page) -> str:
     return page.evaluate("document.body.dataset.fitted || ''")
 
 
-def wait_refit(page, before: str, timeout: float = 20_000):
+def wait_refit(page, before: str, timeout: float = 45_000):
     """Wait until a new analysis has been applied and rendered (and no refit is pending)."""
     wait_js(page, "prev => document.body.dataset.fitted && document.body.dataset.fitted !== prev "
                   "&& !document.body.classList.contains('busy')", before, timeout)
@@ -45,7 +45,7 @@ def open_dataset(page, base: str, dataset_id: str, view: str = "board", extra: s
     wait_until_fitted(page)
 
 
-def wait_until_fitted(page, timeout: float = 30_000):
+def wait_until_fitted(page, timeout: float = 60_000):
     wait_js(page, "() => document.body.dataset.fitted && !document.body.classList.contains('busy')", None, timeout)
 
 

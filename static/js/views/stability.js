@@ -6,7 +6,8 @@ import { clear, fmt, h, note, section, select, table, warningList } from "./dom.
 
 let retestResult = null;
 let agreementResult = null;
-const pick = { first: null, second: null, score: "sum", level: "ordinal", text: "", file: null, fileText: null };
+const pick = { first: null, second: null, score: "sum", level: "ordinal", text: "", file: null, fileText: null,
+  source: "current", snapshots: [], snapshotsFor: null };
 
 const num = (v, d = 3) => (typeof v === "number" ? fmt(v, d) : v == null ? "—" : String(v));
 const ci = (c) => (Array.isArray(c) && c.length === 2 ? `${fmt(c[0], 2)} to ${fmt(c[1], 2)}` : "—");
@@ -83,6 +84,14 @@ function renderRetest(box) {
     const diffs = pairs.x.map((x, i) => pairs.y[i] - x);
     blandAltman(ba, { means, diffs, ids: pairs.ids, meanDiff: r.mean_difference, loa: loaPair });
   }
+  if (Array.isArray(r.per_item) && r.per_item.length) {
+    const rec = r.recommended || "ICC(A,1)";
+    box.append(h("details", { class: "per-item" }, h("summary", { text: `Per item (${r.per_item.length})` }),
+      table(["Item", "n", `${rec}`, "95% CI", "Pearson r", "Mean difference"], r.per_item.map((it) => [
+        it.item_second && it.item_second !== it.item ? `${it.item} / ${it.item_second}` : it.item, it.n ?? "—",
+        it.icc?.[rec]?.value == null ? (it.icc?.[rec]?.reason || "—") : num(it.icc[rec].value), ci(it.icc?.[rec]?.ci),
+        withCi(it.pearson_r), num(it.mean_difference, 2)]), { className: "grid" })));
+  }
   box.append(warningList(r.warnings));
 }
 
@@ -120,7 +129,10 @@ export function render(container) {
   const run = h("button", { class: "primary", id: "run-retest", text: "Compare the waves", onclick: async () => {
     run.disabled = true;
     try {
-      retestResult = await api.retest({ first: pick.first, second: pick.second, items: keptItems(), score: pick.score });
+      const body = { second: pick.second, score: pick.score };
+      if (pick.source === "current") Object.assign(body, { first: pick.first, items: keptItems(), reverse: state.reverse ?? undefined });
+      else Object.assign(body, { snapshot: pick.source });
+      retestResult = await api.retest(body);
     } catch (e) { retestResult = { error: e.message }; }
     run.disabled = false;
     clear(retestBox); renderRetest(retestBox);
@@ -151,8 +163,11 @@ export function render(container) {
   } });
   container.append(
     section("Test-retest or parallel forms",
-      note(`Scores are built from the ${keptItems().length} items kept now, scored the same way in both waves; respondents are matched by their ID column.`),
+      note("Scores are built from the chosen items, scored the same way in both waves; respondents are matched by their ID column."),
       h("div", { class: "toolbar" },
+        h("label", {}, "Items ", select([["current", `kept now (${keptItems().length})`],
+          ...pick.snapshots.map((sn) => [sn.id, `snapshot: ${sn.name} (${(sn.items || []).length})`])], pick.source,
+        (v) => { pick.source = v; }, { id: "retest-items" })),
         h("label", {}, "First wave ", select(datasets, pick.first, (v) => { pick.first = v; }, { id: "wave-first" })),
         h("label", {}, "Second wave ", select(datasets, pick.second, (v) => { pick.second = v; }, { id: "wave-second" })),
         h("label", {}, "Score ", select([["sum", "sum"], ["mean", "mean"]], pick.score, (v) => { pick.score = v; })), run),
@@ -164,4 +179,11 @@ export function render(container) {
       textArea, agreeBox));
   renderRetest(retestBox);
   renderAgreement(agreeBox);
+  if (pick.snapshotsFor !== state.dataset && state.dataset) {
+    pick.snapshotsFor = state.dataset;
+    api.listSnapshots(state.dataset).then((got) => {
+      pick.snapshots = Array.isArray(got) ? got : [];
+      if (pick.snapshots.length && container.isConnected && state.view === "stability") render(container);
+    }).catch(() => {});
+  }
 }
