@@ -28,10 +28,17 @@ window.scalewright = { state, timings };
 // ---------------------------------------------------------------- rendering
 function renderTabs() {
   const nav = clear($("#tabs"));
+  const usable = VIEWS.filter((v) => v === "start" || state.dataset);
   for (const v of VIEWS) {
-    const disabled = v !== "start" && !state.dataset;
+    const disabled = !usable.includes(v);
     nav.append(h("button", { role: "tab", id: `tab-${v}`, "aria-selected": String(state.view === v), disabled,
-      class: state.view === v ? "on" : "", text: LABELS[v], onclick: () => actions.show(v) }));
+      tabindex: state.view === v ? "0" : "-1", "aria-controls": "view",
+      class: state.view === v ? "on" : "", text: LABELS[v], onclick: () => actions.show(v),
+      onkeydown: (e) => {
+        const i = usable.indexOf(v);
+        const next = e.key === "ArrowRight" ? usable[(i + 1) % usable.length] : e.key === "ArrowLeft" ? usable[(i - 1 + usable.length) % usable.length] : null;
+        if (next) { e.preventDefault(); actions.show(next); document.getElementById(`tab-${next}`)?.focus(); }
+      } }));
   }
 }
 
@@ -44,6 +51,7 @@ function renderSummary() {
   $("#redo").disabled = !canRedo();
   $("#save-snapshot").disabled = !state.dataset;
   $("#dataset-name").textContent = state.meta ? state.meta.name : "no dataset open";
+  document.title = state.meta ? `${state.meta.name} · Scalewright` : "Scalewright";
   if (!state.dataset) return;
   const total = allItems().length;
   const kept = total - state.dropped.length;
@@ -159,6 +167,7 @@ Object.assign(actions, {
     state.analysis = null;
     state.previous = null;
     state.lastFlags = {};
+    state.parentSnapshot = null;
     clearHistory();
     state.view = "board";
     await loadDataset();
@@ -213,6 +222,7 @@ Object.assign(actions, {
       for (const k of Object.keys(state.settings)) if (state.settings[k] === undefined) delete state.settings[k];
       Object.assign(state.settings, Object.fromEntries(Object.entries({ correlation: "pearson", extraction: "minres", rotation: "oblimin", missing: "pairwise" }).filter(([k]) => !state.settings[k])));
       state.view = "board";
+      state.parentSnapshot = { id: r.snapshot_id || id, name: r.name || id };
       changed("restore-snapshot", `restored snapshot ${r.name || id}`, { push: true });
     } catch (e) {
       toast(`Could not restore: ${e.message}`);

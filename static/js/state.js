@@ -27,6 +27,7 @@ export const state = {
   sort: { key: "order", dir: 1 },
   filter: { construct: "", flag: "" },
   datasets: [],
+  parentSnapshot: null,   // {id, name} of the snapshot last restored: the next save names it as parent
   who: localStorage.getItem("scalewright.who") || "",
   projector: localStorage.getItem("scalewright.projector") === "1",
   live: { listener: null, peers: 0, feed: [] },

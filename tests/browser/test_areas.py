@@ -78,7 +78,47 @@ def test_snapshots_compare_and_restore(page, server, demo):
     assert "rot=promax" in page.url
     report = httpx.get(f"{server}/api/snapshots/{b.json()['id']}/report")
     assert report.status_code == 200
+
+    # a snapshot saved after a restore names the restored one as its parent (lineage)
+    page.click("#save-snapshot")
+    page.wait_for_selector("#snapshot-dialog[open]")
+    assert "B: without C7 and W3" in page.inner_text("#snapshot-dialog")
+    page.fill('.reason-text[data-item="C7"]', "weak")
+    page.fill('.reason-text[data-item="W3"]', "duplicate")
+    page.fill("#snap-name", "C: revision of B")
+    page.click("#snap-save")
+    page.wait_for_selector("table.snapshots .lineage")
+    assert "revises B: without C7 and W3" in page.inner_text("table.snapshots")
+    snaps = httpx.get(base).json()
+    c = next(s for s in snaps if s["name"] == "C: revision of B")
+    assert c["parent"] == b.json()["id"]
     assert page.errors == []
+
+
+def test_board_filters_and_sorts(page, server, demo):
+    open_dataset(page, server, demo["id"], view="board")
+    page.select_option("#filter-construct", "ownership")
+    names = page.eval_on_selector_all("#item-board tbody tr", "rows => rows.map(r => r.dataset.item)")
+    assert names == [f"O{i}" for i in range(1, 9)]  # demo_data/README: O1-O8 are the ownership items
+    page.select_option("#filter-construct", "")
+    page.select_option("#filter-flag", "any")
+    flagged = page.eval_on_selector_all("#item-board tbody tr", "rows => rows.map(r => r.dataset.item)")
+    expected = js_state(page, "[...new Set(s.analysis.efa.flags.map(f => f.item))]")
+    assert sorted(flagged) == sorted(expected) and flagged
+    page.select_option("#filter-flag", "")
+    page.click("#item-board th button.sort >> text=Item-rest r")
+    values = js_state(page, "[...document.querySelectorAll('#item-board tbody tr')].map(r => "
+                            "s.analysis.items.find(i => i.name === r.dataset.item).item_rest_r)")
+    assert values == sorted(values)  # weakest first
+    page.click("#item-board th button.sort >> text=Item-rest r")
+    values = js_state(page, "[...document.querySelectorAll('#item-board tbody tr')].map(r => "
+                            "s.analysis.items.find(i => i.name === r.dataset.item).item_rest_r)")
+    assert values == sorted(values, reverse=True)
+    # tabs move with the arrow keys
+    page.focus("#tab-board")
+    page.keyboard.press("ArrowRight")
+    assert js_state(page, "s.view") == "loadings"
+    assert page.evaluate("document.activeElement.id") == "tab-loadings"
 
 
 def test_projector_mode_makes_the_text_larger(page, server, demo):

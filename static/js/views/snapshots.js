@@ -36,6 +36,7 @@ export function openDialog() {
           CODES.map(([v, label]) => h("option", { value: v, text: label, selected: v === d.code }))))));
   }
   if (removed.length) body.append(list); else body.append(note("No items removed: the snapshot records the full pool."));
+  if (state.parentSnapshot) body.append(h("p", { class: "muted", text: `It will be recorded as a revision of “${state.parentSnapshot.name}”.` }));
   dlg.querySelector("#snap-author").value = state.who || "";
   dlg.querySelector(".dialog-error").textContent = "";
   dlg.showModal();
@@ -58,10 +59,12 @@ export async function submitDialog() {
     author: dlg.querySelector("#snap-author").value.trim(),
     note: dlg.querySelector("#snap-note").value.trim(),
     items: keptItems(), removed,
+    parent: state.parentSnapshot ? state.parentSnapshot.id : null,
     settings: { ...state.settings, reverse: state.reverse, thresholds: Object.keys(state.thresholds).length ? state.thresholds : null },
   };
   try {
     const saved = await api.saveSnapshot(state.dataset, body);
+    state.parentSnapshot = { id: saved.id, name: saved.name || body.name };
     dlg.close();
     message = `Saved “${saved.name || body.name}”.`;
     actions.broadcast("snapshot", `saved snapshot ${saved.name || body.name}`);
@@ -98,7 +101,9 @@ export async function render(container) {
       h("a", { href: api.scoringKeyUrl(s.id), download: "", text: "Scoring key" }),
       h("button", { text: compareWith === s.id ? "Comparing…" : "Compare", "aria-pressed": String(compareWith === s.id),
         onclick: () => pickCompare(container, s.id) }));
-    return [h("span", { class: "snap-name", text: s.name || s.id }), s.author || "—", (s.created_at || "").replace("T", " ").slice(0, 16),
+    const parent = s.parent ? snapshots.find((x) => x.id === s.parent) : null;
+    return [h("span", { class: "snap-name" }, h("span", { text: s.name || s.id }),
+      s.parent ? h("span", { class: "muted lineage", text: ` ↳ revises ${parent ? parent.name : s.parent}` }) : null), s.author || "—", (s.created_at || "").replace("T", " ").slice(0, 16),
       `${kept} kept / ${removed} removed`, fmt(coef(s, "alpha")), fmt(coef(s, "omega_total")), s.note || "", actionsCell];
   });
   container.append(section("Snapshots",
