@@ -48,7 +48,7 @@ export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
 // rows: [{name, text, values: [...], flagged: bool, flagText}]; factors: labels
 // Calls onPick(itemName) when a cell or a row is clicked (plotly_click); one handler per element.
 function onPoint(el, handler) {
-  if (!handler) return;
+  if (!handler || typeof el.on !== "function") return; // not drawn (left the page before plotly was ready)
   el._scalewrightPick = handler;
   if (el._scalewrightBound) return;
   el._scalewrightBound = true;
@@ -90,15 +90,20 @@ export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick 
 
 export function factorCorrelations(el, { factors: labels, matrix }) {
   const factors = labels.map(esc);
+  const fs = fontSize();
+  const longest = Math.max(3, ...labels.map((l) => String(l).length));
+  const cell = Math.max(56, longest * fs * 0.62 + 12);
   const trace = {
     type: "heatmap", x: factors, y: factors, z: matrix, zmin: -1, zmax: 1, zmid: 0, colorscale: DIVERGING,
     texttemplate: "%{z:.2f}", showscale: false, xgap: 2, ygap: 2,
     hovertemplate: "%{y} with %{x}: %{z:.3f}<extra></extra>",
   };
+  const left = 16 + longest * fs * 0.62;
   const layout = base({
-    title: { text: "Factor correlations", x: 0, font: { size: fontSize() + 1 } },
-    height: 90 + factors.length * 44, width: 110 + factors.length * 70,
-    margin: { l: 80, r: 10, t: 60, b: 10 }, xaxis: { side: "top" }, yaxis: { autorange: "reversed" },
+    title: { text: "Factor correlations", x: 0, xref: "container", y: 0.98, yanchor: "top", font: { size: fs + 1 } },
+    height: 70 + fs * 2 + factors.length * Math.max(40, fs * 2.6), width: left + 20 + factors.length * cell,
+    margin: { l: left, r: 10, t: 50 + fs * 1.5, b: 10 },
+    xaxis: { side: "top", tickangle: 0 }, yaxis: { autorange: "reversed" },
   });
   return draw(el, [trace], layout);
 }

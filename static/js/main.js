@@ -130,7 +130,11 @@ async function runRefit() {
       state.error = null;
       applied = true;
       const flags = answer?.efa?.flags || [];
-      for (const it of answer?.items || []) state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
+      const alpha = answer?.reliability?.alpha;
+      for (const it of answer?.items || []) {
+        state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
+        state.lastRows[it.name] = { alpha_if_deleted: it.alpha_if_deleted, alpha, item_rest_r: it.item_rest_r };
+      }
     }
   } catch (e) {
     if (gen === generation) state.error = e;
@@ -167,6 +171,7 @@ Object.assign(actions, {
     state.analysis = null;
     state.previous = null;
     state.lastFlags = {};
+    state.lastRows = {};
     state.parentSnapshot = null;
     clearHistory();
     state.view = "board";

@@ -154,6 +154,15 @@ def test_save_a_snapshot_with_reasons_and_find_it(page, server, demo):
     assert page.errors == []
 
 
+def test_reasons_are_prefilled_for_items_dropped_before_the_page_opened(page, server, demo):
+    open_dataset(page, server, demo["id"], view="board", extra="&drop=O4")  # a shared link
+    page.click("#save-snapshot")
+    page.wait_for_selector("#snapshot-dialog[open]")
+    reason = page.input_value('.reason-text[data-item="O4"]')
+    assert "O4" in reason  # the flag sentence names the item (demo_data/README: O4 is the planted cross-loader)
+    assert page.input_value('.reason-code[data-item="O4"]') == "cross-loading"
+
+
 def test_reload_from_the_url_gives_the_same_state(page, server, demo, browser):
     open_dataset(page, server, demo["id"], view="settings")
     before = fitted_marker(page)

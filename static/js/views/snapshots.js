@@ -1,6 +1,6 @@
 // Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
 import { api } from "../api.js";
-import { actions, keptItems, state } from "../state.js";
+import { actions, analysisRequest, keptItems, state } from "../state.js";
 import { flagWord } from "./board.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
 
@@ -16,12 +16,36 @@ let message = null;
 
 export function defaultReason(item) {
   const flags = state.lastFlags[item] || [];
-  if (!flags.length) return { reason: "", code: "" };
-  return { reason: flags.map((f) => f.message).join(" "), code: CODE_OF_FLAG[flags[0].kind] || "other" };
+  if (flags.length) return { reason: flags.map((f) => f.message).join(" "), code: CODE_OF_FLAG[flags[0].kind] || "other" };
+  const row = state.lastRows[item];
+  if (row && row.alpha != null && row.alpha_if_deleted != null && row.alpha_if_deleted > row.alpha) {
+    return { reason: `Alpha rose without it (from ${fmt(row.alpha)} to ${fmt(row.alpha_if_deleted)}).`, code: "" };
+  }
+  return { reason: "", code: "" };
 }
 
-export function openDialog() {
+// Items dropped before this page saw them active (e.g. opened from a shared link): ask the server how
+// they looked in the whole pool with the current settings, so their reasons can be pre-filled too.
+async function learnUnseen() {
+  const unseen = state.dropped.filter((n) => !(n in state.lastFlags));
+  if (!unseen.length || !state.dataset) return;
+  const body = analysisRequest();
+  delete body.items;
+  try {
+    const answer = await api.analyse(state.dataset, body);
+    const flags = answer?.efa?.flags || [];
+    const alpha = answer?.reliability?.alpha;
+    for (const it of answer?.items || []) {
+      if (!unseen.includes(it.name)) continue;
+      state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
+      state.lastRows[it.name] = { alpha_if_deleted: it.alpha_if_deleted, alpha, item_rest_r: it.item_rest_r };
+    }
+  } catch { /* the reasons stay empty; the team types them */ }
+}
+
+export async function openDialog() {
   const dlg = document.getElementById("snapshot-dialog");
+  await learnUnseen();
   const body = clear(dlg.querySelector(".dialog-body"));
   const removed = [...state.dropped];
   body.append(h("p", { text: `${keptItems().length} items kept, ${removed.length} removed. Give each removal a reason: it goes into the record and the report.` }));
@@ -30,7 +54,7 @@ export function openDialog() {
     const d = defaultReason(item);
     list.append(h("li", {},
       h("label", { class: "reason" }, h("strong", { text: item }),
-        h("input", { type: "text", class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, size: 60,
+        h("textarea", { class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, rows: 2,
           dataset: { item }, placeholder: "Why it goes (required)", "aria-label": `Reason for removing ${item}` }),
         h("select", { class: "reason-code", dataset: { item }, "aria-label": `Reason code for ${item}` },
           CODES.map(([v, label]) => h("option", { value: v, text: label, selected: v === d.code }))))));
