@@ -9,7 +9,10 @@ Stream format (one SSE event per message)::
 
     retry: 2000
     event: hello
-    data: {"listener": "<id of this stream>", "dataset": "...", "peers": 2}
+    data: {"listener": "<id of this stream>", "dataset": "...", "peers": 2, "last": <last change or null>}
+
+    event: presence
+    data: {"listeners": 3}
 
     id: 7
     event: change
@@ -17,7 +20,9 @@ Stream format (one SSE event per message)::
            "state": {...}, "at": "2026-12-02T01:40:00Z"}
 
 A page sends its own listener id as ``sender`` so the server skips it (and the page can
-ignore any echo). Comment lines (``: ping``) keep idle connections open.
+ignore any echo). ``presence`` says how many pages are open whenever one joins or leaves; ``hello``
+carries the last change relayed for the dataset so a page that joins late can offer to follow the
+team. Comment lines (``: ping``) keep idle connections open.
 
 Streams end when the client disconnects (Starlette cancels the generator), and when the
 server is asked to stop: uvicorn waits for open responses before it shuts down, so the hub
@@ -64,6 +69,7 @@ class LiveHub:
 
     def __init__(self) -> None:
         self._listeners: dict[str, dict[str, Listener]] = {}
+        self._last: dict[str, dict[str, Any]] = {}  # dataset -> last change (for pages that join later)
         self._seq = itertools.count(1)
         self.closing = False
         self._signals_wrapped = False
@@ -75,13 +81,30 @@ class LiveHub:
                            f"Dataset '{dataset}' already has {len(group)} live pages open.", {"dataset": dataset})
         listener = Listener(id=secrets.token_urlsafe(9), dataset=dataset)
         group[listener.id] = listener
+        self._presence(dataset, exclude=listener.id)
         return listener
 
     def unsubscribe(self, listener: Listener) -> None:
         group = self._listeners.get(listener.dataset, {})
-        group.pop(listener.id, None)
+        if group.pop(listener.id, None) is not None:
+            self._presence(listener.dataset)
         if not group:
             self._listeners.pop(listener.dataset, None)
+
+    def last(self, dataset: str) -> dict[str, Any] | None:
+        """The last change relayed for ``dataset`` (sent to a page when it joins)."""
+        return self._last.get(dataset)
+
+    def _presence(self, dataset: str, exclude: str | None = None) -> None:
+        """Tell the pages of ``dataset`` how many pages are open now."""
+        group = self._listeners.get(dataset, {})
+        body = {"event": "presence", "dataset": dataset, "listeners": len(group)}
+        for listener in list(group.values()):
+            if listener.id != exclude:
+                try:
+                    listener.queue.put_nowait(body)
+                except asyncio.QueueFull:
+                    pass
 
     def count(self, dataset: str) -> int:
         return len(self._listeners.get(dataset, {}))
@@ -95,6 +118,7 @@ class LiveHub:
         seq = next(self._seq)
         body = {"seq": seq, "dataset": dataset, "sender": sender, **message,
                 "at": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")}
+        self._last[dataset] = body
         delivered = 0
         for listener in list(self._listeners.get(dataset, {}).values()):
             if listener.id == sender:
@@ -179,7 +203,7 @@ async def events(dataset_id: str, request: Request):
     async def stream():
         try:
             yield "retry: 2000\n" + _sse("hello", {"listener": listener.id, "dataset": dataset_id,
-                                                   "peers": hub.count(dataset_id) - 1})
+                                                   "peers": hub.count(dataset_id) - 1, "last": hub.last(dataset_id)})
             idle = 0.0
             while not hub.closing:
                 try:
@@ -195,7 +219,10 @@ async def events(dataset_id: str, request: Request):
                 if item is _CLOSE:
                     break
                 idle = 0.0
-                yield _sse("change", item, item["seq"])
+                if item.get("event") == "presence":
+                    yield _sse("presence", {"listeners": item["listeners"]})
+                else:
+                    yield _sse("change", item, item["seq"])
         finally:
             hub.unsubscribe(listener)
 

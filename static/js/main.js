@@ -1,7 +1,7 @@
 // Wiring: load the state from the URL, run the refit queue, route between views, live collaboration.
 import { api } from "./api.js";
 import {
-  VIEWS, actions, allItems, analysisRequest, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
+  DEFAULT_SETTINGS, VIEWS, actions, allItems, analysisRequest, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
   shared, state, undo, writeUrl,
 } from "./state.js";
 import { clear, fmt, h } from "./views/dom.js";
@@ -280,8 +280,13 @@ function connectLive() {
   source.addEventListener("hello", (e) => {
     const msg = JSON.parse(e.data);
     state.live.listener = msg.listener;
-    state.live.peers = msg.peers;
+    state.live.count = (msg.peers || 0) + 1;
     document.body.dataset.live = "on";
+    renderLive();
+    offerToFollow(msg.last);
+  });
+  source.addEventListener("presence", (e) => {
+    state.live.count = JSON.parse(e.data).listeners;
     renderLive();
   });
   source.addEventListener("change", (e) => {
@@ -306,6 +311,32 @@ function connectLive() {
   source.onerror = () => { document.body.dataset.live = "off"; renderLive(); };
 }
 
+const sameShared = (a, b) => JSON.stringify(normalise(a)) === JSON.stringify(normalise(b));
+function normalise(s) {
+  return { dropped: [...(s.dropped || [])].sort(), reverse: s.reverse ? [...s.reverse].sort() : null,
+    settings: { ...DEFAULT_SETTINGS, ...(s.settings || {}) }, thresholds: s.thresholds || {} };
+}
+
+// A page that joins late hears the team's last change; if its own state differs, it may follow.
+function offerToFollow(last) {
+  const bar = clear($("#follow"));
+  bar.hidden = true;
+  if (!last || !last.state || !Array.isArray(last.state.dropped) || sameShared(last.state, shared())) return;
+  const n = last.state.dropped.length;
+  bar.append(h("span", { text: `${last.who || "Someone"} is working on this dataset (${(last.at || "").slice(11, 16)} UTC): ${n} item${n === 1 ? "" : "s"} dropped${last.detail ? `, last: ${last.detail}` : ""}. ` }),
+    h("button", { class: "primary", id: "follow-team", text: "Follow the team", onclick: () => {
+      bar.hidden = true;
+      remember();
+      const known = new Set(allItems());
+      applyShared({ ...last.state, dropped: last.state.dropped.filter((x) => !known.size || known.has(x)) });
+      writeUrl();
+      renderAll();
+      refit({ immediate: true });
+    } }), " ",
+    h("button", { text: "Keep my view", onclick: () => { bar.hidden = true; } }));
+  bar.hidden = false;
+}
+
 function broadcast(action, detail) {
   if (!state.dataset) return;
   api.postEvent(state.dataset, { who: state.who || "", action, detail: String(detail || ""), sender: state.live.listener,
@@ -315,8 +346,9 @@ function broadcast(action, detail) {
 function renderLive() {
   const el = clear($("#live"));
   const on = document.body.dataset.live === "on";
+  const others = (state.live.count || 1) - 1;
   el.append(h("span", { class: `dot ${on ? "on" : "off"}`, "aria-hidden": "true" }),
-    h("span", { text: on ? "live" : "offline" }));
+    h("span", { id: "live-text", text: on ? `live${others > 0 ? ` · ${others} other page${others === 1 ? "" : "s"}` : ""}` : "offline" }));
   const feed = clear($("#feed"));
   for (const f of state.live.feed.slice(0, 8)) feed.append(h("li", { text: `${(f.at || "").slice(11, 16)} ${f.text}` }));
 }

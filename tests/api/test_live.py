@@ -110,6 +110,15 @@ class EventReader:
             time.sleep(0.02)
         return list(self.events)
 
+    def of(self, kind: str) -> list[dict]:
+        return [data for event, data in self.events if event == kind]
+
+    def wait_kind(self, kind: str, n: int, timeout: float = 5.0) -> list[dict]:
+        deadline = time.time() + timeout
+        while len(self.of(kind)) < n and time.time() < deadline:
+            time.sleep(0.02)
+        return self.of(kind)
+
     def close(self):
         try:
             self._sock.shutdown(socket.SHUT_RDWR)
@@ -133,29 +142,51 @@ def test_stream_says_hello_with_its_listener_id(live_server):
 
 def test_change_reaches_other_pages_of_the_same_dataset_only(live_server):
     a = EventReader(f"{live_server.url}/api/datasets/ds1/events")
+    a_id = a.wait_kind("hello", 1)[0]["listener"]
     b = EventReader(f"{live_server.url}/api/datasets/ds1/events")
     other = EventReader(f"{live_server.url}/api/datasets/ds2/events")
     try:
-        a_id = a.wait_for(1)[0][1]["listener"]
-        b.wait_for(1)
-        other.wait_for(1)
+        b.wait_kind("hello", 1)
+        other.wait_kind("hello", 1)
         state = {"items": ["Q1", "Q2", "Q4"], "settings": {"rotation": "oblimin"}}
         r = httpx.post(f"{live_server.url}/api/datasets/ds1/events",
                        json={"who": "Ana", "action": "drop", "state": state, "sender": a_id, "detail": "Q3"})
         assert r.status_code == 202
         assert r.json()["delivered"] == 1  # b only: the sender is skipped
         assert r.json()["listeners"] == 2
-        got = b.wait_for(2)
-        assert got[1][0] == "change"
-        msg = got[1][1]
+        got = b.wait_kind("change", 1)
+        msg = got[0]
         assert (msg["who"], msg["action"], msg["state"], msg["sender"]) == ("Ana", "drop", state, a_id)
         assert msg["seq"] == r.json()["seq"]
         time.sleep(0.3)
-        assert len(a.events) == 1  # no echo to the sender
-        assert len(other.events) == 1  # another dataset hears nothing
+        assert a.of("change") == []  # no echo to the sender
+        assert other.of("change") == []  # another dataset hears nothing
     finally:
         for reader in (a, b, other):
             reader.close()
+
+
+def test_presence_and_the_last_change_for_late_joiners(live_server):
+    a = EventReader(f"{live_server.url}/api/datasets/ds1/events")
+    try:
+        hello = a.wait_kind("hello", 1)[0]
+        assert hello["peers"] == 0 and hello["last"] is None
+        b = EventReader(f"{live_server.url}/api/datasets/ds1/events")
+        assert a.wait_kind("presence", 1)[0]["listeners"] == 2  # b joined
+        b.wait_kind("hello", 1)
+        r = httpx.post(f"{live_server.url}/api/datasets/ds1/events",
+                       json={"who": "Bo", "action": "drop", "state": {"dropped": ["Q3"]}})
+        assert r.status_code == 202
+        b.close()
+        assert a.wait_kind("presence", 2)[-1]["listeners"] == 1  # b left
+        late = EventReader(f"{live_server.url}/api/datasets/ds1/events")
+        try:
+            last = late.wait_kind("hello", 1)[0]["last"]
+            assert (last["who"], last["action"], last["state"]) == ("Bo", "drop", {"dropped": ["Q3"]})
+        finally:
+            late.close()
+    finally:
+        a.close()
 
 
 def test_closed_page_is_forgotten(live_server):

@@ -205,8 +205,21 @@ def test_a_second_page_sees_a_drop_made_in_the_first(page, server, demo, browser
         assert "Bo" in second.inner_text("#feed")  # who made the change
         assert alpha_text(second) == alpha_text(page)
         assert js_state(page, "s.dropped") == ["W1"]  # the sender ignored its own echo
+        assert "1 other page" in page.inner_text("#live-text")
     finally:
         second.context.close()
+    # a page that joins late is offered the team's state
+    late = browser.new_context(viewport={"width": 1200, "height": 800}).new_page()
+    try:
+        open_dataset(late, server, demo["id"], view="board")
+        late.wait_for_selector("#follow-team")
+        assert "Bo" in late.inner_text("#follow")
+        before = fitted_marker(late)
+        late.click("#follow-team")
+        wait_refit(late, before)
+        assert js_state(late, "s.dropped") == ["W1"]
+    finally:
+        late.context.close()
 
 
 def test_hostile_item_wording_is_shown_as_text(page, server):
