@@ -45,6 +45,12 @@ async function draw(el, traces, layout) {
 
 export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
 
+// Release the charts inside an element before it is emptied (plotly keeps resize handlers per chart).
+export function purgeWithin(el) {
+  if (!window.Plotly || !el || !el.querySelectorAll) return;
+  for (const g of el.querySelectorAll(".js-plotly-plot")) Plotly.purge(g);
+}
+
 // rows: [{name, text, values: [...], flagged: bool, flagText}]; factors: labels
 // Calls onPick(itemName) when a cell or a row is clicked (plotly_click); one handler per element.
 function onPoint(el, handler) {

@@ -1,4 +1,5 @@
 // Tiny DOM helpers. Strings always enter the page as text (textContent), never as HTML.
+import { purgeWithin } from "../charts.js";
 
 export function h(tag, attrs = {}, ...children) {
   const el = document.createElement(tag);
@@ -24,7 +25,11 @@ function append(el, children) {
   }
 }
 
-export function clear(el) { while (el.firstChild) el.removeChild(el.firstChild); return el; }
+export function clear(el) {
+  purgeWithin(el);
+  while (el.firstChild) el.removeChild(el.firstChild);
+  return el;
+}
 
 export function fmt(v, digits = 3) {
   if (v == null || Number.isNaN(v)) return "—";
