@@ -222,10 +222,10 @@ Object.assign(actions, {
       const keep = new Set(items);
       const removedOrder = (r.removed || []).map((x) => x.item || x);
       state.dropped = [...removedOrder.filter((n) => !keep.has(n)), ...allItems().filter((n) => !keep.has(n) && !removedOrder.includes(n))];
-      applyShared({ ...shared(), dropped: state.dropped, reverse: s.reverse ?? state.reverse, thresholds: s.thresholds || {},
-        settings: { correlation: s.correlation, extraction: s.extraction, rotation: s.rotation, missing: s.missing, n_factors: s.n_factors ?? null } });
-      for (const k of Object.keys(state.settings)) if (state.settings[k] === undefined) delete state.settings[k];
-      Object.assign(state.settings, Object.fromEntries(Object.entries({ correlation: "pearson", extraction: "minres", rotation: "oblimin", missing: "pairwise" }).filter(([k]) => !state.settings[k])));
+      const settings = {};
+      for (const k of Object.keys(DEFAULT_SETTINGS)) if (s[k] !== undefined) settings[k] = s[k];
+      applyShared({ dropped: state.dropped, reverse: Array.isArray(s.reverse) ? s.reverse : null,
+        thresholds: s.thresholds || {}, settings });
       state.view = "board";
       state.parentSnapshot = { id: r.snapshot_id || id, name: r.name || id };
       changed("restore-snapshot", `restored snapshot ${r.name || id}`, { push: true });

@@ -242,3 +242,35 @@ def test_click_a_heatmap_row_to_drop_that_item(page, server, demo):
     wait_refit(page, before)
     assert js_state(page, "s.dropped") == [first_row]
     assert first_row not in js_state(page, "Object.keys(s.analysis.efa.loadings)")
+
+
+def test_a_bad_file_gets_a_plain_message_on_the_start_page(page, server, tmp_path):
+    bad = tmp_path / "one_column.csv"
+    bad.write_text("Q1\n1\n2\n3\n4\n")
+    page.goto(server + "/")
+    page.wait_for_selector("#file-responses")
+    page.set_input_files("#file-responses", str(bad))
+    page.click("#upload-button")
+    page.wait_for_selector("#view .error[role=alert]")
+    message = page.inner_text("#view .error[role=alert]")
+    expected = httpx.post(f"{server}/api/datasets", files={"file": ("one_column.csv", bad.read_bytes(), "text/csv")})
+    assert expected.status_code == 422
+    assert message == expected.json()["error"]["message"]  # the server's own words, naming the file
+    assert "one_column.csv" in message
+    assert page.errors == []
+
+
+def test_dropping_too_many_items_says_why_instead_of_breaking(page, server, demo):
+    keep = ["W1", "W2"]
+    drop = ",".join(it["name"] for it in demo["items"] if it["name"] not in keep)
+    open_dataset(page, server, demo["id"], view="board", extra=f"&drop={drop}")
+    assert js_state(page, "s.analysis.items.map(i => i.name)") == keep
+    before = fitted_marker(page)
+    page.click('tr[data-item="W2"] button.toggle')  # one item left: the server refuses with a 4xx
+    wait_refit(page, before)
+    assert page.locator("#summary .error[role=alert]").count() == 1
+    assert page.errors == []
+    before = fitted_marker(page)
+    page.keyboard.press("Control+z")
+    wait_refit(page, before)
+    assert page.locator("#summary .error").count() == 0
