@@ -1,7 +1,6 @@
 // Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
 import { api } from "../api.js";
 import { actions, analysisRequest, keptItems, state } from "../state.js";
-import { flagWord } from "./board.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
 
 export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
@@ -176,4 +175,3 @@ function renderComparison(c) {
   return h("div", { class: "comparison", id: "comparison" }, h("h3", { text: `Comparing ${c.a?.name || c.first?.name || "first"} with ${c.b?.name || c.second?.name || "second"}` }), parts);
 }
 
-export { flagWord };
