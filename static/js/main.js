@@ -118,13 +118,15 @@ async function runRefit() {
   if (inFlight) return; // the running request re-checks the state when it ends
   inFlight = true;
   const gen = ++generation;
+  const dataset = state.dataset;
   const body = analysisRequest();
-  const key = JSON.stringify(body);
+  const current = () => JSON.stringify([state.dataset, analysisRequest()]);
+  const key = JSON.stringify([dataset, body]);
   const started = performance.now();
   let applied = false;
   try {
-    const answer = await api.analyse(state.dataset, body);
-    if (JSON.stringify(analysisRequest()) === key) {
+    const answer = await api.analyse(dataset, body);
+    if (current() === key) {
       state.previous = state.analysis;
       state.analysis = answer;
       state.error = null;
@@ -141,7 +143,7 @@ async function runRefit() {
   } finally {
     inFlight = false;
   }
-  if (!applied && JSON.stringify(analysisRequest()) !== key) { runRefit(); return; }
+  if (!applied && current() !== key) { runRefit(); return; }
   state.pending = false;
   renderAll();
   const ms = performance.now() - started;
@@ -175,8 +177,8 @@ Object.assign(actions, {
     state.parentSnapshot = null;
     clearHistory();
     state.view = "board";
-    await loadDataset();
     writeUrl(true);
+    await loadDataset();
   },
   async upload(form) {
     const record = await api.upload(form);
