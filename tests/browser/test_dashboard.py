@@ -51,6 +51,8 @@ def test_upload_the_demo_data_through_the_start_page(page, server, timings):
 
 
 def test_heatmap_and_alpha_curve_render(page, server, demo, timings):
+    requested = []
+    page.on("request", lambda r: requested.append(r.url))
     started = time.perf_counter()
     open_dataset(page, server, demo["id"], view="loadings")
     timings.setdefault("page_load_to_heatmap_ms", []).append(round((time.perf_counter() - started) * 1000, 1))
@@ -70,6 +72,10 @@ def test_heatmap_and_alpha_curve_render(page, server, demo, timings):
     assert points == n_items  # one alpha-if-deleted marker per active item
     assert page.locator("#pruning-path .scatterlayer .trace").count() == 2  # alpha and omega lines
     assert page.errors == []
+    # offline and safe: nothing is fetched from anywhere but this server, and the page carries a CSP
+    assert requested and all(u.startswith(server + "/") or u.startswith("data:") for u in requested)
+    csp = httpx.get(server + "/").headers["content-security-policy"]
+    assert "script-src 'self'" in csp and "unsafe-eval" not in csp
 
 
 def test_drop_changes_alpha_and_loadings_and_undo_restores(page, server, demo, timings):
