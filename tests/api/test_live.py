@@ -217,8 +217,9 @@ def test_unknown_dataset_and_bad_messages_are_refused(live_server):
     assert r.status_code == 413
 
 
-def test_open_stream_does_not_block_shutdown(tmp_path):
-    """SIGINT to the real server ends open streams and the process exits promptly."""
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+def test_open_stream_does_not_block_shutdown(tmp_path, sig):
+    """Ctrl+C or a service stop ends open streams and the real server exits promptly."""
     port = free_port()
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
     proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port),
@@ -238,7 +239,7 @@ def test_open_stream_does_not_block_shutdown(tmp_path):
         assert r.status_code == 201, r.text
         reader = EventReader(f"{base}/api/datasets/{r.json()['id']}/events")
         assert reader.wait_for(1)[0][0] == "hello"
-        proc.send_signal(signal.SIGINT)
+        proc.send_signal(sig)
         assert proc.wait(timeout=8) is not None  # would hang without closing the stream
         assert reader.done.wait(5)
         reader.close()
