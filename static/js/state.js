@@ -101,7 +101,11 @@ export function analysisRequest() {
 }
 
 // ---- URL sync
-const list = (v) => (v ? v.split(",").filter(Boolean) : []);
+// Item names are joined with commas; a comma or percent sign inside a name is escaped first.
+const escName = (n) => String(n).replace(/%/g, "%25").replace(/,/g, "%2C");
+const unescName = (n) => n.replace(/%2C/gi, ",").replace(/%25/g, "%");
+const list = (v) => (v ? v.split(",").filter(Boolean).map(unescName) : []);
+const joinNames = (names) => names.map(escName).join(",");
 
 export function readUrl() {
   const q = new URLSearchParams(location.search);
@@ -129,8 +133,8 @@ export function writeUrl(push = false) {
   const token = new URLSearchParams(location.search).get("token");
   if (token) q.set("token", token);
   if (state.dataset) q.set("d", state.dataset);
-  if (state.dropped.length) q.set("drop", state.dropped.join(","));
-  if (state.reverse) q.set("rev", state.reverse.join(","));
+  if (state.dropped.length) q.set("drop", joinNames(state.dropped));
+  if (state.reverse) q.set("rev", joinNames(state.reverse));
   const s = state.settings;
   if (s.correlation !== DEFAULT_SETTINGS.correlation) q.set("corr", s.correlation);
   if (s.extraction !== DEFAULT_SETTINGS.extraction) q.set("ext", s.extraction);

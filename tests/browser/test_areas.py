@@ -274,3 +274,27 @@ def test_dropping_too_many_items_says_why_instead_of_breaking(page, server, demo
     page.keyboard.press("Control+z")
     wait_refit(page, before)
     assert page.locator("#summary .error").count() == 0
+
+
+def test_item_names_with_commas_survive_the_url(page, server, browser):
+    rng = np.random.default_rng(11)
+    base = rng.standard_normal((60, 1))
+    answers = np.clip(np.round(base + rng.standard_normal((60, 5)) * 0.8 + 3), 1, 5).astype(int)
+    names = ['"A,1"', "B%2C", "C 3", "D", "E"]
+    csv = "\n".join([",".join(names)] + [",".join(map(str, row)) for row in answers]).encode()
+    ds = upload(server, csv, "odd_names.csv")
+    assert [it["name"] for it in ds["items"]][:2] == ["A,1", "B%2C"]
+    open_dataset(page, server, ds["id"], view="board")
+    for item in ("A,1", "B%2C"):
+        before = fitted_marker(page)
+        page.locator("#item-board tbody tr", has=page.locator("th.name", has_text=item)).locator("button.toggle").click()
+        wait_refit(page, before)
+    assert js_state(page, "s.dropped") == ["A,1", "B%2C"]
+    other = browser.new_context().new_page()
+    try:
+        other.goto(page.url)
+        wait_until_fitted(other)
+        assert js_state(other, "s.dropped") == ["A,1", "B%2C"]
+        assert js_state(other, "s.analysis.items.map(i => i.name)") == ["C 3", "D", "E"]
+    finally:
+        other.context.close()

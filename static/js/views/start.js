@@ -77,11 +77,10 @@ export function render(container) {
     h("label", {}, "Highest answer ", smax)),
   chosen, submit, status);
 
-  container.append(section("Bring a draft item pool",
+  if (lastUpload) container.append(uploadResult(lastUpload));
+  container.append(section(lastUpload?.record ? "Bring another file" : "Bring a draft item pool",
     note("Files stay on this machine: they are read by the Scalewright server you started and kept in its data folder."),
     form));
-
-  if (lastUpload) container.append(uploadResult(lastUpload));
 
   const rows = state.datasets.map((d) => [
     h("button", { class: "link", text: d.name || d.id, onclick: () => actions.openDataset(d.id) }),
@@ -105,10 +104,11 @@ function uploadResult({ record, error }) {
   const items = record.items || [];
   const constructs = new Set(items.map((it) => it.construct).filter(Boolean));
   return section(`Read: ${record.name}`,
-    h("p", { text: `${record.n_rows} respondents, ${items.length} items${constructs.size ? `, ${constructs.size} constructs` : ""}.` }),
+    h("div", { class: "toolbar" },
+      h("p", { text: `${record.n_rows} respondents, ${items.length} items${constructs.size ? `, ${constructs.size} constructs` : ""}.` }),
+      h("button", { class: "primary", id: "open-uploaded", text: "Start trimming", onclick: () => { lastUpload = null; actions.openDataset(record.id); } })),
     warningList(record.warnings, "What the reader noticed"),
     table(["Item", "Wording", "Construct", "Reverse", "Range", "Missing"],
       items.map((it) => [it.name, it.text || "", it.construct || "—", it.reverse ? "yes" : "", `${it.min}–${it.max}`, it.n_missing ?? 0]),
-      { className: "grid preview" }),
-    h("button", { class: "primary", id: "open-uploaded", text: "Start trimming", onclick: () => { lastUpload = null; actions.openDataset(record.id); } }));
+      { className: "grid preview" }));
 }
