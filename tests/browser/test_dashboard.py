@@ -73,7 +73,7 @@ def test_heatmap_and_alpha_curve_render(page, server, demo, timings):
     assert page.locator("#pruning-path .scatterlayer .trace").count() == 2  # alpha and omega lines
     assert page.errors == []
     # offline and safe: nothing is fetched from anywhere but this server, and the page carries a CSP
-    assert requested and all(u.startswith(server + "/") or u.startswith("data:") for u in requested)
+    assert requested and all(u.startswith((server + "/", "data:")) for u in requested)
     csp = httpx.get(server + "/").headers["content-security-policy"]
     assert "script-src 'self'" in csp and "unsafe-eval" not in csp
 
