@@ -45,7 +45,8 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     rev_mask = np.array([n in set(s["reverse"]) for n in names_all])
     sign = np.where(rev_mask, -1.0, 1.0)[idx]
     flip = np.outer(sign, sign)
-    warnings: list[str] = []
+    constant = engine.constant_items(dataset_id) if s.get("excluded") else {}
+    warnings: list[str] = [constant[n] for n in s.get("excluded", [])]
 
     # ---- covariance for reliability (pairwise: cached full pool; listwise: complete rows of the active set)
     X_raw = ds.responses[:, idx]
@@ -176,7 +177,8 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
         constructs = [meta[n].construct for n in names]
         reverse = [n in set(s["reverse"]) for n in names]
         item_rest = [rows[n].get("item_rest_r") for n in names]
-        previous = engine.reference_solution(dataset_id, s, m) if len(idx) < len(meta) else None
+        full_pool = len(names) == len(engine.pool_items(dataset_id))
+        previous = None if full_pool else engine.reference_solution(dataset_id, s, m)
         res = factor_analysis(R, m, n=n_obs, names=names, method=s["extraction"], rotation=s["rotation"],
                               gamma=s["gamma"], constructs=constructs, previous=previous,
                               thresholds=s["thresholds"], item_rest_r=item_rest, reverse=reverse,

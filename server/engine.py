@@ -86,6 +86,7 @@ class Engine:
         self._answers: _LRU = _LRU(128)
         self._references: _LRU = _LRU(64)
         self._key_locks: dict = {}
+        self._busy = threading.local()
 
     # ------------------------------------------------------------------ datasets
     def dataset(self, dataset_id: str):
@@ -109,6 +110,27 @@ class Engine:
             parsed.name = record["name"]
         with self._lock:
             return self._datasets.get_or(dataset_id, lambda: parsed)
+
+    def pool_items(self, dataset_id: str) -> list[str]:
+        """Every item that can enter an analysis (the full pool less items without variance)."""
+        constant = self.constant_items(dataset_id)
+        return [it.name for it in self.dataset(dataset_id).items if it.name not in constant]
+
+    def constant_items(self, dataset_id: str) -> dict[str, str]:
+        """Items that cannot enter a covariance matrix (fewer than two different answers), with why."""
+        def make():
+            ds = self.dataset(dataset_id)
+            out = {}
+            for j, it in enumerate(ds.items):
+                col = ds.responses[:, j]
+                vals = np.unique(col[~np.isnan(col)])
+                if vals.size < 2:
+                    why = (f"every answer is {vals[0]:g}" if vals.size == 1 else "it has no answers")
+                    out[it.name] = (f"Item '{it.name}' has no variance ({why}); it cannot enter the correlation "
+                                    f"matrix and was left out of the analysis.")
+            return out
+
+        return self._locked((dataset_id, "constant"), self._descriptives, make)
 
     def forget(self, dataset_id: str) -> None:
         with self._lock:
@@ -144,11 +166,18 @@ class Engine:
             if key in cache:
                 return cache.get_or(key, make)
             lock = self._key_locks.setdefault(key, threading.Lock())
+        busy = self._busy.__dict__.setdefault("keys", set())
+        if key in busy:  # a computation that needs itself would wait on its own lock forever
+            raise RuntimeError(f"re-entrant computation of {key!r}")
         with lock:  # one computation per key, others wait for it
             with self._lock:
                 if key in cache:
                     return cache.get_or(key, make)
-            value = make()
+            busy.add(key)
+            try:
+                value = make()
+            finally:
+                busy.discard(key)
             with self._lock:
                 cache.get_or(key, lambda: value)
                 self._key_locks.pop(key, None)
@@ -159,17 +188,22 @@ class Engine:
 
         def make():
             ds = self.dataset(dataset_id)
-            X, names = ds.responses, [it.name for it in ds.items]
+            constant = self.constant_items(dataset_id)
+            ok = np.array([it.name not in constant for it in ds.items])
+            X, names = ds.responses[:, ok], [it.name for it in ds.items if it.name not in constant]
             if missing == "listwise":
-                Xc = X[~np.isnan(X).any(axis=1)]
-                cov, n_pair = corrmod.pairwise_covariance(Xc)
-            else:
-                cov, n_pair = corrmod.pairwise_covariance(X)
+                X = X[~np.isnan(X).any(axis=1)]
+            cov, n_pair = corrmod.pairwise_covariance(X)
             if correlation == "polychoric":
                 res = corrmod.polychoric_matrix(X, missing=missing, smooth=None, names=names)
             else:
                 res = corrmod.pearson_matrix(X, missing=missing, smooth=None, names=names)
-            return FullPool(cov=cov, n_pair=n_pair, corr=np.asarray(res.matrix, dtype=float),
+            # constant items never enter an analysis; their rows and columns stay empty
+            k = len(ds.items)
+            full = {"cov": np.full((k, k), np.nan), "n_pair": np.zeros((k, k)), "corr": np.full((k, k), np.nan)}
+            sub = np.ix_(ok, ok)
+            full["cov"][sub], full["n_pair"][sub], full["corr"][sub] = cov, n_pair, np.asarray(res.matrix, float)
+            return FullPool(cov=full["cov"], n_pair=full["n_pair"], corr=full["corr"],
                             warnings=tuple(res.warnings))
 
         return self._locked((dataset_id, correlation, missing), self._pools, make)
@@ -206,14 +240,19 @@ class Engine:
             dup = sorted({i for i in items if items.count(i) > 1})
             raise InputError(f"Item(s) listed twice: {', '.join(dup)}.", code="duplicate_item",
                              details={"items": dup})
+        constant = self.constant_items(dataset_id)
+        excluded = [i for i in items if i in constant]
+        items = [i for i in items if i not in constant]
         if len(items) < 2:
-            raise InputError(f"At least 2 active items are needed; got {len(items)}.", code="too_few_items",
-                             details={"n_items": len(items)})
+            raise InputError(f"At least 2 active items with some variance are needed; got {len(items)}"
+                             + (f" ({', '.join(excluded)} had no variance)" if excluded else "") + ".",
+                             code="too_few_items", details={"n_items": len(items), "excluded": excluded})
         # keep the dataset's column order, whatever order the request used
         order = {n: i for i, n in enumerate(names)}
         items = sorted(items, key=order.__getitem__)
         mask = self.reverse_mask(dataset_id, req["reverse"])
         req["items"] = items
+        req["excluded"] = excluded
         req["reverse"] = [n for n, m in zip(names, mask) if m]
         nf = req["n_factors"]
         if nf is not None and (not isinstance(nf, int) or nf < 1):
@@ -248,8 +287,7 @@ class Engine:
 
     def reference_solution(self, dataset_id: str, s: dict, n_factors: int):
         """The full-pool solution with the same settings and number of factors (for factor identity)."""
-        ds = self.dataset(dataset_id)
-        ref = {**s, "items": [it.name for it in ds.items], "n_factors": n_factors}
+        ref = {**s, "items": self.pool_items(dataset_id), "n_factors": n_factors}
         key = (dataset_id, "ref", json_key(ref))
 
         def make():

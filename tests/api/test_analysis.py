@@ -177,3 +177,18 @@ def test_a_repeated_request_is_served_from_the_cache(app, client, alpha_data):
     first = engine.analyse(ds, {"items": ["Q1", "Q2", "Q3", "Q4"]})
     again = engine.analyse(ds, {"items": ["Q4", "Q3", "Q2", "Q1"]})  # same set, other order
     assert again is first
+
+
+def test_an_item_without_variance_is_left_out_with_a_warning(client, alpha_data):
+    frame = alpha_data.assign(FLAT=4)
+    ds = _upload(client, frame)
+    out = client.post(f"/api/datasets/{ds}/analysis", json={}).json()
+    assert "FLAT" not in [r["name"] for r in out["items"]] and out["settings"]["excluded"] == ["FLAT"]
+    assert any("'FLAT' has no variance (every answer is 4)" in w for w in out["warnings"])
+    assert round(out["reliability"]["alpha"], 3) == 0.592  # pingouin docs: the same ten items
+    # naming it explicitly (as the dashboard does after a drop) gives the same answer, not an error
+    keep = [c for c in frame.columns if c != "Q1"]
+    r = client.post(f"/api/datasets/{ds}/analysis", json={"items": keep})
+    assert r.status_code == 200 and r.json()["efa"]["n_factors"] >= 1
+    r = client.post(f"/api/datasets/{ds}/analysis", json={"items": ["Q1", "FLAT"]})
+    assert r.status_code == 422 and "FLAT had no variance" in r.json()["error"]["message"]
