@@ -209,3 +209,12 @@ def delete_dataset(dataset_id: str, request: Request):
         raise not_found("dataset", dataset_id)
     _forget(request, dataset_id)
     return Response(status_code=204)
+
+
+@router.post("/demo", responses={200: {"model": DatasetOut}})
+def open_demo(request: Request):
+    """Add the invented demo datasets (both waves) if they are not there yet; answer with wave 1."""
+    from ..demo import ensure_demo_loaded
+
+    dataset_id = ensure_demo_loaded(request.app.state.store)
+    return dataset_out(request.app.state.store.get_dataset(dataset_id))

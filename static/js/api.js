@@ -44,6 +44,7 @@ export const api = {
   getDataset: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}`),
   deleteDataset: (id) => call("DELETE", `/api/datasets/${encodeURIComponent(id)}`),
   upload: (form) => call("POST", "/api/datasets", { form }),
+  openDemo: () => call("POST", "/api/demo"),
   analyse: (id, body, signal) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`, { json: body, signal }),
   listSnapshots: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}/snapshots`),
   saveSnapshot: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/snapshots`, { json: body }),

@@ -180,6 +180,11 @@ Object.assign(actions, {
     writeUrl(true);
     await loadDataset();
   },
+  async openDemo() {
+    const record = await api.openDemo();
+    await refreshDatasets();
+    await actions.openDataset(record.id);
+  },
   async upload(form) {
     const record = await api.upload(form);
     await refreshDatasets();

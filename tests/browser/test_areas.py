@@ -298,3 +298,12 @@ def test_item_names_with_commas_survive_the_url(page, server, browser):
         assert js_state(other, "s.analysis.items.map(i => i.name)") == ["C 3", "D", "E"]
     finally:
         other.context.close()
+
+
+def test_the_start_page_opens_the_invented_demo(page, server):
+    page.goto(server + "/")
+    page.click("#open-demo")
+    wait_until_fitted(page)
+    assert "Workshop belonging (demo, wave 1)" in page.inner_text("body")  # server/demo.py DEMO_NAME
+    assert page.locator("#heatmap, .board, table").count() > 0
+    assert not page.errors

@@ -88,9 +88,12 @@ export function render(container) {
     (d.items || d.meta?.items || []).length || d.n_items || "—",
     (d.created_at || "").replace("T", " ").slice(0, 16),
   ]);
+  const demoButton = h("button", { id: "open-demo", text: "Open the invented demo (community workshop pool)",
+    onclick: () => actions.openDemo() });
   container.append(section("Open a dataset",
     rows.length ? table(["Dataset", "Respondents", "Items", "Added"], rows, { className: "grid datasets" })
-      : note("No datasets yet. Upload one above, or start the server with --demo for the invented workshop data.")));
+      : note("No datasets yet. Upload one above, or open the demo: an invented pool of 24 statements with a few planted problems."),
+    h("div", { class: "toolbar" }, demoButton)));
 }
 
 function uploadResult({ record, error }) {
