@@ -13,7 +13,7 @@ from pathlib import PurePath
 
 from fastapi import APIRouter, Request, Response
 from fastapi.concurrency import run_in_threadpool
-from fastapi.responses import JSONResponse
+from fastapi.responses import JSONResponse, PlainTextResponse
 from starlette.datastructures import UploadFile
 from starlette.formparsers import MultiPartException, MultiPartParser
 
@@ -218,3 +218,11 @@ def open_demo(request: Request):
 
     dataset_id = ensure_demo_loaded(request.app.state.store)
     return dataset_out(request.app.state.store.get_dataset(dataset_id))
+
+
+@router.get("/demo/ratings", response_class=PlainTextResponse)
+def demo_ratings():
+    """The invented rater table of the demo (units x raters CSV), for the agreement area."""
+    from ..demo import DEMO_RATINGS
+
+    return PlainTextResponse(DEMO_RATINGS.read_text(encoding="utf-8"), media_type="text/csv")

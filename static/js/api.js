@@ -45,6 +45,7 @@ export const api = {
   deleteDataset: (id) => call("DELETE", `/api/datasets/${encodeURIComponent(id)}`),
   upload: (form) => call("POST", "/api/datasets", { form }),
   openDemo: () => call("POST", "/api/demo"),
+  demoRatings: async () => (await fetch(withToken("/api/demo/ratings"), { credentials: "same-origin" })).text(),
   analyse: (id, body, signal) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`, { json: body, signal }),
   listSnapshots: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}/snapshots`),
   saveSnapshot: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/snapshots`, { json: body }),

@@ -133,7 +133,7 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
     title: { text: "Alpha if each item is dropped (above the line: the scale is better without it)", x: 0,
       font: { size: fontSize() + 1 } },
     height: 320, shapes, annotations, showlegend: false,
-    xaxis: { tickangle: -45, gridcolor: GRID }, yaxis: { title: { text: "alpha" }, gridcolor: GRID, tickformat: ".2f" },
+    xaxis: { tickangle: -45, gridcolor: GRID }, yaxis: { title: { text: "alpha" }, gridcolor: GRID, tickformat: ".3f" },
   });
   return draw(el, [trace], layout).then(() => {
     if (window.Plotly) onPoint(el, onPick && ((pt) => onPick(items[pt.pointIndex]?.name)));

@@ -307,3 +307,22 @@ def test_the_start_page_opens_the_invented_demo(page, server):
     assert "Workshop belonging (demo, wave 1)" in page.inner_text("body")  # server/demo.py DEMO_NAME
     assert page.locator("#heatmap, .board, table").count() > 0
     assert not page.errors
+
+
+def test_parallel_forms_and_the_example_rater_table(page, server, demo, retest_wave):
+    open_dataset(page, server, demo["id"], view="stability")
+    page.select_option("#wave-first", demo["id"])
+    page.select_option("#wave-second", retest_wave["id"])
+    # pair each welcome item with the next one in the second wave: a parallel-forms comparison
+    page.select_option("#retest-items", "current")
+    kept = js_state(page, "s.meta.items.map((it) => it.name)")
+    page.fill("#items-second", ", ".join(kept[1:] + kept[:1]))
+    page.click("#run-retest")
+    page.wait_for_selector("table.icc")
+    assert " / " in page.text_content("#retest-result details")  # per-item rows name both forms' items
+    page.click("#ratings-example")
+    wait_js(page, "() => document.querySelector('#ratings-text').value.length > 100")
+    page.click("#run-agreement")
+    page.wait_for_selector("table.agreement")
+    assert "Krippendorff" in page.inner_text("#agreement-result")
+    assert not page.errors

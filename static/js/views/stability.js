@@ -6,7 +6,7 @@ import { clear, fmt, h, note, section, select, table, warningList } from "./dom.
 
 let retestResult = null;
 let agreementResult = null;
-const pick = { first: null, second: null, score: "sum", level: "ordinal", text: "", file: null, fileText: null,
+const pick = { first: null, second: null, itemsSecond: "", score: "sum", level: "ordinal", text: "", file: null, fileText: null,
   source: "current", snapshots: [], snapshotsFor: null };
 
 const num = (v, d = 3) => (typeof v === "number" ? fmt(v, d) : v == null ? "—" : String(v));
@@ -132,6 +132,8 @@ export function render(container) {
       const body = { second: pick.second, score: pick.score };
       if (pick.source === "current") Object.assign(body, { first: pick.first, items: keptItems(), reverse: state.reverse ?? undefined });
       else Object.assign(body, { snapshot: pick.source });
+      const other = pick.itemsSecond.split(/[,;\s]+/).map((x) => x.trim()).filter(Boolean);
+      if (other.length) body.items_second = other; // parallel forms: the other form's items, in the same order
       retestResult = await api.retest(body);
     } catch (e) { retestResult = { error: e.message }; }
     run.disabled = false;
@@ -145,6 +147,11 @@ export function render(container) {
     pick.text = await f.text(); textArea.value = pick.text; pick.file = f; pick.fileText = pick.text;
   } });
   const agreeBox = h("div", { class: "result", id: "agreement-result" });
+  const example = h("button", { id: "ratings-example", text: "Use the invented example (3 coordinators, 40 logs)", onclick: async () => {
+    try {
+      pick.text = await api.demoRatings(); textArea.value = pick.text; pick.file = null; pick.level = "ordinal";
+    } catch (e) { agreementResult = { error: e.message }; clear(agreeBox); renderAgreement(agreeBox); }
+  } });
   const runAgree = h("button", { class: "primary", id: "run-agreement", text: "Compute agreement", onclick: async () => {
     runAgree.disabled = true;
     try {
@@ -171,11 +178,14 @@ export function render(container) {
         h("label", {}, "First wave ", select(datasets, pick.first, (v) => { pick.first = v; }, { id: "wave-first" })),
         h("label", {}, "Second wave ", select(datasets, pick.second, (v) => { pick.second = v; }, { id: "wave-second" })),
         h("label", {}, "Score ", select([["sum", "sum"], ["mean", "mean"]], pick.score, (v) => { pick.score = v; })), run),
+      h("div", { class: "toolbar" }, h("label", {}, "Parallel forms: the second form's items, in the same order (leave empty for a retest) ",
+        h("input", { id: "items-second", size: 40, value: pick.itemsSecond, placeholder: "e.g. B1, B2, B3",
+          oninput: (e) => { pick.itemsSecond = e.target.value; } }))),
       retestBox),
     section("Rater agreement",
       h("div", { class: "toolbar" }, h("label", {}, "Upload ", fileIn),
         h("label", {}, "Level ", select([["nominal", "nominal"], ["ordinal", "ordinal"], ["interval", "interval"], ["ratio", "ratio"]], pick.level, (v) => { pick.level = v; })),
-        runAgree),
+        runAgree, example),
       textArea, agreeBox));
   renderRetest(retestBox);
   renderAgreement(agreeBox);
