@@ -456,6 +456,78 @@ def _settings_pairs(settings: Mapping) -> list[tuple[str, str]]:
     return [(_esc(_label(k)), _value(v)) for k, v in settings.items() if k != "items"]
 
 
+def _coef(v) -> str:
+    """A coefficient block {value, ci, reason} as 'value (lo to hi)' or the reason it is undefined."""
+    if not isinstance(v, Mapping):
+        return _num(v)
+    if v.get("value") is None:
+        return _esc(v.get("reason") or "undefined")
+    ci = v.get("ci")
+    ci_txt = f" (95% CI {_num(ci[0])} to {_num(ci[1])})" if isinstance(ci, (list, tuple)) and len(ci) == 2 else ""
+    label = f" &middot; {_esc(v['label'])}" if v.get("label") else ""
+    return f"{_num(v['value'])}{ci_txt}{label}"
+
+
+def _icc_rows(icc: Mapping, recommended) -> list[list[str]]:
+    rows = []
+    for form, v in icc.items():
+        if not (isinstance(v, Mapping) and "value" in v):
+            continue
+        name = f"{_esc(form)} (recommended)" if form == recommended else _esc(form)
+        rows.append([name, _coef(v), _num(v.get("f"), 2),
+                     f"{_num(v.get('df1'), 0)}, {_num(v.get('df2'), 0)}" if v.get("df1") is not None else "&ndash;"])
+    return rows
+
+
+def _stability_section(stability) -> str:
+    """Test-retest / parallel forms and rater agreement stored with the snapshot (issue 6)."""
+    if not isinstance(stability, Mapping) or not stability:
+        return ""
+    parts = ["<section><h2>Stability and agreement</h2>"]
+    rt = stability.get("retest")
+    if isinstance(rt, Mapping):
+        first, second = rt.get("first") or {}, rt.get("second") or {}
+        kind = "Parallel forms" if rt.get("parallel_forms") else "Test-retest"
+        loa = rt.get("limits_of_agreement") or {}
+        parts.append(f"<h3>{kind}: {_esc(first.get('name'))} and {_esc(second.get('name'))}</h3>")
+        parts.append(_kv_table([
+            ("Matched respondents", _num(rt.get("n_matched"), 0)),
+            ("With complete scores", _num(rt.get("n"), 0)),
+            ("Score", _esc(rt.get("score") or "sum")),
+            ("Pearson r", _coef(rt.get("pearson_r"))),
+            ("Spearman rho", _coef(rt.get("spearman_rho"))),
+            ("Recommended ICC", f"{_esc(rt.get('recommended'))}: {_esc(rt.get('interpretation'))}"),
+            ("SEM", _num((rt.get("sem") or {}).get("value") if isinstance(rt.get("sem"), Mapping) else rt.get("sem"))),
+            ("Smallest detectable change (MDC95)",
+             _num((rt.get("mdc95") or {}).get("value") if isinstance(rt.get("mdc95"), Mapping) else rt.get("mdc95"))),
+            ("Mean difference (second - first)", _num(rt.get("mean_difference"))),
+            ("Limits of agreement (Bland & Altman 1986)",
+             f"{_num(loa.get('lower'))} to {_num(loa.get('upper'))}" if isinstance(loa, Mapping) else "&ndash;"),
+        ]))
+        icc = rt.get("icc") or {}
+        if isinstance(icc, Mapping):
+            parts.append(_table(["ICC form (McGraw &amp; Wong 1996)", "Value", "F", "df"],
+                                _icc_rows(icc, rt.get("recommended")), num_cols={2}))
+    ag = stability.get("agreement")
+    if isinstance(ag, Mapping):
+        parts.append(f"<h3>Rater agreement ({_num(ag.get('n_units'), 0)} units, {_num(ag.get('n_raters'), 0)} "
+                     f"raters, {_esc(ag.get('level'))} level)</h3>")
+        rows = [["Percent agreement", _coef(ag.get("percent_agreement"))]]
+        if ag.get("cohen_kappa"):
+            rows.append(["Cohen's kappa", _coef(ag.get("cohen_kappa"))])
+        wk = ag.get("weighted_kappa") or {}
+        if isinstance(wk, Mapping):
+            rows += [[f"Weighted kappa ({k})", _coef(v)] for k, v in wk.items() if v]
+        if ag.get("fleiss_kappa"):
+            rows.append(["Fleiss' kappa", _coef(ag.get("fleiss_kappa"))])
+        rows.append(["Krippendorff's alpha", _coef(ag.get("krippendorff_alpha"))])
+        parts.append(_table(["Coefficient", "Value"], rows))
+        parts.append("<p class=\"muted\">Verbal labels follow Landis &amp; Koch (1977) for kappas: a convention, "
+                     "not a test.</p>")
+    parts.append("</section>")
+    return "".join(parts)
+
+
 # -------------------------------------------------------------------------------------------------- report
 def render_report(snapshot: dict, dataset: dict) -> str:
     """Render a snapshot as one self-contained, printable HTML page.
@@ -542,6 +614,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
          f"rotation {_esc(settings.get('rotation', ''))}.</p>" if efa else ""),
         _loadings_section(efa, items) if efa else "<p class=\"muted\">No factor solution was stored.</p>",
         "</section>",
+        _stability_section(snapshot.get("stability")),
     ]
     warnings = [w for w in (analysis.get("warnings") or []) if w]
     if warnings:

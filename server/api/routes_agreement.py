@@ -81,13 +81,18 @@ def _missing_items(wanted: list[str], ds, dataset_id: str, which: str, code: str
 @router.post("/retest")
 def post_retest(body: RetestRequest, request: Request) -> dict:
     """Test-retest or parallel-forms stability of the (pruned) scale, matched by respondent ID."""
-    engine = request.app.state.engine
+    return compute_retest(request.app, body)
+
+
+def compute_retest(app, body: RetestRequest) -> dict:
+    """The answer of POST /api/retest (also stored with a snapshot that includes it)."""
+    engine = app.state.engine
     first = body.first
     items = body.items
     reverse = body.reverse
     snap = None
     if body.snapshot is not None:
-        snap = request.app.state.store.get_snapshot(body.snapshot)
+        snap = app.state.store.get_snapshot(body.snapshot)
         if snap is None:
             raise not_found("snapshot", body.snapshot)
         snap_ds = snap.get("dataset_id")

@@ -17,7 +17,9 @@ from pydantic import BaseModel, ConfigDict, Field
 from .. import __version__
 from ..exports import responses_csv, safe_filename, scoring_key_csv
 from ..report import render_report
+from ..stats.agreement import agreement_summary
 from .errors import ApiError, not_found
+from .routes_agreement import AgreementRequest, RetestRequest, compute_retest
 
 router = APIRouter(tags=["snapshots"])
 
@@ -37,6 +39,14 @@ class RemovedIn(BaseModel):
     omega_after: float | None = Field(default=None, description="Ignored: the server recomputes it.")
 
 
+class StabilityIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    retest: RetestRequest | None = Field(default=None, description="A test-retest or parallel-forms comparison "
+                                         "to compute and keep: `first` is this dataset, `items` default to the "
+                                         "kept items, reverse scoring to the snapshot's.")
+    agreement: AgreementRequest | None = Field(default=None, description="A rater table to compute and keep.")
+
+
 class SnapshotIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
     name: str = Field(description="A name for the snapshot, e.g. 'After the March meeting'.")
@@ -46,6 +56,7 @@ class SnapshotIn(BaseModel):
     removed: list[RemovedIn] = Field(default_factory=list, description="Removed items, in removal order.")
     settings: dict[str, Any] = Field(default_factory=dict, description="The analysis settings.")
     parent: str | None = Field(default=None, description="Id of the snapshot this one revises.")
+    stability: StabilityIn | None = Field(default=None, description="Stability and agreement results to include.")
 
 
 def _bad(code: str, message: str, **details) -> ApiError:
@@ -211,6 +222,23 @@ def _effective_reverse(analysis: dict, settings: dict) -> list[str] | None:
     return None
 
 
+def _stability(app, given: StabilityIn | None, dataset_id: str, kept: list[str], reverse) -> dict | None:
+    """Compute the stability and agreement results a snapshot includes (the same code as their routes)."""
+    if given is None or (given.retest is None and given.agreement is None):
+        return None
+    out = {}
+    if given.retest is not None:
+        rt = given.retest.model_copy(update={
+            "first": dataset_id, "snapshot": None, "items": given.retest.items or kept,
+            "reverse": given.retest.reverse if given.retest.reverse is not None else reverse})
+        out["retest"] = jsonable_encoder(compute_retest(app, rt))
+        out["retest_request"] = jsonable_encoder(rt)
+    if given.agreement is not None:
+        out["agreement"] = jsonable_encoder(agreement_summary(given.agreement.ratings, given.agreement.level))
+        out["agreement_level"] = given.agreement.level
+    return out
+
+
 @router.post("/datasets/{dataset_id}/snapshots", status_code=201)
 def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
     """Save a snapshot: recompute the trail and the full analysis of the kept items, then store it."""
@@ -248,6 +276,7 @@ def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
         r.update({"alpha_after": t["alpha"], "omega_after": t["omega_total"], "n_items_after": t["n_items"]})
 
     reverse = _effective_reverse(analysis, settings)
+    stability = _stability(request.app, body.stability, dataset_id, kept, reverse)
     snapshot = {
         "dataset_id": dataset_id,
         "dataset_name": record.get("name") or getattr(dataset, "name", None),
@@ -264,6 +293,7 @@ def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
         "analysis": analysis,
         "software_version": __version__,
         "parent": body.parent,
+        "stability": stability,
     }
     try:
         stored = store.add_snapshot(dataset_id, snapshot)

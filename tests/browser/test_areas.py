@@ -326,3 +326,27 @@ def test_parallel_forms_and_the_example_rater_table(page, server, demo, retest_w
     page.wait_for_selector("table.agreement")
     assert "Krippendorff" in page.inner_text("#agreement-result")
     assert not page.errors
+
+
+def test_a_snapshot_can_include_the_retest_result(page, server, demo, retest_wave):
+    open_dataset(page, server, demo["id"], view="stability")
+    page.select_option("#wave-first", demo["id"])
+    page.select_option("#wave-second", retest_wave["id"])
+    page.fill("#items-second", "")
+    page.click("#run-retest")
+    page.wait_for_selector("table.icc")
+    shown = page.inner_text("#retest-reading")
+    page.click("#save-snapshot")
+    page.wait_for_selector("#snapshot-dialog[open]")
+    assert page.is_checked("#snap-include-retest")
+    page.fill("#snap-name", "With the six-week retest")
+    page.click("#snap-save")
+    page.wait_for_selector("table.snapshots")
+    snaps = httpx.get(f"{server}/api/datasets/{demo['id']}/snapshots").json()
+    mine = next(s for s in snaps if s["name"] == "With the six-week retest")
+    full = httpx.get(f"{server}/api/snapshots/{mine['id']}").json()
+    icc = full["stability"]["retest"]["icc"]["ICC(A,1)"]["value"]
+    assert f"{icc:.3f}".lstrip("0") in shown  # the number the page showed is the one the snapshot keeps
+    report = httpx.get(f"{server}/api/snapshots/{mine['id']}/report").text
+    assert "Stability and agreement" in report
+    assert not page.errors

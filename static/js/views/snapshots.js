@@ -2,6 +2,7 @@
 import { api } from "../api.js";
 import { actions, analysisRequest, keptItems, state } from "../state.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
+import { lastStability } from "./stability.js";
 
 export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
   ["redundant", "redundant"], ["wording", "wording"], ["floor-ceiling", "floor/ceiling"], ["other", "other"]];
@@ -60,6 +61,11 @@ export async function openDialog() {
   }
   if (removed.length) body.append(list); else body.append(note("No items removed: the snapshot records the full pool."));
   if (state.parentSnapshot) body.append(h("p", { class: "muted", text: `It will be recorded as a revision of “${state.parentSnapshot.name}”.` }));
+  const st = lastStability();
+  if (st.retest) body.append(h("label", { class: "include" }, h("input", { type: "checkbox", id: "snap-include-retest", checked: true }),
+    ` Include the test-retest result (${st.retestSummary}); it is recomputed for the kept items.`));
+  if (st.agreement) body.append(h("label", { class: "include" }, h("input", { type: "checkbox", id: "snap-include-agreement", checked: true }),
+    ` Include the rater agreement (${st.agreementSummary}).`));
   dlg.querySelector("#snap-author").value = state.who || "";
   dlg.querySelector(".dialog-error").textContent = "";
   dlg.showModal();
@@ -85,6 +91,14 @@ export async function submitDialog() {
     parent: state.parentSnapshot ? state.parentSnapshot.id : null,
     settings: { ...state.settings, reverse: state.reverse, thresholds: Object.keys(state.thresholds).length ? state.thresholds : null },
   };
+  const st = lastStability();
+  const stability = {};
+  if (st.retest && dlg.querySelector("#snap-include-retest")?.checked) {
+    const { second, score, items_second: itemsSecond } = st.retest;
+    stability.retest = { second, score, ...(itemsSecond ? { items_second: itemsSecond } : {}) };
+  }
+  if (st.agreement && dlg.querySelector("#snap-include-agreement")?.checked) stability.agreement = st.agreement;
+  if (Object.keys(stability).length) body.stability = stability;
   try {
     const saved = await api.saveSnapshot(state.dataset, body);
     state.parentSnapshot = { id: saved.id, name: saved.name || body.name };

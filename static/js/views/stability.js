@@ -6,6 +6,18 @@ import { clear, fmt, h, note, section, select, table, warningList } from "./dom.
 
 let retestResult = null;
 let agreementResult = null;
+let retestAsked = null;     // the request behind retestResult (for a snapshot to include)
+let agreementAsked = null;  // {ratings, level} behind agreementResult
+
+/** What the save-snapshot dialog may include: the last successful comparisons of this page. */
+export function lastStability() {
+  return {
+    retest: retestResult && !retestResult.error && retestAsked && retestAsked.first === state.dataset ? retestAsked : null,
+    retestSummary: retestResult && !retestResult.error ? `${retestResult.recommended || "ICC"} ${num(val(retestResult.icc?.[retestResult.recommended]))} with ${retestResult.second?.name || "the second wave"}` : "",
+    agreement: agreementResult && !agreementResult.error ? agreementAsked : null,
+    agreementSummary: agreementResult && !agreementResult.error ? `${agreementResult.n_units} units, ${agreementResult.n_raters} raters` : "",
+  };
+}
 const pick = { first: null, second: null, itemsSecond: "", score: "sum", level: "ordinal", text: "", file: null, fileText: null,
   source: "current", snapshots: [], snapshotsFor: null };
 
@@ -135,6 +147,7 @@ export function render(container) {
       const other = pick.itemsSecond.split(/[,;\s]+/).map((x) => x.trim()).filter(Boolean);
       if (other.length) body.items_second = other; // parallel forms: the other form's items, in the same order
       retestResult = await api.retest(body);
+      retestAsked = { ...body, first: body.first || retestResult.first?.id };
     } catch (e) { retestResult = { error: e.message }; }
     run.disabled = false;
     clear(retestBox); renderRetest(retestBox);
@@ -164,6 +177,7 @@ export function render(container) {
       } else {
         agreementResult = await api.agreement({ ratings: parseRatings(pick.text).ratings, level: pick.level });
       }
+      agreementAsked = { ratings: parseRatings(pick.text).ratings, level: pick.level };
     } catch (e) { agreementResult = { error: e.message }; }
     runAgree.disabled = false;
     clear(agreeBox); renderAgreement(agreeBox);
