@@ -18,7 +18,7 @@ class Settings:
                       "0.0.0.0 shares it on the local network and then requires the access token.",
                       "127.0.0.1")
     port: int = _help("TCP port to listen on.", 8765)
-    data_dir: Path = _help("Folder holding datasets, snapshots and the SQLite database; "
+    data_dir: Path = _help(  # noqa: RUF009  (a plain Path default, built once like the others)"Folder holding datasets, snapshots and the SQLite database; "
                            "everything that must survive a restart.", Path("data"))
     max_upload_mb: float = _help("Largest upload accepted, in megabytes (larger files get 413).", 100.0)
     token: str | None = _help("Access token every request must carry when the server is shared "

@@ -1,11 +1,10 @@
 """Shared fixtures: a fresh app per test with a temporary data folder."""
 from __future__ import annotations
 
-import server  # noqa: F401  (sets one BLAS thread before numpy loads)
-
 import pytest
 from fastapi.testclient import TestClient
 
+import server  # noqa: F401  (sets one BLAS thread before numpy loads)
 from server.app import create_app
 from server.settings import Settings
 

@@ -184,11 +184,9 @@ def test_kill_9_while_saving_loses_no_acknowledged_snapshot(tmp_path):
     for stop_after in (5, 20, 40):  # kill at a few different moments, restarting in between
         child = subprocess.Popen([sys.executable, "-c", _SAVER, str(root), str(tmp_path), ds["id"]],
                                  stdout=subprocess.PIPE, text=True)
-        seen = 0
-        for line in child.stdout:
+        for seen, line in enumerate(child.stdout, start=1):
             sid, i = line.split()
             acked[sid] = int(i)
-            seen += 1
             if seen >= stop_after:
                 os.kill(child.pid, signal.SIGKILL)
                 break

@@ -1,8 +1,6 @@
 """A snapshot can keep its stability and agreement results, and the report shows them (issue 6)."""
 from __future__ import annotations
 
-import io
-
 import pandas as pd
 import pingouin as pg
 import pytest
