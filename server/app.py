@@ -24,7 +24,8 @@ CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline';
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
     settings.data_dir.mkdir(parents=True, exist_ok=True)
-    app = FastAPI(title="Scalewright", version=__version__, docs_url="/api/docs", redoc_url=None,
+    # No Swagger/ReDoc pages: FastAPI's load their scripts from a CDN, and no page here may reach outside.
+    app = FastAPI(title="Scalewright", version=__version__, docs_url=None, redoc_url=None,
                   openapi_url="/api/openapi.json")
     app.state.settings = settings
 
