@@ -9,6 +9,8 @@ export const THRESHOLDS = [
   ["cross_gap", 0.20, "Cross-loading: and less than this below the primary (Howard 2016)"],
   ["item_rest_min", 0.0, "Reverse suspect: item-rest r below"],
   ["redundant_r", 0.80, "Near-duplicate: inter-item r of at least"],
+  ["extreme_share", 0.50, "Floor/ceiling: share of answers at one end of at least"],
+  ["heywood_communality", 0.995, "Heywood: communality of at least"],
 ];
 
 export function render(container) {
