@@ -722,7 +722,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         else:
             left_out.append((c, "text"))
 
-    if columns and all(_is_number(c) for c in columns):
+    if columns and all(is_number(c) for c in columns):
         notes.append(f"Every column name in '{filename}' is a number ({_quote_list(columns, 3)}); the first row "
                      "was read as column names. If it holds answers, add a header row of item names.")
 
@@ -905,7 +905,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                          id_column=chosen_id, n_rows=n_rows, warnings=notes)
 
 
-def _is_number(text: str) -> bool:
+def is_number(text: str) -> bool:
+    """Whether a cell's text reads as a number (float() accepts it)."""
     try:
         float(text)
     except ValueError:

@@ -1,6 +1,9 @@
 """Shared fixtures: a fresh app per test with a temporary data folder."""
 from __future__ import annotations
 
+from pathlib import Path
+
+import pandas as pd
 import pytest
 from fastapi.testclient import TestClient
 
@@ -23,3 +26,21 @@ def app(settings):
 def client(app):
     with TestClient(app) as c:
         yield c
+
+
+@pytest.fixture(scope="session")
+def pg_alpha_data() -> pd.DataFrame:
+    """pingouin's ``cronbach_alpha`` data (15 subjects x 10 items), made wide as pingouin.cronbach_alpha does."""
+    import pingouin as pg
+
+    d = pg.read_dataset("cronbach_alpha")
+    return d.pivot(index="Subj", columns="Items", values="Scores")
+
+
+@pytest.fixture(scope="session")
+def holzinger() -> pd.DataFrame:
+    """Holzinger & Swineford (1939): the nine tests x1..x9 of 301 pupils, as semopy ships them."""
+    import semopy
+
+    path = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
+    return pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]

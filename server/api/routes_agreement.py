@@ -14,6 +14,7 @@ import pandas as pd
 from fastapi import APIRouter, File, Form, Request, UploadFile
 from pydantic import BaseModel, Field
 
+from ..intake import is_number
 from ..stats.agreement import agreement_summary
 from ..stats.errors import InputError
 from ..stats.stability import retest
@@ -211,15 +212,7 @@ def _looks_like_ids(columns: list[str], df: pd.DataFrame) -> bool:
     values = [str(v).strip() for v in df.iloc[:, 0]]
     if any(v == "" for v in values) or len(set(values)) != len(values) or len(values) < 2:
         return False
-    return not all(_is_number(v) for v in values)
-
-
-def _is_number(text: str) -> bool:
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
+    return not all(is_number(v) for v in values)
 
 
 @router.post("/agreement/upload")

@@ -7,15 +7,11 @@ direct computation on the raw responses of the same items.
 from __future__ import annotations
 
 import io
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pingouin as pg
 import pytest
-import semopy
-
-HOLZINGER = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
 
 
 def _upload(client, frame: pd.DataFrame, **form) -> str:
@@ -27,27 +23,15 @@ def _upload(client, frame: pd.DataFrame, **form) -> str:
     return r.json()["id"]
 
 
-@pytest.fixture
-def alpha_data():
-    d = pg.read_dataset("cronbach_alpha")
-    return d.pivot(index="Subj", columns="Items", values="Scores").reset_index(drop=True)
-
-
-@pytest.fixture
-def holzinger():
-    d = pd.read_csv(HOLZINGER)
-    return d[[f"x{i}" for i in range(1, 10)]]
-
-
-def test_reliability_matches_pingouin_documentation(client, alpha_data):
-    ds = _upload(client, alpha_data)
+def test_reliability_matches_pingouin_documentation(client, pg_alpha_data):
+    ds = _upload(client, pg_alpha_data)
     out = client.post(f"/api/datasets/{ds}/analysis", json={}).json()
     rel = out["reliability"]
     assert round(rel["alpha"], 3) == 0.592  # pingouin docs, cronbach_alpha data
     assert [round(v, 3) for v in rel["alpha_ci"]] == [0.195, 0.840]  # pingouin docs (Feldt interval)
     # alpha if deleted equals pingouin's alpha on the data without that item
     for row in out["items"]:
-        ref = pg.cronbach_alpha(alpha_data.drop(columns=row["name"]))[0]
+        ref = pg.cronbach_alpha(pg_alpha_data.drop(columns=row["name"]))[0]
         assert row["alpha_if_deleted"] == pytest.approx(ref, abs=1e-10)  # pingouin.cronbach_alpha
 
 
@@ -64,19 +48,19 @@ def test_missing_policies_match_pingouin_documentation(client):
     assert any("more respondents than items" in w for w in pair["warnings"])
 
 
-def test_a_drop_uses_the_submatrix_and_equals_a_direct_computation(client, alpha_data):
-    ds = _upload(client, alpha_data)
+def test_a_drop_uses_the_submatrix_and_equals_a_direct_computation(client, pg_alpha_data):
+    ds = _upload(client, pg_alpha_data)
     client.post(f"/api/datasets/{ds}/analysis", json={})  # fills the full-pool cache
-    keep = [c for c in alpha_data.columns if c not in ("Q3", "Q7")]
+    keep = [c for c in pg_alpha_data.columns if c not in ("Q3", "Q7")]
     out = client.post(f"/api/datasets/{ds}/analysis", json={"items": keep}).json()
-    assert out["reliability"]["alpha"] == pytest.approx(pg.cronbach_alpha(alpha_data[keep])[0], abs=1e-12)
+    assert out["reliability"]["alpha"] == pytest.approx(pg.cronbach_alpha(pg_alpha_data[keep])[0], abs=1e-12)
     assert [r["name"] for r in out["items"]] == keep
 
 
-def test_reverse_override_scores_min_plus_max_minus_x(client, alpha_data):
-    ds = _upload(client, alpha_data, scale_min=1, scale_max=10)
+def test_reverse_override_scores_min_plus_max_minus_x(client, pg_alpha_data):
+    ds = _upload(client, pg_alpha_data, scale_min=1, scale_max=10)
     out = client.post(f"/api/datasets/{ds}/analysis", json={"reverse": ["Q2"]}).json()
-    flipped = alpha_data.copy()
+    flipped = pg_alpha_data.copy()
     flipped["Q2"] = 1 + 10 - flipped["Q2"]
     assert out["reliability"]["alpha"] == pytest.approx(pg.cronbach_alpha(flipped)[0], abs=1e-12)
     assert out["settings"]["reverse"] == ["Q2"]
@@ -158,8 +142,8 @@ def test_model_free_flags_find_a_near_duplicate_and_a_ceiling(client):
     ({"thresholds": {"primary_min": 4}}, "bad_threshold", "primary_min"),
     ({"colour": "red"}, "bad_request", "colour"),
 ])
-def test_bad_requests_get_a_clear_4xx(client, alpha_data, body, code, word):
-    ds = _upload(client, alpha_data)
+def test_bad_requests_get_a_clear_4xx(client, pg_alpha_data, body, code, word):
+    ds = _upload(client, pg_alpha_data)
     r = client.post(f"/api/datasets/{ds}/analysis", json=body)
     assert 400 <= r.status_code < 500, r.text
     err = r.json()["error"]
@@ -171,16 +155,16 @@ def test_unknown_dataset_is_404(client):
     assert r.status_code == 404 and r.json()["error"]["code"] == "not_found"
 
 
-def test_a_repeated_request_is_served_from_the_cache(app, client, alpha_data):
-    ds = _upload(client, alpha_data)
+def test_a_repeated_request_is_served_from_the_cache(app, client, pg_alpha_data):
+    ds = _upload(client, pg_alpha_data)
     engine = app.state.engine
     first = engine.analyse(ds, {"items": ["Q1", "Q2", "Q3", "Q4"]})
     again = engine.analyse(ds, {"items": ["Q4", "Q3", "Q2", "Q1"]})  # same set, other order
     assert again is first
 
 
-def test_an_item_without_variance_is_left_out_with_a_warning(client, alpha_data):
-    frame = alpha_data.assign(FLAT=4)
+def test_an_item_without_variance_is_left_out_with_a_warning(client, pg_alpha_data):
+    frame = pg_alpha_data.assign(FLAT=4)
     ds = _upload(client, frame)
     out = client.post(f"/api/datasets/{ds}/analysis", json={}).json()
     assert "FLAT" not in [r["name"] for r in out["items"]] and out["settings"]["excluded"] == ["FLAT"]

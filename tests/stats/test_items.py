@@ -22,19 +22,6 @@ from server.stats.reliability import mcdonald_omega, reliability_from_cov
 REF = Path(__file__).resolve().parents[1] / "reference" / "reliability"
 
 
-@pytest.fixture(scope="module")
-def pg_alpha_data() -> pd.DataFrame:
-    d = pg.read_dataset("cronbach_alpha")
-    return d.pivot(index="Subj", columns="Items", values="Scores")
-
-
-@pytest.fixture(scope="module")
-def holzinger() -> pd.DataFrame:
-    import semopy
-    path = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
-    return pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]
-
-
 def test_item_table_against_pingouin_and_numpy(pg_alpha_data):
     names = list(pg_alpha_data.columns)
     rows = item_table(pg_alpha_data.cov().to_numpy(), names=names)

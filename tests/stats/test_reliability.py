@@ -35,22 +35,8 @@ REF = Path(__file__).resolve().parents[1] / "reference" / "reliability"
 
 
 @pytest.fixture(scope="module")
-def pg_alpha_data() -> pd.DataFrame:
-    # pingouin's long-format example, made wide exactly as pingouin.cronbach_alpha does
-    d = pg.read_dataset("cronbach_alpha")
-    return d.pivot(index="Subj", columns="Items", values="Scores")
-
-
-@pytest.fixture(scope="module")
 def denis() -> pd.DataFrame:
     return pd.read_csv(REF / "denis2016_cronbach.csv")
-
-
-@pytest.fixture(scope="module")
-def holzinger() -> pd.DataFrame:
-    import semopy
-    path = Path(semopy.__file__).parent / "examples" / "holzinger_swineford39_data.csv"
-    return pd.read_csv(path)[[f"x{i}" for i in range(1, 10)]]
 
 
 def _fa_minres_loadings(data: pd.DataFrame | np.ndarray, *, is_corr: bool = False) -> np.ndarray:
