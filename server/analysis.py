@@ -125,8 +125,7 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     }
     if with_efa:
         rows = {r["name"]: r for r in items_out}
-        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings,
-                                       min_pair))
+        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings))
     answer["warnings"] = list(dict.fromkeys(warnings))
     return _plain(answer)
 
@@ -141,13 +140,17 @@ def _with_item_flags(flags, R, names, *, rows, thresholds):
     return sorted(flags + extra, key=lambda f: order.get(f["item"], len(order)))
 
 
-def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings, n_obs):
+def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings):
     from .stats.correlation import smooth_to_pd, smoothing_message
     from .stats.dimensionality import factorability_summary, retention_summary
     from .stats.efa import factor_analysis
 
     pool = engine.full_pool(dataset_id, s["correlation"], s["missing"])
     R = pool.corr[np.ix_(idx, idx)] * flip
+    # the n behind this matrix: the smallest pairwise n of the cached full-pool matrix, i.e. under listwise
+    # deletion the respondents who answered every pool item (not only the active ones), which is what
+    # Bartlett's test, parallel analysis and the ML chi-square must use
+    n_obs = _pair_n(pool.n_pair[np.ix_(idx, idx)])
     corr_warnings = list(pool.warnings)
     R_s, min_eig, changed = smooth_to_pd(R)
     if changed:
