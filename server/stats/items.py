@@ -14,7 +14,7 @@ import math
 import numpy as np
 
 from .errors import InputError
-from .reliability import _check_cov, _cov_to_corr, _fit_batch, _num, _off_diagonal, one_factor_loadings
+from .reliability import _H, _check_cov, _cov_to_corr, _fit_batch, _num, _off_diagonal, one_factor_loadings
 
 __all__ = ["alpha_if_deleted", "item_rest_correlations", "item_table", "pruning_path"]
 
@@ -94,10 +94,15 @@ def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = N
     m = mask[ok_rows]
     L0 = np.where(m, np.asarray(start, dtype=float)[None, :], 0.0)
     L, conv, _ = _fit_batch(_off_diagonal(R), L0, m)
-    redo = np.flatnonzero(~conv)
-    for b in redo:  # rare: fit this subset on its own (L-BFGS-B fallback)
+    # Rows that did not converge, and rows whose warm-started fit sits on the Heywood bound (there the
+    # minres criterion can have several minima and the warm start may find another one than a fresh
+    # fit), are fitted on their own from the default start: exactly what mcdonald_omega, and so the
+    # analysis after the item is really dropped, computes for that item set.
+    heywood = ((L * L) >= _H - 1e-9).any(axis=1)
+    redo = np.flatnonzero(~conv | heywood)
+    for b in redo:
         idx = np.flatnonzero(m[b])
-        fit = one_factor_loadings(R[np.ix_(idx, idx)], start=start[idx])
+        fit = one_factor_loadings(R[np.ix_(idx, idx)])
         L[b] = 0.0
         L[b, idx] = fit.loadings
     signs = np.sign(L.sum(axis=1, keepdims=True))

@@ -52,6 +52,23 @@ def test_omega_if_deleted_equals_omega_of_submatrix(holzinger, pg_alpha_data):
             assert rows[j]["omega_if_deleted"] == pytest.approx(ref, abs=1e-6)
 
 
+def test_omega_if_deleted_with_a_heywood_subset_equals_omega_after_the_drop():
+    # Four weakly related items (invented correlations): leaving out 'a' leaves b, c, d, whose one-factor
+    # minres fit is a Heywood case with several minima. Omega if deleted must be the omega the analysis
+    # shows once the item is really dropped (mcdonald_omega of the submatrix, default start); a fit
+    # warm-started from the four-item loadings used to land in another minimum (.472 instead of .342).
+    R = np.array([[1.0, 0.2, 0.08, 0.24], [0.2, 1.0, -0.15, 0.05],
+                  [0.08, -0.15, 1.0, -0.06], [0.24, 0.05, -0.06, 1.0]])
+    rows = item_table(R, names=list("abcd"))
+    for j in range(4):
+        keep = [i for i in range(4) if i != j]
+        ref = mcdonald_omega(R[np.ix_(keep, keep)]).omega_total
+        assert rows[j]["omega_if_deleted"] == pytest.approx(ref, abs=1e-6)  # identity: omega of the subset
+    ref_start = reliability_from_cov(R, n=200, n_complete=200).loadings  # the engine's warm start
+    warm = item_table(R, names=list("abcd"), start=ref_start)
+    assert [r["omega_if_deleted"] for r in warm] == pytest.approx([r["omega_if_deleted"] for r in rows], abs=1e-6)
+
+
 def test_warm_start_does_not_change_results(holzinger):
     S = holzinger.cov().to_numpy()
     names = list(holzinger.columns)
