@@ -49,6 +49,9 @@ NON_ITEM_NAMES = {
     "zipcode", "postcode", "postalcode", "region", "state", "city", "school", "class", "grade",
     "maritalstatus", "children", "employment", "distributionchannel", "userlanguage", "consent",
 }
+# Scores computed from the items: entered as an item they would inflate every coefficient.
+SCORE_NAMES = {"total", "totalscore", "sum", "sumscore", "score", "scalescore", "mean", "meanscore", "average",
+               "avg", "scoretotal", "totalsum"}
 
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
 _DECIMAL_DOT = re.compile(r"^\s*[-+]?\d+\.\d+\s*$")
@@ -142,6 +145,10 @@ def _plural(n: int, one: str, many: str | None = None) -> str:
     return f"{n} {one if n == 1 else (many or one + 's')}"
 
 
+def _first_rows(n: int) -> str:
+    return "The first row" if n == 1 else f"The first {n} rows"
+
+
 def _is_xlsx(raw: bytes, filename: str) -> bool:
     return raw[:4] == b"PK\x03\x04" or PurePath(filename or "").suffix.lower() in (".xlsx", ".xlsm")
 
@@ -202,6 +209,52 @@ def _detect_delimiter(sample: str, filename: str, *, allow_single: bool = False)
             "row of column names and one row per respondent, separated by commas, semicolons or tabs.",
             code="not_a_table", details={"file": filename})
     return best
+
+
+def _blank_title_lines(raw: bytes, sample: str, encoding: str) -> tuple[bytes, str, list[tuple[int, str]]]:
+    """Blank the single-cell title lines above a header row ('Belonging pilot, spring 2026').
+
+    A line is a title when it holds at most one non-empty cell, under every candidate delimiter, while a
+    later line of the first 30 holds three or more. Blanked lines keep their line ends, so row numbers
+    stay those of the file (the parser skips blank lines). Returns (raw, sample, [(row, text)]).
+    """
+    lines = sample.split("\n")[:30]
+
+    def filled(line: str) -> tuple[int, str]:
+        """(most non-empty cells under any delimiter, the text of the line's cells)."""
+        best, text, widest = 0, "", 0
+        for d in CANDIDATE_DELIMITERS:
+            try:
+                rec = next(csv.reader([line.lstrip("\ufeff")], delimiter=d), [])
+            except csv.Error:
+                return 99, ""  # odd quoting: not a plain title, leave the file as it is
+            cells = [cell.strip() for cell in rec if cell.strip()]
+            best = max(best, len(cells))
+            if len(rec) > widest:
+                widest, text = len(rec), " ".join(cells)
+        return best, text
+
+    def blank(line: str) -> bool:
+        return not re.sub(r'[\s,;|"\ufeff]', "", line)
+
+    titles: list[tuple[int, str]] = []
+    counts: list[int] = []
+    first = None
+    for i, ln in enumerate(lines):
+        cnt, text = (0, "") if blank(ln) else filled(ln)
+        counts.append(cnt)
+        if first is not None or cnt == 0:
+            continue
+        if cnt == 1 and ln.count('"') % 2 == 0:
+            titles.append((i + 1, text))
+            continue
+        first = i
+    if not titles or first is None or max(counts[first:]) < 3 or counts[first] < 2:
+        return raw, sample, []
+    parts = raw.split(b"\n", first)
+    raw = b"\n" * first + parts[first]
+    sample = "\n" * first + sample.split("\n", first)[first]
+    return raw, sample, titles
 
 
 def _detect_decimal_comma(sample: str, delim: str) -> bool:
@@ -328,6 +381,11 @@ def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
     sample, _ = _sample_text(raw, encoding)
     if not sample.strip().lstrip("\ufeff").strip():
         raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    raw, sample, titles = _blank_title_lines(raw, sample, encoding)
+    if titles:
+        shown = "; ".join(f"row {no}: '{text[:60]}'" for no, text in titles[:3])
+        notes.append(f"{_first_rows(len(titles))} of '{filename}' held a single cell ({shown}); "
+                     f"{'it was' if len(titles) == 1 else 'they were'} read as a title, not as the header row.")
     delim = _detect_delimiter(sample.lstrip("\ufeff"), filename, allow_single=as_strings)
     decimal_comma = (not as_strings) and _detect_decimal_comma(sample, delim)
     header, row_numbers = _scan_records(raw, encoding, delim, filename)
@@ -364,21 +422,46 @@ def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
     try:
         book = pd.ExcelFile(io.BytesIO(raw), engine="openpyxl")
         sheets = book.sheet_names
-        grid = pd.read_excel(book, sheet_name=sheets[0], header=None, dtype=object if as_strings else None)
+        grids = []
+        for sheet in sheets:  # the first sheet that holds a table (a 'Read me' sheet may come first)
+            grid = pd.read_excel(book, sheet_name=sheet, header=None, dtype=object if as_strings else None)
+            grid = grid.map(lambda v: np.nan if isinstance(v, str) and not v.strip() else v)
+            grid = grid.dropna(how="all", axis=1)
+            grids.append((sheet, grid))
+            if grid.shape[1] >= 2 and grid.notna().any(axis=1).sum() >= 2:
+                break
     except InputError:
         raise
     except Exception as exc:  # openpyxl raises many types for damaged or foreign files
         raise InputError(f"The file '{filename}' could not be opened as an XLSX workbook "
                          f"({type(exc).__name__}: {exc}).", code="not_a_table",
                          details={"file": filename}) from exc
+    sheet, grid = grids[-1] if grids[-1][1].shape[1] >= 2 else grids[0]
     if len(sheets) > 1:
-        notes.append(f"The workbook '{filename}' has {len(sheets)} sheets; only the first, '{sheets[0]}', "
-                     "was read.")
+        skipped = [s for s, _ in grids if s != sheet]
+        notes.append(f"The workbook '{filename}' has {len(sheets)} sheets; only '{sheet}' was read"
+                     + (f" (the sheet{'s' if len(skipped) > 1 else ''} before it, {_quote_list(skipped)}, "
+                        f"{'hold' if len(skipped) > 1 else 'holds'} no table)." if skipped else "."))
     grid = grid.dropna(how="all", axis=1)
-    nonblank = np.flatnonzero(grid.notna().any(axis=1).to_numpy())
+    filled = grid.notna().sum(axis=1).to_numpy()
+    nonblank = np.flatnonzero(filled > 0)
     if grid.shape[1] == 0 or len(nonblank) == 0:
         raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
     first = nonblank[0]
+    titles = []
+    if filled[nonblank[:30]].max() >= 3:  # single-cell title lines above the header row
+        for r in nonblank:
+            if filled[r] >= 2:
+                break
+            titles.append(r)
+        if titles and len(titles) < len(nonblank):
+            first = nonblank[len(titles)]
+            shown = "; ".join(f"row {r + 1}: '{_cell_text(grid.iloc[r].dropna().iat[0])[:60]}'" for r in titles[:3])
+            notes.append(f"{_first_rows(len(titles))} of sheet '{sheet}' held a single cell ({shown}); "
+                         f"{'it was' if len(titles) == 1 else 'they were'} read as a title, not as the header row.")
+            grid = grid.astype(object)
+            grid.iloc[:first] = np.nan
+            grid = grid.dropna(how="all", axis=1)
     header = [grid.iat[first, j] for j in range(grid.shape[1])]
     names = _clean_header([_cell_text(h) for h in header], filename)
     body = grid.iloc[first + 1:]
@@ -392,9 +475,9 @@ def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
     else:
         body = body.infer_objects()
     if len(names) < 2 and not as_strings:
-        raise InputError(f"The file '{filename}' is not a table: its first sheet has a single column.",
+        raise InputError(f"The file '{filename}' is not a table: its sheet '{sheet}' has a single column.",
                          code="not_a_table", details={"file": filename})
-    return body, row_numbers, notes, {"format": "xlsx", "sheet": sheets[0],
+    return body, row_numbers, notes, {"format": "xlsx", "sheet": sheet,
                                       "unnamed": [names[j] for j in _unnamed(header)]}
 
 
@@ -482,7 +565,7 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
             ) from None
 
     for i in range(len(df)):
-        name = cell(i, "item")
+        name = re.sub(r"\s+", " ", cell(i, "item").replace("\ufeff", "").replace("\u200b", "")).strip()
         row = int(row_numbers[i])
         if not name:
             continue
@@ -535,6 +618,8 @@ def _column_kind(name: str) -> str | None:
         return "id"
     if key in NON_ITEM_NAMES:
         return "demographic"
+    if key in SCORE_NAMES:
+        return "score"
     return None
 
 
@@ -544,6 +629,16 @@ def _looks_like_ids(values: pd.Series, n: int) -> bool:
         return False
     text = values.astype(str).str.strip()
     return bool(text.str.len().mean() <= 32 and text.str.contains(r"\s").mean() < 0.5)
+
+
+def _looks_like_labels(values: pd.Series) -> bool:
+    """Answers exported as their labels ('Strongly agree'): a few distinct words, each given many times."""
+    text = values.dropna().astype(str).str.strip()
+    text = text[text != ""]
+    if len(text) < 6:
+        return False
+    distinct = text.nunique()
+    return bool(distinct <= 11 and distinct <= len(text) / 3 and text.str.contains(r"[A-Za-z]").mean() > 0.5)
 
 
 def _looks_like_dates(values: pd.Series) -> bool:
@@ -556,6 +651,74 @@ def _looks_like_dates(values: pd.Series) -> bool:
         _warnings.simplefilter("ignore")
         parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
     return bool(parsed.notna().all())
+
+
+def _numeric_mask(s: pd.Series) -> np.ndarray:
+    """Which cells of a column read as numbers ('4', '4.0', '3,5')."""
+    if pd.api.types.is_numeric_dtype(s.dtype):
+        return s.notna().to_numpy()
+    text = s.astype(str).str.strip()
+    num = pd.to_numeric(text.where(~text.str.match(_DECIMAL_COMMA.pattern),
+                                   text.str.replace(",", ".", regex=False)), errors="coerce")
+    return (num.notna() & s.notna()).to_numpy()
+
+
+def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: str, notes: list[str]
+                            ) -> tuple[pd.DataFrame, np.ndarray, dict[str, str]]:
+    """Drop the extra header rows survey platforms write under the item codes.
+
+    Qualtrics-style exports put the question text in row 2 and an import-ID row ('{"ImportId":"QID1"}')
+    in row 3; other tools write one row of labels. A top row (of at most three) counts as a header row
+    when, in the columns that hold numbers further down, it holds distinct text in at least 80 % of them.
+    Returns the frame without those rows, their file row numbers, and the question text per column
+    (taken from the first such row that is not an import-ID row) to use as item wording.
+    """
+    if len(df) < 6 or df.shape[1] < 2:
+        return df, row_numbers, {}
+    top = min(3, len(df) - 3)
+    below = df.iloc[3:]
+    numeric_cols = []
+    for c in df.columns:
+        s = below[c]
+        nonnull = s.notna().to_numpy()
+        if nonnull.sum() >= 3 and _numeric_mask(s)[nonnull].mean() >= 0.9:
+            numeric_cols.append(c)
+    if len(numeric_cols) < 2:
+        return df, row_numbers, {}
+    n_head = 0
+    for i in range(top):
+        cells = df[numeric_cols].iloc[i]
+        texts = [str(v).strip() for v, isnum in zip(cells, _numeric_mask(cells)) if pd.notna(v) and not isnum]
+        if len(texts) < 0.8 * len(numeric_cols) or len(set(texts)) < 0.8 * len(texts):
+            break
+        n_head = i + 1
+    if n_head == 0:
+        return df, row_numbers, {}
+    header_text: dict[str, str] = {}
+    for i in range(n_head):
+        row = df.iloc[i]
+        if sum(str(row[c]).strip().startswith("{") for c in numeric_cols) > len(numeric_cols) / 2:
+            continue  # {"ImportId": "QID1"}
+        for c in df.columns:
+            v = row[c]
+            if pd.notna(v) and not _numeric_mask(pd.Series([v])).any() and str(v).strip() and c not in header_text:
+                header_text[str(c)] = str(v).strip()
+    skipped = [int(r) for r in row_numbers[:n_head]]
+    shown_col = next((c for c in numeric_cols if _column_kind(str(c)) is None), numeric_cols[0])
+    example = str(df[shown_col].iloc[0]).strip()[:60]
+    notes.append(f"{'Row' if n_head == 1 else 'Rows'} {' and '.join(map(str, skipped))} of '{filename}' "
+                 f"{'holds' if n_head == 1 else 'hold'} text under the column names (such as '{example}' in column "
+                 f"'{shown_col}'), as survey platforms export it; read as extra header "
+                 f"{'row' if n_head == 1 else 'rows'}, not as respondents"
+                 + ("; the question text is used as item wording where the codebook gives none." if header_text
+                    else "."))
+    df = df.iloc[n_head:].reset_index(drop=True)
+    for c in df.columns:  # the text rows made these columns text; read the answers as numbers again
+        if df[c].dtype == object:
+            conv = pd.to_numeric(df[c], errors="coerce")
+            if conv.notna().sum() == df[c].notna().sum():
+                df[c] = conv
+    return df, row_numbers[n_head:], header_text
 
 
 def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = None,
@@ -613,6 +776,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
 
     df, row_numbers, read_notes, info = _read_table(raw, filename)
     notes.extend(read_notes)
+    df, row_numbers, header_text = _skip_extra_header_rows(df, row_numbers, filename, notes)
     columns = [str(c) for c in df.columns]
     unnamed = set(info.get("unnamed", ()))
 
@@ -676,6 +840,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             if kind == "demographic":
                 left_out.append((c, "demographic or survey-metadata name"))
                 continue
+            if kind == "score":
+                left_out.append((c, "named like a total or mean score, not an item"))
+                continue
             if outside_codebook(c):
                 left_out.append((c, "not in the codebook"))
                 continue
@@ -715,8 +882,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             continue
         if kind == "demographic":
             left_out.append((c, "demographic or survey-metadata name"))
+        elif kind == "score":
+            left_out.append((c, "named like a total or mean score, not an item"))
         elif _looks_like_dates(s):
             left_out.append((c, "dates"))
+        elif _looks_like_labels(s):
+            labels = s.dropna().astype(str).str.strip().value_counts().index[:3].tolist()
+            left_out.append((c, f"answer labels such as {_quote_list(labels, 3)}, not numbers"))
         elif chosen_id is None and id_column is None and _looks_like_ids(s, n):
             chosen_id = c
         else:
@@ -847,9 +1019,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         k = len(item_cols)
 
     if k < 2:
+        labelled = [c for c, w in left_out if w.startswith("answer labels")]
+        hint = (f" Columns {_quote_list(labelled, 5)} hold answer labels, not numbers: export the numeric "
+                "values (the choice codes) or recode the labels as numbers, e.g. 1 = strongly disagree to "
+                "5 = strongly agree." if labelled else "")
         raise InputError(
             f"The file '{filename}' has {_plural(k, 'item column')}{': ' + _quote_list(item_cols) if k else ''}; "
-            "at least 2 are needed. Columns left out: "
+            f"at least 2 are needed.{hint} Columns left out: "
             f"{', '.join(f'{c} ({w})' for c, w in left_out[:10]) or 'none'}.",
             code="too_few_items",
             details={"file": filename, "items": item_cols, "left_out": [c for c, _ in left_out],
@@ -889,7 +1065,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     items = []
     for j, c in enumerate(item_cols):
         e = cb_for.get(c)
-        items.append(ItemMeta(name=c, text=e.text if e else "", construct=e.construct if e else None,
+        text = (e.text if e else "") or header_text.get(c, "")
+        items.append(ItemMeta(name=c, text=text, construct=e.construct if e else None,
                               reverse=bool(e.reverse) if e else False, min=float(mins[j]), max=float(maxs[j]),
                               n_missing=int(n_missing[j]), range_source=sources[j]))
 
@@ -898,7 +1075,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         ids = [_id_text(v) for v in ids_series.tolist()]
         dup = len(ids) - len(set(ids))
         if dup:
-            notes.append(f"The ID column '{chosen_id}' has {_plural(dup, 'repeated value')}.")
+            counts = pd.Series(ids).value_counts()
+            repeated = counts[counts > 1]
+            shown = ", ".join(f"'{v}' ({int(m)} times)" for v, m in repeated.iloc[:MAX_LISTED].items())
+            more = f" and {len(repeated) - MAX_LISTED} more" if len(repeated) > MAX_LISTED else ""
+            notes.append(f"The ID column '{chosen_id}' has {_plural(dup, 'repeated value')}: {shown}{more}. "
+                         "Each row is still read as a respondent; check for duplicate submissions, and match "
+                         "waves only on unique IDs.")
 
     name = PurePath(filename).stem or filename
     return ParsedDataset(name=name, items=items, responses=np.ascontiguousarray(responses), ids=ids,

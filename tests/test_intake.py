@@ -330,9 +330,12 @@ def test_with_a_codebook_unlisted_columns_named_unlike_items_are_left_out():
     assert d.item_names == ["Q1", "Q2", "Q3"]  # Q3 is named like the codebook's items: kept, with a warning
     assert any("not in the codebook" in w and "'Q3'" in w for w in d.warnings)
     left = next(w for w in d.warnings if "left out" in w)
-    assert "'visits_per_month' (not in the codebook)" in left and "'score' (not in the codebook)" in left
-    # Without a codebook the same numeric columns are items.
-    assert read_responses(raw, "f.csv").item_names == ["Q1", "Q2", "Q3", "visits_per_month", "score"]
+    assert "'visits_per_month' (not in the codebook)" in left and "'score' (named like a total" in left
+    # Without a codebook the numeric columns are items, except one named like a total score (it would
+    # inflate every coefficient if entered as an item).
+    plain = read_responses(raw, "f.csv")
+    assert plain.item_names == ["Q1", "Q2", "Q3", "visits_per_month"]
+    assert any("'score' (named like a total or mean score" in w for w in plain.warnings)
 
 
 # ---- property: whatever the delimiter, decimal mark, line ends and encoding, the numbers come back
