@@ -69,6 +69,12 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     desc_all = engine._descriptives_for(dataset_id, rev_mask)
     desc = {d["name"]: d for d in desc_all}
     means = np.array([desc[n]["mean"] for n in names], dtype=float)
+    if s["missing"] == "listwise" and n_complete > 0:
+        # the scale mean must rest on the same respondents as the scale SD: the complete rows
+        raw_mean = X_raw[complete].mean(axis=0)
+        lo = np.array([meta[n].min for n in names], dtype=float)
+        hi = np.array([meta[n].max for n in names], dtype=float)
+        means = np.where(sign < 0, lo + hi - raw_mean, raw_mean)
     min_pair = _pair_n(n_pair)
 
     rel = reliability_from_cov(cov, n=n_rel, n_complete=n_complete, means=means, min_pair_n=min_pair,

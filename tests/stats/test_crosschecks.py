@@ -83,3 +83,19 @@ def test_pairwise_reliability_with_a_reverse_keyed_item_matches_pingouin(client)
     row = next(r for r in out_c["items"] if r["name"] == "Q3")
     assert r_ref > 0.2  # reverse-scored, Q3 goes with its construct again
     assert row["item_rest_r"] == pytest.approx(r_ref, abs=1e-12)  # pandas Series.corr
+
+
+def test_listwise_scale_mean_and_sd_rest_on_the_same_complete_rows(client):
+    # the scale mean and SD of the listwise reliability block are those of the sum score of the
+    # respondents who answered every active item (Q3 reverse-scored as 6 - x), as pandas gives them
+    data = _two_factor_items()
+    ds = _upload(client, data)
+    keep = ["Q1", "Q2", "Q3", "Q4"]
+    rel = client.post(f"/api/datasets/{ds}/analysis",
+                      json={"missing": "listwise", "items": keep, "reverse": ["Q3"], "n_factors": 1}).json()["reliability"]
+    scored = data[keep].dropna()
+    scored["Q3"] = 6 - scored["Q3"]
+    total = scored.sum(axis=1)
+    assert rel["scale_mean"] == pytest.approx(total.mean(), abs=1e-10)  # pandas Series.mean
+    assert rel["scale_sd"] == pytest.approx(total.std(ddof=1), abs=1e-10)  # pandas Series.std
+    assert rel["alpha"] == pytest.approx(pg.cronbach_alpha(scored)[0], abs=1e-12)  # pingouin.cronbach_alpha
