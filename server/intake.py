@@ -372,7 +372,7 @@ def _clean_header(header: list, filename: str) -> list[str]:
 def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
                     ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
     """Read delimited text. Returns (frame, file row numbers, warnings, info)."""
-    if b"\x00" in raw[:SAMPLE_BYTES]:
+    if raw[:2] not in (b"\xff\xfe", b"\xfe\xff") and b"\x00" in raw[:SAMPLE_BYTES]:  # UTF-16 has NULs
         raise InputError(f"The file '{filename}' is not a table: it contains binary data. Upload a CSV, TSV "
                          "or XLSX file.", code="not_a_table", details={"file": filename})
     raw, encoding, notes = _decode_bytes(raw, filename)
@@ -520,7 +520,15 @@ _CB_ALIASES = {
     "max": {"max", "maximum", "scalemax", "high", "highest"},
 }
 _REVERSE_TRUE = {"1", "yes", "y", "true", "t", "r", "rev", "reverse", "reversed", "-", "-1", "neg", "negative"}
-_REVERSE_FALSE = {"0", "no", "n", "false", "f", "", "+", "pos", "positive", "nan", "none", "forward"}
+_REVERSE_FALSE = {"0", "no", "n", "false", "f", "", "+", "+1", "pos", "positive", "nan", "none", "forward"}
+
+
+def _reverse_key(text: str) -> str:
+    """'1.0' -> '1', ' Yes ' -> 'yes', '-1.0' -> '-1': numbers written as decimals read as whole numbers."""
+    key = text.strip().lower()
+    if re.fullmatch(r"[-+]?\d+\.0*", key):
+        key = key.split(".")[0]
+    return key
 
 
 def read_codebook(raw: bytes, filename: str) -> Codebook:
@@ -564,6 +572,8 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
                 details={"file": filename, "column": cols[role], "row": int(row_numbers[i]), "value": s}
             ) from None
 
+    # Keying written as +1/-1 (1 = forward): then a 1 is not "reversed" as it is in a 0/1 column.
+    signed_keys = "reverse" in cols and any(_reverse_key(cell(i, "reverse")) == "-1" for i in range(len(df)))
     for i in range(len(df)):
         name = re.sub(r"\s+", " ", cell(i, "item").replace("\ufeff", "").replace("\u200b", "")).strip()
         row = int(row_numbers[i])
@@ -574,15 +584,17 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
                              f"{row}).", code="bad_codebook",
                              details={"file": filename, "column": cols["item"], "row": row, "value": name})
         rev_text = cell(i, "reverse")
-        rev_key = rev_text.lower()
-        if rev_key in _REVERSE_TRUE:
+        rev_key = _reverse_key(rev_text)
+        if signed_keys and rev_key in ("1", "+1"):  # keys written +1 / -1: 1 is the forward direction
+            reverse = False
+        elif rev_key in _REVERSE_TRUE:
             reverse = True
         elif rev_key in _REVERSE_FALSE:
             reverse = False
         else:
             raise InputError(
                 f"The codebook '{filename}' has '{rev_text}' in column '{cols['reverse']}', row {row} "
-                f"(item '{name}'); reverse must be 1/0, yes/no, true/false or R.", code="bad_codebook",
+                f"(item '{name}'); reverse must be 1/0, yes/no, true/false, R, or keys +1/-1.", code="bad_codebook",
                 details={"file": filename, "column": cols["reverse"], "row": row, "value": rev_text})
         lo, hi = number(i, "min"), number(i, "max")
         if (lo is None) != (hi is None):
@@ -924,6 +936,21 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             else:
                 left_out.append((c, "row numbers"))
 
+    # A column of a different whole number above 100 in every row holds codes (IDs), not answers: no rating
+    # scale (not even a 0-100 slider) reaches past 100, and entered as an item it would swamp every statistic.
+    for c in list(item_cols):
+        if c in cb_for or n < 10:
+            continue
+        v = values[c]
+        if (not np.isnan(v).any() and np.all(v == np.round(v)) and np.nanmax(np.abs(v)) > 100
+                and len(np.unique(v)) == n):
+            item_cols.remove(c)
+            del values[c]
+            if chosen_id is None:
+                chosen_id = c
+            else:
+                left_out.append((c, "a different whole number above 100 in every row, like IDs"))
+
     if chosen_id is not None and chosen_id != id_column:
         notes.append(f"Column '{chosen_id}' was used as the respondent ID (not an item); name another column "
                      "as the ID column if that is wrong.")
@@ -982,9 +1009,23 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         outside[:, ~declared] = False
         per_item = outside.sum(axis=0)
         if per_item.any():
+            before = {j: responses[:, j].copy() for j in np.flatnonzero(per_item)}
             responses[outside] = np.nan
             listed = [f"'{item_cols[j]}' {int(per_item[j])} (range {_fmt_num(mins[j])}-{_fmt_num(maxs[j])})"
                       for j in np.flatnonzero(per_item)]
+            shifted = []
+            for j in np.flatnonzero(per_item):
+                seen = before[j][~np.isnan(before[j])]
+                if seen.size and seen.max() - seen.min() <= maxs[j] - mins[j] and (
+                        seen.min() < mins[j] or seen.max() > maxs[j]) and per_item[j] >= 0.05 * seen.size:
+                    shifted.append(f"'{item_cols[j]}' ({_fmt_num(seen.min())}-{_fmt_num(seen.max())} against "
+                                   f"{_fmt_num(mins[j])}-{_fmt_num(maxs[j])})")
+            if shifted:
+                notes.append(f"The answers of {_plural(len(shifted), 'item')} fit the declared range only after a "
+                             f"shift: {', '.join(shifted[:10])}{' and more' if len(shifted) > 10 else ''}. The "
+                             "file probably codes the answers differently (for example from 0 instead of 1); "
+                             "check min and max in the codebook or scale_min and scale_max, or every analysis "
+                             "runs on the answers left after the out-of-range ones were removed.")
             notes.append(f"{_plural(int(per_item.sum()), 'value')} outside the item's range "
                          f"{'was' if per_item.sum() == 1 else 'were'} set to missing: "
                          f"{', '.join(listed[:10])}{' and more' if len(listed) > 10 else ''}.")

@@ -303,3 +303,41 @@ def test_an_upload_over_the_default_100_mb_is_413(client):
                     headers={"content-type": f"multipart/form-data; boundary={boundary}"})
     err = _error(r, "too_large")
     assert r.status_code == 413 and "100 MB" in err["message"]
+
+
+def test_file_coded_from_0_against_a_codebook_saying_1_to_5_is_called_out(client):
+    raw = _csv([["id", *ITEMS]] + [[i + 1, *(X[i] - 1)] for i in range(N)])
+    cb = ("cb.csv", b"item,text,construct,reverse,min,max\n"
+          + b"".join(f"{it},t,A,0,1,5\n".encode() for it in ITEMS), "text/csv")
+    body = _ok(_upload(client, raw, codebook=cb))
+    note = next(w for w in body["warnings"] if "only after a shift" in w)
+    assert "'Q1' (0-4 against 1-5)" in note and "from 0 instead of 1" in note
+    zeros = int((X - 1 == 0).sum())
+    assert any(f"{zeros} values outside the item's range were set to missing" in w for w in body["warnings"])
+
+
+@pytest.mark.parametrize("keys, expected", [
+    (["1", "1", "-1", "1", "1", "1"], [False, False, True, False, False, False]),  # +1/-1 keys
+    (["+1", "+1", "-1", "+1", "+1", "+1"], [False, False, True, False, False, False]),
+    (["0.0", "0.0", "1.0", "0.0", "0.0", "0.0"], [False, False, True, False, False, False]),  # Excel decimals
+    (["", "", "R", "", "", ""], [False, False, True, False, False, False]),
+    (["No", "no", "YES", "n", "False", "0"], [False, False, True, False, False, False]),
+])
+def test_codebook_keying_spellings(client, keys, expected):
+    header = "item,text,construct,key" if "-1" in keys else "item,text,construct,reverse"
+    cb = (header + "\n" + "".join(f"{it},t,A,{k}\n" for it, k in zip(ITEMS, keys))).encode()
+    body = _ok(_upload(client, CLEAN, codebook=("cb.csv", cb, "text/csv")))
+    assert [it["reverse"] for it in body["items"]] == expected
+
+
+def test_a_numeric_code_column_is_not_an_item(client):
+    raw = _csv([[*ITEMS, "Code"]] + [[*X[i], 5000 + 7 * i] for i in range(N)])
+    body = _ok(_upload(client, raw))
+    assert body["id_column"] == "Code" and any("'Code' was used as the respondent ID" in w for w in body["warnings"])
+    assert [it["name"] for it in body["items"]] == ITEMS
+
+
+def test_utf16_tab_separated_text_as_excel_saves_it(client, clean):
+    raw = _csv([["id", *ITEMS]] + [[i + 1, *X[i]] for i in range(N)], sep="\t", nl="\r\n").decode()
+    body = _ok(_upload(client, raw.encode("utf-16"), "pilot.txt"))
+    _same_numbers(client, body, clean)
