@@ -511,14 +511,22 @@ def _read_table(raw: bytes, filename: str, *, as_strings: bool = False):
 # codebook
 
 _CB_ALIASES = {
-    "item": {"item", "items", "itemname", "name", "variable", "var", "column", "itemid", "code"},
+    "item": {"item", "items", "itemname", "name", "variable", "var", "column", "itemid", "code", "variablename",
+             "varname", "itemcode", "itemlabel", "itemno", "itemnumber", "columnname", "questionid", "qid"},
     "text": {"text", "itemtext", "wording", "label", "statement", "question", "content", "stem"},
     "construct": {"construct", "factor", "scale", "subscale", "dimension", "domain", "facet", "trait"},
     "reverse": {"reverse", "reversed", "reversekeyed", "reversescored", "reverscoded", "reversecoded", "keyed",
                 "key", "rev"},
     "min": {"min", "minimum", "scalemin", "low", "lowest"},
     "max": {"max", "maximum", "scalemax", "high", "highest"},
+    "range": {"range", "responserange", "scalerange", "valuerange", "answerrange"},
 }
+# Header words that start a role's column name when no alias matches exactly ('Reverse scored (Y/N)').
+_CB_PREFIXES = (("itemtext", "text"), ("itemwording", "text"), ("question", "text"), ("statement", "text"),
+                ("wording", "text"), ("reverse", "reverse"), ("min", "min"), ("max", "max"), ("item", "item"),
+                ("variable", "item"), ("construct", "construct"), ("subscale", "construct"), ("range", "range"))
+_RANGE = re.compile(r"^\s*([-+]?\d+(?:[.,]\d+)?)\s*(?:-|–|—|to|\.\.|:)\s*([-+]?\d+(?:[.,]\d+)?)\s*$",
+                    re.IGNORECASE)
 _REVERSE_TRUE = {"1", "yes", "y", "true", "t", "r", "rev", "reverse", "reversed", "-", "-1", "neg", "negative"}
 _REVERSE_FALSE = {"0", "no", "n", "false", "f", "", "+", "+1", "pos", "positive", "nan", "none", "forward"}
 
@@ -545,6 +553,17 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
             if key in aliases and role not in cols:
                 cols[role] = c
                 break
+    guessed: list[str] = []
+    for c in df.columns:
+        if c in cols.values():
+            continue
+        key = _norm(c)
+        role = next((r for prefix, r in _CB_PREFIXES if key.startswith(prefix) and r not in cols), None)
+        if role is not None:
+            cols[role] = c
+            guessed.append(f"'{c}' as {role}")
+    if guessed:
+        notes.append(f"Columns of the codebook '{filename}' were matched by their names: {', '.join(guessed)}.")
     if "item" not in cols:
         raise InputError(
             f"The codebook '{filename}' has no 'item' column (found {_quote_list(df.columns, 10)}). It needs "
@@ -597,6 +616,15 @@ def read_codebook(raw: bytes, filename: str) -> Codebook:
                 f"(item '{name}'); reverse must be 1/0, yes/no, true/false, R, or keys +1/-1.", code="bad_codebook",
                 details={"file": filename, "column": cols["reverse"], "row": row, "value": rev_text})
         lo, hi = number(i, "min"), number(i, "max")
+        span = cell(i, "range")
+        if lo is None and hi is None and span:
+            m = _RANGE.match(span)
+            if m is None:
+                raise InputError(
+                    f"The codebook '{filename}' has '{span}' in column '{cols['range']}', row {row} (item "
+                    f"'{name}'); a range is written like 1-5 or 0 to 4.", code="bad_codebook",
+                    details={"file": filename, "column": cols["range"], "row": row, "value": span})
+            lo, hi = (float(g.replace(",", ".")) for g in m.groups())
         if (lo is None) != (hi is None):
             raise InputError(f"The codebook '{filename}' gives only one of min and max for item '{name}' "
                              f"(row {row}); give both or neither.", code="bad_codebook",
@@ -782,7 +810,10 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     codes = [float(c) for c in (missing_codes or [])]
 
     codebook: Codebook | None = None
-    if codebook_raw is not None and len(codebook_raw) > 0:
+    if codebook_raw is not None and len(codebook_raw) == 0:
+        raise InputError(f"The codebook '{codebook_filename or 'codebook'}' is empty.", code="empty_file",
+                         details={"file": codebook_filename or "codebook"})
+    if codebook_raw is not None:
         codebook = read_codebook(codebook_raw, codebook_filename or "codebook")
         notes.extend(codebook.warnings)
 

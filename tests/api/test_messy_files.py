@@ -341,3 +341,25 @@ def test_utf16_tab_separated_text_as_excel_saves_it(client, clean):
     raw = _csv([["id", *ITEMS]] + [[i + 1, *X[i]] for i in range(N)], sep="\t", nl="\r\n").decode()
     body = _ok(_upload(client, raw.encode("utf-16"), "pilot.txt"))
     _same_numbers(client, body, clean)
+
+
+def test_codebook_with_spreadsheet_style_headers_semicolons_and_a_range_column(client):
+    cb = ("Variable Name;Item wording;Subscale;Reverse scored (Y/N);Min value;Max value\n"
+          + "".join(f"{it};Text of {it};{'A' if j < 3 else 'B'};{'Y' if it == 'Q2' else 'N'};1;{5 if j else 7}\n"
+                    for j, it in enumerate(ITEMS))).encode()
+    body = _ok(_upload(client, CLEAN, codebook=("codebook.csv", cb, "text/csv")))
+    got = [(it["text"], it["construct"], it["reverse"], it["min"], it["max"]) for it in body["items"][:2]]
+    assert got == [("Text of Q1", "A", False, 1, 7), ("Text of Q2", "A", True, 1, 5)]
+    assert any("'Reverse scored (Y/N)' as reverse" in w for w in body["warnings"])
+    cb = b"item,text,construct,reverse,range\n" + b"".join(
+        f"{it},t,A,0,{'0 to 4' if it == 'Q1' else '1-5'}\n".encode() for it in ITEMS)
+    body = _ok(_upload(client, CLEAN, codebook=("cb.csv", cb, "text/csv")))
+    assert [(it["min"], it["max"], it["range_source"]) for it in body["items"][:2]] == [
+        (0, 4, "codebook"), (1, 5, "codebook")]
+    err = _error(_upload(client, CLEAN, codebook=("cb.csv", b"item,range\nQ1,five\n", "text/csv")), "bad_codebook")
+    assert err["details"] == {"file": "cb.csv", "column": "range", "row": 2, "value": "five"}
+
+
+def test_an_empty_codebook_file_is_refused_not_ignored(client):
+    err = _error(_upload(client, CLEAN, codebook=("codebook.csv", b"", "text/csv")), "empty_file")
+    assert err["details"] == {"file": "codebook.csv"} and "codebook 'codebook.csv' is empty" in err["message"]
