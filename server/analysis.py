@@ -146,6 +146,33 @@ def _with_item_flags(flags, R, names, *, rows, thresholds):
     return sorted(flags + extra, key=lambda f: order.get(f["item"], len(order)))
 
 
+def _active_pool_warnings(pool_warnings, R, names, correlation: str) -> list[str]:
+    """The full-pool matrix's warnings that concern the active items.
+
+    Item-level sentences about dropped items are left out; the pool's "left unsmoothed" sentence is left
+    out because the active submatrix is smoothed (and reported) here; the +-1 pairs are counted again
+    on the active submatrix. Pair counts of sparse polychoric tables still describe the whole pool.
+    """
+    from .stats.correlation import _warn_perfect
+
+    active = set(names)
+    out = []
+    for w in pool_warnings:
+        if w.startswith("Item '") and "' has fewer than" in w:
+            if w[len("Item '"):w.index("' has fewer than")] in active:
+                out.append(w)
+        elif "and was left unsmoothed" in w or " of +-1 (for example " in w:
+            continue
+        else:
+            out.append(w)
+    if correlation == "polychoric":
+        _warn_perfect(R, names, out, "polychoric correlation", "their answers are perfectly ordered together")
+    else:
+        _warn_perfect(R, names, out, "Pearson correlation", "their answers are exact linear functions of "
+                      "each other")
+    return out
+
+
 def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings):
     from .stats.correlation import smooth_to_pd, smoothing_message
     from .stats.dimensionality import factorability_summary, retention_summary
@@ -153,14 +180,16 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
 
     pool = engine.full_pool(dataset_id, s["correlation"], s["missing"])
     R = pool.corr[np.ix_(idx, idx)] * flip
+    corr_warnings = _active_pool_warnings(pool.warnings, R, names, s["correlation"])
     # the n behind this matrix: the smallest pairwise n of the cached full-pool matrix, i.e. under listwise
     # deletion the respondents who answered every pool item (not only the active ones), which is what
     # Bartlett's test, parallel analysis and the ML chi-square must use
     n_obs = _pair_n(pool.n_pair[np.ix_(idx, idx)])
-    corr_warnings = list(pool.warnings)
     R_s, min_eig, changed = smooth_to_pd(R)
     if changed:
-        corr_warnings.append(smoothing_message(R, R_s, min_eig, "eigen", label=s["correlation"], names=names))
+        corr_warnings.append(smoothing_message(R, R_s, min_eig, "eigen",
+                                               label="Pearson" if s["correlation"] == "pearson" else "polychoric",
+                                               names=names))
         R = R_s
     warnings.extend(corr_warnings)
     correlations = {"type": s["correlation"], "items": names, "matrix": R, "smoothed": bool(changed),

@@ -162,3 +162,19 @@ def test_oblimin_with_gamma_matches_statsmodels(three_factor_R, gamma):
     ours = oblimin(A, gamma=gamma)
     assert ours.converged
     assert _aligned_max_diff(ours.pattern, L_ref) < 1e-4  # statsmodels rotate_factors oblimin, 4 decimals
+
+
+def test_correlation_warnings_concern_the_active_items(client):
+    # items e and f are duplicates: the full-pool matrix warns about them, an analysis without them must not
+    rng = np.random.default_rng(1)
+    f = rng.normal(size=(200, 1))
+    X = np.clip(np.round(f @ np.full((1, 6), 0.7) + rng.normal(size=(200, 6)) * 0.7 + 3), 1, 5)
+    X[:, 5] = X[:, 4]
+    ds = _upload(client, pd.DataFrame(X, columns=list("abcdef")))
+    full = client.post(f"/api/datasets/{ds}/analysis", json={"n_factors": 1}).json()
+    assert any("'e' and 'f'" in w for w in full["correlations"]["warnings"])
+    assert not any("left unsmoothed" in w for w in full["warnings"])  # the analysis smooths, and says so
+    assert any("was smoothed" in w for w in full["correlations"]["warnings"])
+    part = client.post(f"/api/datasets/{ds}/analysis", json={"items": list("abcd"), "n_factors": 1}).json()
+    assert not any("'e'" in w or "'f'" in w for w in part["warnings"])
+    assert part["correlations"]["smoothed"] is False
