@@ -131,7 +131,8 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     }
     if with_efa:
         rows = {r["name"]: r for r in items_out}
-        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings))
+        answer.update(_factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings,
+                                       n_complete))
     answer["warnings"] = list(dict.fromkeys(warnings))
     return _plain(answer)
 
@@ -173,7 +174,7 @@ def _active_pool_warnings(pool_warnings, R, names, correlation: str) -> list[str
     return out
 
 
-def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings):
+def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnings, n_complete):
     from .stats.correlation import smooth_to_pd, smoothing_message
     from .stats.dimensionality import factorability_summary, retention_summary
     from .stats.efa import factor_analysis
@@ -185,6 +186,10 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
     # deletion the respondents who answered every pool item (not only the active ones), which is what
     # Bartlett's test, parallel analysis and the ML chi-square must use
     n_obs = _pair_n(pool.n_pair[np.ix_(idx, idx)])
+    if s["missing"] == "listwise" and n_obs < n_complete:
+        corr_warnings.append(f"Under listwise deletion the correlations and the factor sections rest on the {n_obs} "
+                             f"respondents who answered every item of the pool; the reliability sections use the "
+                             f"{n_complete} who answered every active item.")
     R_s, min_eig, changed = smooth_to_pd(R)
     if changed:
         corr_warnings.append(smoothing_message(R, R_s, min_eig, "eigen",

@@ -50,6 +50,7 @@ def test_listwise_factor_sections_use_the_n_behind_their_matrix(client):
     complete_pool = data.dropna()
     assert out["correlations"]["n"] == len(complete_pool)  # pandas dropna: rows complete on all 8 items
     assert out["reliability"]["n_complete"] == len(data[keep].dropna())  # reliability: active items only
+    assert any(f"rest on the {len(complete_pool)} respondents" in w for w in out["correlations"]["warnings"])
     chi2_ref, p_ref = calculate_bartlett_sphericity(complete_pool[keep].to_numpy())
     bart = out["factorability"]["bartlett"]
     # the analysis reports chi2 to 4 decimals
