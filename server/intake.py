@@ -658,7 +658,8 @@ def _column_kind(name: str) -> str | None:
         return "id"
     if key in NON_ITEM_NAMES:
         return "demographic"
-    if key in SCORE_NAMES:
+    if key in SCORE_NAMES or re.search(r"[_ .\-](total|sum|mean|avg|average|score|sumscore|meanscore)$",
+                                       str(name).strip().lower()):
         return "score"
     return None
 
@@ -1121,6 +1122,12 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                      "it has no variance.")
 
     n_missing = np.isnan(responses).sum(axis=0)
+    sparse = [f"'{item_cols[j]}' ({int(n_missing[j])} of {n_rows})" for j in np.flatnonzero(n_missing > n_rows / 2)]
+    if sparse:
+        notes.append(f"{_plural(len(sparse), 'item')} {'is' if len(sparse) == 1 else 'are'} missing for more than "
+                     f"half of the respondents: {', '.join(sparse[:10])}{' and more' if len(sparse) > 10 else ''}. "
+                     "Check that the column holds this item's answers (a branch of the survey, a renamed "
+                     "question); its statistics rest on the few who answered.")
 
     # ---- codebook agreement
     if codebook is not None:

@@ -363,3 +363,17 @@ def test_codebook_with_spreadsheet_style_headers_semicolons_and_a_range_column(c
 def test_an_empty_codebook_file_is_refused_not_ignored(client):
     err = _error(_upload(client, CLEAN, codebook=("codebook.csv", b"", "text/csv")), "empty_file")
     assert err["details"] == {"file": "codebook.csv"} and "codebook 'codebook.csv' is empty" in err["message"]
+
+
+def test_score_columns_by_suffix_and_mostly_missing_items(client):
+    cells = X.astype(object)
+    cells[: N - 5, 5] = ""  # Q6 answered by 5 respondents only
+    raw = _csv([["id", *ITEMS, "BEL_mean", "scale total"]]
+               + [[i + 1, *cells[i], round(X[i].mean(), 2), int(X[i].sum())] for i in range(N)])
+    body = _ok(_upload(client, raw))
+    assert [it["name"] for it in body["items"]] == ITEMS
+    w = " | ".join(body["warnings"])
+    assert "'BEL_mean' (named like a total or mean score" in w and "'scale total' (named like" in w
+    assert f"missing for more than half of the respondents: 'Q6' ({N - 5} of {N})" in w
+    for corr in ("pearson", "polychoric"):
+        _analysis(client, body["id"], corr)
