@@ -28,7 +28,8 @@ CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
 SAMPLE_BYTES = 256 * 1024
 MAX_LISTED = 5  # how many bad cells / names an error or warning lists before "and N more"
-EXTRA_NA_VALUES = ["."]  # SAS / SPSS exports write "." for system-missing
+# SAS / SPSS exports write "." for system-missing; SPSS writes "#NULL!" for it when saving to Excel.
+EXTRA_NA_VALUES = [".", "#NULL!"]
 
 # Column names (lower case, letters and digits only) that identify respondents rather than items.
 ID_NAMES = {
@@ -424,7 +425,8 @@ def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
         sheets = book.sheet_names
         grids = []
         for sheet in sheets:  # the first sheet that holds a table (a 'Read me' sheet may come first)
-            grid = pd.read_excel(book, sheet_name=sheet, header=None, dtype=object if as_strings else None)
+            grid = pd.read_excel(book, sheet_name=sheet, header=None, dtype=object if as_strings else None,
+                                 **({} if as_strings else {"na_values": EXTRA_NA_VALUES}))
             grid = grid.map(lambda v: np.nan if isinstance(v, str) and not v.strip() else v)
             grid = grid.dropna(how="all", axis=1)
             grids.append((sheet, grid))
@@ -656,7 +658,9 @@ def _column_kind(name: str) -> str | None:
     key = _norm(name)
     if key in ID_NAMES or re.search(r"(^|[ _.\-])id$", str(name).strip().lower()):
         return "id"
-    if key in NON_ITEM_NAMES:
+    if key in NON_ITEM_NAMES or re.match(
+            r"q_(recaptcha|relevantid|totalduration|ballotbox|url|language|datapolicy|unanswered|straightlining)",
+            str(name).strip().lower()):  # Qualtrics' own fields (Q_RecaptchaScore, Q_RelevantIDDuplicate)
         return "demographic"
     if key in SCORE_NAMES or re.search(r"[_ .\-](total|sum|mean|avg|average|score|sumscore|meanscore)$",
                                        str(name).strip().lower()):
@@ -918,7 +922,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             continue
         if in_codebook or (share >= 0.5 and kind is None):
             bad = np.flatnonzero(nonnull & ~isnum)
-            bad_counts[c] = len(bad)
+            if len(bad):
+                bad_counts[c] = len(bad)
             for i in bad[:MAX_LISTED]:
                 bad_cells.append({"column": c, "row": int(row_numbers[i]), "value": str(s.iat[i])})
             values[c] = num.to_numpy(dtype=np.float64, na_value=np.nan)
@@ -947,9 +952,10 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         shown = "; ".join(f"column '{b['column']}', row {b['row']}: '{b['value']}'" for b in bad_cells[:MAX_LISTED])
         total = sum(bad_counts.values())
         raise InputError(
-            f"The file '{filename}' has {_plural(total, 'non-numeric cell')} in item columns that are not "
-            f"declared missing codes ({shown}{'; ...' if total > MAX_LISTED else ''}). Fix them, or declare "
-            "them as missing codes.",
+            f"The file '{filename}' has {_plural(total, 'non-numeric cell')} in item columns "
+            f"({shown}{'; ...' if total > MAX_LISTED else ''}). Item answers must be numbers: recode these as "
+            "numbers, or empty the cells that mean 'no answer' (empty cells, NA, N/A, '.' and #NULL! are read "
+            "as missing; numeric codes such as -9 can be declared as missing codes).",
             code="non_numeric",
             details={"file": filename, "column": first["column"], "row": first["row"], "value": first["value"],
                      "cells": bad_cells[:MAX_LISTED], "counts": bad_counts})

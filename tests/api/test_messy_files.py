@@ -377,3 +377,45 @@ def test_score_columns_by_suffix_and_mostly_missing_items(client):
     assert f"missing for more than half of the respondents: 'Q6' ({N - 5} of {N})" in w
     for corr in ("pearson", "polychoric"):
         _analysis(client, body["id"], corr)
+
+
+def test_spss_and_excel_missing_marks_and_numbers_stored_as_text(client):
+    def build(wb):
+        ws = wb.active
+        ws.append(["id", *ITEMS])
+        for i in range(N):
+            row = [i + 1, *(int(v) for v in X[i])]
+            if i == 0:
+                row[1] = "."  # SAS/SPSS system-missing
+            if i == 1:
+                row[2] = "#NULL!"  # SPSS system-missing saved to Excel
+            if i == 2:
+                row[3] = f" {X[i][2]} "  # a number stored as text
+            if i == 3:
+                row[5] = "#N/A"
+            ws.append(row)
+
+    body = _ok(_upload(client, _xlsx(build), "spss.xlsx"))
+    assert [it["n_missing"] for it in body["items"]] == [1, 1, 0, 0, 1, 0]
+    cells = X.astype(object)
+    cells[1, 1] = "#NULL!"
+    body = _ok(_upload(client, _csv([["id", *ITEMS]] + [[i + 1, *cells[i]] for i in range(N)])))
+    assert [it["n_missing"] for it in body["items"]] == [0, 1, 0, 0, 0, 0]
+
+
+def test_text_answers_inside_numeric_items_are_named_with_advice_that_works(client):
+    cells = X.astype(object)
+    cells[4, 2] = "Don't know"
+    err = _error(_upload(client, _csv([["id", *ITEMS]] + [[i + 1, *cells[i]] for i in range(N)])), "non_numeric")
+    assert "column 'Q3', row 6: 'Don't know'" in err["message"] and "recode these as numbers" in err["message"]
+    assert err["details"]["counts"] == {"Q3": 1}
+
+
+def test_qualtrics_system_fields_are_not_items(client, clean):
+    head = ["StartDate", "Status", "Progress", "Duration (in seconds)", "Finished", "ResponseId",
+            "Q_RecaptchaScore", "Q_RelevantIDFraudScore"]
+    rows = [[*head, *ITEMS]] + [["2026-03-01 10:00:00", 0, 100, 300 + i, 1, f"R_{i}", 0.9, i % 3, *X[i]]
+                                for i in range(N)]
+    body = _ok(_upload(client, _csv(rows)))
+    assert body["id_column"] == "ResponseId"
+    _same_numbers(client, body, clean)
