@@ -59,8 +59,10 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
         cov, n_pair = pairwise_covariance(X_raw[complete])
         n_rel = n_complete
     else:
-        pool = engine.full_pool(dataset_id, "pearson", "pairwise")
-        cov, n_pair = pool.cov[np.ix_(idx, idx)], pool.n_pair[np.ix_(idx, idx)]
+        pool, pool_note = _pool_or_active(engine, dataset_id, "pearson", "pairwise", idx, names, X_raw)
+        cov, n_pair = pool.cov[np.ix_(pool.sel, pool.sel)], pool.n_pair[np.ix_(pool.sel, pool.sel)]
+        if pool_note:
+            warnings.append(pool_note)
         n_rel = int(answered.sum())
     cov = cov * flip
     if n_complete < len(names) + 1 and s["missing"] == "listwise":
@@ -147,6 +149,36 @@ def _with_item_flags(flags, R, names, *, rows, thresholds):
     return sorted(flags + extra, key=lambda f: order.get(f["item"], len(order)))
 
 
+class _Matrices:
+    """Covariance, pairwise n and correlation matrices with the rows/columns (``sel``) of the active items."""
+
+    def __init__(self, cov, n_pair, corr, warnings, sel):
+        self.cov, self.n_pair, self.corr, self.warnings, self.sel = cov, n_pair, corr, tuple(warnings), sel
+
+
+def _pool_or_active(engine, dataset_id, correlation, missing, idx, names, X_active):
+    """The cached full-pool matrices, or, when the full pool cannot form one, the active items' own.
+
+    A problem confined to items that are not active (two items nobody answered together, an item without
+    variance among the pool's complete rows) must not block an analysis without them. Then the matrices
+    are computed from the active items' responses (raising the same clear error if the problem is among
+    them) and a sentence says so.
+    """
+    try:
+        pool = engine.full_pool(dataset_id, correlation, missing)
+        return _Matrices(pool.cov, pool.n_pair, pool.corr, pool.warnings, idx), None
+    except InputError as exc:
+        from .stats import correlation as corrmod
+
+        X = X_active[~np.isnan(X_active).any(axis=1)] if missing == "listwise" else X_active
+        cov, n_pair = corrmod.pairwise_covariance(X)
+        make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
+        res = make(X, missing=missing, smooth=None, names=names)
+        note = (f"The {correlation} matrix of the whole item pool could not be formed ({exc.message}); this "
+                f"analysis uses the active items' own {missing} matrix, recomputed from their responses.")
+        return _Matrices(cov, n_pair, np.asarray(res.matrix, float), res.warnings, np.arange(len(names))), note
+
+
 def _active_pool_warnings(pool_warnings, R, names, correlation: str) -> list[str]:
     """The full-pool matrix's warnings that concern the active items.
 
@@ -179,13 +211,17 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
     from .stats.dimensionality import factorability_summary, retention_summary
     from .stats.efa import factor_analysis
 
-    pool = engine.full_pool(dataset_id, s["correlation"], s["missing"])
-    R = pool.corr[np.ix_(idx, idx)] * flip
+    pool, pool_note = _pool_or_active(engine, dataset_id, s["correlation"], s["missing"], idx, names,
+                                      engine.dataset(dataset_id).responses[:, idx])
+    sub = np.ix_(pool.sel, pool.sel)
+    R = pool.corr[sub] * flip
     corr_warnings = _active_pool_warnings(pool.warnings, R, names, s["correlation"])
+    if pool_note:
+        corr_warnings.append(pool_note)
     # the n behind this matrix: the smallest pairwise n of the cached full-pool matrix, i.e. under listwise
     # deletion the respondents who answered every pool item (not only the active ones), which is what
     # Bartlett's test, parallel analysis and the ML chi-square must use
-    n_obs = _pair_n(pool.n_pair[np.ix_(idx, idx)])
+    n_obs = _pair_n(pool.n_pair[sub])
     if s["missing"] == "listwise" and n_obs < n_complete:
         corr_warnings.append(f"Under listwise deletion the correlations and the factor sections rest on the {n_obs} "
                              f"respondents who answered every item of the pool; the reliability sections use the "
@@ -221,7 +257,12 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
         reverse = [n in set(s["reverse"]) for n in names]
         item_rest = [rows[n].get("item_rest_r") for n in names]
         full_pool = len(names) == len(engine.pool_items(dataset_id))
-        previous = None if full_pool else engine.reference_solution(dataset_id, s, m)
+        previous = None
+        if not full_pool and not pool_note:
+            try:
+                previous = engine.reference_solution(dataset_id, s, m)
+            except InputError:  # the full pool cannot be analysed: factors are ordered by variance instead
+                previous = None
         res = factor_analysis(R, m, n=n_obs, names=names, method=s["extraction"], rotation=s["rotation"],
                               gamma=s["gamma"], constructs=constructs, previous=previous,
                               thresholds=s["thresholds"], item_rest_r=item_rest, reverse=reverse,

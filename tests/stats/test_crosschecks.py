@@ -179,3 +179,38 @@ def test_correlation_warnings_concern_the_active_items(client):
     part = client.post(f"/api/datasets/{ds}/analysis", json={"items": list("abcd"), "n_factors": 1}).json()
     assert not any("'e'" in w or "'f'" in w for w in part["warnings"])
     assert part["correlations"]["smoothed"] is False
+
+
+def test_a_pool_problem_outside_the_active_items_does_not_block_the_analysis(client):
+    # d and e were never answered together (a planned-missing design): the whole pool cannot form a
+    # pairwise matrix, but an analysis without one of them can, and must equal pingouin on those items
+    rng = np.random.default_rng(1)
+    f = rng.normal(size=(100, 1))
+    X = np.clip(np.round(f @ np.full((1, 5), 0.7) + rng.normal(size=(100, 5)) * 0.7 + 3), 1, 5)
+    X[:50, 4] = np.nan
+    X[50:, 3] = np.nan
+    data = pd.DataFrame(X, columns=list("abcde"))
+    ds = _upload(client, data)
+    both = client.post(f"/api/datasets/{ds}/analysis", json={})
+    assert both.status_code == 422 and "'d' and 'e'" in both.json()["error"]["message"]
+    for keep in (list("abcd"), list("abce")):
+        r = client.post(f"/api/datasets/{ds}/analysis", json={"items": keep, "n_factors": 1})
+        assert r.status_code == 200, r.text
+        out = r.json()
+        assert out["reliability"]["alpha"] == pytest.approx(pg.cronbach_alpha(data[keep])[0], abs=1e-12)  # pingouin
+        R_ref = data[keep].corr().to_numpy()  # pandas pairwise Pearson
+        np.testing.assert_allclose(out["correlations"]["matrix"], R_ref, atol=1e-12)
+        assert out["efa"]["n_factors"] == 1
+        assert any("could not be formed" in w for w in out["warnings"])
+    # listwise: an item constant among the pool's complete rows blocks only analyses that include it
+    Y = X.copy()  # d missing in rows 50+; e is 3 in rows 0-49 except 2 where a is missing
+    Y[:50, 4] = 3.0
+    Y[50:, 4] = np.nan
+    Y[:5, 4] = 2.0
+    Y[:5, 0] = np.nan
+    ds2 = _upload(client, pd.DataFrame(Y, columns=list("abcde")))
+    r = client.post(f"/api/datasets/{ds2}/analysis", json={"missing": "listwise", "items": list("abcd"),
+                                                           "n_factors": 1})
+    assert r.status_code == 200, r.text
+    complete = pd.DataFrame(Y, columns=list("abcde"))[list("abcd")].dropna()
+    assert r.json()["correlations"]["n"] == len(complete)  # pandas dropna on the active items
