@@ -1,4 +1,9 @@
-"""Assemble one analysis answer from cached full-pool matrices (no raw responses on a drop)."""
+"""Assemble one analysis answer from cached full-pool matrices (no raw responses on a drop).
+
+The one exception: when the whole pool cannot form a matrix (two items never answered together, an item
+without variance among the pool's complete rows) the active items' own matrices are computed from their
+responses, so a problem confined to inactive items does not block the analysis (``_pool_or_active``).
+"""
 from __future__ import annotations
 
 import numpy as np
