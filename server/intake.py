@@ -708,13 +708,15 @@ def _numeric_mask(s: pd.Series) -> np.ndarray:
     return (num.notna() & s.notna()).to_numpy()
 
 
-def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: str, notes: list[str]
-                            ) -> tuple[pd.DataFrame, np.ndarray, dict[str, str]]:
+def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: str, notes: list[str],
+                            unnamed: set[str] = frozenset()) -> tuple[pd.DataFrame, np.ndarray, dict[str, str]]:
     """Drop the extra header rows survey platforms write under the item codes.
 
     Qualtrics-style exports put the question text in row 2 and an import-ID row ('{"ImportId":"QID1"}')
     in row 3; other tools write one row of labels. A top row (of at most three) counts as a header row
-    when, in the columns that hold numbers further down, it holds distinct text in at least 80 % of them.
+    when, in the columns that hold numbers further down, it holds distinct text in at least half of them
+    and (almost) no numbers. SurveyMonkey-style exports leave the header cells of a question's statements
+    empty (a merged cell) and name the statements in row 2: those columns take their row-2 text as name.
     Returns the frame without those rows, their file row numbers, and the question text per column
     (taken from the first such row that is not an import-ID row) to use as item wording.
     """
@@ -733,8 +735,10 @@ def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename:
     n_head = 0
     for i in range(top):
         cells = df[numeric_cols].iloc[i]
-        texts = [str(v).strip() for v, isnum in zip(cells, _numeric_mask(cells)) if pd.notna(v) and not isnum]
-        if len(texts) < 0.8 * len(numeric_cols) or len(set(texts)) < 0.8 * len(texts):
+        isnum = _numeric_mask(cells)
+        texts = [str(v).strip() for v, num in zip(cells, isnum) if pd.notna(v) and not num]
+        if (len(texts) < max(2, 0.5 * len(numeric_cols)) or isnum.sum() > 0.2 * len(texts)
+                or len(set(texts)) < 0.8 * len(texts)):
             break
         n_head = i + 1
     if n_head == 0:
@@ -757,6 +761,24 @@ def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename:
                  f"{'row' if n_head == 1 else 'rows'}, not as respondents"
                  + ("; the question text is used as item wording where the codebook gives none." if header_text
                     else "."))
+    # Merged question headers: a named column followed by unnamed ones, each with its own row-2 text.
+    rename: dict[str, str] = {}
+    cols = [str(c) for c in df.columns]
+    for j, c in enumerate(cols):
+        if c in unnamed and c in header_text:
+            rename[c] = header_text[c]
+            if j > 0 and cols[j - 1] not in unnamed and cols[j - 1] in header_text:
+                rename.setdefault(cols[j - 1], header_text[cols[j - 1]])
+    taken = set(cols) - set(rename)
+    rename = {c: rename[c] for c in cols
+              if c in rename and rename[c] not in taken and list(rename.values()).count(rename[c]) == 1}
+    if rename:
+        shown = "; ".join(f"'{c}' -> '{t}'" for c, t in list(rename.items())[:MAX_LISTED])
+        notes.append(f"{_plural(len(rename), 'column')} under a shared (merged) question header took "
+                     f"{'its name' if len(rename) == 1 else 'their names'} from row {skipped[0]}: {shown}"
+                     f"{' and more' if len(rename) > MAX_LISTED else ''}.")
+        df = df.rename(columns=rename)
+        header_text = {rename.get(c, c): t for c, t in header_text.items()}
     df = df.iloc[n_head:].reset_index(drop=True)
     for c in df.columns:  # the text rows made these columns text; read the answers as numbers again
         if df[c].dtype == object:
@@ -824,7 +846,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
 
     df, row_numbers, read_notes, info = _read_table(raw, filename)
     notes.extend(read_notes)
-    df, row_numbers, header_text = _skip_extra_header_rows(df, row_numbers, filename, notes)
+    df, row_numbers, header_text = _skip_extra_header_rows(df, row_numbers, filename, notes,
+                                                           set(info.get("unnamed", ())))
     columns = [str(c) for c in df.columns]
     unnamed = set(info.get("unnamed", ()))
 

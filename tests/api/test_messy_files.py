@@ -419,3 +419,19 @@ def test_qualtrics_system_fields_are_not_items(client, clean):
     body = _ok(_upload(client, _csv(rows)))
     assert body["id_column"] == "ResponseId"
     _same_numbers(client, body, clean)
+
+
+def test_surveymonkey_style_merged_question_header(client, clean):
+    statements = [f"I feel part of group {j}" for j in range(6)]
+    rows = [["Respondent ID", "Collector ID", "Start Date", '"How much do you agree with each statement?"',
+             "", "", "", "", ""], ["", "", "", *statements]]
+    rows += [[11400000 + 13 * i, 4000, "03/01/2026 10:00:00", *X[i]] for i in range(N)]
+    body = _ok(_upload(client, _csv(rows), "monkey.csv"))
+    assert [it["name"] for it in body["items"]] == statements and body["id_column"] == "Respondent ID"
+    note = next(w for w in body["warnings"] if "merged" in w)
+    assert note.startswith("6 columns under a shared (merged) question header took their names from row 2: "
+                           "'How much do you agree with each statement?' -> 'I feel part of group 0'; "
+                           "'column 5' -> 'I feel part of group 1'")
+    for corr in ("pearson", "polychoric"):
+        got = _analysis(client, body["id"], corr)
+        assert got["reliability"]["alpha"] == pytest.approx(clean[corr]["reliability"]["alpha"], abs=1e-12)
