@@ -63,6 +63,12 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
 
         cov, n_pair = pairwise_covariance(X_raw[complete])
         n_rel = n_complete
+        flat = [n for n, v in zip(names, np.diag(cov)) if not v > 0] if n_complete >= 2 else []
+        if flat:
+            raise InputError(f"Item '{flat[0]}' has no variance among the {n_complete} respondents who answered every "
+                             f"active item (listwise deletion); leave it out or use pairwise deletion.",
+                             code="no_variance", details={"item": flat[0], "respondents": n_complete,
+                                                          "missing": "listwise"})
     else:
         pool, pool_note = _pool_or_active(engine, dataset_id, "pearson", "pairwise", idx, names, X_raw)
         cov, n_pair = pool.cov[np.ix_(pool.sel, pool.sel)], pool.n_pair[np.ix_(pool.sel, pool.sel)]

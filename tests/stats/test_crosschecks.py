@@ -214,3 +214,14 @@ def test_a_pool_problem_outside_the_active_items_does_not_block_the_analysis(cli
     assert r.status_code == 200, r.text
     complete = pd.DataFrame(Y, columns=list("abcde"))[list("abcd")].dropna()
     assert r.json()["correlations"]["n"] == len(complete)  # pandas dropna on the active items
+
+
+def test_listwise_no_variance_message_says_among_whom(client):
+    # 'c' varies over all respondents but not among those who answered every item
+    data = pd.DataFrame({"a": [1, 2, 3, 4, 5, 2, None, None], "b": [2, 2, 3, 5, 4, 1, 3, 4],
+                         "c": [3, 3, 3, 3, 3, 3, 1, 5]})
+    ds = _upload(client, data)
+    r = client.post(f"/api/datasets/{ds}/analysis", json={"missing": "listwise"})
+    assert r.status_code == 422
+    err = r.json()["error"]
+    assert err["code"] == "no_variance" and "'c'" in err["message"] and "6 respondents" in err["message"]
