@@ -479,8 +479,38 @@ def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
     if len(names) < 2 and not as_strings:
         raise InputError(f"The file '{filename}' is not a table: its sheet '{sheet}' has a single column.",
                          code="not_a_table", details={"file": filename})
-    return body, row_numbers, notes, {"format": "xlsx", "sheet": sheet,
+    formulas = []
+    if not as_strings and len(body):
+        empty = [j for j in range(len(names)) if body.iloc[:, j].isna().all()]
+        formulas = _formula_columns(raw, sheet, first, [int(grid.columns[j]) for j in empty], len(grid))
+        formulas = [names[empty[i]] for i in formulas]
+    return body, row_numbers, notes, {"format": "xlsx", "sheet": sheet, "formula_columns": formulas,
                                       "unnamed": [names[j] for j in _unnamed(header)]}
+
+
+def _formula_columns(raw: bytes, sheet: str, header_row: int, columns: list[int], n_rows: int) -> list[int]:
+    """Which of these (0-based) sheet columns hold formulas whose results were never saved.
+
+    A workbook written by a script (not saved by a spreadsheet program) keeps formulas without their
+    values; the reader then sees empty cells. Returns positions into ``columns``.
+    """
+    if not columns:
+        return []
+    try:
+        import openpyxl
+
+        wb = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=False)
+        ws = wb[sheet]
+        found = set()
+        for row in ws.iter_rows(min_row=header_row + 2, max_row=min(n_rows, header_row + 51), values_only=True):
+            for i, col in enumerate(columns):
+                v = row[col] if col < len(row) else None
+                if isinstance(v, str) and v.startswith("="):
+                    found.add(i)
+        wb.close()
+        return sorted(found)
+    except Exception:  # only a better message is at stake
+        return []
 
 
 def _cell_text(v) -> str:
@@ -850,6 +880,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                                                            set(info.get("unnamed", ())))
     columns = [str(c) for c in df.columns]
     unnamed = set(info.get("unnamed", ()))
+    formula_cols = set(info.get("formula_columns", ()))
 
     # Codebook names are matched exactly, then ignoring case.
     cb_for: dict[str, CodebookEntry] = {}
@@ -892,7 +923,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         s = df[c]
         in_codebook = c in cb_for
         if s.isna().all():
-            left_out.append((c, "empty"))
+            left_out.append((c, "formulas whose results were never saved: open and save the workbook in a "
+                                "spreadsheet program, or paste the values" if c in formula_cols else "empty"))
             continue
         if pd.api.types.is_bool_dtype(s.dtype):
             left_out.append((c, "true/false values"))
