@@ -251,10 +251,10 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
     factorability = retention = None
     efa: dict = {"n_factors": 0, "flags": [], "warnings": []}
     try:
-        factorability = _plain(factorability_summary(R, n_obs, names=names))
-        if n_obs <= k:
+        if n_obs <= k:  # R is then singular (rank below k): Bartlett and KMO would be meaningless too
             raise InputError(f"A factor analysis needs more respondents than items (n = {n_obs}, k = {k}); "
                              f"only the reliability sections are shown.", code="too_few_rows")
+        factorability = _plain(factorability_summary(R, n_obs, names=names))
         if k < 3:
             raise InputError("A factor analysis needs at least 3 active items.", code="too_few_items")
         retention = _plain(retention_summary(R, n_obs, iterations=s["pa_iterations"], seed=s["seed"],

@@ -225,3 +225,15 @@ def test_listwise_no_variance_message_says_among_whom(client):
     assert r.status_code == 422
     err = r.json()["error"]
     assert err["code"] == "no_variance" and "'c'" in err["message"] and "6 respondents" in err["message"]
+
+
+def test_no_factorability_numbers_when_respondents_do_not_exceed_items(client):
+    # 5 respondents, 6 items: the correlation matrix has rank at most 4 (numpy matrix_rank), so Bartlett's
+    # chi-square (its multiplier n - 1 - (2k + 5)/6 is even negative here) and KMO are not reported
+    rng = np.random.default_rng(2)
+    data = pd.DataFrame(rng.integers(1, 6, size=(5, 6)).astype(float), columns=list("abcdef"))
+    assert np.linalg.matrix_rank(np.corrcoef(data.to_numpy(), rowvar=False)) <= 4  # numpy
+    out = client.post(f"/api/datasets/{_upload(client, data)}/analysis", json={}).json()
+    assert out["factorability"] is None
+    assert any("more respondents than items" in w for w in out["warnings"])
+    assert out["reliability"]["alpha"] == pytest.approx(pg.cronbach_alpha(data)[0], abs=1e-12)  # pingouin
