@@ -509,7 +509,7 @@ def _formula_columns(raw: bytes, sheet: str, header_row: int, columns: list[int]
                     found.add(i)
         wb.close()
         return sorted(found)
-    except Exception:  # only a better message is at stake
+    except Exception:  # noqa: BLE001  (only a better message is at stake)
         return []
 
 
