@@ -867,10 +867,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     codes = [float(c) for c in (missing_codes or [])]
 
     codebook: Codebook | None = None
-    if codebook_raw is not None and len(codebook_raw) == 0:
-        raise InputError(f"The codebook '{codebook_filename or 'codebook'}' is empty.", code="empty_file",
-                         details={"file": codebook_filename or "codebook"})
-    if codebook_raw is not None:
+    if codebook_raw is not None and len(codebook_raw) > 0:
         codebook = read_codebook(codebook_raw, codebook_filename or "codebook")
         notes.extend(codebook.warnings)
 

@@ -163,6 +163,8 @@ async def upload_dataset(request: Request):
         raw, filename = upload
         codebook = await _file_field(form, "codebook", limit)
         cb_raw, cb_name = codebook if codebook else (None, None)
+        if cb_raw is not None and not cb_raw.strip():  # a chosen but empty codebook is refused, not ignored
+            raise ApiError(422, "empty_file", f"The codebook '{cb_name}' is empty.", {"file": cb_name})
         if len(raw) + len(cb_raw or b"") > limit:
             raise _too_large(limit)
         options = {
