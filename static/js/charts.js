@@ -37,10 +37,22 @@ const plotlyReady = window.Plotly ? Promise.resolve(true) : new Promise((resolve
   setTimeout(() => resolve(Boolean(window.Plotly)), 15000);
 });
 
+// Axis titles and tick labels get the room they need (they overlapped at projector size).
+function withRoom(layout) {
+  for (const key of Object.keys(layout)) {
+    if (/^[xy]axis\d*$/.test(key)) {
+      const ax = layout[key];
+      layout[key] = { automargin: true, ...ax };
+      if (ax.title && typeof ax.title === "object" && ax.title.standoff == null) layout[key].title = { standoff: 8, ...ax.title };
+    }
+  }
+  return layout;
+}
+
 async function draw(el, traces, layout) {
   if (!window.Plotly && !(await plotlyReady)) { el.textContent = "The chart library did not load."; return; }
   if (!el.isConnected) return;
-  await Plotly.react(el, traces, layout, config);
+  await Plotly.react(el, traces, withRoom(layout), config);
 }
 
 export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
@@ -128,12 +140,17 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
   const shapes = alpha == null ? [] : [{ type: "line", xref: "paper", x0: 0, x1: 1, y0: alpha, y1: alpha,
     line: { color: INK, width: 2, dash: "dash" } }];
   const annotations = alpha == null ? [] : [{ xref: "paper", x: 1, y: alpha, yanchor: "bottom", xanchor: "right",
-    text: `current alpha ${alpha.toFixed(3)}`, showarrow: false, font: { color: INK } }];
+    text: `current alpha ${alpha.toFixed(3).replace(/^0\./, ".")}`, showarrow: false, font: { color: INK } }];
+  const ys = items.map((it) => it.alpha_if_deleted).filter((v) => v != null).concat(alpha == null ? [] : [alpha]);
+  const lo = Math.min(...ys);
+  const hi = Math.max(...ys);
+  const pad = Math.max((hi - lo) * 0.12, 0.002);
   const layout = base({
     title: { text: "Alpha if each item is dropped (above the line: the scale is better without it)", x: 0,
       font: { size: fontSize() + 1 } },
     height: 320, shapes, annotations, showlegend: false,
-    xaxis: { tickangle: -45, gridcolor: GRID }, yaxis: { title: { text: "alpha" }, gridcolor: GRID, tickformat: ".3f" },
+    xaxis: { tickangle: -45, gridcolor: GRID },
+    yaxis: { title: { text: "alpha without the item" }, gridcolor: GRID, tickformat: ".3f", range: ys.length ? [lo - pad, hi + pad] : undefined },
   });
   return draw(el, [trace], layout).then(() => {
     if (window.Plotly) onPoint(el, onPick && ((pt) => onPick(items[pt.pointIndex]?.name)));
@@ -146,7 +163,7 @@ export function pruningPath(el, { path }) {
   const label = path.map((p) => (p.removed ? `after dropping ${esc(p.removed)}` : "current set"));
   const alpha = { type: "scatter", mode: "lines+markers+text", name: "alpha", x, y: path.map((p) => p.alpha),
     text: path.map((p) => (p.removed ? `−${esc(p.removed)}` : "")), textposition: "top center",
-    textfont: { size: fontSize() - 2, color: MUTED },
+    textfont: { size: fontSize() - 2, color: MUTED }, cliponaxis: false,
     customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
     hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
   const omega = { type: "scatter", mode: "lines+markers", name: "omega (total)", x, y: path.map((p) => p.omega_total),
@@ -154,7 +171,8 @@ export function pruningPath(el, { path }) {
     hovertemplate: "%{x} items (%{customdata}): omega %{y:.3f}<extra></extra>" };
   const layout = base({
     title: { text: "Pruning path: dropping the item that costs least, one at a time", x: 0, font: { size: fontSize() + 1 } },
-    height: 320, legend: { orientation: "h", y: -0.25 },
+    height: 340, legend: { orientation: "h", x: 1, xanchor: "right", y: 1.02, yanchor: "bottom" },
+    margin: { l: 60, r: 20, t: 64, b: 48 },
     xaxis: { title: { text: "items kept" }, range: [Math.max(...x) + 0.5, Math.min(...x) - 0.5], dtick: 1, gridcolor: GRID },
     yaxis: { title: { text: "coefficient" }, gridcolor: GRID, tickformat: ".2f" },
   });
@@ -172,12 +190,18 @@ export function scree(el, { observed, threshold, suggested, chosen }) {
       line: { color: WARM, width: 2, dash: "dash" }, hovertemplate: "random %{x}: %{y:.3f}<extra></extra>" });
   }
   const shapes = [];
-  if (chosen) shapes.push({ type: "line", x0: chosen + 0.5, x1: chosen + 0.5, yref: "paper", y0: 0, y1: 1,
-    line: { color: MUTED, width: 1, dash: "dot" } });
+  const annotations = [];
+  if (chosen) {
+    shapes.push({ type: "line", x0: chosen + 0.5, x1: chosen + 0.5, yref: "paper", y0: 0, y1: 1, line: { color: MUTED, width: 1, dash: "dot" } });
+    annotations.push({ x: chosen + 0.5, xanchor: "left", yref: "paper", y: 1, yanchor: "top", showarrow: false,
+      text: ` ${chosen} extracted`, font: { color: MUTED, size: fontSize() - 1 } });
+  }
   const layout = base({
     title: { text: `Scree against parallel analysis (suggests ${suggested ?? "?"})`, x: 0, font: { size: fontSize() + 1 } },
-    height: 340, shapes, legend: { orientation: "h", y: -0.2 },
-    xaxis: { title: { text: "factor" }, dtick: 1, gridcolor: GRID }, yaxis: { title: { text: "eigenvalue" }, gridcolor: GRID },
+    height: 360, shapes, annotations, legend: { orientation: "h", x: 0, y: 1.02, yanchor: "bottom" },
+    margin: { l: 60, r: 20, t: 70, b: 48 },
+    xaxis: { title: { text: "factor" }, dtick: x.length > 30 ? 5 : 1, range: [0.5, x.length + 0.5], gridcolor: GRID },
+    yaxis: { title: { text: "eigenvalue" }, gridcolor: GRID, rangemode: "tozero" },
   });
   return draw(el, traces, layout);
 }
@@ -189,9 +213,10 @@ export function mapCurve(el, { values: all, best }) {
     marker: { size: x.map((i) => (i === best ? 13 : 7)), color: x.map((i) => (i === best ? WARM : OMEGA)) },
     hovertemplate: "%{x} factors partialled out: %{y:.4f}<extra></extra>" };
   const layout = base({
-    title: { text: `Velicer's MAP (lowest at ${best ?? "?"})`, x: 0, font: { size: fontSize() + 1 } }, height: 260,
+    title: { text: `Velicer's MAP (lowest at ${best ?? "?"})`, x: 0, font: { size: fontSize() + 1 } }, height: 360,
+    margin: { l: 60, r: 20, t: 70, b: 48 },
     xaxis: { title: { text: "factors partialled out" }, dtick: 1, gridcolor: GRID, range: [-0.3, values.length - 0.7] },
-    yaxis: { title: { text: "avg. squared partial r" }, gridcolor: GRID },
+    yaxis: { title: { text: "mean squared partial r" }, gridcolor: GRID, rangemode: "tozero" },
   });
   return draw(el, [trace], layout);
 }

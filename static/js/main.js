@@ -1,7 +1,7 @@
 // Wiring: load the state from the URL, run the refit queue, route between views, live collaboration.
 import { api } from "./api.js";
 import {
-  DEFAULT_SETTINGS, VIEWS, actions, allItems, analysisRequest, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
+  DEFAULT_SETTINGS, VIEWS, actions, allItems, analysisRequest, keptItems, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
   shared, state, undo, writeUrl,
 } from "./state.js";
 import { clear, fmt, h } from "./views/dom.js";
@@ -43,6 +43,7 @@ function renderTabs() {
 }
 
 function renderSummary() {
+  hideFollowIfSame();
   const box = clear($("#summary"));
   const a = state.analysis;
   const p = state.previous;
@@ -87,12 +88,19 @@ function renderView() {
   renderTabs();
   const view = views[state.view] || startView;
   const el = main();
+  // A re-render (after every refit) must not throw the keyboard user out of the control they are using.
+  const active = document.activeElement;
+  const keepFocus = active && active.id && el.contains(active) ? active.id : null;
   el.setAttribute("aria-labelledby", `tab-${state.view}`);
   if (NEEDS_ANALYSIS.has(state.view) && !state.analysis) {
     clear(el).append(h("p", { class: "note", text: state.error ? state.error.message : "Computing…" }));
     return;
   }
   view.render(el, state);
+  if (keepFocus && !el.contains(document.activeElement)) {
+    const again = document.getElementById(keepFocus);
+    if (again && el.contains(again)) again.focus({ preventScroll: true });
+  }
 }
 
 function renderAll() {
@@ -135,7 +143,7 @@ async function runRefit() {
       const alpha = answer?.reliability?.alpha;
       for (const it of answer?.items || []) {
         state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
-        state.lastRows[it.name] = { alpha_if_deleted: it.alpha_if_deleted, alpha, item_rest_r: it.item_rest_r };
+        state.lastRows[it.name] = { ...it, alpha }; // also keeps a dropped row in its place on a sorted board
       }
     }
   } catch (e) {
@@ -158,8 +166,10 @@ async function runRefit() {
 function changed(action, detail, { push = false } = {}) {
   writeUrl(push);
   renderSummary();
-  // The board and settings show the change at once; charts wait for the new analysis (no stale redraw).
-  if (!NEEDS_ANALYSIS.has(state.view) || state.view === "board") renderView();
+  // The board shows the change at once; charts wait for the new analysis (no stale redraw). The settings
+  // form already shows what was just changed: redrawing it now would pull the control from under the
+  // keyboard (a Tab out of a threshold lost the focus); it is redrawn when the refit arrives.
+  if (state.view === "board" || (!NEEDS_ANALYSIS.has(state.view) && state.view !== "settings")) renderView();
   refit();
   if (action) broadcast(action, detail);
 }
@@ -195,7 +205,7 @@ Object.assign(actions, {
     const i = state.dropped.indexOf(name);
     if (i >= 0) state.dropped.splice(i, 1); else state.dropped.push(name);
     timings.clickAt = performance.now();
-    changed(i >= 0 ? "restore" : "drop", name);
+    changed(i >= 0 ? "restore" : "drop", `${i >= 0 ? "restored" : "dropped"} ${name}`);
   },
   undo() { if (undo()) changed("undo", "undid the last change"); },
   redo() { if (redo()) changed("redo", "redid a change"); },
@@ -205,21 +215,22 @@ Object.assign(actions, {
   },
   filter(part) { Object.assign(state.filter, part); renderView(); },
   setStructure(on) { state.structure = on; renderView(); },
-  setSetting(key, value) { remember(); state.settings[key] = value; changed("settings", `${key}: ${value ?? "auto"}`); },
+  setSetting(key, value) { remember(); state.settings[key] = value; changed("settings", settingText(key, value)); },
   setThreshold(key, value) {
     remember();
     if (value == null) delete state.thresholds[key]; else state.thresholds[key] = value;
-    changed("settings", `threshold ${key}: ${value ?? "default"}`);
+    const label = settingsView.thresholdLabel(key);
+    changed("settings", value == null ? `set “${label}” back to its default` : `set “${label}” to ${value}`);
   },
-  resetThresholds() { remember(); state.thresholds = {}; changed("settings", "thresholds back to defaults"); },
+  resetThresholds() { remember(); state.thresholds = {}; changed("settings", "set every flag threshold back to its default"); },
   toggleReverse(name) {
     remember();
     const current = new Set(state.reverse ?? state.meta.items.filter((it) => it.reverse).map((it) => it.name));
     if (current.has(name)) current.delete(name); else current.add(name);
     state.reverse = allItems().filter((n) => current.has(n));
-    changed("settings", `reverse-keyed: ${name}`);
+    changed("settings", current.has(name) ? `scored ${name} reversed` : `scored ${name} as answered (not reversed)`);
   },
-  resetReverse() { remember(); state.reverse = null; changed("settings", "reverse-keyed items from the codebook"); },
+  resetReverse() { remember(); state.reverse = null; changed("settings", "set the reverse-keyed items back to the codebook"); },
   async restoreSnapshot(id) {
     try {
       const r = await api.restoreSnapshot(id);
@@ -235,7 +246,8 @@ Object.assign(actions, {
         thresholds: s.thresholds || {}, settings });
       state.view = "board";
       state.parentSnapshot = { id: r.snapshot_id || id, name: r.name || id };
-      changed("restore-snapshot", `restored snapshot ${r.name || id}`, { push: true });
+      changed("restore-snapshot", `restored snapshot “${r.name || id}”`, { push: true });
+      toast(`Restored “${r.name || id}”: ${keptItems().length} items kept, ${state.dropped.length} dropped.`);
     } catch (e) {
       toast(`Could not restore: ${e.message}`);
     }
@@ -301,6 +313,7 @@ function connectLive() {
     if (msg.sender && msg.sender === state.live.listener) return; // our own echo
     const s = msg.state || {};
     if (["drop", "restore", "undo", "redo", "settings", "restore-snapshot"].includes(msg.action) && s.dropped) {
+      $("#follow").hidden = true; // the page now follows the team; an older offer is stale
       remember();
       const known = new Set(allItems());
       applyShared({ ...s, dropped: (s.dropped || []).filter((n) => known.has(n)) });
@@ -309,13 +322,33 @@ function connectLive() {
       refit({ immediate: true });
     }
     const who = msg.who || "Someone";
-    const text = `${who}: ${msg.detail || msg.action}`;
+    const text = changeText(who, msg);
     state.live.feed.unshift({ text, at: msg.at });
     state.live.feed = state.live.feed.slice(0, 30);
     toast(text);
     renderLive();
   });
   source.onerror = () => { document.body.dataset.live = "off"; renderLive(); };
+}
+
+// "Ana dropped O8", "Ben set correlation to polychoric": what teammates read in the toast and the feed.
+const SETTING_NAMES = { correlation: "correlation", extraction: "extraction", rotation: "rotation", missing: "missing answers",
+  n_factors: "number of factors" };
+function settingText(key, value) {
+  const shown = value == null ? "automatic" : settingsView.optionLabel(key, value);
+  return `set ${SETTING_NAMES[key] || key} to ${shown}`;
+}
+function changeText(who, msg) {
+  const d = String(msg.detail || "").trim();
+  const verbs = /^(dropped|restored|undid|redid|set|scored|saved)\b/;
+  if (!d) return `${who}: ${msg.action}`;
+  return verbs.test(d) ? `${who} ${d}` : `${who}: ${d}`;
+}
+
+let offered = null; // the shared state the follow bar offers
+function hideFollowIfSame() {
+  const bar = $("#follow");
+  if (!bar.hidden && offered && sameShared(offered, shared())) bar.hidden = true;
 }
 
 const sameShared = (a, b) => JSON.stringify(normalise(a)) === JSON.stringify(normalise(b));
@@ -328,9 +361,11 @@ function normalise(s) {
 function offerToFollow(last) {
   const bar = clear($("#follow"));
   bar.hidden = true;
+  offered = null;
   if (!last || !last.state || !Array.isArray(last.state.dropped) || sameShared(last.state, shared())) return;
+  offered = last.state;
   const n = last.state.dropped.length;
-  bar.append(h("span", { text: `${last.who || "Someone"} is working on this dataset (${(last.at || "").slice(11, 16)} UTC): ${n} item${n === 1 ? "" : "s"} dropped${last.detail ? `, last: ${last.detail}` : ""}. ` }),
+  bar.append(h("span", { text: `${last.who || "Someone"} is working on this dataset (${(last.at || "").slice(11, 16)} UTC): ${n} item${n === 1 ? "" : "s"} dropped${last.detail ? `; last change: ${last.detail}` : ""}. ` }),
     h("button", { class: "primary", id: "follow-team", text: "Follow the team", onclick: () => {
       bar.hidden = true;
       remember();

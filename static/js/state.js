@@ -23,7 +23,7 @@ export const state = {
   pending: false,         // a refit is queued or running
   error: null,            // last analysis error (ApiError)
   lastFlags: {},          // item -> flags seen the last time it was active (for snapshot reasons)
-  lastRows: {},           // item -> {alpha_if_deleted, alpha, item_rest_r} the last time it was active
+  lastRows: {},           // item -> its board row (+ the alpha of the set) the last time it was active
   structure: false,       // loadings heatmap shows structure instead of pattern
   sort: { key: "order", dir: 1 },
   filter: { construct: "", flag: "" },

@@ -42,7 +42,7 @@ def test_stability_area_shows_scatter_bland_altman_and_icc(page, server, demo, r
     page.click("#run-agreement")
     page.wait_for_selector("table.agreement")
     first_row = page.locator("table.agreement tbody tr").first.inner_text()
-    assert ".800" in first_row  # 8 of 10 units agree (the invented example)
+    assert "80.0% (8 of 10 units)" in first_row  # 8 of 10 units agree (the invented example); a share, shown as one
     assert "Cohen" in page.inner_text("table.agreement")
     assert page.errors == []
 
@@ -67,7 +67,8 @@ def test_snapshots_compare_and_restore(page, server, demo):
     row_b.get_by_role("button", name="Compare").click()
     page.wait_for_selector("#comparison")
     text = page.inner_text("#comparison")
-    assert "Items removed: W3" in text
+    assert "items removed W3" in text  # from the older snapshot A to the newer B
+    assert "B: without C7 and W3" in page.inner_text("#comparison table.compare-coefficients thead")  # named columns, not "First/Second"
     row_b = page.locator("table.snapshots tbody tr", has_text="B: without C7 and W3")
     before = fitted_marker(page)
     row_b.get_by_role("button", name="Restore").click()
@@ -136,8 +137,10 @@ def test_projector_mode_makes_the_text_larger(page, server, demo):
 def test_flag_message_shows_on_focus(page, server, demo):
     open_dataset(page, server, demo["id"], view="board")
     flag = page.locator("#item-board .flag").first
-    message = flag.get_attribute("title")
+    message = flag.get_attribute("data-tip")
     assert message and len(message) > len(flag.inner_text())  # short word, full sentence on hover/focus
+    assert flag.get_attribute("title") is None  # one explanation, not the browser's tooltip on top of ours
+    assert message in flag.get_attribute("aria-label")
     flag.focus()
     shown = page.evaluate("getComputedStyle(document.activeElement, '::after').content")
     assert message in shown

@@ -44,7 +44,12 @@ function sortValue(key, name, row, flags, order) {
     case "construct": return itemMeta(name)?.construct || "";
     case "flags": return -(flags[name]?.length || 0);
     case "order": return order;
-    default: return row ? row[key] ?? -Infinity : Infinity;
+    default: {
+      // A dropped item keeps the value it had when it was last active, so it stays where it was on a sorted
+      // board instead of jumping to the end (and taking the keyboard focus with it).
+      const r = row || state.lastRows[name];
+      return r ? r[key] ?? -Infinity : Infinity;
+    }
   }
 }
 
@@ -98,8 +103,8 @@ export function render(container) {
       text: kept && r ? fmt(r.alpha_if_deleted, 3) : "—" }),
     h("td", { class: "num", text: kept && r ? `${pct(r.floor)} / ${pct(r.ceiling)}` : "—" }),
     h("td", {}, kept && r ? distBar(r) : null),
-    h("td", { class: "flags" }, itemFlags.map((f) => h("span", { class: `flag ${f.kind}`, tabindex: 0, title: f.message,
-      "aria-label": f.message, dataset: { tip: f.message }, text: flagWord(f.kind) }))));
+    h("td", { class: "flags" }, itemFlags.map((f) => h("span", { class: `flag ${f.kind}`, tabindex: 0, role: "note",
+      "aria-label": `${flagWord(f.kind)}: ${f.message}`, dataset: { tip: f.message }, text: flagWord(f.kind) }))));
     tr.addEventListener("keydown", (e) => onKey(e, n, tr));
     tr.addEventListener("focus", () => { focusName = n; });
     tbody.append(tr);
@@ -113,7 +118,7 @@ export function render(container) {
       ["dropped", "dropped items"]], state.filter.flag, (v) => actions.filter({ flag: v }), { id: "filter-flag" })),
     h("span", { class: "muted keys", text: "Keys: ↑/↓ move · D or Space drops/restores · Ctrl+Z undo · Ctrl+Y redo" })));
   if (!names.length) container.append(note("No item matches this filter."));
-  container.append(h("div", { class: "table-wrap" }, h("table", { class: "board", id: "item-board" },
+  container.append(h("div", { class: "table-wrap board-wrap" }, h("table", { class: "board", id: "item-board" },
     h("thead", {}, h("tr", {},
       h("th", { scope: "col", text: "" }), head("Item", "name"), head("Wording", "order", "Pool order"), head("Construct", "construct"),
       head("Item-rest r", "item_rest_r", "Corrected item-total correlation"),

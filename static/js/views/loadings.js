@@ -2,6 +2,7 @@
 import { factorCorrelations, loadingsHeatmap } from "../charts.js";
 import { actions, itemMeta, state } from "../state.js";
 import { flagWord, flagsByItem } from "./board.js";
+import { optionLabel } from "./settings.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
 
 function asMatrix(obj, items) {
@@ -72,7 +73,8 @@ export function render(container) {
     side.append(h("ul", { class: "plain" }, lows.map(([n, c]) => h("li", { text: `${n}: ${fmt(c, 2)}` }))));
   }
   const fit = efa.fit || {};
-  const fitText = [efa.extraction || state.settings.extraction, efa.rotation || state.settings.rotation,
+  const fitText = [optionLabel("extraction", efa.extraction || state.settings.extraction),
+    `${optionLabel("rotation", efa.rotation || state.settings.rotation)} rotation`,
     fit.rmsr != null ? `RMSR ${fmt(fit.rmsr, 3)}` : null, fit.rmsea != null ? `RMSEA ${fmt(fit.rmsea, 3)}` : null,
     fit.tli != null ? `TLI ${fmt(fit.tli, 3)}` : null, efa.converged === false ? "did not converge" : null].filter(Boolean).join(" · ");
 

@@ -1,6 +1,6 @@
 // Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
 import { api } from "../api.js";
-import { actions, analysisRequest, keptItems, state } from "../state.js";
+import { actions, analysisRequest, itemMeta, keptItems, state } from "../state.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
 import { lastStability } from "./stability.js";
 
@@ -14,9 +14,15 @@ let compareWith = null;
 let comparison = null;
 let message = null;
 
+// Every flag message ends with the same caution; in a reason it is noise (the report says it once).
+const CAUTION = /\s*These thresholds are heuristics, not tests\.\s*/g;
+
 export function defaultReason(item) {
   const flags = state.lastFlags[item] || [];
-  if (flags.length) return { reason: flags.map((f) => f.message).join(" "), code: CODE_OF_FLAG[flags[0].kind] || "other" };
+  if (flags.length) {
+    return { reason: flags.map((f) => String(f.message || "").replace(CAUTION, " ").trim()).join(" "),
+      code: CODE_OF_FLAG[flags[0].kind] || "other" };
+  }
   const row = state.lastRows[item];
   if (row && row.alpha != null && row.alpha_if_deleted != null && row.alpha_if_deleted > row.alpha) {
     return { reason: `Alpha rose without it (from ${fmt(row.alpha)} to ${fmt(row.alpha_if_deleted)}).`, code: "" };
@@ -38,7 +44,7 @@ async function learnUnseen() {
     for (const it of answer?.items || []) {
       if (!unseen.includes(it.name)) continue;
       state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
-      state.lastRows[it.name] = { alpha_if_deleted: it.alpha_if_deleted, alpha, item_rest_r: it.item_rest_r };
+      state.lastRows[it.name] = { ...it, alpha };
     }
   } catch { /* the reasons stay empty; the team types them */ }
 }
@@ -50,12 +56,18 @@ export async function openDialog() {
   const removed = [...state.dropped];
   body.append(h("p", { text: `${keptItems().length} items kept, ${removed.length} removed. Give each removal a reason: it goes into the record and the report.` }));
   const list = h("ol", { class: "reasons" });
+  const fit = (ta) => { ta.style.height = "auto"; ta.style.height = `${Math.min(ta.scrollHeight + 2, 200)}px`; };
+  const areas = [];
   for (const item of removed) {
     const d = defaultReason(item);
+    const area = h("textarea", { class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, rows: 2,
+      dataset: { item }, placeholder: "Why it goes (required)", "aria-label": `Reason for removing ${item}`,
+      oninput: (e) => fit(e.target) });
+    areas.push(area);
     list.append(h("li", {},
-      h("label", { class: "reason" }, h("strong", { text: item }),
-        h("textarea", { class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, rows: 2,
-          dataset: { item }, placeholder: "Why it goes (required)", "aria-label": `Reason for removing ${item}` }),
+      h("label", { class: "reason" }, h("span", { class: "reason-item" }, h("strong", { text: item }),
+        h("span", { class: "muted wording", text: itemMeta(item)?.text || "" })),
+        area,
         h("select", { class: "reason-code", dataset: { item }, "aria-label": `Reason code for ${item}` },
           CODES.map(([v, label]) => h("option", { value: v, text: label, selected: v === d.code }))))));
   }
@@ -69,6 +81,7 @@ export async function openDialog() {
   dlg.querySelector("#snap-author").value = state.who || "";
   dlg.querySelector(".dialog-error").textContent = "";
   dlg.showModal();
+  for (const a of areas) { fit(a); a.scrollTop = 0; a.setSelectionRange(0, 0); }
 }
 
 export async function submitDialog() {
@@ -147,7 +160,7 @@ export async function render(container) {
     message ? h("p", { class: "ok", role: "status", text: message }) : null,
     h("div", { class: "toolbar" }, h("button", { class: "primary", id: "open-snapshot", text: "Save a snapshot…", onclick: () => openDialog() }),
       h("span", { class: "muted", text: "A snapshot is permanent: the kept items, every removal with its reason, the settings and the numbers at that moment." })),
-    rows.length ? table(["Name", "By", "Saved", "Items", "α", "ω", "Note", ""], rows, { className: "grid snapshots", caption: "Newest first" })
+    rows.length ? table(["Name", "By", "Saved (UTC)", "Items", "α", "ω", "Note", ""], rows, { className: "grid snapshots", caption: "Newest first" })
       : note("No snapshots yet."),
     compareWith ? note("Pick a second snapshot to compare with.") : null,
     comparison ? renderComparison(comparison) : null));
@@ -157,35 +170,67 @@ export async function render(container) {
 async function pickCompare(container, id) {
   if (!compareWith) { compareWith = id; comparison = null; render(container); return; }
   if (compareWith === id) { compareWith = null; render(container); return; }
-  try { comparison = await api.compareSnapshots(compareWith, id); } catch (e) { comparison = { error: e.message }; }
+  // Always from the older snapshot to the newer one, whichever was clicked first.
+  const when = (x) => snapshots.find((sn) => sn.id === x)?.created_at || "";
+  const [older, newer] = when(compareWith) <= when(id) ? [compareWith, id] : [id, compareWith];
+  try { comparison = await api.compareSnapshots(older, newer); } catch (e) { comparison = { error: e.message }; }
   compareWith = null;
   render(container);
+}
+
+// Plain names for the coefficients the compare route returns.
+export const COEFFICIENT_NAMES = {
+  n_items: "Items", alpha: "α (Cronbach)", alpha_standardized: "standardized α", omega_total: "ω total (McDonald)",
+  lambda2: "Guttman λ2", lambda6: "Guttman λ6", split_half: "split-half (Spearman-Brown)", mean_inter_item_r: "mean inter-item r",
+  scale_mean: "scale mean", scale_sd: "scale SD", sem: "standard error of measurement", n_complete: "complete cases",
+};
+const COUNTS = new Set(["n_items", "n_complete"]);
+const TWO_DECIMALS = new Set(["scale_mean", "scale_sd", "sem"]);
+
+function signed(v, digits) {
+  if (v == null || Number.isNaN(v)) return "—";
+  if (Math.abs(v) < 0.5 * 10 ** -digits) return digits ? `±${fmt(0, digits)}` : "0";
+  const body = digits ? fmt(Math.abs(v), digits) : String(Math.abs(v));
+  return `${v > 0 ? "+" : "−"}${body}`;
 }
 
 function renderComparison(c) {
   if (c.error) return note(c.error, "error");
   const parts = [];
+  const nameA = c.a?.name || c.first?.name || "first";
+  const nameB = c.b?.name || c.second?.name || "second";
   const added = c.items_added || c.added || [];
   const removed = c.items_removed || c.removed || [];
-  parts.push(h("p", { text: `Items added: ${added.length ? added.map((x) => x.item || x).join(", ") : "none"}. Items removed: ${removed.length ? removed.map((x) => x.item || x).join(", ") : "none"}.` }));
+  parts.push(h("p", { text: `From “${nameA}” to “${nameB}”: items brought back ${added.length ? added.map((x) => x.item || x).join(", ") : "none"}; items removed ${removed.length ? removed.map((x) => x.item || x).join(", ") : "none"}.` }));
   const changes = c.coefficients || c.coefficient_changes || {};
-  const show = (k, v) => (k === "n_items" || k === "n_complete" ? (v ?? "—") : fmt(v));
+  const show = (k, v) => (COUNTS.has(k) ? (v ?? "—") : fmt(v, TWO_DECIMALS.has(k) ? 2 : 3));
   const rows = Object.entries(changes).map(([k, v]) => (typeof v === "object" && v !== null
-    ? [k.replace(/_/g, " "), show(k, v.a), show(k, v.b), show(k, v.change)] : [k, "", "", fmt(v)]));
-  if (rows.length) parts.push(table(["Coefficient", "First", "Second", "Change"], rows, { className: "grid" }));
+    ? [COEFFICIENT_NAMES[k] || k.replace(/_/g, " "), show(k, v.a), show(k, v.b), signed(v.change, COUNTS.has(k) ? 0 : TWO_DECIMALS.has(k) ? 2 : 3)]
+    : [COEFFICIENT_NAMES[k] || k, "", "", fmt(v)]));
+  if (rows.length) parts.push(table(["Coefficient", nameA, nameB, "Change"], rows, { className: "grid compare-coefficients" }));
+  const settings = Object.entries(c.settings_changed || {});
+  if (settings.length) {
+    const v = (x) => (x == null ? "—" : Array.isArray(x) ? (x.join(", ") || "none") : typeof x === "object" ? JSON.stringify(x) : String(x));
+    parts.push(table(["Setting", nameA, nameB], settings.map(([k, x]) => [k.replace(/_/g, " "), v(x.a), v(x.b)]),
+      { className: "grid compare-settings", caption: "Settings that differ" }));
+  }
   const lc = c.loadings || [];
   const labelsA = c.a?.factors || [];
   const labelsB = c.b?.factors || [];
-  const moved = lc.filter((r) => r.primary_a && r.primary_b)
-    .map((r) => ({ ...r, shift: Math.abs((r.primary_b.loading ?? 0) - (r.primary_a.loading ?? 0)) + (r.primary_a.factor !== r.primary_b.factor ? 1 : 0) }))
-    .sort((x, y) => y.shift - x.shift).slice(0, 12);
+  const all = lc.filter((r) => r.primary_a && r.primary_b)
+    .map((r) => ({ ...r, switched: r.primary_a.factor !== r.primary_b.factor,
+      shift: Math.abs((r.primary_b.loading ?? 0) - (r.primary_a.loading ?? 0)) }));
+  // Only moves worth a look: another main factor, or a main loading that changed by .05 or more.
+  const moved = all.filter((r) => r.switched || r.shift >= 0.05).sort((x, y) => (y.switched - x.switched) || (y.shift - x.shift)).slice(0, 12);
   if (moved.length) {
-    parts.push(table(["Item", "Primary before", "Primary after"], moved.map((r) => [r.item,
+    parts.push(table(["Item", `Main loading in “${nameA}”`, `Main loading in “${nameB}”`], moved.map((r) => [r.item,
       `${labelsA[r.primary_a.factor] ?? `F${r.primary_a.factor + 1}`} ${fmt(r.primary_a.loading, 2)}`,
       `${labelsB[r.primary_b.factor] ?? `F${r.primary_b.factor + 1}`} ${fmt(r.primary_b.loading, 2)}`]),
-    { className: "grid", caption: "Items whose main loading moved most" }));
+    { className: "grid compare-loadings", caption: "Items whose main loading moved (another factor, or by .05 or more)" }));
+  } else if (all.length) {
+    parts.push(note(`No kept item changed its main factor or moved its main loading by .05 or more (${all.length} items in both).`));
   }
   parts.push(warningList(c.warnings));
-  return h("div", { class: "comparison", id: "comparison" }, h("h3", { text: `Comparing ${c.a?.name || c.first?.name || "first"} with ${c.b?.name || c.second?.name || "second"}` }), parts);
+  return h("div", { class: "comparison", id: "comparison" }, h("h3", { text: `Comparing “${nameA}” (older) with “${nameB}”` }), parts);
 }
 

@@ -119,14 +119,29 @@ function renderAgreement(box) {
       rows.push([label, v.value == null ? "undefined" : num(v.value), ci(v.ci), v.value == null ? (v.reason || "") : (v.label || "")]);
     }
   };
-  add("Percent agreement (all raters agree)", r.percent_agreement);
-  add("Cohen's κ", r.cohen_kappa);
-  if (r.weighted_kappa) { add("Weighted κ (linear)", r.weighted_kappa.linear); add("Weighted κ (quadratic)", r.weighted_kappa.quadratic); }
+  // Percent agreement is a share of units: shown as a percentage with its count, not as a coefficient.
+  const pa = r.percent_agreement;
+  const paValue = pa && typeof pa === "object" ? pa.value : pa;
+  if (paValue != null) {
+    const counted = pa && typeof pa === "object" && pa.n_agree != null && pa.n_units != null ? ` (${pa.n_agree} of ${pa.n_units} units)` : "";
+    rows.push(["Percent agreement (all raters agree)", `${(paValue * 100).toFixed(1)}%${counted}`, "—", ""]);
+  } else if (pa && typeof pa === "object") add("Percent agreement (all raters agree)", pa);
+  // With more than two raters Cohen's kappas do not apply; one line says so instead of three.
+  const wk = r.weighted_kappa || {};
+  const cohenOff = r.cohen_kappa && r.cohen_kappa.value == null;
+  if (cohenOff && [wk.linear, wk.quadratic].every((x) => !x || (x.value == null && x.reason === r.cohen_kappa.reason))) {
+    add("Cohen's κ (unweighted and weighted)", r.cohen_kappa);
+  } else {
+    add("Cohen's κ", r.cohen_kappa);
+    add("Weighted κ (linear)", wk.linear); add("Weighted κ (quadratic)", wk.quadratic);
+  }
   add("Fleiss' κ", r.fleiss_kappa);
   add(`Krippendorff's α (${r.level || pick.level})`, r.krippendorff_alpha);
   box.append(h("p", { text: `${r.n_units} units, ${r.n_raters} raters${r.n_missing ? `, ${r.n_missing} missing ratings` : ""}.` }));
+  const conventions = [r.conventions?.kappa_labels || "κ readings: Landis & Koch (1977) bands, a convention rather than a finding.",
+    r.krippendorff_alpha?.value != null ? (r.conventions?.alpha_labels || r.krippendorff_alpha.label_source) : null].filter(Boolean);
   box.append(table(["Coefficient", "Value", "95% CI", "Reading"], rows, { className: "grid agreement",
-    caption: r.conventions?.kappa_labels || "Verbal labels follow Landis & Koch (1977), a convention, not a test." }));
+    caption: conventions.map((t, i) => (i === 0 && !/^κ/.test(t) ? `κ readings: ${t}` : i === 1 ? `α reading: ${t}` : t)).join(" · ") }));
   const t = iccTable(r.icc, r.recommended);
   if (t) box.append(t);
   box.append(warningList(r.warnings));

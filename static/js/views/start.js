@@ -4,6 +4,14 @@ import { actions, state } from "../state.js";
 import { clear, h, note, section, table, warningList } from "./dom.js";
 
 let lastUpload = null; // {record, error}
+// What was chosen and typed, kept across re-renders: after a refused file the team fixes one field and
+// tries again instead of picking both files a second time.
+const kept = { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" };
+
+function restoreFile(input, file) {
+  if (!file) return;
+  try { const dt = new DataTransfer(); dt.items.add(file); input.files = dt.files; } catch { /* an old browser: pick again */ }
+}
 
 export function render(container) {
   clear(container);
@@ -15,12 +23,22 @@ export function render(container) {
   const smin = h("input", { type: "number", id: "scale-min", placeholder: "from data", step: "any", size: 6 });
   const smax = h("input", { type: "number", id: "scale-max", placeholder: "from data", step: "any", size: 6 });
   const chosen = h("p", { class: "chosen", text: "No file chosen yet." });
+  restoreFile(responsesInput, kept.responses);
+  restoreFile(codebookInput, kept.codebook);
+  missing.value = kept.missing; idColumn.value = kept.idColumn; smin.value = kept.smin; smax.value = kept.smax;
+  const remember = () => {
+    kept.responses = responsesInput.files[0] || null; kept.codebook = codebookInput.files[0] || null;
+    kept.missing = missing.value; kept.idColumn = idColumn.value; kept.smin = smin.value; kept.smax = smax.value;
+  };
+  for (const el of [missing, idColumn, smin, smax]) el.addEventListener("input", remember);
 
   const showChosen = () => {
     const f = responsesInput.files[0];
     const c = codebookInput.files[0];
     chosen.textContent = f ? `Responses: ${f.name}${c ? ` · codebook: ${c.name}` : ""}` : "No file chosen yet.";
+    remember();
   };
+  showChosen();
   responsesInput.addEventListener("change", showChosen);
   codebookInput.addEventListener("change", showChosen);
 
@@ -60,6 +78,7 @@ export function render(container) {
     status.textContent = "Reading…";
     try {
       lastUpload = { record: await actions.upload(fd) };
+      Object.assign(kept, { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" });
     } catch (err) {
       lastUpload = { error: err };
     } finally {
@@ -91,18 +110,20 @@ export function render(container) {
   const demoButton = h("button", { id: "open-demo", text: "Open the invented demo (community workshop pool)",
     onclick: () => actions.openDemo() });
   container.append(section("Open a dataset",
-    rows.length ? table(["Dataset", "Respondents", "Items", "Added"], rows, { className: "grid datasets" })
+    rows.length ? table(["Dataset", "Respondents", "Items", "Added (UTC)"], rows, { className: "grid datasets" })
       : note("No datasets yet. Upload one above, or open the demo: an invented pool of 24 statements with a few planted problems."),
     h("div", { class: "toolbar" }, demoButton)));
 }
 
 function uploadResult({ record, error }) {
   if (error) {
-    return section("The file could not be read",
+    const details = Object.entries(error.details || {}).filter(([, v]) => v != null && !(Array.isArray(v) && !v.length));
+    const shown = (v) => (Array.isArray(v) ? v.join(", ") : typeof v === "object" ? JSON.stringify(v) : String(v));
+    return h("section", { class: "panel upload-error", id: "upload-error" }, h("h2", { text: "The file could not be read" }),
       h("p", { class: "error", role: "alert", text: error.message }),
-      Object.keys(error.details || {}).length
-        ? h("p", { class: "muted", text: Object.entries(error.details).map(([k, v]) => `${k}: ${JSON.stringify(v)}`).join(" · ") })
-        : null);
+      h("p", { class: "muted", text: "Your files and the fields below are still filled in: correct what the message names and read the file again." }),
+      details.length ? h("details", {}, h("summary", { text: "Details for a bug report" }),
+        h("ul", {}, details.map(([k, v]) => h("li", { text: `${k.replace(/_/g, " ")}: ${shown(v)}` })))) : null);
   }
   const items = record.items || [];
   const constructs = new Set(items.map((it) => it.construct).filter(Boolean));
