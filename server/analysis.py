@@ -1,8 +1,9 @@
 """Assemble one analysis answer from cached full-pool matrices (no raw responses on a drop).
 
-The one exception: when the whole pool cannot form a matrix (two items never answered together, an item
-without variance among the pool's complete rows) the active items' own matrices are computed from their
-responses, so a problem confined to inactive items does not block the analysis (``_pool_or_active``).
+Two exceptions (``_pool_or_active``): under listwise deletion the active items' own matrices are computed
+from the respondents who answered all of them (cheap: one pass over their columns); and when the whole
+pool cannot form a matrix (two items never answered together) the active items' own matrices are used,
+so that a problem confined to inactive items does not block the analysis.
 """
 from __future__ import annotations
 
@@ -168,26 +169,31 @@ class _Matrices:
 
 
 def _pool_or_active(engine, dataset_id, correlation, missing, idx, names, X_active):
-    """The cached full-pool matrices, or, when the full pool cannot form one, the active items' own.
+    """The matrices of the active items: a submatrix of the cached full pool, or their own.
 
-    A problem confined to items that are not active (two items nobody answered together, an item without
-    variance among the pool's complete rows) must not block an analysis without them. Then the matrices
-    are computed from the active items' responses (raising the same clear error if the problem is among
-    them) and a sentence says so.
+    Pairwise: the cached full-pool matrices (a drop takes a submatrix). Listwise: the active items' own
+    matrices from the respondents who answered every active item, so that the correlations, the factor
+    sections and the reliability sections rest on the same people (the pool's complete rows would be
+    fewer, and would change with items that are not even analysed). When the full pool cannot form a
+    matrix (two items never answered together...) a problem confined to inactive items must not block
+    the analysis: the active items' own matrix is used and a sentence says so (the same clear error is
+    raised if the problem is among them).
     """
-    try:
-        pool = engine.full_pool(dataset_id, correlation, missing)
-        return _Matrices(pool.cov, pool.n_pair, pool.corr, pool.warnings, idx), None
-    except InputError as exc:
-        from .stats import correlation as corrmod
+    from .stats import correlation as corrmod
 
-        X = X_active[~np.isnan(X_active).any(axis=1)] if missing == "listwise" else X_active
-        cov, n_pair = corrmod.pairwise_covariance(X)
-        make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
-        res = make(X, missing=missing, smooth=None, names=names)
-        note = (f"The {correlation} matrix of the whole item pool could not be formed ({exc.message}); this "
-                f"analysis uses the active items' own {missing} matrix, recomputed from their responses.")
-        return _Matrices(cov, n_pair, np.asarray(res.matrix, float), res.warnings, np.arange(len(names))), note
+    note = None
+    if missing == "pairwise":
+        try:
+            pool = engine.full_pool(dataset_id, correlation, missing)
+            return _Matrices(pool.cov, pool.n_pair, pool.corr, pool.warnings, idx), None
+        except InputError as exc:
+            note = (f"The {correlation} matrix of the whole item pool could not be formed ({exc.message}); "
+                    f"this analysis uses the active items' own matrix, recomputed from their responses.")
+    X = X_active[~np.isnan(X_active).any(axis=1)] if missing == "listwise" else X_active
+    cov, n_pair = corrmod.pairwise_covariance(X)
+    make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
+    res = make(X, missing=missing, smooth=None, names=names)
+    return _Matrices(cov, n_pair, np.asarray(res.matrix, float), res.warnings, np.arange(len(names))), note
 
 
 def _active_pool_warnings(pool_warnings, R, names, correlation: str) -> list[str]:
@@ -229,14 +235,9 @@ def _factor_sections(engine, dataset_id, s, idx, names, flip, meta, rows, warnin
     corr_warnings = _active_pool_warnings(pool.warnings, R, names, s["correlation"])
     if pool_note:
         corr_warnings.append(pool_note)
-    # the n behind this matrix: the smallest pairwise n of the cached full-pool matrix, i.e. under listwise
-    # deletion the respondents who answered every pool item (not only the active ones), which is what
-    # Bartlett's test, parallel analysis and the ML chi-square must use
+    # the n behind this matrix (smallest pairwise n; under listwise deletion the complete rows of the active
+    # items), which is what Bartlett's test, parallel analysis and the ML chi-square must use
     n_obs = _pair_n(pool.n_pair[sub])
-    if s["missing"] == "listwise" and n_obs < n_complete:
-        corr_warnings.append(f"Under listwise deletion the correlations and the factor sections rest on the {n_obs} "
-                             f"respondents who answered every item of the pool; the reliability sections use the "
-                             f"{n_complete} who answered every active item.")
     R_s, min_eig, changed = smooth_to_pd(R)
     if changed:
         corr_warnings.append(smoothing_message(R, R_s, min_eig, "eigen",

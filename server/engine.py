@@ -206,7 +206,16 @@ class Engine:
             return FullPool(cov=full["cov"], n_pair=full["n_pair"], corr=full["corr"],
                             warnings=tuple(res.warnings))
 
-        return self._locked((dataset_id, correlation, missing), self._pools, make)
+        def make_or_fail():  # a pool that cannot be formed is remembered too, not retried on every request
+            try:
+                return make()
+            except InputError as exc:
+                return exc
+
+        pool = self._locked((dataset_id, correlation, missing), self._pools, make_or_fail)
+        if isinstance(pool, InputError):
+            raise pool
+        return pool
 
     def _descriptives_for(self, dataset_id: str, mask: np.ndarray):
         from .stats.descriptives import item_descriptives

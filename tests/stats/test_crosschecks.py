@@ -36,10 +36,10 @@ def _two_factor_items(seed: int = 5, n: int = 400) -> pd.DataFrame:
     return pd.DataFrame(X, columns=[f"Q{i + 1}" for i in range(8)])
 
 
-def test_listwise_factor_sections_use_the_n_behind_their_matrix(client):
-    # Under listwise deletion the cached full-pool correlation matrix rests on the respondents who
-    # answered every pool item. After Q4 is dropped more respondents are complete on the active items,
-    # but the factor sections' matrix is still the full-pool one, so Bartlett's test must use its n.
+def test_listwise_sections_all_rest_on_the_rows_complete_on_the_active_items(client):
+    # Listwise deletion means: the respondents who answered every analysed item. After Q4 is dropped
+    # more respondents are complete on the active items; the correlations, the factor sections and the
+    # reliability sections all rest on them, and Bartlett's test uses their n.
     from factor_analyzer.factor_analyzer import calculate_bartlett_sphericity
 
     data = _two_factor_items()
@@ -47,11 +47,14 @@ def test_listwise_factor_sections_use_the_n_behind_their_matrix(client):
     keep = [c for c in data.columns if c != "Q4"]
     out = client.post(f"/api/datasets/{ds}/analysis",
                       json={"missing": "listwise", "items": keep, "reverse": ["Q3"], "n_factors": 2}).json()
-    complete_pool = data.dropna()
-    assert out["correlations"]["n"] == len(complete_pool)  # pandas dropna: rows complete on all 8 items
-    assert out["reliability"]["n_complete"] == len(data[keep].dropna())  # reliability: active items only
-    assert any(f"rest on the {len(complete_pool)} respondents" in w for w in out["correlations"]["warnings"])
-    chi2_ref, p_ref = calculate_bartlett_sphericity(complete_pool[keep].to_numpy())
+    complete = data[keep].dropna()
+    assert len(complete) > len(data.dropna())  # the drop really lets more respondents in
+    assert out["correlations"]["n"] == len(complete)  # pandas dropna on the active items
+    assert out["reliability"]["n_complete"] == len(complete)
+    scored = complete.copy()
+    scored["Q3"] = 6 - scored["Q3"]
+    assert np.allclose(out["correlations"]["matrix"], scored.corr().to_numpy(), atol=1e-12)  # pandas Pearson
+    chi2_ref, p_ref = calculate_bartlett_sphericity(complete.to_numpy())
     bart = out["factorability"]["bartlett"]
     # the analysis reports chi2 to 4 decimals
     assert bart["chi2"] == round(float(chi2_ref), 4)  # factor_analyzer calculate_bartlett_sphericity
