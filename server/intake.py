@@ -212,6 +212,12 @@ def _detect_delimiter(sample: str, filename: str, *, allow_single: bool = False)
     return best
 
 
+def _mostly_numbers(cells) -> bool:
+    """Whether most non-empty cells of a row read as numbers (a row of answers, not of column names)."""
+    filled = [str(c).strip() for c in cells if str(c).strip()]
+    return bool(filled) and sum(is_number(c.replace(",", ".")) for c in filled) > len(filled) / 2
+
+
 def _blank_title_lines(raw: bytes, sample: str, encoding: str) -> tuple[bytes, str, list[tuple[int, str]]]:
     """Blank the single-cell title lines above a header row ('Belonging pilot, spring 2026').
 
@@ -252,6 +258,9 @@ def _blank_title_lines(raw: bytes, sample: str, encoding: str) -> tuple[bytes, s
         first = i
     if not titles or first is None or max(counts[first:]) < 3 or counts[first] < 2:
         return raw, sample, []
+    if _mostly_numbers(max((next(csv.reader([lines[first]], delimiter=d), []) for d in CANDIDATE_DELIMITERS),
+                           key=len)):
+        return raw, sample, []  # the line after the single cell holds answers: that cell was the header
     parts = raw.split(b"\n", first)
     raw = b"\n" * first + parts[first]
     sample = "\n" * first + sample.split("\n", first)[first]
@@ -456,7 +465,8 @@ def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
             if filled[r] >= 2:
                 break
             titles.append(r)
-        if titles and len(titles) < len(nonblank):
+        if titles and len(titles) < len(nonblank) and not _mostly_numbers(
+                grid.iloc[nonblank[len(titles)]].dropna().tolist()):
             first = nonblank[len(titles)]
             shown = "; ".join(f"row {r + 1}: '{_cell_text(grid.iloc[r].dropna().iat[0])[:60]}'" for r in titles[:3])
             notes.append(f"{_first_rows(len(titles))} of sheet '{sheet}' held a single cell ({shown}); "

@@ -437,3 +437,19 @@ def test_surveymonkey_style_merged_question_header(client, clean):
     for corr in ("pearson", "polychoric"):
         got = _analysis(client, body["id"], corr)
         assert got["reliability"]["alpha"] == pytest.approx(clean[corr]["reliability"]["alpha"], abs=1e-12)
+
+
+def test_a_single_named_header_cell_above_answers_is_the_header_not_a_title(client):
+    """'id' alone on row 1 with unnamed item columns: row 2 holds answers, so row 1 stays the header."""
+    raw = _csv([["id", "", "", "", "", "", ""]] + [[i + 1, *X[i]] for i in range(N)])
+    body = _ok(_upload(client, raw))
+    assert body["n_rows"] == N and [it["name"] for it in body["items"]] == [f"column {j}" for j in range(2, 8)]
+    assert not any("title" in w for w in body["warnings"])
+
+    def build(wb):
+        wb.active.append(["id"])
+        for i in range(N):
+            wb.active.append([i + 1, *(int(v) for v in X[i])])
+
+    body = _ok(_upload(client, _xlsx(build), "unnamed.xlsx"))
+    assert body["n_rows"] == N and len(body["items"]) == 6
