@@ -862,6 +862,12 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     like the codebook's items (``Q21`` beside ``Q1``..``Q20``), else left out.
     Values outside the declared range are set to missing with a warning; rows with no answer at all are
     dropped with a warning.
+
+    Survey-platform layouts are recognised, each with a warning: single-cell title rows above the header,
+    up to three extra header rows under it (question text, an import-ID row; the question text becomes the
+    item wording when the codebook gives none), statements named in row 2 under a merged question header,
+    and, in a workbook, a first sheet without a table. Columns named like scores (total, sum, BEL_mean) and
+    columns of distinct whole numbers above 100 (IDs) are not items.
     """
     filename = filename or "upload"
     notes: list[str] = []
