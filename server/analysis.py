@@ -62,6 +62,10 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     if s["missing"] == "listwise":
         from .stats.correlation import pairwise_covariance
 
+        if n_complete < 3:
+            raise InputError(f"Only {n_complete} respondent(s) answered every active item, too few for listwise "
+                             f"deletion; use pairwise deletion or leave out the items most often skipped.",
+                             code="too_few_complete", details={"n_complete": n_complete, "missing": "listwise"})
         cov, n_pair = pairwise_covariance(X_raw[complete])
         n_rel = n_complete
         flat = [n for n, v in zip(names, np.diag(cov)) if not v > 0] if n_complete >= 2 else []

@@ -176,3 +176,15 @@ def test_an_item_without_variance_is_left_out_with_a_warning(client, pg_alpha_da
     assert r.status_code == 200 and r.json()["efa"]["n_factors"] >= 1
     r = client.post(f"/api/datasets/{ds}/analysis", json={"items": ["Q1", "FLAT"]})
     assert r.status_code == 422 and "FLAT had no variance" in r.json()["error"]["message"]
+
+
+def test_listwise_with_no_complete_respondent_says_so(client):
+    rng = np.random.default_rng(2)
+    frame = pd.DataFrame(rng.integers(1, 6, (12, 3)).astype(float), columns=["a", "b", "c"])
+    for row in range(12):  # every respondent skipped one item
+        frame.iloc[row, row % 3] = np.nan
+    ds = _upload(client, frame)
+    r = client.post(f"/api/datasets/{ds}/analysis", json={"missing": "listwise"})
+    assert r.status_code == 422 and r.json()["error"]["code"] == "too_few_complete"
+    assert "Only 0 respondent(s) answered every active item" in r.json()["error"]["message"]
+    assert client.post(f"/api/datasets/{ds}/analysis", json={"missing": "pairwise"}).status_code == 200
