@@ -102,6 +102,9 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     reliability["missing"] = s["missing"]
     reliability["n_items"] = len(names)
     reliability["min_pairwise_n"] = min_pair
+    reliability["basis"] = ("Item covariances of the observed (reverse-scored) answers: the coefficients describe the "
+                            "sum score people actually get. The correlation setting (Pearson or polychoric) "
+                            "applies to the factor sections only.")
     warnings.extend(reliability.get("warnings") or [])
 
     itab = {r["name"]: r for r in _plain(item_table(cov, names=names, start=start))}
