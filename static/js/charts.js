@@ -14,6 +14,18 @@ const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "
 // It decodes &lt; &gt; &amp; back to characters when it draws, so escaping them is exact.
 export const esc = (v) => String(v ?? "").replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;");
 
+// Long wording in a hover label: escaped, then broken into lines (plotly clips a label at the chart's edge).
+export function wrapText(v, width = 56) {
+  const words = String(v ?? "").split(/\s+/).filter(Boolean);
+  const lines = [];
+  let line = "";
+  for (const w of words) {
+    if (line && line.length + 1 + w.length > width) { lines.push(line); line = w; } else line = line ? `${line} ${w}` : w;
+  }
+  if (line) lines.push(line);
+  return lines.map(esc).join("<br>");
+}
+
 const config = { displaylogo: false, responsive: true, displayModeBar: false };
 
 function fontSize() { return document.body.classList.contains("projector") ? 17 : 12; }
@@ -79,7 +91,7 @@ function onPoint(el, handler) {
 export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick }) {
   const y = rows.map((r) => esc(r.flagged ? `⚑ ${r.name}` : r.name));
   const z = rows.map((r) => r.values);
-  const custom = rows.map((r) => factors.map(() => [esc(r.text), esc(r.flagText)]));
+  const custom = rows.map((r) => factors.map(() => [wrapText(r.text), wrapText(r.flagText)]));
   const trace = {
     type: "heatmap", x: factors.map(esc), y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
     colorscale: DIVERGING, xgap: 2, ygap: 2,
@@ -131,7 +143,7 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
   const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
   const trace = {
     type: "scatter", mode: "markers", x: items.map((it) => esc(it.name)), y: items.map((it) => it.alpha_if_deleted),
-    customdata: items.map((it) => esc(it.text)),
+    customdata: items.map((it) => wrapText(it.text)),
     marker: { size: 11, color: better.map((b) => (b ? WARM : ACCENT)), symbol: better.map((b) => (b ? "triangle-up" : "circle")),
       line: { width: 1, color: "#fff" } },
     hovertemplate: "<b>%{x}</b>: alpha without it %{y:.3f}<br>%{customdata}<extra></extra>",

@@ -165,3 +165,39 @@ def test_the_header_coefficients_stay_on_one_line(browser, server, demo):
         assert len(tops) == 6 and len(set(tops)) == 1
     finally:
         context.close()
+
+
+def test_picking_a_heatmap_row_does_not_move_the_chart(page, server, demo):
+    open_dataset(page, server, demo["id"], view="loadings")
+    page.wait_for_selector("#heatmap[data-rendered]")
+    top_before = page.locator("#heatmap").bounding_box()["y"]
+    box = page.locator("#heatmap .nsewdrag").first.bounding_box()
+    n_rows = page.locator("#heatmap .ytick").count()
+    page.mouse.click(box["x"] + box["width"] / 6, box["y"] + box["height"] / n_rows * 1.5)  # second row
+    page.wait_for_selector("#pick-drop")
+    assert page.locator("#heatmap").bounding_box()["y"] == top_before  # the next click lands where aimed
+    assert page.locator("#pick-drop").is_visible()
+    # long wording is broken into lines in the hover label instead of running past the chart's edge
+    assert "<br>" in page.evaluate("document.querySelector('#heatmap').data[0].customdata[0][0]") or \
+        len(js_state(page, "s.meta.items[0].text")) <= 56
+    assert page.errors == []
+
+
+def test_a_retest_result_says_when_the_kept_items_changed(page, server, demo):
+    wave2 = upload(server, (DEMO / "workshop_retest.csv").read_bytes(), "workshop_retest.csv",
+                   (DEMO / "workshop_codebook.csv").read_bytes(), missing_codes="-9", id_column="respondent")
+    open_dataset(page, server, demo["id"], view="stability")
+    page.select_option("#wave-first", demo["id"])
+    page.select_option("#wave-second", wave2["id"])
+    page.click("#run-retest")
+    page.wait_for_selector("table.icc")
+    assert "24 (sum score)" in page.inner_text("#retest-result")  # the items behind the numbers are named
+    assert page.locator("#retest-result .stale").count() == 0
+    page.click("#tab-board")
+    before = fitted_marker(page)
+    page.click('tr[data-item="C7"] button.toggle')
+    wait_refit(page, before)
+    page.click("#tab-stability")
+    page.wait_for_selector("#retest-result .stale")
+    assert "compare the waves again" in page.inner_text("#retest-result .stale")
+    assert page.errors == []

@@ -73,11 +73,17 @@ function renderRetest(box) {
   const loa = r.limits_of_agreement || {};
   const loaPair = Array.isArray(loa) ? loa : [loa.lower, loa.upper];
   const count = (x) => (x == null ? "—" : typeof x === "object" ? x.count : x);
-  const facts = [["Matched respondents", `${r.n_matched}${r.n != null && r.n !== r.n_matched ? ` (${r.n} with complete scores)` : ""}`],
+  const used = Array.isArray(r.items) ? r.items : [];
+  const stale = pick.source === "current" && used.length && JSON.stringify(used) !== JSON.stringify(keptItems());
+  const facts = [["Items scored", used.length ? `${used.length} (${r.score === "mean" ? "mean" : "sum"} score${r.snapshot ? `, snapshot ${r.snapshot.name || r.snapshot.id || r.snapshot}` : ""})` : "—"],
+    ["Matched respondents", `${r.n_matched}${r.n != null && r.n !== r.n_matched ? ` (${r.n} with complete scores)` : ""}`],
     ["Only in the first wave", count(r.only_first)], ["Only in the second wave", count(r.only_second)],
     ["Pearson r (95% CI)", withCi(r.pearson_r)], ["Spearman ρ (95% CI)", withCi(r.spearman_rho)],
     ["SEM", num(val(r.sem), 2)], ["Smallest detectable change (MDC95)", num(val(r.mdc95), 2)],
     ["Mean difference (second − first)", num(r.mean_difference, 2)], ["Limits of agreement", ci(loaPair)]];
+  if (stale) {
+    box.append(note(`The kept items have changed since this comparison (it scored ${used.length}, ${keptItems().length} are kept now): compare the waves again.`, "error stale"));
+  }
   box.append(h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v ?? "—") })])));
   if (r.recommended) {
     box.append(h("p", { class: "interpretation", id: "retest-reading",
