@@ -201,3 +201,18 @@ def test_a_retest_result_says_when_the_kept_items_changed(page, server, demo):
     page.wait_for_selector("#retest-result .stale")
     assert "compare the waves again" in page.inner_text("#retest-result .stale")
     assert page.errors == []
+
+
+def test_the_second_wave_defaults_to_another_file(page, server, demo):
+    """A copy of the same file (the demo uploaded twice) is never offered as the second wave."""
+    copy = fresh_demo(server)
+    wave2 = upload(server, (DEMO / "workshop_retest.csv").read_bytes(), "workshop_retest.csv",
+                   (DEMO / "workshop_codebook.csv").read_bytes(), missing_codes="-9", id_column="respondent")
+    newest = fresh_demo(server)  # listed first (newest first), and the same bytes as `copy`
+    assert newest["sha256"] == copy["sha256"] != wave2["sha256"]
+    open_dataset(page, server, copy["id"], view="stability")
+    page.wait_for_selector("#wave-second")
+    assert page.input_value("#wave-first") == copy["id"]
+    second = page.input_value("#wave-second")
+    assert second != newest["id"] and second != copy["id"]
+    assert page.evaluate("id => window.scalewright.state.datasets.find(d => d.id === id).sha256", second) != copy["sha256"]

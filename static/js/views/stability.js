@@ -1,7 +1,7 @@
 // Stability and agreement: two waves (test-retest / parallel forms) and a rater table.
 import { api } from "../api.js";
 import { blandAltman, retestScatter } from "../charts.js";
-import { keptItems, state } from "../state.js";
+import { allItems, keptItems, state } from "../state.js";
 import { clear, fmt, h, note, section, select, table, warningList } from "./dom.js";
 
 let retestResult = null;
@@ -156,8 +156,18 @@ function renderAgreement(box) {
 export function render(container) {
   clear(container);
   const datasets = state.datasets.map((d) => [d.id, d.name || d.id]);
+  if (pick.wavesFor !== state.dataset) { pick.wavesFor = state.dataset; pick.first = null; pick.second = null; } // another pool opened
   pick.first ||= state.dataset;
-  pick.second ||= (datasets.find(([id]) => id !== state.dataset) || [null])[0];
+  if (!pick.second) {
+    // The likeliest second wave: another file (not a copy of this one) that holds this pool's items and
+    // has an ID column to match respondents by. A re-upload of the same file made a useless default.
+    const here = state.datasets.find((d) => d.id === state.dataset) || {};
+    const mine = new Set(allItems());
+    const likely = (d) => (d.sha256 && d.sha256 === here.sha256 ? 0 : 4) + ((d.items || []).some((it) => mine.has(it.name)) ? 2 : 0)
+      + (d.id_column ? 1 : 0);
+    const others = state.datasets.filter((d) => d.id !== state.dataset);
+    pick.second = others.length ? others.reduce((best, d) => (likely(d) > likely(best) ? d : best)).id : null;
+  }
   const retestBox = h("div", { class: "result", id: "retest-result" });
   const run = h("button", { class: "primary", id: "run-retest", text: "Compare the waves", onclick: async () => {
     run.disabled = true;
