@@ -27,6 +27,7 @@ window.scalewright = { state, timings };
 
 // ---------------------------------------------------------------- rendering
 function renderTabs() {
+  const tabHadFocus = Boolean(document.activeElement?.closest?.("#tabs"));
   const nav = clear($("#tabs"));
   const usable = VIEWS.filter((v) => v === "start" || state.dataset);
   for (const v of VIEWS) {
@@ -40,6 +41,8 @@ function renderTabs() {
         if (next) { e.preventDefault(); actions.show(next); document.getElementById(`tab-${next}`)?.focus(); }
       } }));
   }
+  // The tabs are rebuilt on every render: a keyboard user who pressed Enter on one stays on it.
+  if (tabHadFocus) document.getElementById(`tab-${state.view}`)?.focus({ preventScroll: true });
 }
 
 function renderSummary() {

@@ -216,3 +216,13 @@ def test_the_second_wave_defaults_to_another_file(page, server, demo):
     second = page.input_value("#wave-second")
     assert second != newest["id"] and second != copy["id"]
     assert page.evaluate("id => window.scalewright.state.datasets.find(d => d.id === id).sha256", second) != copy["sha256"]
+
+
+def test_a_tab_opened_with_the_keyboard_keeps_the_focus(page, server, demo):
+    open_dataset(page, server, demo["id"], view="board")
+    page.focus("#tab-settings")
+    page.keyboard.press("Enter")
+    page.wait_for_selector("#set-correlation")
+    assert page.evaluate("document.activeElement.id") == "tab-settings"  # not thrown back to the page start
+    page.keyboard.press("ArrowRight")
+    assert page.evaluate("document.activeElement.id") == "tab-snapshots"
