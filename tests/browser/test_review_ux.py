@@ -226,3 +226,20 @@ def test_a_tab_opened_with_the_keyboard_keeps_the_focus(page, server, demo):
     assert page.evaluate("document.activeElement.id") == "tab-settings"  # not thrown back to the page start
     page.keyboard.press("ArrowRight")
     assert page.evaluate("document.activeElement.id") == "tab-snapshots"
+
+
+@pytest.mark.parametrize("projector", [False, True])
+def test_no_view_is_wider_than_a_laptop_screen(browser, server, demo, projector):
+    context = browser.new_context(viewport={"width": 1024, "height": 768})
+    page = context.new_page()
+    try:
+        page.goto(server + "/")
+        page.evaluate(f"localStorage.setItem('scalewright.projector', '{1 if projector else 0}')")
+        open_dataset(page, server, demo["id"], view="board", extra="&drop=C7")
+        for view in ("board", "loadings", "alpha", "factors", "settings", "snapshots", "stability"):
+            page.click(f"#tab-{view}")
+            page.wait_for_timeout(400)  # let the charts draw
+            width = page.evaluate("document.documentElement.scrollWidth")
+            assert width <= 1024, f"{view}: the page is {width} px wide"
+    finally:
+        context.close()
