@@ -160,7 +160,8 @@ export async function render(container) {
     message ? h("p", { class: "ok", role: "status", text: message }) : null,
     h("div", { class: "toolbar" }, h("button", { class: "primary", id: "open-snapshot", text: "Save a snapshot…", onclick: () => openDialog() }),
       h("span", { class: "muted", text: "A snapshot is permanent: the kept items, every removal with its reason, the settings and the numbers at that moment." })),
-    rows.length ? table(["Name", "By", "Saved (UTC)", "Items", "α", "ω", "Note", ""], rows, { className: "grid snapshots", caption: "Newest first" })
+    rows.length ? h("div", { class: "table-scroll" }, table(["Name", "By", "Saved (UTC)", "Items", "α", "ω", "Note", ""], rows,
+      { className: "grid snapshots", caption: "Newest first" }))
       : note("No snapshots yet."),
     compareWith ? note("Pick a second snapshot to compare with.") : null,
     comparison ? renderComparison(comparison) : null));
