@@ -368,7 +368,8 @@ function offerToFollow(last) {
   if (!last || !last.state || !Array.isArray(last.state.dropped) || sameShared(last.state, shared())) return;
   offered = last.state;
   const n = last.state.dropped.length;
-  bar.append(h("span", { text: `${last.who || "Someone"} is working on this dataset (${(last.at || "").slice(11, 16)} UTC): ${n} item${n === 1 ? "" : "s"} dropped${last.detail ? `; last change: ${last.detail}` : ""}. ` }),
+  // It may be an hour old: say when, not "is working".
+  bar.append(h("span", { text: `${last.who || "Someone"} changed this dataset at ${(last.at || "").slice(11, 16)} UTC (${n} item${n === 1 ? "" : "s"} dropped${last.detail ? `; last change: ${last.detail}` : ""}). Your view differs. ` }),
     h("button", { class: "primary", id: "follow-team", text: "Follow the team", onclick: () => {
       bar.hidden = true;
       remember();
