@@ -131,8 +131,17 @@ _LABELS = {
     "n_items": "Items",
     "n_complete": "Complete cases",
     "missing": "Missing-data policy",
-    "n_factors": "Factors",
+    "n_factors": "Factors (blank: as parallel analysis suggests)",
     "pa_iterations": "Parallel-analysis iterations",
+    "pa_variant": "Parallel-analysis eigenvalues (components or reduced-matrix factors)",
+    "gamma": "Oblimin gamma (0 = quartimin)",
+    "excluded": "Items left out (no variance)",
+    "thresholds": "Flag thresholds changed from the defaults",
+    "reverse": "Reverse-keyed items (scored min + max - answer)",
+    "correlation": "Correlations for the factor analysis",
+    "extraction": "Factor extraction",
+    "rotation": "Rotation",
+    "seed": "Random seed (parallel analysis, rotation starts)",
     "kmo": "Kaiser-Meyer-Olkin (KMO)",
     "inter_item_r_range": "Range of inter-item correlations",
     "items_for_80": "Items needed for alpha .80 (Spearman-Brown)",
@@ -452,8 +461,32 @@ def _constructs_section(constructs) -> str:
                                             num_cols={1, 2, 3, 4})
 
 
+_SETTING_WORDS = {"minres": "minimum residual (minres)", "ml": "maximum likelihood", "paf": "principal axis",
+                  "pearson": "Pearson", "polychoric": "polychoric", "pairwise": "pairwise deletion",
+                  "listwise": "listwise deletion", "components": "components (Horn 1965)",
+                  "factors": "reduced-matrix factors"}
+
+
 def _settings_pairs(settings: Mapping) -> list[tuple[str, str]]:
-    return [(_esc(_label(k)), _value(v)) for k, v in settings.items() if k != "items"]
+    out = []
+    for k, v in settings.items():
+        if k == "items":
+            continue
+        if k == "rotation" and isinstance(v, str):
+            v = "none (unrotated)" if v == "none" else v
+        if isinstance(v, str):
+            v = _SETTING_WORDS.get(v, v)
+        out.append((_esc(_label(k)), _value(v) if v not in (None, [], {}) else "&ndash;"))
+    return out
+
+
+def _when(stamp) -> str:
+    """An ISO time stamp as '2026-12-02 02:50 UTC' (the stored value keeps its full precision)."""
+    try:
+        t = datetime.fromisoformat(str(stamp))
+    except ValueError:
+        return _esc(stamp)
+    return t.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def _coef(v) -> str:
@@ -574,7 +607,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         f"<title>{_esc(title)}</title>",
         f"<style>{_CSS}</style></head><body>",
         f"<header><h1>{_esc(title)}</h1>",
-        f"<p class=\"muted\">Saved {_esc(snapshot.get('created_at') or '')}"
+        f"<p class=\"muted\">Saved {_when(snapshot.get('created_at') or '')}"
         + (f" by {_esc(snapshot.get('author'))}" if snapshot.get("author") else "")
         + f" &middot; {len(items)} items kept, {len(snapshot.get('removed') or [])} removed</p></header>",
         f"<section><h2>What this is</h2><p>{_esc(PURPOSE)}</p></section>",
@@ -585,7 +618,8 @@ def render_report(snapshot: dict, dataset: dict) -> str:
             ("Parent snapshot", f"<span class=\"mono\">{_esc(snapshot.get('parent'))}</span>"
              if snapshot.get("parent") else "&ndash;"),
             ("Author", _esc(snapshot.get("author")) if snapshot.get("author") else "&ndash;"),
-            ("Saved (UTC)", _esc(snapshot.get("created_at"))),
+            ("Saved", (f"{_when(snapshot.get('created_at'))} <span class=\"mono muted\">"
+                      f"({_esc(snapshot.get('created_at'))})</span>")),
             ("Note", f"<span class=\"note\">{_esc(snapshot.get('note'))}</span>"
              if snapshot.get("note") else "&ndash;"),
             ("Data set", _esc(ds_name)),

@@ -59,7 +59,7 @@ export function render(container) {
     note("Every change refits the analysis for everyone watching; the settings are part of the page address."),
     row("Correlation", select(OPTIONS.correlation, s.correlation,
       (v) => actions.setSetting("correlation", v), { id: "set-correlation" }),
-    "Polychoric treats answers as ordered categories of a continuous opinion; slower, and warned about when categories are sparse."),
+    "Polychoric treats answers as ordered categories of a continuous opinion; warned about when categories are sparse. It applies to the factor sections; alpha and omega always rest on the observed answers (the sum score people get)."),
     row("Extraction", select(OPTIONS.extraction, s.extraction,
       (v) => actions.setSetting("extraction", v), { id: "set-extraction" }), "ML adds chi-square, RMSEA and TLI."),
     row("Rotation", select(OPTIONS.rotation, s.rotation, (v) => actions.setSetting("rotation", v), { id: "set-rotation" }), "Oblique rotations let the factors correlate, as constructs of one scale usually do."),
