@@ -16,7 +16,7 @@ TARGETS = [
     ("click_to_updated_heatmap_60_items_ms", "click on a drop -> updated heatmap + coefficients (60 items)", 200),
     ("click_to_updated_heatmap_ms", "click on a drop -> updated heatmap (demo, 24 items)", 200),
     ("page_load_to_heatmap_ms", "page load with the demo data -> heatmap drawn", 1500),
-    ("page_load_60_items_ms", "page load, 60-item pool -> first fit shown", 1500),
+    ("page_load_60_items_ms", "page load, 60-item pool -> heatmap drawn (information)", None),
 ]
 
 
@@ -31,10 +31,14 @@ def run() -> list[dict]:
         values = data.get("timings", {}).get(key)
         if not values:
             rows.append({"target": label, "measured": "not recorded", "baseline": "-", "ratio": None,
-                         "goal": f"<= {goal_ms} ms", "ok": False})
+                         "goal": f"<= {goal_ms} ms" if goal_ms else "(information)", "ok": goal_ms is None})
             continue
         med = statistics.median(values)
-        rows.append({"target": label, "measured": f"{med:.0f} ms (median of {len(values)}, {data['written_at']})",
-                     "baseline": f"{goal_ms} ms target", "ratio": goal_ms / med, "goal": f"<= {goal_ms} ms",
-                     "ok": med <= goal_ms})
+        measured = f"{med:.0f} ms (median of {len(values)}, {data['written_at']})"
+        if goal_ms is None:  # issue 5 sets the page-load target for the demo data only
+            rows.append({"target": label, "measured": measured, "baseline": "-", "ratio": None,
+                         "goal": "(information)", "ok": True})
+            continue
+        rows.append({"target": label, "measured": measured, "baseline": f"{goal_ms} ms target",
+                     "ratio": goal_ms / med, "goal": f"<= {goal_ms} ms", "ok": med <= goal_ms})
     return rows

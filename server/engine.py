@@ -18,6 +18,7 @@ dropped and in whatever order.
 from __future__ import annotations
 
 import json
+import logging
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
@@ -25,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .stats.errors import InputError
+
+log = logging.getLogger("scalewright")
 
 CORRELATIONS = ("pearson", "polychoric")
 EXTRACTIONS = ("minres", "ml", "paf")
@@ -131,6 +134,24 @@ class Engine:
             return out
 
         return self._locked((dataset_id, "constant"), self._descriptives, make)
+
+    def prime(self, dataset_id: str, parsed) -> None:
+        """Keep a just-uploaded dataset (already parsed) and start its default analysis in the background.
+
+        The team usually opens the dataset right after the upload; the first analysis (full-pool
+        matrices, parallel analysis, the reference factor solution) is then already under way or done,
+        and the page's request waits for it instead of starting it again.
+        """
+        with self._lock:
+            self._datasets.get_or(dataset_id, lambda: parsed)
+
+        def warm():
+            try:
+                self.analyse(dataset_id, {})
+            except Exception as exc:  # noqa: BLE001  (the page's own request reports it to the user)
+                log.info("background analysis of %s stopped: %s", dataset_id, exc)
+
+        threading.Thread(target=warm, name=f"warm-{dataset_id}", daemon=True).start()
 
     def forget(self, dataset_id: str) -> None:
         with self._lock:

@@ -186,6 +186,8 @@ async def upload_dataset(request: Request):
         store.add_dataset, name=(name or parsed.name)[:200], raw=raw, filename=filename, codebook_raw=cb_raw,
         codebook_filename=cb_name, options=options, meta=meta)
     _forget(request, record["id"])
+    parsed.name = record["name"]
+    request.app.state.engine.prime(record["id"], parsed)  # the first analysis starts now, in the background
     return JSONResponse(dataset_out(record), status_code=201)
 
 

@@ -188,3 +188,16 @@ def test_listwise_with_no_complete_respondent_says_so(client):
     assert r.status_code == 422 and r.json()["error"]["code"] == "too_few_complete"
     assert "Only 0 respondent(s) answered every active item" in r.json()["error"]["message"]
     assert client.post(f"/api/datasets/{ds}/analysis", json={"missing": "pairwise"}).status_code == 200
+
+
+def test_an_upload_starts_the_first_analysis_in_the_background(app, client, pg_alpha_data):
+    import time
+
+    ds = _upload(client, pg_alpha_data)
+    engine = app.state.engine
+    deadline = time.time() + 30
+    while not any(isinstance(k, tuple) and k[0] == ds and k[1].startswith("{") for k in list(engine._answers)):
+        assert time.time() < deadline, "the background analysis never finished"
+        time.sleep(0.05)
+    first = client.post(f"/api/datasets/{ds}/analysis", json={}).json()
+    assert round(first["reliability"]["alpha"], 3) == 0.592  # pingouin docs: the same answer, from the cache
