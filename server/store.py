@@ -24,6 +24,8 @@ import shutil
 import sqlite3
 import threading
 import uuid
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, Protocol, runtime_checkable
 
@@ -177,6 +179,21 @@ class SQLiteStore:
         con.execute("PRAGMA synchronous=FULL")
         return con
 
+    @contextmanager
+    def _write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction (BEGIN IMMEDIATE ... COMMIT), rolled back on any error, then closed."""
+        con = self._connect()
+        try:
+            con.execute("BEGIN IMMEDIATE")
+            yield con
+            con.execute("COMMIT")
+        except BaseException:
+            if con.in_transaction:
+                con.execute("ROLLBACK")
+            raise
+        finally:
+            con.close()
+
     def journal_mode(self) -> str:
         con = self._connect()
         try:
@@ -209,23 +226,17 @@ class SQLiteStore:
             "sha256": hashlib.sha256(raw).hexdigest(), "codebook_sha256": cb_sha, "size_bytes": len(raw),
             "options": dict(options or {}), "meta": dict(meta or {}), "created_at": utc_now(),
         }
-        con = self._connect()
         try:
-            con.execute("BEGIN IMMEDIATE")
-            con.execute(
-                "INSERT INTO datasets (id, name, filename, codebook_filename, sha256, codebook_sha256, "
-                "size_bytes, options, meta, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (record["id"], record["name"], record["filename"], record["codebook_filename"],
-                 record["sha256"], record["codebook_sha256"], record["size_bytes"], _dumps(record["options"]),
-                 _dumps(record["meta"]), record["created_at"]))
-            con.execute("COMMIT")
+            with self._write() as con:
+                con.execute(
+                    "INSERT INTO datasets (id, name, filename, codebook_filename, sha256, codebook_sha256, "
+                    "size_bytes, options, meta, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    (record["id"], record["name"], record["filename"], record["codebook_filename"],
+                     record["sha256"], record["codebook_sha256"], record["size_bytes"],
+                     _dumps(record["options"]), _dumps(record["meta"]), record["created_at"]))
         except BaseException:
-            if con.in_transaction:
-                con.execute("ROLLBACK")
             shutil.rmtree(folder, ignore_errors=True)
             raise
-        finally:
-            con.close()
         return json.loads(_dumps(record))
 
     _DATASET_COLS = ("id, name, filename, codebook_filename, sha256, codebook_sha256, size_bytes, options, "
@@ -260,18 +271,8 @@ class SQLiteStore:
 
     def delete_dataset(self, dataset_id: str) -> bool:
         """Forget a dataset and remove its raw files. Its snapshots stay (they are immutable)."""
-        con = self._connect()
-        try:
-            con.execute("BEGIN IMMEDIATE")
-            cur = con.execute("DELETE FROM datasets WHERE id = ?", (dataset_id,))
-            con.execute("COMMIT")
-            deleted = cur.rowcount > 0
-        except BaseException:
-            if con.in_transaction:
-                con.execute("ROLLBACK")
-            raise
-        finally:
-            con.close()
+        with self._write() as con:
+            deleted = con.execute("DELETE FROM datasets WHERE id = ?", (dataset_id,)).rowcount > 0
         if deleted:
             try:
                 shutil.rmtree(self._folder(dataset_id), ignore_errors=True)
@@ -304,21 +305,11 @@ class SQLiteStore:
         stored["dataset_id"] = dataset_id
         stored["created_at"] = utc_now()
         text = _dumps(stored)
-        con = self._connect()
-        try:
-            con.execute("BEGIN IMMEDIATE")
+        with self._write() as con:
             if con.execute("SELECT 1 FROM datasets WHERE id = ?", (dataset_id,)).fetchone() is None:
-                con.execute("ROLLBACK")
                 raise KeyError(dataset_id)
             con.execute("INSERT INTO snapshots (id, dataset_id, created_at, record) VALUES (?, ?, ?, ?)",
                         (stored["id"], dataset_id, stored["created_at"], text))
-            con.execute("COMMIT")
-        except BaseException:
-            if con.in_transaction:
-                con.execute("ROLLBACK")
-            raise
-        finally:
-            con.close()
         return json.loads(text)
 
     def get_snapshot(self, snapshot_id: str) -> dict | None:
