@@ -191,7 +191,7 @@ def _pool_or_active(engine, dataset_id, correlation, missing, idx, names, X_acti
     note = None
     if missing == "pairwise":
         try:
-            pool = engine.full_pool(dataset_id, correlation, missing)
+            pool = engine.full_pool(dataset_id, correlation)
             return _Matrices(pool.cov, pool.n_pair, pool.corr, pool.warnings, idx), None
         except InputError as exc:
             note = (f"The {correlation} matrix of the whole item pool could not be formed ({exc.message}); "

@@ -3,8 +3,9 @@
 What is cached, and by what it depends on (CONVENTIONS 7):
 
 * the parsed dataset, per dataset id;
-* the full-pool covariance and correlation matrices, per (dataset, correlation type, missing policy),
-  computed once on the raw (not reverse-scored) responses. Reverse-keying an item multiplies its row and
+* the full-pool pairwise covariance and correlation matrices, per (dataset, correlation type), computed
+  once on the raw (not reverse-scored) responses (listwise deletion depends on the active items, so its
+  matrices are computed per request from their complete rows; see ``analysis._pool_or_active``). Reverse-keying an item multiplies its row and
   column by -1 (exact for covariances, Pearson and polychoric correlations), and dropping items takes a
   submatrix, so a drop never touches the raw responses;
 * per-item descriptives, per (dataset, reverse set);
@@ -68,9 +69,9 @@ class _LRU(OrderedDict):
 
 @dataclass(frozen=True)
 class FullPool:
-    """Full-pool matrices for one (dataset, correlation, missing policy), on raw responses."""
+    """Full-pool pairwise matrices for one (dataset, correlation type), on raw responses."""
 
-    cov: np.ndarray          # covariance (pairwise or listwise), k x k
+    cov: np.ndarray          # pairwise covariance, k x k
     n_pair: np.ndarray       # pairwise n, k x k
     corr: np.ndarray         # Pearson or polychoric correlation, k x k
     warnings: tuple[str, ...]
@@ -204,7 +205,7 @@ class Engine:
                 self._key_locks.pop(key, None)
             return value
 
-    def full_pool(self, dataset_id: str, correlation: str, missing: str) -> FullPool:
+    def full_pool(self, dataset_id: str, correlation: str) -> FullPool:
         from .stats import correlation as corrmod
 
         def make():
@@ -212,13 +213,9 @@ class Engine:
             constant = self.constant_items(dataset_id)
             ok = np.array([it.name not in constant for it in ds.items])
             X, names = ds.responses[:, ok], [it.name for it in ds.items if it.name not in constant]
-            if missing == "listwise":
-                X = X[~np.isnan(X).any(axis=1)]
             cov, n_pair = corrmod.pairwise_covariance(X)
-            if correlation == "polychoric":
-                res = corrmod.polychoric_matrix(X, missing=missing, smooth=None, names=names)
-            else:
-                res = corrmod.pearson_matrix(X, missing=missing, smooth=None, names=names)
+            make_corr = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
+            res = make_corr(X, missing="pairwise", smooth=None, names=names)
             # constant items never enter an analysis; their rows and columns stay empty
             k = len(ds.items)
             full = {"cov": np.full((k, k), np.nan), "n_pair": np.zeros((k, k)), "corr": np.full((k, k), np.nan)}
@@ -233,7 +230,7 @@ class Engine:
             except InputError as exc:
                 return exc
 
-        pool = self._locked((dataset_id, correlation, missing), self._pools, make_or_fail)
+        pool = self._locked((dataset_id, correlation), self._pools, make_or_fail)
         if isinstance(pool, InputError):
             raise pool
         return pool

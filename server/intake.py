@@ -946,13 +946,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             left_out.append((c, "dates"))
             continue
         kind = None if in_codebook else _column_kind(c)
+        if kind == "id":  # the first ID-named column is the ID, numeric or text; later ones are left out
+            if chosen_id is None:
+                chosen_id = c
+            else:
+                left_out.append((c, "ID-like name"))
+            continue
         if pd.api.types.is_numeric_dtype(s.dtype):
-            if kind == "id":
-                if chosen_id is None:
-                    chosen_id = c
-                else:
-                    left_out.append((c, "ID-like name"))
-                continue
             if kind == "demographic":
                 left_out.append((c, "demographic or survey-metadata name"))
                 continue
@@ -966,12 +966,6 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
             item_cols.append(c)
             continue
         # text-typed column: an item column with a few bad cells, or a non-item column
-        if kind == "id":
-            if chosen_id is None:
-                chosen_id = c
-            else:
-                left_out.append((c, "ID-like name"))
-            continue
         num = pd.to_numeric(s, errors="coerce")
         nonnull = s.notna().to_numpy()
         isnum = num.notna().to_numpy()
