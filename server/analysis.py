@@ -84,7 +84,7 @@ def assemble(engine, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict
     if n_complete < len(names) + 1 and s["missing"] == "listwise":
         warnings.append(f"Only {n_complete} respondents answered every active item; listwise results rest on "
                         f"few people.")
-    desc_all = engine._descriptives_for(dataset_id, rev_mask)
+    desc_all = engine.descriptives(dataset_id, rev_mask)
     desc = {d["name"]: d for d in desc_all}
     means = np.array([desc[n]["mean"] for n in names], dtype=float)
     if s["missing"] == "listwise" and n_complete > 0:

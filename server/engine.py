@@ -235,7 +235,8 @@ class Engine:
             raise pool
         return pool
 
-    def _descriptives_for(self, dataset_id: str, mask: np.ndarray):
+    def descriptives(self, dataset_id: str, mask: np.ndarray) -> list[dict]:
+        """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
         from .stats.descriptives import item_descriptives
 
         def make():

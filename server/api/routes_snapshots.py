@@ -128,23 +128,6 @@ def _coefficients(analysis: dict) -> dict:
     return {"alpha": _finite(rel.get("alpha")), "omega_total": _finite(rel.get("omega_total"))}
 
 
-def _reliability_only(engine, dataset_id: str, request: dict) -> dict:
-    """Alpha and omega for one pool of the trail, without the factor sections when the engine can skip
-    them (the reliability numbers are the same code path as in ``engine.analyse``)."""
-    cheap = getattr(engine, "reliability", None)
-    if callable(cheap):
-        rel = cheap(dataset_id, request)
-        rel = rel.get("reliability", rel) if isinstance(rel, dict) else jsonable_encoder(rel)
-        return {"reliability": rel}
-    inner, resolve = getattr(engine, "_analyse", None), getattr(engine, "resolve", None)
-    if callable(inner) and callable(resolve):
-        try:
-            return inner(dataset_id, resolve(dataset_id, request), with_efa=False)
-        except TypeError:  # an engine without the with_efa switch
-            pass
-    return engine.analyse(dataset_id, request)
-
-
 def _analysis_payload(settings: dict) -> tuple[dict, dict]:
     """Check the settings exactly as ``POST /api/datasets/{id}/analysis`` does.
 
@@ -268,7 +251,7 @@ def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
         if step == len(removed):
             result = analysis
         else:
-            result = jsonable_encoder(_reliability_only(engine, dataset_id, {**payload, "items": pool}))
+            result = jsonable_encoder(engine.reliability(dataset_id, {**payload, "items": pool}))
         coef = _coefficients(result)
         trail.append({"step": step, "removed": removed_items[step - 1] if step else None,
                       "n_items": len(pool), **coef})
