@@ -218,7 +218,8 @@ def _active_pool_warnings(pool_warnings, R, names, correlation: str) -> list[str
         if w.startswith("Item '") and "' has fewer than" in w:
             if w[len("Item '"):w.index("' has fewer than")] in active:
                 out.append(w)
-        elif "and was left unsmoothed" in w or " of +-1 (for example " in w:
+        elif ("and was left unsmoothed" in w or " of +-1 (for example " in w
+              or "estimate is at the boundary" in w):  # pool pairs; +-1 pairs are recounted below
             continue
         else:
             out.append(w)

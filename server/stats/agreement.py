@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats as sps
@@ -537,6 +538,129 @@ def weighted_kappa(rater1, rater2, *, weights: str = "linear", ci: float = 0.95)
         raise InputError(f"Unknown kappa weights {weights!r}; use 'linear' or 'quadratic'.", code="bad_weights",
                          details={"weights": weights})
     return _kappa(rater1, rater2, weights=weights, ci=ci)
+
+
+@dataclass(frozen=True)
+class PairKappa:
+    """Cohen's kappa (or weighted kappa) of one pair of raters."""
+
+    raters: tuple[str, str]
+    kappa: float | None
+    se: float | None
+    ci: tuple[float, float] | None
+    n_units: int
+    reason: str | None
+
+    def to_dict(self) -> dict:
+        return {"raters": list(self.raters), "kappa": _num(self.kappa), "se": _num(self.se),
+                "ci": None if self.ci is None else [float(v) for v in self.ci], "n_units": self.n_units,
+                "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class PairwiseKappaResult:
+    """Cohen's kappa for every pair of raters and their mean (Light's kappa when unweighted)."""
+
+    pairs: tuple[PairKappa, ...]
+    mean: float | None
+    weights: str | None
+    n_raters: int
+    n_units: int
+    mean_name: str
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {"pairs": [p.to_dict() for p in self.pairs], "mean": _num(self.mean), "weights": self.weights,
+                "n_raters": self.n_raters, "n_units": self.n_units, "mean_name": self.mean_name,
+                "warnings": list(self.warnings)}
+
+
+def _is_missing(v) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v)) or (isinstance(v, str) and not v.strip())
+
+
+def pairwise_cohen_kappa(ratings, *, weights: str | None = None, raters: Sequence[str] | None = None,
+                         ci: float = 0.95) -> PairwiseKappaResult:
+    """Cohen's kappa for every pair of raters, and their mean (Light's kappa).
+
+    Parameters
+    ----------
+    ratings : array_like, shape (units, raters)
+        One column per rater (at least two); numbers or category labels, None/NaN/"" missing. Units with a
+        missing rating from any rater are left out, so every pair rests on the same units.
+    weights : {None, "linear", "quadratic"}
+        None: Cohen's (1960) kappa. "linear"/"quadratic": Cohen's (1968) weighted kappa with the weights
+        of :func:`weighted_kappa` (built from the category values; numeric ratings only).
+    raters : sequence of str, optional
+        Rater labels (default "rater 1", ...).
+    ci : float
+        Confidence level of each pair's interval (Fleiss, Cohen & Everitt 1969 standard error).
+
+    Returns
+    -------
+    PairwiseKappaResult
+        ``pairs`` in the order (1, 2), (1, 3), ..., (2, 3), ...; ``mean`` over the pairs whose kappa is
+        defined.
+
+    Notes
+    -----
+    Light's kappa is the arithmetic mean of the :math:`r(r-1)/2` pairwise Cohen's kappas,
+    :math:`\\bar\\kappa = \\frac{2}{r(r-1)}\\sum_{a<b}\\kappa_{ab}`. With weights the mean of the
+    pairwise weighted kappas is reported. Each pair's categories are those either rater of the pair used;
+    weighted kappa uses category values, so it equals the position-based weights of scikit-learn when the
+    codes are equally spaced and both raters of the pair use the lowest and highest category.
+
+    References
+    ----------
+    Cohen, J. (1960). Educational and Psychological Measurement, 20(1), 37-46.
+    Cohen, J. (1968). Weighted kappa. Psychological Bulletin, 70(4), 213-220.
+    Light, R. J. (1971). Measures of response agreement for qualitative data: Some generalizations and
+    alternatives. Psychological Bulletin, 76(5), 365-377.
+    Conger, A. J. (1980). Integration and generalization of kappas for multiple raters. Psychological
+    Bulletin, 88(2), 322-328.
+    """
+    if weights not in (None, "linear", "quadratic"):
+        raise InputError(f"Unknown kappa weights {weights!r}; use None, 'linear' or 'quadratic'.",
+                         code="bad_weights", details={"weights": str(weights)})
+    _z(ci)
+    try:
+        Y = np.array([list(r) for r in ratings], dtype=object)
+    except (TypeError, ValueError):
+        raise InputError("The ratings must be a table: one row per unit, one column per rater.",
+                         code="bad_shape") from None
+    if Y.ndim != 2:
+        raise InputError("The ratings must be a rectangular table: one row per unit, one column per rater.",
+                         code="bad_shape")
+    r = Y.shape[1]
+    if r < 2:
+        raise InputError(f"Pairwise kappa needs at least two raters (columns); the table has {r}.",
+                         code="single_rater", details={"n_raters": int(r)})
+    labels = [f"rater {j + 1}" for j in range(r)] if raters is None else [str(x) for x in raters]
+    if len(labels) != r:
+        raise InputError(f"{len(labels)} rater names were given for {r} columns.", code="bad_names",
+                         details={"names": len(labels), "raters": int(r)})
+    complete = np.array([not any(_is_missing(v) for v in row) for row in Y], dtype=bool)
+    Yc = Y[complete]
+    warnings: list[str] = []
+    if (~complete).any():
+        warnings.append(f"{int((~complete).sum())} unit(s) with a missing rating were left out; every pair uses "
+                        f"the {int(complete.sum())} unit(s) rated by all raters.")
+    pairs = []
+    for a in range(r):
+        for b in range(a + 1, r):
+            res = _kappa(Yc[:, a], Yc[:, b], weights=weights, ci=ci)
+            ci_ab = res.get("ci")
+            pairs.append(PairKappa(raters=(labels[a], labels[b]), kappa=_num(res["value"]), se=_num(res.get("se")),
+                                   ci=None if ci_ab is None else (float(ci_ab[0]), float(ci_ab[1])),
+                                   n_units=int(res["n_units"]), reason=res["reason"]))
+            if res["value"] is None:
+                warnings.append(f"Kappa of {labels[a]} and {labels[b]} is undefined: {res['reason']}")
+    vals = [p.kappa for p in pairs if p.kappa is not None]
+    mean = float(np.mean(vals)) if vals else None
+    name = ("Light's kappa (mean of the pairwise Cohen's kappas; Light 1971)" if weights is None else
+            f"mean of the pairwise {weights} weighted kappas")
+    return PairwiseKappaResult(pairs=tuple(pairs), mean=mean, weights=weights, n_raters=int(r),
+                               n_units=int(complete.sum()), mean_name=name, warnings=tuple(warnings))
 
 
 def _fleiss_from_counts(counts: np.ndarray) -> float:

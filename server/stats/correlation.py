@@ -40,6 +40,8 @@ __all__ = [
 
 _RHO_BOUND = 1.0 - 1e-7
 _SPARSE_CATEGORY = 5  # common practice: fewer than 5 answers in a category makes its threshold unstable
+_BOUNDARY = 0.995  # an estimate this close to +-1 is reported as a boundary estimate
+_NAMED_PAIRS = 5  # pairs named in one warning sentence
 
 
 @dataclass(frozen=True)
@@ -555,13 +557,38 @@ def _all_tables(codes: np.ndarray, m: int) -> np.ndarray:
     return T.reshape(k, m, k, m).transpose(0, 2, 1, 3)
 
 
-def polychoric_pair(table) -> float:
+def _check_correction(value) -> float:
+    try:
+        c = float(value)
+    except (TypeError, ValueError):
+        c = float("nan")
+    if isinstance(value, bool) or not np.isfinite(c) or c < 0:
+        raise InputError(f"zero_cell_correction must be a number of at least 0; got {value!r}.", code="bad_option",
+                         details={"zero_cell_correction": str(value)})
+    return c
+
+
+def _correct_zero_cells(tables: np.ndarray, value: float) -> tuple[np.ndarray, np.ndarray]:
+    """Add ``value`` to the empty cells inside each table's observed rows and columns.
+
+    Returns the corrected tables and, per table, whether it had such an empty cell.
+    """
+    inside = (tables.sum(axis=2) > 0)[:, :, None] & (tables.sum(axis=1) > 0)[:, None, :]
+    empty = inside & (tables == 0)
+    if value > 0:
+        tables = np.where(empty, value, tables)
+    return tables, empty.any(axis=(1, 2))
+
+
+def polychoric_pair(table, *, zero_cell_correction: float = 0.0) -> float:
     """Two-step polychoric (tetrachoric for 2 x 2) correlation of one contingency table.
 
     Parameters
     ----------
     table : array-like (r, c)
         Counts; rows are the ordered categories of the first item, columns of the second.
+    zero_cell_correction : float
+        Added to the empty cells before estimation (see Notes); 0 leaves the table as it is.
 
     Returns
     -------
@@ -576,6 +603,10 @@ def polychoric_pair(table) -> float:
     ``sum n_ij pi'_ij / pi_ij`` with ``pi'_ij`` the same rectangle sum of the bivariate normal
     density; it is solved by Fisher scoring kept inside a bisection bracket.
 
+    With ``zero_cell_correction > 0`` that value is added to every empty cell inside the observed
+    rows and columns before estimation (thresholds then come from the corrected margins), the
+    continuity correction of ``psych::polychoric(correct = .5)``; 0 leaves the table as it is.
+
     References
     ----------
     Olsson, U. (1979). Maximum likelihood estimation of the polychoric correlation coefficient.
@@ -587,6 +618,7 @@ def polychoric_pair(table) -> float:
                          code="bad_shape", details={"shape": list(t.shape)})
     if (t < 0).any() or not np.isfinite(t).all():
         raise InputError("Contingency table counts must be finite and non-negative.", code="bad_value")
+    corr = _check_correction(zero_cell_correction)
     rows = t.sum(axis=1) > 0
     cols = t.sum(axis=0) > 0
     t = t[rows][:, cols]
@@ -597,12 +629,13 @@ def polychoric_pair(table) -> float:
     m = max(r, c)
     padded = np.zeros((1, m, m))
     padded[0, :r, :c] = t
+    padded, _ = _correct_zero_cells(padded, corr)
     rho, _ = _estimate_rho(padded, np.array([r]), np.array([c]))
     return float(rho[0])
 
 
 def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10, names=None,
-                      smooth: str | None = "eigen") -> CorrelationResult:
+                      smooth: str | None = "eigen", zero_cell_correction: float = 0.0) -> CorrelationResult:
     """Polychoric (tetrachoric for binary items) correlation matrix, all pairs at once.
 
     Parameters
@@ -619,6 +652,10 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
         Item names (default: DataFrame columns or ``item1..itemk``).
     smooth : {"eigen", "higham", None}
         Smoothing of a matrix that is not positive definite, see :func:`smooth_to_pd`.
+    zero_cell_correction : float
+        Added to the empty cells (inside the observed rows and columns) of a pair's table before
+        that pair is estimated; 0 (default) estimates the tables as they are. 0.5 is common
+        practice (``psych::polychoric``'s ``correct``).
 
     Returns
     -------
@@ -629,7 +666,8 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
     -----
     The tables of all ``k(k-1)/2`` pairs come from one product of one-hot codes; every pair is
     estimated as in :func:`polychoric_pair` with the iteration vectorised over pairs.  Warnings
-    name categories with fewer than 5 answers and count pairs whose table has empty cells.
+    name categories with fewer than 5 answers, pairs whose table has empty cells (and whether they
+    were corrected) and pairs whose estimate is at the boundary (``|r| >= .995``).
 
     References
     ----------
@@ -637,6 +675,7 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
     Psychometrika, 44(4), 443-460.
     """
     _check_missing(missing)
+    correction = _check_correction(zero_cell_correction)
     arr, names = _as_matrix(X, names)
     if not isinstance(max_categories, (int, np.integer)) or max_categories < 2:
         raise InputError(f"max_categories must be an integer of at least 2; got {max_categories!r}.",
@@ -663,7 +702,8 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
                          details={"items": [names[i], names[j]], "n": int(n_pair[i, j])})
     ci = ncat[iu]
     cj = ncat[ju]
-    rho, conv = _estimate_rho(pair_tables, ci, cj)
+    pair_tables_est, had_empty = _correct_zero_cells(pair_tables, correction)
+    rho, conv = _estimate_rho(pair_tables_est, ci, cj)
     R = np.eye(k)
     R[iu, ju] = rho
     R[ju, iu] = rho
@@ -682,10 +722,18 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
     valid = (np.arange(m)[None, :, None] < ci[:, None, None]) & (np.arange(m)[None, None, :] < cj[:, None, None])
     empty = ((pair_tables == 0) & valid).any(axis=(1, 2))
     if empty.any():
-        first = np.nonzero(empty)[0][0]
         warnings.append(f"{int(empty.sum())} of {len(iu)} item pairs have at least one empty cell in their "
-                        f"contingency table (for example '{names[iu[first]]}' x '{names[ju[first]]}'); "
+                        f"contingency table ({_pair_list(np.nonzero(empty)[0], iu, ju, names)}); "
                         "their polychoric correlations rest on sparse tables.")
+    if correction > 0 and had_empty.any():
+        idx = np.nonzero(had_empty)[0]
+        warnings.append(f"{correction:g} was added to the empty cells of {len(idx)} pair(s) before estimation "
+                        f"(zero-cell correction, common practice): {_pair_list(idx, iu, ju, names)}.")
+    edge = np.nonzero(np.abs(rho) >= _BOUNDARY)[0]
+    if edge.size:
+        warnings.append(f"The polychoric estimate is at the boundary (|r| >= {_BOUNDARY}) for {edge.size} "
+                        f"pair(s), {_pair_list(edge, iu, ju, names, rho)}: an empty cell or a duplicated item can "
+                        "push the estimate to +-1, and such a value is not a trustworthy correlation.")
     if not conv.all():
         first = np.nonzero(~conv)[0][0]
         warnings.append(f"The polychoric estimate did not converge for {int((~conv).sum())} item pair(s) "
@@ -696,6 +744,16 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
     return CorrelationResult(matrix=R, n_pair=n_pair, warnings=warnings, names=names, method="polychoric",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam,
                              thresholds=thresholds)
+
+
+def _pair_list(idx, iu, ju, names, rho=None) -> str:
+    """'a' x 'b', ... for the first few pairs in ``idx`` (with r when given), and how many more."""
+    parts = []
+    for p in idx[:_NAMED_PAIRS]:
+        txt = f"'{names[iu[p]]}' x '{names[ju[p]]}'"
+        parts.append(txt if rho is None else f"{txt} (r = {rho[p]:.4f})")
+    more = f" and {len(idx) - _NAMED_PAIRS} more" if len(idx) > _NAMED_PAIRS else ""
+    return ", ".join(parts) + more
 
 
 # ----------------------------------------------------------------------------------------------

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from server.stats.correlation import polychoric_matrix
 from server.stats.errors import InputError
 
 __all__ = [
@@ -21,6 +22,8 @@ __all__ = [
     "kaiser_count",
     "kmo",
     "parallel_analysis",
+    "parallel_analysis_polychoric",
+    "permuted_ordinal_data",
     "random_correlation_eigenvalues",
     "retention_summary",
     "smc",
@@ -65,6 +68,10 @@ class ParallelResult:
     iterations : int
     percentile : float
     seed : int or None
+    method : str
+        The reference data: ``"random_normal"`` (uncorrelated normal data, :func:`parallel_analysis`) or
+        ``"permuted_ordinal"`` (each item's observed answers permuted independently, polychoric
+        correlations; :func:`parallel_analysis_polychoric`).
     """
 
     n_factors: int
@@ -75,6 +82,7 @@ class ParallelResult:
     iterations: int = 0
     percentile: float = 95.0
     seed: int | None = None
+    method: str = "random_normal"
 
 
 @dataclass(frozen=True)
@@ -385,6 +393,122 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
     return ParallelResult(n_factors=n_factors, observed=observed, threshold=threshold, variant=variant,
                           random_mean=random_mean, iterations=int(iterations),
                           percentile=float(percentile), seed=seed)
+
+
+def permuted_ordinal_data(X, *, seed=None) -> np.ndarray:
+    """Random ordinal data with exactly the observed marginal distributions.
+
+    Each column of ``X`` (respondents x items, NaN for missing) is permuted independently, so every item
+    keeps its answers (and its missing count) while the items become independent.  ``seed`` is passed to
+    ``numpy.random.default_rng`` (a Generator is used as it is).
+
+    References
+    ----------
+    Garrido, L. E., Abad, F. J., & Ponsoda, V. (2013). A new look at Horn's parallel analysis with
+    ordinal variables. Psychological Methods, 18(4), 454-474.
+    """
+    arr = np.asarray(X, dtype=float)
+    if arr.ndim != 2:
+        raise InputError(f"Expected a respondents x items table, got {arr.ndim} dimension(s).", code="bad_shape",
+                         details={"shape": list(arr.shape)})
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    return rng.permuted(arr, axis=0)
+
+
+def _polychoric_eigenvalues(X: np.ndarray, variant: str, missing: str, max_categories: int,
+                            R=None) -> np.ndarray:
+    A = polychoric_matrix(X, missing=missing, max_categories=max_categories).matrix if R is None else R
+    if variant == "factors":
+        A = A.copy()
+        np.fill_diagonal(A, smc(A))
+    return np.linalg.eigvalsh(A)[::-1]
+
+
+def parallel_analysis_polychoric(X, *, R=None, iterations: int = 100, percentile: float = 95,
+                                 variant: str = "components", seed: int | None = None,
+                                 missing: str = "pairwise", max_categories: int = 10) -> ParallelResult:
+    """Parallel analysis for polychoric correlations against permuted ordinal data.
+
+    Parameters
+    ----------
+    X : array-like or DataFrame (n, k)
+        Ordinal responses, NaN for missing.
+    R : array-like (k, k), optional
+        The observed polychoric matrix of ``X`` (e.g. a cached one); computed from ``X`` when omitted.
+    iterations : int
+        Number of random data sets (each needs a polychoric matrix, so fewer than for normal data).
+    percentile : float
+        Threshold percentile of the random eigenvalues at each position.
+    variant : {"components", "factors"}
+        Eigenvalues of the correlation matrices, or of the reduced matrices with squared multiple
+        correlations on the diagonal (observed and random alike).
+    seed : int, optional
+        Seed for ``numpy.random.default_rng``; the same seed gives the same result.
+    missing : {"pairwise", "listwise"}
+        Missing-data policy of the polychoric matrices; listwise drops incomplete rows before permuting.
+    max_categories : int
+        Passed to :func:`server.stats.correlation.polychoric_matrix`.
+
+    Returns
+    -------
+    ParallelResult
+        With ``method = "permuted_ordinal"``; ``n_factors`` counts the leading observed eigenvalues above
+        their threshold, stopping at the first that is not.
+
+    Notes
+    -----
+    Each random data set permutes every item's column independently (:func:`permuted_ordinal_data`): the
+    marginal distributions are kept exactly and the items are independent in the population.  Its
+    polychoric matrix (smoothed to positive definite as the observed one) gives the reference
+    eigenvalues, so the reference carries the same sampling behaviour of polychoric estimates, sparse
+    categories included, instead of that of Pearson correlations of normal data (Garrido, Abad &
+    Ponsoda 2013).
+
+    References
+    ----------
+    Horn, J. L. (1965). Psychometrika, 30(2), 179-185.
+    Garrido, L. E., Abad, F. J., & Ponsoda, V. (2013). A new look at Horn's parallel analysis with
+    ordinal variables. Psychological Methods, 18(4), 454-474.
+    """
+    if variant not in ("components", "factors"):
+        raise InputError(f"Unknown parallel-analysis variant {variant!r}; use 'components' or 'factors'.",
+                         code="bad_option", details={"variant": variant})
+    if not (0 < percentile < 100):
+        raise InputError(f"percentile must be between 0 and 100; got {percentile!r}.", code="bad_option",
+                         details={"percentile": percentile})
+    if not isinstance(iterations, (int, np.integer)) or isinstance(iterations, bool) or iterations < 1:
+        raise InputError(f"iterations must be a positive integer; got {iterations!r}.", code="bad_option",
+                         details={"iterations": str(iterations)})
+    if missing not in ("pairwise", "listwise"):
+        raise InputError(f"Unknown missing-data policy {missing!r}; use 'pairwise' or 'listwise'.",
+                         code="bad_option", details={"missing": missing})
+    try:
+        arr = np.asarray(X.to_numpy(dtype=float, na_value=np.nan) if hasattr(X, "to_numpy") else X, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise InputError("The responses contain values that are not numbers.", code="not_numeric") from exc
+    if arr.ndim != 2:
+        raise InputError(f"Expected a respondents x items table, got {arr.ndim} dimension(s).", code="bad_shape",
+                         details={"shape": list(arr.shape)})
+    if missing == "listwise":
+        arr = arr[~np.isnan(arr).any(axis=1)]
+    k = arr.shape[1]
+    _check_n(arr.shape[0], k)
+    if R is not None:
+        R = _corr(R)
+        if R.shape[0] != k:
+            raise InputError(f"R has {R.shape[0]} items but the responses have {k}.", code="bad_shape",
+                             details={"items_R": int(R.shape[0]), "items": int(k)})
+    observed = _polychoric_eigenvalues(arr, variant, missing, max_categories, R)
+    rng = np.random.default_rng(seed)
+    rand = np.empty((int(iterations), k))
+    for b in range(int(iterations)):
+        rand[b] = _polychoric_eigenvalues(permuted_ordinal_data(arr, seed=rng), variant, missing, max_categories)
+    threshold = np.percentile(rand, percentile, axis=0)
+    above = observed > threshold
+    n_factors = int(k if above.all() else np.argmin(above))
+    return ParallelResult(n_factors=n_factors, observed=observed, threshold=threshold, variant=variant,
+                          random_mean=rand.mean(axis=0), iterations=int(iterations),
+                          percentile=float(percentile), seed=seed, method="permuted_ordinal")
 
 
 # ----------------------------------------------------------------------------------------------
