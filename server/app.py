@@ -11,6 +11,9 @@ from fastapi.staticfiles import StaticFiles
 
 from . import __version__
 from .api.errors import error_body, install_error_handlers
+from .api.openapi import install_openapi
+from .api.origins import refusal
+from .api.schemas import HealthOut
 from .settings import Settings
 
 STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
@@ -23,7 +26,7 @@ CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline';
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
-    settings.data_dir.mkdir(parents=True, exist_ok=True)
+    # Store() checks the data folder (creates it; refuses a read-only or damaged one with StartupError).
     # No Swagger/ReDoc pages: FastAPI's load their scripts from a CDN, and no page here may reach outside.
     app = FastAPI(title="Scalewright", version=__version__, docs_url=None, redoc_url=None,
                   openapi_url="/api/openapi.json")
@@ -33,11 +36,16 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     from .store import Store
 
     app.state.store = Store(settings.data_dir)
-    app.state.engine = Engine(app.state.store)
+    app.state.engine = Engine(app.state.store, cache_bytes=settings.cache_bytes)
     install_error_handlers(app)
 
     @app.middleware("http")
     async def guard(request: Request, call_next):
+        refused = refusal(request, settings)  # foreign Host (DNS rebinding) or another site's form
+        if refused is not None:
+            status, code, message, details = refused
+            return JSONResponse(error_body(code, message, details), status_code=status,
+                                headers={"X-Content-Type-Options": "nosniff", "Cache-Control": "no-store"})
         if settings.token:
             given = (request.headers.get("x-scalewright-token") or request.query_params.get("token")
                      or request.cookies.get("scalewright_token") or "")
@@ -56,12 +64,20 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         response.headers.setdefault("Referrer-Policy", "no-referrer")
         return response
 
-    from .api import routes_agreement, routes_analysis, routes_datasets, routes_live, routes_snapshots
+    from .api import (
+        routes_agreement,
+        routes_analysis,
+        routes_datasets,
+        routes_live,
+        routes_snapshots,
+        routes_workspace,
+    )
 
-    for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live):
+    for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live,
+                   routes_workspace):
         app.include_router(module.router, prefix="/api")
 
-    @app.get("/api/health")
+    @app.get("/api/health", response_model=HealthOut)
     def health():
         return {"status": "ok", "version": __version__}
 
@@ -76,6 +92,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         return FileResponse(STATIC_DIR / "index.html", media_type="text/html")
 
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
+    install_openapi(app)  # every route's error answers, with the real error shape
 
     if settings.demo:
         from .demo import ensure_demo_loaded

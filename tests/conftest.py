@@ -11,6 +11,13 @@ import server  # noqa: F401  (sets one BLAS thread before numpy loads)
 from server.app import create_app
 from server.settings import Settings
 
+LOCAL_BASE = "http://127.0.0.1:8765"  # the Host a browser on this machine sends (settings.port's default)
+
+
+def local_client(app, **kwargs) -> TestClient:
+    """A TestClient naming the server as a page on this machine would (not Starlette's 'testserver')."""
+    return TestClient(app, base_url=LOCAL_BASE, **kwargs)
+
 
 @pytest.fixture
 def settings(tmp_path):
@@ -24,7 +31,7 @@ def app(settings):
 
 @pytest.fixture
 def client(app):
-    with TestClient(app) as c:
+    with local_client(app) as c:
         yield c
 
 

@@ -276,12 +276,12 @@ def test_demo_start_loads_once_across_restarts(tmp_path):
 
 def test_demo_datasets_are_listed_by_the_api(tmp_path):
     pytest.importorskip("server.intake")
-    from fastapi.testclient import TestClient
 
     from server.app import create_app
     from server.settings import Settings
+    from tests.conftest import local_client
 
-    with TestClient(create_app(Settings(data_dir=tmp_path / "data", demo=True))) as client:
+    with local_client(create_app(Settings(data_dir=tmp_path / "data", demo=True))) as client:
         listed = {d["name"]: d for d in client.get("/api/datasets").json()}
     assert set(listed) == {DEMO_NAME, DEMO_RETEST_NAME}
     wave1, wave2 = listed[DEMO_NAME], listed[DEMO_RETEST_NAME]

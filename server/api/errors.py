@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import logging
+import secrets
+import sqlite3
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
@@ -9,6 +11,7 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from ..stats.errors import InputError
+from ..store import StorageError, storage_error
 
 log = logging.getLogger("scalewright")
 
@@ -47,12 +50,30 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(StarletteHTTPException)
     async def _http(_: Request, exc: StarletteHTTPException):
-        code = {404: "not_found", 405: "method_not_allowed", 401: "unauthorized", 413: "too_large"}.get(
-            exc.status_code, "http_error")
+        code = {400: "bad_request", 404: "not_found", 405: "method_not_allowed", 401: "unauthorized",
+                413: "too_large"}.get(exc.status_code, "http_error")
         return JSONResponse(error_body(code, str(exc.detail)), status_code=exc.status_code)
 
+    async def _storage(_: Request, exc: Exception):
+        mapped = storage_error(exc)
+        if mapped is None:
+            return internal_error(exc)
+        log.warning("storage fault answered %s %s", mapped.status, mapped.code, exc_info=exc)
+        return JSONResponse(error_body(mapped.code, mapped.message, mapped.details), status_code=mapped.status)
+
+    for kind in (StorageError, OSError, sqlite3.Error):  # disk full 507, read-only or denied 503
+        app.add_exception_handler(kind, _storage)
+
     @app.exception_handler(Exception)
-    async def _unexpected(_: Request, exc: Exception):  # pragma: no cover - last resort
-        log.exception("unexpected error")
-        return JSONResponse(error_body("internal", f"Unexpected error: {type(exc).__name__}: {exc}"),
-                            status_code=500)
+    async def _unexpected(_: Request, exc: Exception):  # last resort
+        return internal_error(exc)
+
+
+INTERNAL_MESSAGE = "Something went wrong on the server; the details are in its log."
+
+
+def internal_error(exc: BaseException) -> JSONResponse:
+    """A 500 that names no path, traceback or exception text; the log has them under the incident id."""
+    incident = secrets.token_hex(4)
+    log.error("unexpected error, incident %s", incident, exc_info=(type(exc), exc, exc.__traceback__))
+    return JSONResponse(error_body("internal", INTERNAL_MESSAGE, {"incident": incident}), status_code=500)

@@ -6,6 +6,7 @@ POST /api/agreement/upload  the same from a CSV/TSV file (multipart ``file``, fo
 """
 from __future__ import annotations
 
+import csv
 import io
 from typing import Annotated, Any, Literal
 
@@ -19,6 +20,7 @@ from ..stats.agreement import agreement_summary
 from ..stats.errors import InputError
 from ..stats.stability import retest
 from .errors import ApiError, not_found
+from .openapi import error_responses
 
 router = APIRouter()
 
@@ -79,7 +81,7 @@ def _missing_items(wanted: list[str], ds, dataset_id: str, which: str, code: str
                        {"dataset": dataset_id, "which": which, "items": missing})
 
 
-@router.post("/retest")
+@router.post("/retest", responses=error_responses(404))
 def post_retest(body: RetestRequest, request: Request) -> dict:
     """Test-retest or parallel-forms stability of the (pruned) scale, matched by respondent ID."""
     return compute_retest(request.app, body)
@@ -215,7 +217,7 @@ def _looks_like_ids(columns: list[str], df: pd.DataFrame) -> bool:
     return not all(is_number(v) for v in values)
 
 
-@router.post("/agreement/upload")
+@router.post("/agreement/upload", responses=error_responses(413))
 async def post_agreement_upload(request: Request, file: Annotated[UploadFile, File()],
                                 level: Annotated[str, Form()],
                                 id_column: Annotated[Literal["auto", "yes", "no"], Form()] = "auto") -> dict:
@@ -237,7 +239,7 @@ async def post_agreement_upload(request: Request, file: Annotated[UploadFile, Fi
             raise ApiError(422, "bad_file", f"'{name}' is not a text (CSV/TSV) file.", {"file": name}) from None
     try:
         df = pd.read_csv(io.StringIO(text), sep=None, engine="python", dtype=str, keep_default_na=False)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, TypeError) as exc:
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, TypeError, csv.Error) as exc:
         raise ApiError(422, "bad_file", f"'{name}' could not be read as a table: {exc}", {"file": name}) from None
     columns = [str(c) for c in df.columns]
     use_ids = id_column == "yes" or (id_column == "auto" and _looks_like_ids(columns, df))

@@ -44,6 +44,7 @@ from fastapi.responses import StreamingResponse
 from pydantic import BaseModel, Field
 
 from .errors import ApiError, not_found
+from .openapi import error_responses
 
 router = APIRouter()
 
@@ -190,7 +191,7 @@ def _sse(event: str | None, data: dict, ident: int | None = None) -> str:
     return "\n".join(lines) + "\n\n"
 
 
-@router.get("/datasets/{dataset_id}/events", include_in_schema=True,
+@router.get("/datasets/{dataset_id}/events", include_in_schema=True, responses=error_responses(429),
             summary="Live stream of other pages' changes to this dataset (server-sent events)")
 async def events(dataset_id: str, request: Request):
     _check_dataset(request, dataset_id)
@@ -240,7 +241,7 @@ class LiveMessage(BaseModel):
     detail: str = Field("", max_length=300, description="Optional short human-readable description.")
 
 
-@router.post("/datasets/{dataset_id}/events", status_code=202,
+@router.post("/datasets/{dataset_id}/events", status_code=202, responses=error_responses(413),
              summary="Relay a change to every other page open on this dataset")
 async def post_event(dataset_id: str, message: LiveMessage, request: Request):
     _check_dataset(request, dataset_id)

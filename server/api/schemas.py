@@ -36,3 +36,24 @@ class DatasetOut(BaseModel):
     codebook_filename: str | None = None
     size_bytes: int
     options: dict = Field(description="How the file was read: missing_codes, id_column, scale_min, scale_max.")
+
+
+class ErrorDetail(BaseModel):
+    """What went wrong, in words a user can act on."""
+
+    code: str = Field(description="Short machine-readable word, e.g. not_found, bad_column, too_large.")
+    message: str = Field(description="One or two sentences naming the file, column, row or value involved.")
+    details: dict = Field(default_factory=dict, description="The named things as data (file, column, row...).")
+
+
+class ErrorBody(BaseModel):
+    """Every error the API answers (any 4xx or 5xx): {"error": {"code", "message", "details"}}."""
+
+    error: ErrorDetail
+
+
+class HealthOut(BaseModel):
+    """GET /api/health."""
+
+    status: str = Field(description="'ok' while the server answers.")
+    version: str = Field(description="Scalewright's version.")

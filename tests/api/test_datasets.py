@@ -8,10 +8,10 @@ from pathlib import Path
 
 import openpyxl
 import pytest
-from fastapi.testclient import TestClient
 
 from server.app import create_app
 from server.settings import Settings
+from tests.conftest import local_client
 
 REF = Path(__file__).parent.parent / "reference" / "intake"
 GOOD = b"id,Q1,Q2,Q3\n1,1,2,3\n2,2,3,4\n3,4,5,5\n4,5,4,2\n"
@@ -178,7 +178,7 @@ def test_garbage_never_gives_a_500(client):
 @pytest.fixture
 def small_client(tmp_path):
     settings = Settings(data_dir=tmp_path / "small", max_upload_mb=0.1)  # 104,857 bytes
-    with TestClient(create_app(settings)) as c:
+    with local_client(create_app(settings)) as c:
         yield c
 
 
@@ -220,9 +220,9 @@ def test_413_for_a_file_just_over_the_limit(small_client):
 def test_dataset_survives_a_restart(tmp_path):
     settings = Settings(data_dir=tmp_path / "keep")
     raw = (REF / "pilot_semicolon_latin1.csv").read_bytes()
-    with TestClient(create_app(settings)) as c1:
+    with local_client(create_app(settings)) as c1:
         first = _upload(c1, raw, "pilot.csv", missing_codes="-9").json()
-    with TestClient(create_app(Settings(data_dir=tmp_path / "keep"))) as c2:
+    with local_client(create_app(Settings(data_dir=tmp_path / "keep"))) as c2:
         again = c2.get(f"/api/datasets/{first['id']}")
         assert again.status_code == 200
         assert again.json() == first

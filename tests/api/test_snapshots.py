@@ -13,10 +13,10 @@ import numpy as np
 import pandas as pd
 import pingouin as pg
 import pytest
-from fastapi.testclient import TestClient
 
 from server import __version__
 from server.app import create_app
+from tests.conftest import local_client
 
 ITEMS = [f"Q{i}" for i in range(1, 9)]
 SETTINGS = {"n_factors": 2, "pa_iterations": 50, "seed": 3, "rotation": "oblimin"}
@@ -310,7 +310,7 @@ def test_everything_survives_a_restart(settings, dataset_id, client):
     a = save(client, dataset_id, name="one").json()
     b = save(client, dataset_id, name="two", parent=a["id"]).json()
     listed = client.get(f"/api/datasets/{dataset_id}/snapshots").json()
-    with TestClient(create_app(settings)) as fresh:
+    with local_client(create_app(settings)) as fresh:
         assert fresh.get(f"/api/datasets/{dataset_id}/snapshots").json() == listed
         assert fresh.get(f"/api/snapshots/{a['id']}").json() == a
         assert fresh.get(f"/api/snapshots/{b['id']}").json() == b

@@ -2,15 +2,15 @@
 from __future__ import annotations
 
 import pytest
-from fastapi.testclient import TestClient
 
 from server.app import create_app
 from server.settings import Settings
+from tests.conftest import local_client
 
 
 @pytest.fixture
 def shared(tmp_path):
-    with TestClient(create_app(Settings(host="0.0.0.0", token="t", data_dir=tmp_path / "d"))) as c:
+    with local_client(create_app(Settings(host="0.0.0.0", token="t", data_dir=tmp_path / "d"))) as c:
         yield c
 
 
@@ -47,7 +47,7 @@ def test_live_events_need_the_token_too(shared):
 def test_a_generated_token_when_none_is_given(tmp_path):
     s = Settings(host="0.0.0.0", data_dir=tmp_path / "d")
     assert s.token and len(s.token) >= 16
-    with TestClient(create_app(s)) as c:
+    with local_client(create_app(s)) as c:
         assert c.get("/api/health").status_code == 401
         assert c.get("/api/health", headers={"X-Scalewright-Token": s.token}).status_code == 200
 
@@ -55,6 +55,6 @@ def test_a_generated_token_when_none_is_given(tmp_path):
 def test_on_localhost_no_token_is_needed(tmp_path):
     s = Settings(host="127.0.0.1", data_dir=tmp_path / "d")
     assert s.token is None
-    with TestClient(create_app(s)) as c:
+    with local_client(create_app(s)) as c:
         assert c.get("/api/health").status_code == 200
         assert c.get("/").status_code == 200
