@@ -12,8 +12,12 @@ from __future__ import annotations
 
 import csv
 import io
+import posixpath
+import pyexpat
 import re
 import warnings as _warnings
+import xml.etree.ElementTree as ET
+import zipfile
 from dataclasses import asdict, dataclass, field
 from pathlib import PurePath
 
@@ -22,7 +26,8 @@ import pandas as pd
 
 from .stats.errors import InputError
 
-__all__ = ["Codebook", "CodebookEntry", "ItemMeta", "ParsedDataset", "read_codebook", "read_responses"]
+__all__ = ["NO_LIMITS", "Codebook", "CodebookEntry", "IntakeLimits", "ItemMeta", "ParsedDataset", "read_codebook",
+           "read_responses"]
 
 CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
@@ -119,6 +124,41 @@ class CodebookEntry:
 class Codebook:
     entries: dict[str, CodebookEntry]
     warnings: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class IntakeLimits:
+    """How much a file may cost to read; the defaults are those of ``server.settings.Settings``.
+
+    ``None`` turns a limit off. Files wider than :attr:`max_columns` are refused before they are parsed;
+    item columns beyond ``max_items`` after the columns are classified.
+    """
+
+    max_items: int | None = 1000
+    max_xlsx_cells: int | None = 5_000_000
+    max_unpacked_bytes: int | None = 1024 * 1024 * 1024
+
+    @classmethod
+    def from_settings(cls, settings) -> IntakeLimits:
+        return cls(max_items=settings.max_items, max_xlsx_cells=settings.max_xlsx_cells,
+                   max_unpacked_bytes=settings.max_unpacked_bytes)
+
+    @property
+    def max_columns(self) -> int | None:
+        """Columns a table may have at all: 3 x max_items + 100, room for IDs, demographics and metadata."""
+        return None if self.max_items is None else 3 * self.max_items + 100
+
+
+# The engine re-reads datasets that were accepted at upload: a limit lowered later must not lock them out.
+NO_LIMITS = IntakeLimits(max_items=None, max_xlsx_cells=None, max_unpacked_bytes=None)
+MAX_XLSX_PARTS = 10_000  # a workbook is a few dozen zip members; a zip of more is not read (its index alone is big)
+MAX_XML_DEPTH = 64       # sheet XML nests about six deep (worksheet/sheetData/row/c/is/r/t)
+# Absurd answers (common practice: a screening rule in the spirit of Tukey's far-out fences, widened so
+# that only typos, overflows and undeclared codes are caught): beyond ABSURD_ABS in absolute value (or
+# ABSURD_SPREADS x the largest declared bound, when that is larger); for an item without a declared range,
+# also farther than ABSURD_SPREADS x max(P95 - P5, 1) from the item's median.
+ABSURD_ABS = 1e6
+ABSURD_SPREADS = 100
 
 
 # --------------------------------------------------------------------------------------------------------
@@ -379,7 +419,7 @@ def _clean_header(header: list, filename: str) -> list[str]:
     return out
 
 
-def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
+def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limits: IntakeLimits = IntakeLimits()
                     ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
     """Read delimited text. Returns (frame, file row numbers, warnings, info)."""
     if raw[:2] not in (b"\xff\xfe", b"\xfe\xff") and b"\x00" in raw[:SAMPLE_BYTES]:  # UTF-16 has NULs
@@ -398,6 +438,7 @@ def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
                      f"{'it was' if len(titles) == 1 else 'they were'} read as a title, not as the header row.")
     delim = _detect_delimiter(sample.lstrip("\ufeff"), filename, allow_single=as_strings)
     decimal_comma = (not as_strings) and _detect_decimal_comma(sample, delim)
+    _check_width(_header_width(raw, delim), filename, limits)  # before any structure per cell is built
     header, row_numbers = _scan_records(raw, encoding, delim, filename)
     names = _clean_header(header, filename)
     opts = {"sep": delim, "header": 0, "names": names, "engine": "c", "skip_blank_lines": True,
@@ -423,12 +464,294 @@ def _read_delimited(raw: bytes, filename: str, *, as_strings: bool = False
     return df, row_numbers, notes, info
 
 
-def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False
+def _header_width(raw: bytes, delim: str) -> int:
+    """Fields in the first non-blank line, counted on the bytes with quoted parts left out (no parsing)."""
+    start = re.match(rb"(?:\xef\xbb\xbf)?[\s,;|]*\n", raw)
+    start = start.end() if start else 0
+    end = raw.find(b"\n", start)
+    line = raw[start:] if end < 0 else raw[start:end]
+    if b'"' in line:
+        line = re.sub(rb'"[^"]*"', b"", line)
+    return line.count(delim.encode()) + 1
+
+
+def _check_width(n_columns: int, filename: str, limits: IntakeLimits, where: str = "") -> None:
+    """Refuse a table too wide to hold at most ``max_items`` items, before it is parsed."""
+    cap = limits.max_columns
+    if cap is None or n_columns <= cap:
+        return
+    raise InputError(
+        f"'{filename}' has {n_columns:,} columns{where}; at most {limits.max_items:,} item columns are analysed "
+        f"(setting max_items), and a table of more than {cap:,} columns is not read. Upload the items of one "
+        "scale (or a few) at a time, or start the server with a higher --max-items.",
+        code="too_many_items",
+        details={"file": filename, "columns": n_columns, "limit": limits.max_items, "max_columns": cap})
+
+
+def _count_words(n: float) -> str:
+    """12,345 / 4.2 million / 17.2 billion."""
+    if n >= 1e9:
+        return f"{n / 1e9:.1f} billion"
+    if n >= 1e7:
+        return f"{n / 1e6:.1f} million"
+    return f"{int(n):,}"
+
+
+def _mb(n: int) -> str:
+    return f"{n / 1024 / 1024:,.1f} MB"
+
+
+def _col_number(letters: str) -> int:
+    n = 0
+    for ch in letters.upper():
+        n = n * 26 + ord(ch) - 64
+    return n
+
+
+def _col_letters(n: int) -> str:
+    out = ""
+    while n > 0:
+        n, r = divmod(n - 1, 26)
+        out = chr(65 + r) + out
+    return out or "A"
+
+
+_CELL_REF = re.compile(r"^\$?([A-Za-z]{1,7})\$?(\d{1,15})$")
+
+
+def _local(tag) -> str:
+    return tag.rpartition("}")[2] if isinstance(tag, str) else ""
+
+
+def _xml_events(fh, where: str, filename: str):
+    """(event, element) of an XML stream in constant memory: an element's children are dropped as they end.
+
+    An element's attributes are read at its start; after a child ends the parent is cleared.
+    """
+    stack: list = []
+    try:
+        for event, el in ET.iterparse(fh, events=("start", "end")):
+            if event == "start":
+                stack.append(el)
+                if len(stack) > MAX_XML_DEPTH:
+                    raise InputError(f"{where} of '{filename}' nests its XML more than {MAX_XML_DEPTH} levels "
+                                     "deep; it is not a worksheet a spreadsheet program writes.",
+                                     code="not_a_table", details={"file": filename})
+                yield event, el
+            else:
+                yield event, el
+                stack.pop()
+                if stack:
+                    stack[-1].clear()
+    except ET.ParseError as exc:
+        raise InputError(f"{where} of '{filename}' is not well-formed XML ({exc}); open and save the workbook "
+                         "in a spreadsheet program.", code="not_a_table", details={"file": filename}) from None
+
+
+def _root_tag(zf: zipfile.ZipFile, info: zipfile.ZipInfo) -> str:
+    """The local name of a zip member's XML root element ('' when it is not XML)."""
+    try:
+        with zf.open(info) as fh:
+            parser = ET.XMLPullParser(events=("start",))
+            for _ in range(16):  # a prolog longer than 64 KB is not a workbook part
+                chunk = fh.read(4096)
+                if not chunk:
+                    break
+                parser.feed(chunk)
+                for _, el in parser.read_events():
+                    return _local(el.tag)
+    except Exception:  # noqa: BLE001  (binary parts, encrypted members: not a sheet)
+        return ""
+    return ""
+
+
+def _sheet_names(zf: zipfile.ZipFile, filename: str) -> dict[str, str]:
+    """Worksheet part -> sheet name, from xl/workbook.xml and xl/_rels/workbook.xml.rels (best effort)."""
+    try:
+        by_rid: dict[str, str] = {}
+        with zf.open("xl/workbook.xml") as fh:
+            for event, el in _xml_events(fh, "The workbook part", filename):
+                if event == "start" and _local(el.tag) == "sheet":
+                    rid = next((v for k, v in el.attrib.items() if _local(k) == "id"), None)
+                    if rid is not None:
+                        by_rid[rid] = el.get("name", "")
+        out = {}
+        with zf.open("xl/_rels/workbook.xml.rels") as fh:
+            for event, el in _xml_events(fh, "The workbook relationships", filename):
+                if event == "start" and _local(el.tag) == "Relationship" and el.get("Id") in by_rid:
+                    target = el.get("Target", "")
+                    part = target.lstrip("/") if target.startswith("/") else posixpath.normpath("xl/" + target)
+                    out[part] = by_rid[el.get("Id")]
+        return out
+    except Exception:  # noqa: BLE001  (names only make the messages nicer)
+        return {}
+
+
+def _xlsx_guard(raw: bytes, filename: str, limits: IntakeLimits) -> None:
+    """Size up an XLSX before any reader builds a grid from it; raise 413 when it would cost too much.
+
+    Checks, in order: the number of zip members; the sum of the members' declared uncompressed sizes
+    against ``max_unpacked_bytes`` (Python's zipfile, which openpyxl reads through, never inflates a
+    member past its declared size, so the declared sizes bound the work); then each worksheet part
+    (every member whose XML root is ``worksheet``, wherever it lies), streamed in constant memory:
+    its declared ``<dimension>``, the rows it numbers, the count of its cells, and the extent of the
+    cells that hold a value (the grid pandas builds, whatever the dimension says) against
+    ``max_xlsx_cells``, and that extent's columns against the column cap of ``max_items``.
+    """
+    if limits == NO_LIMITS:
+        return
+    tail = raw[-(0xFFFF + 22):]
+    eocd = tail.rfind(b"PK\x05\x06")
+    if eocd >= 0 and len(tail) - eocd >= 22:
+        parts = int.from_bytes(tail[eocd + 10:eocd + 12], "little")  # 0xFFFF: a zip64 count, even more
+        if parts > MAX_XLSX_PARTS:
+            raise InputError(
+                f"'{filename}' is a zip of {parts:,} or more parts; a workbook has a few dozen, and at most "
+                f"{MAX_XLSX_PARTS:,} are read.", code="too_large_unpacked", status=413,
+                details={"file": filename, "parts": parts, "limit": MAX_XLSX_PARTS})
+    try:
+        zf = zipfile.ZipFile(io.BytesIO(raw))
+    except Exception:  # noqa: BLE001  (not a zip: the reader says what is wrong with it)
+        return
+    with zf:
+        infos = zf.infolist()
+        total = sum(i.file_size for i in infos)
+        cap = limits.max_unpacked_bytes
+        if cap is not None and total > cap:
+            big = max(infos, key=lambda i: i.file_size)
+            raise InputError(
+                f"The workbook '{filename}' unpacks to {_mb(total)} ({_mb(len(raw))} packed; its largest part, "
+                f"'{big.filename}', alone to {_mb(big.file_size)}); at most {_mb(cap)} are read (setting "
+                "max_unpacked_mb). A workbook this much larger inside than outside is most likely a zip bomb; "
+                "if it is real data, save it as CSV.", code="too_large_unpacked", status=413,
+                details={"file": filename, "unpacked_bytes": total, "limit_bytes": cap, "part": big.filename})
+        names = None
+        for info in infos:
+            if info.is_dir() or _root_tag(zf, info) != "worksheet":
+                continue
+            if names is None:
+                names = _sheet_names(zf, filename)
+            _check_sheet(zf, info, names.get(info.filename, info.filename), filename, limits)
+
+
+def _row_number(text: str, previous: int) -> int:
+    """A <row r="..."> as openpyxl reads it (a whole number, also written as '1e6'), else the next row."""
+    try:
+        return int(text)
+    except ValueError:
+        try:
+            val = float(text)
+        except ValueError:
+            return previous + 1
+        return int(val) if np.isfinite(val) and val.is_integer() else previous + 1
+
+
+def _check_sheet(zf: zipfile.ZipFile, info: zipfile.ZipInfo, sheet: str, filename: str,
+                 limits: IntakeLimits) -> None:
+    """Stream one worksheet part and refuse it (413) as soon as reading it would cost more than allowed.
+
+    Follows openpyxl's reading: a row's number is its ``r`` (else the previous one plus 1), every child of
+    a row is a cell, a cell's column is its reference's (else the previous one plus 1); each row is
+    padded to its last cell, and the grid pandas builds spans the last row and column holding a value
+    (a cell with a ``<v>`` or inline ``<t>``). Expat callbacks, one per tag, in constant memory.
+    """
+    cap = limits.max_xlsx_cells
+    where = f"The sheet '{sheet}'"
+
+    def refuse(what: str, rows: int, cols: int, **extra):
+        cells = rows * max(cols, 1)
+        raise InputError(
+            f"{where} of '{filename}' {what} ({rows:,} rows x {cols:,} columns = {_count_words(cells)} cells); "
+            f"at most {cap:,} are read (setting max_xlsx_cells). Copy the table into a new workbook (or delete "
+            "the cells far below or to the right of it), save it as CSV, or start the server with a higher "
+            "--max-xlsx-cells.", code="too_many_cells", status=413,
+            details={"file": filename, "sheet": sheet, "rows": rows, "columns": cols, "cells": cells,
+                     "limit": cap, **extra})
+
+    depth = row_depth = row = col = width = cells = visited = grid_rows = grid_cols = 0
+    valued = False
+    columns: dict[str, int] = {}  # cell reference -> column, per distinct letters (a sheet has few)
+
+    def start(name, attrs):
+        nonlocal depth, row_depth, row, col, width, cells, valued
+        depth += 1
+        if row_depth:
+            if depth == row_depth + 1:  # a cell
+                ref = attrs.get("r")
+                letters = ref.rstrip("0123456789$").lstrip("$") if ref else ""
+                if letters:
+                    col = columns.get(letters) or columns.setdefault(letters, _col_number(letters))
+                else:
+                    col += 1
+                width = max(width, col)
+                cells += 1
+                valued = False
+                if cells > 16_384 and cap is not None:  # Excel's last column is XFD = 16,384
+                    refuse(f"has a row ({row:,}) of more than 16,384 cells", row, cells)
+            elif depth > row_depth + 1 and name[-1] in "vt" and name.rpartition(":")[2] in ("v", "t"):
+                valued = True
+            return
+        if depth > MAX_XML_DEPTH:
+            raise InputError(f"{where} of '{filename}' nests its XML more than {MAX_XML_DEPTH} levels deep; it is "
+                             "not a worksheet a spreadsheet program writes.", code="not_a_table",
+                             details={"file": filename})
+        local = name.rpartition(":")[2]
+        if local == "row":
+            row_depth = depth
+            r = attrs.get("r")
+            row = row + 1 if r is None else _row_number(r.strip(), row)
+            col = width = cells = 0
+            if cap is not None and row > cap:  # every row up to this one is read, even empty ones
+                refuse(f"numbers a row {row:,}", row, max(grid_cols, 1))
+        elif local == "dimension" and cap is not None:
+            ref = str(attrs.get("ref") or "").strip()
+            m = _CELL_REF.match(ref.split(":")[-1].strip())
+            if m and int(m.group(2)) * _col_number(m.group(1)) > cap:
+                refuse(f"declares the dimension {ref}", int(m.group(2)), _col_number(m.group(1)), dimension=ref)
+
+    def end(name):
+        nonlocal depth, row_depth, visited, grid_rows, grid_cols
+        ended = depth
+        depth -= 1
+        if not row_depth or ended > row_depth + 1:
+            return
+        if ended == row_depth + 1:  # a cell ended
+            if valued and (row > grid_rows or col > grid_cols):
+                grid_rows, grid_cols = max(grid_rows, row), max(grid_cols, col)
+                if cap is not None and grid_rows * grid_cols > cap:
+                    ref = f"A1:{_col_letters(grid_cols)}{grid_rows}"
+                    refuse(f"has a value in cell {_col_letters(col)}{row}, so its table spans {ref}", grid_rows,
+                           grid_cols, dimension=ref)
+                if limits.max_columns is not None and grid_cols > limits.max_columns:
+                    _check_width(grid_cols, filename, limits,
+                                 f" in sheet '{sheet}' (it has a value in column {_col_letters(grid_cols)})")
+            return
+        row_depth = 0  # the row ended
+        visited += width or 1
+        if cap is not None and visited > cap:
+            refuse(f"spreads its cells over more than {cap:,} positions up to row {row:,}", row,
+                   max(grid_cols, width))
+
+    parser = pyexpat.ParserCreate()
+    parser.StartElementHandler = start
+    parser.EndElementHandler = end
+    try:
+        with zf.open(info) as fh:
+            while chunk := fh.read(1 << 20):
+                parser.Parse(chunk, False)
+            parser.Parse(b"", True)
+    except pyexpat.ExpatError as exc:
+        raise InputError(f"{where} of '{filename}' is not well-formed XML ({exc}); open and save the workbook "
+                         "in a spreadsheet program.", code="not_a_table", details={"file": filename}) from None
+
+
+def _read_xlsx(raw: bytes, filename: str, *, as_strings: bool = False, limits: IntakeLimits = IntakeLimits()
                ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
     notes: list[str] = []
     if raw[:4] == b"\xd0\xcf\x11\xe0":
         raise InputError(f"The file '{filename}' is an old Excel 97-2003 (.xls) workbook; save it as .xlsx "
                          "or CSV.", code="unsupported_format", details={"file": filename})
+    _xlsx_guard(raw, filename, limits)  # the reader below builds the sheet's whole grid: size it up first
     try:
         book = pd.ExcelFile(io.BytesIO(raw), engine="openpyxl")
         sheets = book.sheet_names
@@ -511,8 +834,10 @@ def _formula_columns(raw: bytes, sheet: str, header_row: int, columns: list[int]
 
         wb = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=False)
         ws = wb[sheet]
+        ws.reset_dimensions()  # rows padded only to the columns asked for, whatever the sheet declares
         found = set()
-        for row in ws.iter_rows(min_row=header_row + 2, max_row=min(n_rows, header_row + 51), values_only=True):
+        for row in ws.iter_rows(min_row=header_row + 2, max_row=min(n_rows, header_row + 51), min_col=1,
+                                max_col=max(columns) + 1, values_only=True):
             for i, col in enumerate(columns):
                 v = row[col] if col < len(row) else None
                 if isinstance(v, str) and v.startswith("="):
@@ -535,13 +860,13 @@ def _cell_text(v) -> str:
     return str(v).strip()
 
 
-def _read_table(raw: bytes, filename: str, *, as_strings: bool = False):
+def _read_table(raw: bytes, filename: str, *, as_strings: bool = False, limits: IntakeLimits = IntakeLimits()):
     if raw is None or len(raw) == 0 or not raw.strip():
         raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
     try:
         if _is_xlsx(raw, filename):
-            return _read_xlsx(raw, filename, as_strings=as_strings)
-        return _read_delimited(raw, filename, as_strings=as_strings)
+            return _read_xlsx(raw, filename, as_strings=as_strings, limits=limits)
+        return _read_delimited(raw, filename, as_strings=as_strings, limits=limits)
     except InputError:
         raise
     except Exception as exc:  # a file nobody foresaw: still a message naming it, never a crash
@@ -581,13 +906,13 @@ def _reverse_key(text: str) -> str:
     return key
 
 
-def read_codebook(raw: bytes, filename: str) -> Codebook:
+def read_codebook(raw: bytes, filename: str, *, limits: IntakeLimits = IntakeLimits()) -> Codebook:
     """Read a codebook (CSV or XLSX) with columns item, text, construct, reverse, optional min and max.
 
     ``reverse`` accepts 1/0, yes/no, true/false, R (and +/- keying). Raises InputError naming the codebook
     file, row and value for anything it cannot use.
     """
-    df, row_numbers, notes, _ = _read_table(raw, filename, as_strings=True)
+    df, row_numbers, notes, _ = _read_table(raw, filename, as_strings=True, limits=limits)
     cols: dict[str, str] = {}
     for c in df.columns:
         key = _norm(c)
@@ -828,10 +1153,94 @@ def _skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename:
     return df, row_numbers[n_head:], header_text
 
 
+def _as_written(raw: bytes, filename: str, limits: IntakeLimits, cells: list[dict]) -> list[dict]:
+    """The cells with their text as the file writes it ('1e400' rather than the 'inf' it reads as).
+
+    Only for error messages: the file is read again as text; a cell not found keeps its number.
+    """
+    try:
+        df, rows, _, _ = _read_table(raw, filename, as_strings=True, limits=limits)
+        position = {int(r): i for i, r in enumerate(rows)}
+        for cell in cells:
+            i = position.get(cell["row"])
+            if i is not None and cell["column"] in df.columns:
+                text = str(df[cell["column"]].iat[i]).strip()
+                cell["value"] = text or cell["value"]
+    except Exception:  # noqa: BLE001  (the message falls back to the number as read)
+        return cells
+    return cells
+
+
+def _refuse_absurd(responses: np.ndarray, item_cols: list[str], row_numbers: np.ndarray, mins: np.ndarray,
+                   maxs: np.ndarray, declared: np.ndarray, raw: bytes, filename: str,
+                   limits: IntakeLimits) -> None:
+    """Raise ``absurd_value`` naming the answers far outside any rating scale (rule: ``ABSURD_ABS``).
+
+    A value beyond ABSURD_ABS (or ABSURD_SPREADS x the largest declared bound) in absolute value, or, for
+    an item without a declared range, farther than ABSURD_SPREADS x max(P95 - P5, 1) from its median
+    (common practice: a far-out fence as Tukey's, widened so only typos, overflows and codes are caught).
+    Values merely outside a declared range are not absurd: they are set to missing with a warning.
+    """
+    k = responses.shape[1]
+    if not k or not responses.shape[0]:
+        return
+    bound = np.full(k, ABSURD_ABS)
+    if declared.any():
+        widest = ABSURD_SPREADS * np.maximum(np.abs(mins), np.abs(maxs))
+        bound[declared] = np.maximum(bound[declared], widest[declared])
+    # A cheap screen first (fmin/fmax skip NaN and make no copy of the matrix); the median and percentiles
+    # are computed only for the few columns that could hold an absurd value: the fence is at least
+    # ABSURD_SPREADS wide, so a column whose whole range is narrower has none beyond it.
+    with np.errstate(invalid="ignore"):
+        lo = np.fmin.reduce(responses, axis=0)
+        hi = np.fmax.reduce(responses, axis=0)
+    suspect = (np.abs(lo) > bound) | (np.abs(hi) > bound) | (~declared & (hi - lo > ABSURD_SPREADS))
+    if not suspect.any():
+        return
+    centre = np.zeros(k)
+    flagged: list[tuple[int, np.ndarray]] = []
+    for j in np.flatnonzero(suspect):
+        col = responses[:, j]
+        with np.errstate(invalid="ignore"):
+            bad = np.abs(col) > bound[j]
+            if not declared[j]:
+                seen = col[~np.isnan(col)]
+                if seen.size:
+                    centre[j] = float(np.median(seen))
+                    p5, p95 = np.percentile(seen, [5, 95])
+                    bad |= np.abs(col - centre[j]) > ABSURD_SPREADS * max(p95 - p5, 1.0)
+        rows = np.flatnonzero(bad)
+        if rows.size:
+            flagged.append((int(j), rows))
+    if not flagged:
+        return
+    cells = []
+    for j, rows in flagged:
+        for i in rows:
+            if len(cells) >= MAX_LISTED:
+                break
+            if declared[j]:
+                usual = f"the item's range is {_fmt_num(mins[j])}-{_fmt_num(maxs[j])}"
+            else:
+                usual = f"its answers lie near {_fmt_num(centre[j])}"
+            cells.append({"column": item_cols[j], "row": int(row_numbers[i]), "value": _fmt_num(responses[i, j]),
+                          "expected": usual})
+    total = sum(len(rows) for _, rows in flagged)
+    cells = _as_written(raw, filename, limits, cells)
+    shown = "; ".join(f"column '{b['column']}', row {b['row']}: {b['value']}, where {b['expected']}" for b in cells)
+    raise InputError(
+        f"The file '{filename}' has {_plural(total, 'absurd value')} in item columns ({shown}"
+        f"{'; ...' if total > MAX_LISTED else ''}): far outside any rating scale, so probably a typo or a code. "
+        "Correct these cells, declare codes such as 999 as missing codes, or remove the column if it is not an "
+        "item.", code="absurd_value",
+        details={"file": filename, **{key: cells[0][key] for key in ("column", "row", "value")}, "cells": cells,
+                 "count": total})
+
+
 def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = None,
                    codebook_filename: str | None = None, missing_codes: list[float] | None = None,
                    id_column: str | None = None, scale_min: float | None = None,
-                   scale_max: float | None = None) -> ParsedDataset:
+                   scale_max: float | None = None, limits: IntakeLimits = IntakeLimits()) -> ParsedDataset:
     """Read a response file (rows = respondents, columns = items) and its optional codebook.
 
     Parameters
@@ -847,6 +1256,8 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         column of unique values is used.
     scale_min, scale_max
         The response range of every item when the codebook does not give one.
+    limits
+        What a file may cost (item columns, XLSX cells, unpacked bytes); :data:`NO_LIMITS` turns them off.
 
     Returns
     -------
@@ -860,8 +1271,11 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     Columns that are not items (IDs, free text, dates, demographics) are left out with a warning; with
     a codebook, a numeric column it does not list is kept as an item (with a warning) only when it is named
     like the codebook's items (``Q21`` beside ``Q1``..``Q20``), else left out.
-    Values outside the declared range are set to missing with a warning; rows with no answer at all are
-    dropped with a warning.
+    Values outside the declared range are set to missing with a warning naming the first cells; values
+    that are not finite (``inf``, ``1e400``) or absurd (see ``ABSURD_ABS``) are errors; the text ``nan``
+    is a missing value, as pandas reads it. Rows with no answer at all are dropped with a warning.
+    An XLSX is sized up from its zip index and streamed sheet XML before any grid is built (413 when it
+    would cost more than ``limits`` allow); more than ``limits.max_items`` item columns give 422.
 
     Survey-platform layouts are recognised, each with a warning: single-cell title rows above the header,
     up to three extra header rows under it (question text, an import-ID row; the question text becomes the
@@ -884,10 +1298,10 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
 
     codebook: Codebook | None = None
     if codebook_raw is not None and len(codebook_raw) > 0:
-        codebook = read_codebook(codebook_raw, codebook_filename or "codebook")
+        codebook = read_codebook(codebook_raw, codebook_filename or "codebook", limits=limits)
         notes.extend(codebook.warnings)
 
-    df, row_numbers, read_notes, info = _read_table(raw, filename)
+    df, row_numbers, read_notes, info = _read_table(raw, filename, limits=limits)
     notes.extend(read_notes)
     df, row_numbers, header_text = _skip_extra_header_rows(df, row_numbers, filename, notes,
                                                            set(info.get("unnamed", ())))
@@ -1062,6 +1476,13 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                      f"{'does not look like an item was' if one else 'do not look like items were'} "
                      f"left out: {why}{more}.")
 
+    if limits.max_items is not None and len(item_cols) > limits.max_items:
+        raise InputError(
+            f"'{filename}' has {len(item_cols):,} item columns; at most {limits.max_items:,} are analysed (setting "
+            "max_items). Upload the items of one scale (or a few) at a time, or start the server with a higher "
+            "--max-items.", code="too_many_items",
+            details={"file": filename, "items": len(item_cols), "limit": limits.max_items})
+
     # ---- the matrix
     k = len(item_cols)
     responses = np.empty((n, k), dtype=np.float64)
@@ -1071,14 +1492,16 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
     del df, values
     infinite = np.isinf(responses)
     if infinite.any():
-        rows_i, cols_j = np.nonzero(infinite)
-        cells = [{"column": item_cols[j], "row": int(row_numbers[i]), "value": _fmt_num(responses[i, j])}
-                 for i, j in zip(rows_i[:MAX_LISTED], cols_j[:MAX_LISTED])]
+        cols_j, rows_i = np.nonzero(infinite.T)
+        cells = _as_written(raw, filename, limits, [
+            {"column": item_cols[j], "row": int(row_numbers[i]), "value": _fmt_num(responses[i, j])}
+            for i, j in zip(rows_i[:MAX_LISTED], cols_j[:MAX_LISTED])])
         shown = "; ".join(f"column '{b['column']}', row {b['row']}: '{b['value']}'" for b in cells)
         raise InputError(
-            f"The file '{filename}' has {_plural(len(rows_i), 'infinite value')} in item columns ({shown}); "
-            "answers must be finite numbers.", code="non_numeric",
-            details={"file": filename, **cells[0], "cells": cells})
+            f"The file '{filename}' has {_plural(len(rows_i), 'value')} in item columns that {'is' if len(rows_i) == 1 else 'are'} "
+            f"not a finite number ({shown}{'; ...' if len(rows_i) > MAX_LISTED else ''}): infinity, or a number too "
+            "large to be represented (beyond about 1.8e308). Correct these cells or empty them.",
+            code="non_finite_value", details={"file": filename, **cells[0], "cells": cells, "count": len(rows_i)})
 
     if codes:
         hit = np.isin(responses, np.asarray(codes))
@@ -1103,6 +1526,7 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         else:
             sources.append("observed")
     declared = np.array([s != "observed" for s in sources], dtype=bool)
+    _refuse_absurd(responses, item_cols, row_numbers, mins, maxs, declared, raw, filename, limits)
     if declared.any():
         with np.errstate(invalid="ignore"):
             outside = (responses < mins) | (responses > maxs)
@@ -1110,6 +1534,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
         per_item = outside.sum(axis=0)
         if per_item.any():
             before = {j: responses[:, j].copy() for j in np.flatnonzero(per_item)}
+            cols_j, rows_i = np.nonzero(outside.T)
+            examples = "; ".join(f"column '{item_cols[j]}', row {int(row_numbers[i])}: {_fmt_num(responses[i, j])}"
+                                 for j, i in zip(cols_j[:MAX_LISTED], rows_i[:MAX_LISTED]))
             responses[outside] = np.nan
             listed = [f"'{item_cols[j]}' {int(per_item[j])} (range {_fmt_num(mins[j])}-{_fmt_num(maxs[j])})"
                       for j in np.flatnonzero(per_item)]
@@ -1128,7 +1555,9 @@ def read_responses(raw: bytes, filename: str, *, codebook_raw: bytes | None = No
                              "runs on the answers left after the out-of-range ones were removed.")
             notes.append(f"{_plural(int(per_item.sum()), 'value')} outside the item's range "
                          f"{'was' if per_item.sum() == 1 else 'were'} set to missing: "
-                         f"{', '.join(listed[:10])}{' and more' if len(listed) > 10 else ''}.")
+                         f"{', '.join(listed[:10])}{' and more' if len(listed) > 10 else ''}; "
+                         f"{'the cell is' if per_item.sum() == 1 else 'first cells:'} {examples}"
+                         f"{'; ...' if per_item.sum() > MAX_LISTED else ''}.")
         del outside
 
     # ---- rows with no answer at all

@@ -18,15 +18,35 @@ class Settings:
                       "0.0.0.0 shares it on the local network and then requires the access token.",
                       "127.0.0.1")
     port: int = _help("TCP port to listen on.", 8765)
-    data_dir: Path = _help(  # noqa: RUF009  (a plain Path default, built once like the others)"Folder holding datasets, snapshots and the SQLite database; "
-                           "everything that must survive a restart.", Path("data"))
+    data_dir: Path = _help(  # noqa: RUF009  (a plain Path default, built once like the others)
+        "Folder holding datasets, snapshots and the SQLite database; everything that must survive a restart.",
+        Path("data"))
     max_upload_mb: float = _help("Largest upload accepted, in megabytes (larger files get 413).", 100.0)
     token: str | None = _help("Access token every request must carry when the server is shared "
                               "beyond this machine. Generated at start when needed.", None)
     demo: bool = _help("Load the built-in demo data set on first start.", False)
+    allowed_hosts: tuple[str, ...] = _help(
+        "Extra host names the server answers to (a LAN name or address), besides the bound address, "
+        "localhost, 127.0.0.1 and [::1]. Requests naming any other Host are refused (421), which stops a "
+        "web page from reaching the dashboard by rebinding its own name to this machine.", ())
+    max_items: int = _help("Most item columns a response file may have (more get 422 naming the count).", 1000)
+    max_xlsx_cells: int = _help("Most cells an XLSX sheet may span: its declared dimension and the extent "
+                                "of the cells it really holds, both read by streaming before the grid is "
+                                "loaded; larger sheets get 413 naming the sheet and dimension.",
+                                5_000_000)
+    max_unpacked_mb: float = _help("Most megabytes an XLSX workbook may unpack to (a guard against zip "
+                                   "bombs); larger workbooks get 413.", 1024.0)
+    cache_mb: float = _help("Memory, in megabytes, for parsed datasets kept between requests; the least "
+                            "recently used are dropped first (and re-read from disk when needed).", 2048.0)
+    max_import_mb: float = _help("Largest workspace backup the dashboard imports, in megabytes (the zip and "
+                                 "what it unpacks to; larger get 413); the command-line restore has no such limit.",
+                                 2048.0)
 
     def __post_init__(self):
         self.data_dir = Path(self.data_dir)
+        if isinstance(self.allowed_hosts, str):
+            self.allowed_hosts = tuple(h.strip() for h in self.allowed_hosts.split(",") if h.strip())
+        self.allowed_hosts = tuple(self.allowed_hosts)
         if self.token is None and not self.is_local:
             self.token = secrets.token_urlsafe(18)
 
@@ -37,6 +57,18 @@ class Settings:
     @property
     def max_upload_bytes(self) -> int:
         return int(self.max_upload_mb * 1024 * 1024)
+
+    @property
+    def cache_bytes(self) -> int:
+        return int(self.cache_mb * 1024 * 1024)
+
+    @property
+    def max_unpacked_bytes(self) -> int:
+        return int(self.max_unpacked_mb * 1024 * 1024)
+
+    @property
+    def max_import_bytes(self) -> int:
+        return int(self.max_import_mb * 1024 * 1024)
 
     @classmethod
     def describe(cls) -> list[tuple[str, object, str]]:

@@ -372,7 +372,7 @@ def test_round_trip_through_text(data, n, k, delim, crlf, bom, halves):
 
 def test_infinite_values_are_errors():
     err = _err(b"Q1,Q2\n1,2\n2,3\n3,-inf\n4,3\n5,4\n")
-    assert err.code == "non_numeric" and (err.details["column"], err.details["row"]) == ("Q2", 4)
+    assert err.code == "non_finite_value" and (err.details["column"], err.details["row"]) == ("Q2", 4)
     assert err.details["value"] == "-inf"
 
 
