@@ -1,4 +1,5 @@
-"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--demo]``."""
+"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--demo]``,
+``scalewright backup --data-dir DIR --out FILE.zip`` and ``scalewright restore --data-dir DIR FILE.zip [--merge]``."""
 from __future__ import annotations
 
 import argparse
@@ -21,7 +22,63 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--max-upload-mb", type=float, default=100.0, help="largest upload in MB (default 100)")
     s.add_argument("--token", default=None,
                    help="access token for network sharing (default: generated when --host is not local)")
+    s.add_argument("--allowed-hosts", default="",
+                   help="comma-separated extra host names the server answers to (e.g. a LAN name)")
+    s.add_argument("--max-items", type=int, default=1000, help="most item columns in a file (default 1000)")
+    s.add_argument("--max-xlsx-cells", type=int, default=5_000_000,
+                   help="most cells an XLSX sheet may declare (default 5000000)")
+    s.add_argument("--max-unpacked-mb", type=float, default=1024.0,
+                   help="most megabytes an XLSX may unpack to (default 1024)")
+    s.add_argument("--cache-mb", type=float, default=2048.0,
+                   help="memory for parsed datasets kept between requests, in MB (default 2048)")
+    s.add_argument("--max-import-mb", type=float, default=2048.0,
+                   help="largest workspace backup the dashboard imports, in MB (default 2048)")
+    b = sub.add_parser("backup", help="write the whole data folder into one zip (safe while a server runs)")
+    b.add_argument("--data-dir", type=Path, default=Path("data"), help="the data folder (default ./data)")
+    b.add_argument("--out", type=Path, required=True, help="the zip file to write")
+    b.add_argument("--who", default=None, help="your name, for the audit log")
+    r = sub.add_parser("restore", help="restore a backup zip into an empty data folder (or --merge)")
+    r.add_argument("--data-dir", type=Path, default=Path("data"), help="the data folder (default ./data)")
+    r.add_argument("zip", type=Path, help="the backup zip")
+    r.add_argument("--merge", action="store_true",
+                   help="add the backup's new datasets and snapshots to a folder already in use")
+    r.add_argument("--who", default=None, help="your name, for the audit log")
     return p
+
+
+def _workspace_command(args) -> int:
+    """``backup`` and ``restore``: one line of result on stdout, or one line of error on stderr and exit 1."""
+    import sqlite3
+
+    from .backup import BackupError, backup, restore
+    from .store import StartupError, StorageError, data_dir_holder
+
+    try:
+        if args.command == "backup":
+            out = backup(args.data_dir, args.out, who=args.who)
+            print(f"Backed up {out['datasets']} datasets and {out['snapshots']} snapshots to {out['path']} "
+                  f"({out['size']} bytes, SHA-256 {out['sha256']}).", flush=True)
+        else:
+            holder = data_dir_holder(args.data_dir)
+            if holder is not None:
+                raise StartupError(f"A Scalewright server (pid {holder.get('pid', 'unknown')}, port "
+                                   f"{holder.get('port', 'unknown')}) is using the data folder {args.data_dir}; "
+                                   "stop it first, or import the backup from its dashboard (Workspace & log).")
+            out = restore(args.data_dir, args.zip, merge=args.merge, who=args.who)
+            if out["mode"] == "merge":
+                print(f"Merged into {out['data_dir']}: added {len(out['datasets_added'])} datasets and "
+                      f"{len(out['snapshots_added'])} snapshots; skipped {len(out['datasets_skipped'])} datasets "
+                      f"and {len(out['snapshots_skipped'])} snapshots already there.", flush=True)
+            else:
+                print(f"Restored {out['datasets']} datasets and {out['snapshots']} snapshots into {out['data_dir']}.",
+                      flush=True)
+        return 0
+    except (BackupError, StartupError, StorageError) as exc:
+        message = getattr(exc, "message", None) or str(exc)
+    except (OSError, sqlite3.Error) as exc:
+        message = f"{type(exc).__name__}: {exc}"
+    print(f"scalewright {args.command}: {' '.join(str(message).split())}", file=sys.stderr, flush=True)
+    return 1
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -32,8 +89,22 @@ def main(argv: list[str] | None = None) -> int:
         from .app import create_app
 
         settings = Settings(host=args.host, port=args.port, data_dir=args.data_dir, demo=args.demo,
-                            max_upload_mb=args.max_upload_mb, token=args.token)
-        app = create_app(settings)
+                            max_upload_mb=args.max_upload_mb, token=args.token,
+                            allowed_hosts=args.allowed_hosts, max_items=args.max_items,
+                            max_xlsx_cells=args.max_xlsx_cells, max_unpacked_mb=args.max_unpacked_mb,
+                            cache_mb=args.cache_mb, max_import_mb=args.max_import_mb)
+        from .store import StartupError, StorageError, lock_data_dir, sweep_upload_leftovers
+
+        lock = None
+        try:  # one server per data folder; a bad folder or database is one line on stderr, no traceback
+            lock = lock_data_dir(settings.data_dir, port=settings.port)
+            sweep_upload_leftovers(settings.data_dir)  # parts of uploads cut short by a killed server
+            app = create_app(settings)
+        except (StartupError, StorageError) as exc:
+            if lock is not None:
+                lock.release()
+            print(str(exc), file=sys.stderr, flush=True)
+            return 1
         shown_host = "127.0.0.1" if settings.host in ("0.0.0.0", "::") else settings.host
         url = f"http://{shown_host}:{settings.port}/"
         if settings.token:
@@ -41,8 +112,13 @@ def main(argv: list[str] | None = None) -> int:
             print(f"Sharing beyond this machine: every request must carry the access token {settings.token}",
                   flush=True)
         print(f"Scalewright is running at {url}  (data folder: {settings.data_dir.resolve()})", flush=True)
-        uvicorn.run(app, host=settings.host, port=settings.port, log_level="warning")
+        try:
+            uvicorn.run(app, host=settings.host, port=settings.port, log_level="warning")
+        finally:
+            lock.release()
         return 0
+    if args.command in ("backup", "restore"):
+        return _workspace_command(args)
     return 2
 
 

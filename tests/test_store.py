@@ -209,3 +209,75 @@ def test_kill_9_while_saving_loses_no_acknowledged_snapshot(tmp_path):
         for sid, i in acked.items():
             assert store.get_snapshot(sid)["name"] == f"s{i}"
     assert len(acked) >= 65
+
+
+# ---- a response file given as a path (an upload already on disk) is moved, not written from memory
+
+def test_raw_path_is_moved_into_place_with_its_hash(tmp_path):
+    store = Store(tmp_path / "data")
+    src = tmp_path / "data" / "upload.part"
+    src.write_bytes(RAW * 1000)
+    rec = _add(store, raw=None, raw_path=src)
+    assert not src.exists()
+    assert store.read_raw(rec["id"]) == RAW * 1000
+    assert rec["sha256"] == hashlib.sha256(RAW * 1000).hexdigest() and rec["size_bytes"] == len(RAW) * 1000
+    assert store.get_dataset(rec["id"])["sha256"] == rec["sha256"]
+
+
+def test_raw_path_on_another_disk_is_copied_then_removed(tmp_path, monkeypatch):
+    import errno
+    import os
+
+    store = Store(tmp_path / "data")
+    src = tmp_path / "elsewhere.part"
+    src.write_bytes(RAW)
+    real_replace = os.replace
+
+    def cross_device(a, b):
+        if os.fspath(a) == os.fspath(src):
+            raise OSError(errno.EXDEV, "Invalid cross-device link")
+        return real_replace(a, b)
+
+    monkeypatch.setattr(os, "replace", cross_device)
+    rec = _add(store, raw=None, raw_path=src)
+    assert not src.exists() and store.read_raw(rec["id"]) == RAW
+    assert not list((tmp_path / "data" / "datasets" / rec["id"]).glob(".*.tmp"))
+
+
+def test_raw_path_failure_after_the_move_leaves_no_folder(tmp_path, monkeypatch):
+    store = Store(tmp_path / "data")
+    src = tmp_path / "data" / "upload.part"
+    src.write_bytes(RAW)
+
+    def refuse(self):
+        raise sqlite3.OperationalError("database is locked")
+
+    monkeypatch.setattr(SQLiteStore, "_write", refuse)
+    with pytest.raises(sqlite3.OperationalError):
+        _add(store, raw=None, raw_path=src)
+    monkeypatch.undo()
+    assert list((tmp_path / "data" / "datasets").iterdir()) == []
+    assert store.list_datasets() == []
+
+
+def test_raw_and_raw_path_are_exclusive(tmp_path):
+    store = Store(tmp_path / "data")
+    with pytest.raises(TypeError):
+        _add(store, raw=RAW, raw_path=tmp_path / "x")
+    with pytest.raises(TypeError):
+        _add(store, raw=None)
+    assert list((tmp_path / "data" / "datasets").iterdir()) == []
+
+
+def test_upload_leftovers_are_swept_and_nothing_else(tmp_path):
+    from server.store import sweep_upload_leftovers
+
+    store = Store(tmp_path / "d")
+    rec = store.add_dataset(name="x", raw=b"a,b\n1,2\n2,1\n", filename="x.csv")
+    tmp = tmp_path / "d" / "tmp"
+    tmp.mkdir(exist_ok=True)
+    (tmp / ".upload-abc.part").write_bytes(b"half an upload")
+    (tmp / "keep.txt").write_bytes(b"not an upload part")
+    assert sweep_upload_leftovers(tmp_path / "d") == 1
+    assert sorted(p.name for p in tmp.iterdir()) == ["keep.txt"]
+    assert store.read_raw(rec["id"]) == b"a,b\n1,2\n2,1\n"

@@ -5,11 +5,16 @@ optional ``codebook`` (CSV or XLSX), and optional fields ``missing_codes`` ("-9,
 ``scale_min``, ``scale_max`` and ``name``.  It answers 201 with :class:`~server.api.schemas.DatasetOut`.
 Bad files are 4xx with the one JSON error shape, naming file, column, row and value; an upload over
 ``settings.max_upload_bytes`` is 413 (checked from Content-Length first, and counted while reading).
+File parts are written straight to ``DATA/tmp/`` as they arrive (never held in memory by the parser); the
+response file is read once for parsing and then moved into the store, and the temp files are removed
+whatever the outcome.
 """
 from __future__ import annotations
 
 import math
-from pathlib import PurePath
+import os
+import tempfile
+from pathlib import Path, PurePath
 
 from fastapi import APIRouter, Request, Response
 from fastapi.concurrency import run_in_threadpool
@@ -17,9 +22,11 @@ from fastapi.responses import JSONResponse, PlainTextResponse
 from starlette.datastructures import UploadFile
 from starlette.formparsers import MultiPartException, MultiPartParser
 
-from ..intake import read_responses
+from ..intake import IntakeLimits, read_responses
 from ..stats.errors import InputError
 from .errors import ApiError, not_found
+from .openapi import error_responses
+from .routes_workspace import audit_dataset
 from .schemas import DatasetOut
 
 router = APIRouter(tags=["datasets"])
@@ -81,7 +88,42 @@ def parse_missing_codes(text: str | None) -> list[float]:
     return codes
 
 
-async def _read_form(request: Request, limit: int):
+class _DiskMultiPartParser(MultiPartParser):
+    """Starlette's multipart parser, writing each file part to its own file in ``folder`` instead of a
+    memory spool. Every path made is appended to ``made``; the caller removes them when done."""
+
+    def __init__(self, *args, folder: Path, made: list[Path], **kw):
+        super().__init__(*args, **kw)
+        self._folder, self._made = folder, made
+        self.opened: list = []
+
+    def on_headers_finished(self) -> None:
+        super().on_headers_finished()
+        upload = self._current_part.file
+        if upload is not None:
+            upload.file.close()  # the SpooledTemporaryFile Starlette made (still empty)
+            upload.file = tempfile.NamedTemporaryFile(  # noqa: SIM115  (closed by the form, or on error)
+                dir=self._folder, prefix=".upload-", suffix=".part", delete=False)
+            self._made.append(Path(upload.file.name))
+            self.opened.append(upload.file)
+
+
+def _upload_folder(request: Request) -> Path:
+    """``DATA/tmp``: uploads in flight, on the same disk as the datasets so a stored one is renamed."""
+    folder = Path(request.app.state.settings.data_dir) / "tmp"
+    folder.mkdir(exist_ok=True)
+    return folder
+
+
+def _remove_files(paths: list[Path]) -> None:
+    for path in paths:
+        try:
+            path.unlink(missing_ok=True)
+        except OSError:
+            pass
+
+
+async def _read_form(request: Request, limit: int, made: list[Path] | None = None):
     ctype = request.headers.get("content-type", "")
     if not ctype.lower().startswith("multipart/form-data"):
         raise ApiError(415, "unsupported_media_type", "Send the response file as multipart/form-data with the "
@@ -98,9 +140,16 @@ async def _read_form(request: Request, limit: int):
                 raise _TooLarge()
             yield chunk
 
-    parser = MultiPartParser(request.headers, counted(), max_files=4, max_fields=32)
+    made = [] if made is None else made
+    parser = _DiskMultiPartParser(request.headers, counted(), max_files=4, max_fields=32,
+                                  folder=_upload_folder(request), made=made)
     try:
-        return await parser.parse()
+        try:
+            return await parser.parse()
+        except BaseException:
+            for fh in parser.opened:  # the caller removes the files; close them first
+                fh.close()
+            raise
     except _TooLarge:
         raise _too_large(limit) from None
     except MultiPartException as exc:
@@ -108,17 +157,19 @@ async def _read_form(request: Request, limit: int):
                        f"{exc.message}", {}) from None
 
 
-async def _file_field(form, name: str, limit: int) -> tuple[bytes, str] | None:
+async def _file_field(form, name: str, limit: int) -> tuple[Path, str, int] | None:
+    """(path of the file on disk, its cleaned name, its size in bytes), or None when the field is absent."""
     value = form.get(name)
     if not isinstance(value, UploadFile):
         return None
     filename = (PurePath((value.filename or name).replace("\\", "/")).name or name)[:255]
-    data = await value.read()
-    if not data and not value.filename:  # a browser sends an empty part when no file was chosen
+    await run_in_threadpool(value.file.flush)
+    size = os.fstat(value.file.fileno()).st_size
+    if not size and not value.filename:  # a browser sends an empty part when no file was chosen
         return None
-    if len(data) > limit:
+    if size > limit:
         raise _too_large(limit, f"The file '{filename}'")
-    return data, filename
+    return Path(value.file.name), filename, size
 
 
 def _parse(raw: bytes, filename: str, **kw):
@@ -150,23 +201,56 @@ def _forget(request: Request, dataset_id: str) -> None:
         forget(dataset_id)
 
 
-@router.post("/datasets", status_code=201, responses={201: {"model": DatasetOut}})
+def _form_field(description: str, **schema) -> dict:
+    return {"type": "string", "description": description, **schema}
+
+
+BINARY = {"format": "binary", "contentMediaType": "application/octet-stream"}  # OpenAPI 3.0 and 3.1 spelling
+# The upload parses multipart by hand (to count bytes as they arrive), so its body is documented here.
+UPLOAD_BODY = {"requestBody": {"required": True, "content": {"multipart/form-data": {
+    "schema": {"type": "object", "required": ["file"], "properties": {
+        "file": _form_field("The response file: CSV, TSV or other delimited text, or XLSX.", **BINARY),
+        "codebook": _form_field("Optional codebook (CSV or XLSX): item, text, construct, reverse, min, max.",
+                                **BINARY),
+        "missing_codes": _form_field("Answers that mean 'missing', separated by commas, e.g. '-9,99'."),
+        "id_column": _form_field("Column holding the respondent ID (not an item)."),
+        "scale_min": _form_field("Lowest possible answer, when the codebook does not say (a number)."),
+        "scale_max": _form_field("Highest possible answer, when the codebook does not say (a number)."),
+        "name": _form_field("A name for the dataset (default: the file name)."),
+        "who": _form_field("Your name, for the audit log (or send the X-Scalewright-Who header)."),
+    }},
+    "encoding": {"file": {"contentType": "text/csv, text/plain, application/octet-stream, "
+                                          "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"}},
+}}}}
+
+
+@router.post("/datasets", status_code=201, openapi_extra=UPLOAD_BODY,
+             responses={201: {"model": DatasetOut}, **error_responses(400, 413, 415, 422)})
 async def upload_dataset(request: Request):
     """Upload a response file (and optional codebook); answers 201 with the dataset and its warnings."""
+    made: list[Path] = []  # the upload's temp files: moved into the store on success, removed here anyway
+    try:
+        return await _upload_dataset(request, made)
+    finally:
+        _remove_files(made)
+
+
+async def _upload_dataset(request: Request, made: list[Path]):
     limit = request.app.state.settings.max_upload_bytes
-    form = await _read_form(request, limit)
+    form = await _read_form(request, limit, made)
     try:
         upload = await _file_field(form, "file", limit)
         if upload is None:
             raise ApiError(422, "missing_file", "Choose a response file to upload (form field 'file').",
                            {"field": "file"})
-        raw, filename = upload
+        raw_path, filename, raw_size = upload
         codebook = await _file_field(form, "codebook", limit)
-        cb_raw, cb_name = codebook if codebook else (None, None)
+        cb_path, cb_name, cb_size = codebook if codebook else (None, None, 0)
+        if raw_size + cb_size > limit:
+            raise _too_large(limit)
+        cb_raw = await run_in_threadpool(cb_path.read_bytes) if cb_path is not None else None
         if cb_raw is not None and not cb_raw.strip():  # a chosen but empty codebook is refused, not ignored
             raise ApiError(422, "empty_file", f"The codebook '{cb_name}' is empty.", {"file": cb_name})
-        if len(raw) + len(cb_raw or b"") > limit:
-            raise _too_large(limit)
         options = {
             "missing_codes": parse_missing_codes(_text_field(form, "missing_codes")),
             "id_column": _text_field(form, "id_column"),
@@ -174,18 +258,22 @@ async def upload_dataset(request: Request):
             "scale_max": _number_field(form, "scale_max"),
         }
         name = _text_field(form, "name")
+        who = _text_field(form, "who")  # for the audit log (or the X-Scalewright-Who header)
     finally:
         await form.close()
 
+    raw = await run_in_threadpool(raw_path.read_bytes)  # the one copy in memory, dropped after parsing
     parsed = await run_in_threadpool(_parse, raw, filename, codebook_raw=cb_raw, codebook_filename=cb_name,
-                                     **options)
+                                     limits=IntakeLimits.from_settings(request.app.state.settings), **options)
+    del raw
     meta = parsed.meta()
     meta.pop("name", None)
     store = request.app.state.store
     record = await run_in_threadpool(
-        store.add_dataset, name=(name or parsed.name)[:200], raw=raw, filename=filename, codebook_raw=cb_raw,
-        codebook_filename=cb_name, options=options, meta=meta)
+        store.add_dataset, name=(name or parsed.name)[:200], raw_path=raw_path, filename=filename,
+        codebook_raw=cb_raw, codebook_filename=cb_name, options=options, meta=meta)
     _forget(request, record["id"])
+    audit_dataset(request, "upload", record, who=who)
     parsed.name = record["name"]
     request.app.state.engine.prime(record["id"], parsed)  # the first analysis starts now, in the background
     return JSONResponse(dataset_out(record), status_code=201)
@@ -209,9 +297,11 @@ def get_dataset(dataset_id: str, request: Request):
 @router.delete("/datasets/{dataset_id}", status_code=204)
 def delete_dataset(dataset_id: str, request: Request):
     """Delete a dataset and its raw files (its snapshots are kept). 404 if unknown."""
+    gone = request.app.state.store.get_dataset(dataset_id)  # its name and SHA-256, for the audit log
     if not request.app.state.store.delete_dataset(dataset_id):
         raise not_found("dataset", dataset_id)
     _forget(request, dataset_id)
+    audit_dataset(request, "delete", gone)
     return Response(status_code=204)
 
 

@@ -19,7 +19,9 @@ from ..exports import responses_csv, safe_filename, scoring_key_csv
 from ..report import render_report
 from ..stats.agreement import agreement_summary
 from .errors import ApiError, not_found
+from .openapi import error_responses
 from .routes_agreement import AgreementRequest, RetestRequest, compute_retest
+from .routes_workspace import audit_snapshot
 
 router = APIRouter(tags=["snapshots"])
 
@@ -282,6 +284,7 @@ def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request):
         stored = store.add_snapshot(dataset_id, snapshot)
     except KeyError:  # the data set was deleted while we computed
         raise not_found("dataset", dataset_id) from None
+    audit_snapshot(request, "snapshot", stored, who=body.author)
     return JSONResponse(jsonable_encoder(stored), status_code=201)
 
 
@@ -384,6 +387,7 @@ def compare_snapshots(a: str, b: str, request: Request):
 def restore_snapshot(snapshot_id: str, request: Request):
     """The snapshot's items, settings and removal record, ready for the dashboard to load."""
     snap = _get_snapshot(request, snapshot_id)
+    audit_snapshot(request, "snapshot_restore", snap)
     return {
         "snapshot_id": snap.get("id"),
         "dataset_id": snap.get("dataset_id"),
@@ -427,7 +431,7 @@ def snapshot_scoring_key(snapshot_id: str, request: Request):
                                                               suffix=".csv"))
 
 
-@router.get("/snapshots/{snapshot_id}/responses")
+@router.get("/snapshots/{snapshot_id}/responses", responses=error_responses(409))
 def snapshot_responses(snapshot_id: str, request: Request, scored: bool = False):
     """CSV of the kept items' responses, raw or (``?scored=true``) with reverse items scored as min+max-x."""
     snap = _get_snapshot(request, snapshot_id)

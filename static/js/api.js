@@ -20,9 +20,16 @@ function withToken(url) {
   return u.pathname + u.search;
 }
 
+// The name typed in "You are" (kept in localStorage by main.js): the audit log records it.
+function whoName() {
+  try { return (localStorage.getItem("scalewright.who") || "").trim(); } catch { return ""; }
+}
+
 async function call(method, url, { json, form, signal } = {}) {
   const headers = {};
   if (pageToken) headers["X-Scalewright-Token"] = pageToken;
+  const who = whoName();
+  if (who) headers["X-Scalewright-Who"] = encodeURIComponent(who); // for the audit log; UTF-8, percent-encoded
   let body;
   if (json !== undefined) {
     headers["Content-Type"] = "application/json";
@@ -59,5 +66,13 @@ export const api = {
   agreement: (body) => call("POST", "/api/agreement", { json: body }),
   agreementUpload: (form) => call("POST", "/api/agreement/upload", { form }),
   postEvent: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/events`, { json: body }),
+  audit: ({ dataset_id, limit } = {}) => {
+    const q = new URLSearchParams();
+    if (dataset_id) q.set("dataset_id", dataset_id);
+    if (limit) q.set("limit", String(limit));
+    return call("GET", `/api/audit${q.toString() ? `?${q}` : ""}`);
+  },
+  backupUrl: (who) => withToken(`/api/workspace/backup${who ? `?who=${encodeURIComponent(who)}` : ""}`),
+  importWorkspace: (form) => call("POST", "/api/workspace/restore", { form }),
   events: (id) => new EventSource(withToken(`/api/datasets/${encodeURIComponent(id)}/events`)),
 };

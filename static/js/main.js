@@ -13,11 +13,12 @@ import * as settingsView from "./views/settings.js";
 import * as snapshotsView from "./views/snapshots.js";
 import * as stabilityView from "./views/stability.js";
 import * as startView from "./views/start.js";
+import * as workspaceView from "./views/workspace.js";
 
 const views = { start: startView, board: boardView, loadings: loadingsView, alpha: alphaView, factors: factorsView,
-  settings: settingsView, snapshots: snapshotsView, stability: stabilityView };
+  settings: settingsView, snapshots: snapshotsView, stability: stabilityView, workspace: workspaceView };
 const LABELS = { start: "Start", board: "Items", loadings: "Loadings", alpha: "Alpha curves", factors: "How many factors",
-  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement" };
+  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement", workspace: "Workspace & log" };
 const NEEDS_ANALYSIS = new Set(["board", "loadings", "alpha", "factors"]);
 
 const $ = (sel) => document.querySelector(sel);
@@ -29,7 +30,7 @@ window.scalewright = { state, timings };
 function renderTabs() {
   const tabHadFocus = Boolean(document.activeElement?.closest?.("#tabs"));
   const nav = clear($("#tabs"));
-  const usable = VIEWS.filter((v) => v === "start" || state.dataset);
+  const usable = VIEWS.filter((v) => v === "start" || v === "workspace" || state.dataset);
   for (const v of VIEWS) {
     const disabled = !usable.includes(v);
     nav.append(h("button", { role: "tab", id: `tab-${v}`, "aria-selected": String(state.view === v), disabled,

@@ -6,7 +6,7 @@ export const DEFAULT_SETTINGS = Object.freeze({
   correlation: "pearson", extraction: "minres", rotation: "oblimin", missing: "pairwise", n_factors: null,
 });
 
-export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability"];
+export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "workspace"];
 
 export const state = {
   // shared (in the URL)

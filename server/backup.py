@@ -1,0 +1,566 @@
+"""Back up a whole data folder into one zip, and restore (or merge) such a zip into a data folder.
+
+The zip holds::
+
+    manifest.json                  format, software and schema version, creation time, and for every
+                                   other member its path, size in bytes and SHA-256
+    scalewright.sqlite3            a consistent copy made with SQLite's online backup API (safe while a
+                                   server runs and writes), in rollback-journal mode (one file)
+    datasets/<id>/raw              each dataset's uploaded file, byte for byte
+    datasets/<id>/codebook         its codebook, when there was one
+
+:func:`restore` checks everything before it writes anything: the manifest lists exactly the zip's
+members, every name is one of the forms above (so no ``../`` or absolute path can be written), every
+size and SHA-256 matches, the database passes ``PRAGMA quick_check``, is not newer than this code, and
+every dataset it records has its files in the zip with the recorded SHA-256.
+
+Merging (``merge=True``) into a folder already in use adds what is new and never changes what is there:
+
+- a dataset whose id is not in the folder is added (files, then its row, same id and creation time);
+  one with the same id and the same SHA-256 of raw file and codebook is skipped; the same id with other
+  content is a conflict;
+- a snapshot whose id is not in the folder is added with its record unchanged (byte for byte); one with
+  the same id and an identical record is skipped; the same id with another record is a conflict;
+- the zip's audit entries are not copied (the folder's log stays its own); the merge itself is logged.
+
+Any conflict refuses the whole merge (:class:`RestoreConflict`) before anything is written. Datasets
+deleted from the folder since the backup come back with a merge. Without ``merge`` the folder must be
+empty or absent: the zip is unpacked into a temporary folder beside it, migrated, then renamed into place.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+import shutil
+import sqlite3
+import tempfile
+import uuid
+import zipfile
+import zlib
+from pathlib import Path
+
+from . import __version__
+from .store import (
+    DB_NAME,
+    LOCK_NAME,
+    SCHEMA_VERSION,
+    StartupError,
+    _fsync_dir,
+    append_audit,
+    migrate,
+    schema_version,
+    utc_now,
+)
+
+__all__ = ["FORMAT", "MANIFEST", "BackupError", "RestoreConflict", "backup", "restore", "verify"]
+
+FORMAT = "scalewright-backup"
+FORMAT_VERSION = 1
+MANIFEST = "manifest.json"
+MAX_MANIFEST_BYTES = 16 * 1024 * 1024
+CHUNK = 1024 * 1024
+_MEMBER = re.compile(r"^(?:scalewright\.sqlite3|datasets/([A-Za-z0-9_-]{1,64})/(raw|codebook))$")
+_SHA = re.compile(r"^[0-9a-f]{64}$")
+
+
+class BackupError(Exception):
+    """A backup cannot be made, or a zip cannot be restored; the message is one line naming the problem."""
+
+    status = 422
+    code = "bad_backup"
+
+    def __init__(self, message: str, details: dict | None = None):
+        super().__init__(message)
+        self.message, self.details = message, details or {}
+
+
+class RestoreConflict(BackupError):
+    """A merge would change something already in the folder (same id, other content)."""
+
+    status = 409
+    code = "restore_conflict"
+
+
+# ---------------------------------------------------------------- backup
+
+def _copy_into(zf: zipfile.ZipFile, source: Path, name: str) -> tuple[int, str]:
+    """Stream ``source`` into the zip member ``name``; returns (size, sha256)."""
+    digest, size = hashlib.sha256(), 0
+    big = source.stat().st_size >= 2**31
+    with open(source, "rb") as src, zf.open(name, "w", force_zip64=big) as out:
+        while chunk := src.read(CHUNK):
+            digest.update(chunk)
+            size += len(chunk)
+            out.write(chunk)
+    return size, digest.hexdigest()
+
+
+def backup(data_dir: str | os.PathLike, out_zip: str | os.PathLike, *, who: str | None = None,
+           audit: bool = True) -> dict:
+    """Write the data folder into one zip at ``out_zip`` (atomically); returns a summary.
+
+    The database is copied with ``sqlite3.Connection.backup`` in one step, so the copy is one consistent
+    state even while a server saves snapshots. A dataset deleted while the backup runs is left out of it.
+    When ``audit`` is true the backup is appended to the folder's audit log (skipped on a read-only one).
+    """
+    data_dir, out_zip = Path(data_dir), Path(out_zip)
+    db = data_dir / DB_NAME
+    if not db.is_file():
+        raise BackupError(f"{data_dir} holds no Scalewright database ({DB_NAME}); there is nothing to back up.")
+    if not out_zip.parent.is_dir():
+        raise BackupError(f"The folder {out_zip.parent} for the backup does not exist.")
+    tmp_zip = out_zip.with_name(f".{out_zip.name}.{uuid.uuid4().hex[:8]}.tmp")
+    try:
+        with tempfile.TemporaryDirectory(prefix="scalewright-backup-") as scratch:
+            copy = Path(scratch) / DB_NAME
+            src = sqlite3.connect(db, timeout=30.0)
+            dst = sqlite3.connect(copy, isolation_level=None)
+            try:
+                src.execute("PRAGMA busy_timeout=30000")
+                src.backup(dst)  # one step (pages=-1): a single consistent read of the live database
+            except sqlite3.DatabaseError as exc:
+                raise BackupError(f"The data folder's database could not be copied ({exc}).") from None
+            finally:
+                src.close()
+            files, gone = [], []
+            with zipfile.ZipFile(tmp_zip, "w", compression=zipfile.ZIP_DEFLATED, compresslevel=6) as zf:
+                try:
+                    check = dst.execute("PRAGMA quick_check").fetchall()
+                    if not check or check[0][0] != "ok":
+                        raise BackupError(f"The data folder's database is damaged (quick_check: {check[0][0]}); "
+                                          "it was not backed up.")
+                    version = schema_version(dst)
+                    rows = dst.execute("SELECT id, sha256, codebook_sha256 FROM datasets ORDER BY seq").fetchall()
+                    for dataset_id, sha, cb_sha in rows:
+                        folder = data_dir / "datasets" / dataset_id
+                        try:
+                            wanted = [("raw", sha)] + ([("codebook", cb_sha)] if cb_sha else [])
+                            added = []
+                            for kind, expected in wanted:
+                                name = f"datasets/{dataset_id}/{kind}"
+                                size, digest = _copy_into(zf, folder / kind, name)
+                                if digest != expected:
+                                    raise BackupError(f"The {kind} file of dataset {dataset_id} does not match its "
+                                                      "recorded SHA-256; the data folder is damaged.",
+                                                      {"dataset": dataset_id})
+                                added.append({"path": name, "size": size, "sha256": digest})
+                            files.extend(added)
+                        except FileNotFoundError:  # deleted after the database was copied: leave it out
+                            gone.append(dataset_id)
+                    for dataset_id in gone:
+                        dst.execute("DELETE FROM datasets WHERE id = ?", (dataset_id,))
+                    n_datasets = len(rows) - len(gone)
+                    n_snapshots = dst.execute("SELECT count(*) FROM snapshots").fetchone()[0]
+                    dst.execute("PRAGMA journal_mode=DELETE")  # the copy is one self-contained file
+                finally:
+                    dst.close()
+                size, digest = _copy_into(zf, copy, DB_NAME)
+                files.insert(0, {"path": DB_NAME, "size": size, "sha256": digest})
+                # Members left over from a dataset deleted mid-backup are harmless but not in the manifest:
+                # refuse to finish rather than write a zip that restore would refuse.
+                if gone:
+                    listed = {f["path"] for f in files} | {MANIFEST}
+                    if any(i.filename not in listed for i in zf.infolist()):
+                        raise BackupError("A dataset was deleted while the backup ran; run the backup again.")
+                manifest = {"format": FORMAT, "format_version": FORMAT_VERSION, "software_version": __version__,
+                            "schema_version": version, "created_at": utc_now(), "datasets": n_datasets,
+                            "snapshots": n_snapshots, "files": files}
+                zf.writestr(MANIFEST, json.dumps(manifest, indent=1))
+        with open(tmp_zip, "rb") as fh:
+            os.fsync(fh.fileno())
+            zip_sha = _sha256_of(fh)
+        os.replace(tmp_zip, out_zip)
+        _fsync_dir(out_zip.parent)
+    except BaseException:
+        try:
+            os.unlink(tmp_zip)
+        except OSError:
+            pass
+        raise
+    summary = {"path": str(out_zip), "sha256": zip_sha, "size": out_zip.stat().st_size, "datasets": n_datasets,
+               "snapshots": n_snapshots, "files": len(files), "schema_version": version}
+    if audit:
+        summary["audited"] = _audit_quietly(db, "backup", who=who, details={
+            "zip_sha256": zip_sha, "zip_size": summary["size"], "datasets": n_datasets, "snapshots": n_snapshots,
+            "file": out_zip.name})
+    return summary
+
+
+def _sha256_of(fh) -> str:
+    digest = hashlib.sha256()
+    while chunk := fh.read(CHUNK):
+        digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _connect(db: Path) -> sqlite3.Connection:
+    con = sqlite3.connect(db, timeout=30.0, isolation_level=None)
+    con.execute("PRAGMA busy_timeout=30000")
+    con.execute("PRAGMA synchronous=FULL")
+    return con
+
+
+def _audit_quietly(db: Path, action: str, **kw) -> bool:
+    """Append to the audit log of ``db`` when it has one and can be written; True if it was recorded."""
+    try:
+        con = _connect(db)
+        try:
+            if (schema_version(con) or 0) < 2:  # an old folder is not migrated just to log a backup
+                return False
+            con.execute("BEGIN IMMEDIATE")
+            append_audit(con, action, **kw)
+            con.execute("COMMIT")
+            return True
+        finally:
+            con.close()
+    except sqlite3.Error:
+        return False
+
+
+# ---------------------------------------------------------------- verify
+
+class _Verified:
+    """What :func:`verify` learnt: the manifest, the zip's SHA-256 and the database copy in scratch."""
+
+    def __init__(self, manifest: dict, zip_sha: str, db_copy: Path, sizes: dict, label: str):
+        self.manifest, self.zip_sha, self.db_copy, self.sizes = manifest, zip_sha, db_copy, sizes
+        self.label = label
+
+
+def _bad(message: str, **details) -> BackupError:
+    return BackupError(message, details)
+
+
+def _read_manifest(zf: zipfile.ZipFile, label: str) -> dict:
+    try:
+        info = zf.getinfo(MANIFEST)
+    except KeyError:
+        raise _bad(f"{label} has no {MANIFEST}: it is not a Scalewright backup.") from None
+    if info.file_size > MAX_MANIFEST_BYTES:
+        raise _bad(f"The {MANIFEST} in {label} is {info.file_size} bytes, too large for a manifest.")
+    try:
+        manifest = json.loads(zf.read(info).decode("utf-8"))
+    except (ValueError, UnicodeDecodeError, zipfile.BadZipFile, zlib.error, EOFError):
+        raise _bad(f"The {MANIFEST} in {label} cannot be read as JSON.") from None
+    if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
+        raise _bad(f"The {MANIFEST} in {label} is not a Scalewright backup manifest.")
+    if manifest.get("format_version") != FORMAT_VERSION:
+        raise _bad(f"{label} has backup format version {manifest.get('format_version')!r}; this Scalewright "
+                   f"reads version {FORMAT_VERSION}.")
+    version = manifest.get("schema_version")
+    if not isinstance(version, int) or isinstance(version, bool):
+        raise _bad(f"The {MANIFEST} in {label} has no schema version.")
+    if version > SCHEMA_VERSION:
+        raise _bad(f"{label} was made by a newer Scalewright (schema version {version}; this version knows up "
+                   f"to {SCHEMA_VERSION}). Upgrade Scalewright to restore it.", schema_version=version)
+    files = manifest.get("files")
+    if not isinstance(files, list):
+        raise _bad(f"The {MANIFEST} in {label} lists no files.")
+    for f in files:
+        if not (isinstance(f, dict) and isinstance(f.get("path"), str) and isinstance(f.get("size"), int)
+                and not isinstance(f.get("size"), bool) and f["size"] >= 0 and isinstance(f.get("sha256"), str)
+                and _SHA.match(f["sha256"])):
+            raise _bad(f"The {MANIFEST} in {label} has a malformed entry: {json.dumps(f)[:200]}.")
+    return manifest
+
+
+def _hash_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, declared: int, out=None, label: str = "the zip") -> str:
+    """SHA-256 of a member, read in chunks; stops as soon as it grows past its declared size."""
+    digest, size = hashlib.sha256(), 0
+    try:
+        with zf.open(info) as src:
+            while chunk := src.read(CHUNK):
+                size += len(chunk)
+                if size > declared:
+                    raise _bad(f"The member {info.filename} of {label} unpacks to more than the {declared} bytes its manifest "
+                               "states.", member=info.filename)
+                digest.update(chunk)
+                if out is not None:
+                    out.write(chunk)
+    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
+        raise _bad(f"The member {info.filename} of {label} is damaged ({exc}).", member=info.filename) from None
+    if size != declared:
+        raise _bad(f"The member {info.filename} of {label} has {size} bytes; its manifest states {declared}.",
+                   member=info.filename)
+    return digest.hexdigest()
+
+
+def verify(zip_path: str | os.PathLike, scratch: str | os.PathLike, *, max_bytes: int | None = None,
+           label: str | None = None) -> _Verified:
+    """Check a backup zip completely, writing only into ``scratch`` (a copy of its database).
+
+    Raises :class:`BackupError` naming the first problem found.
+    """
+    zip_path, scratch = Path(zip_path), Path(scratch)
+    label = label or zip_path.name
+    try:
+        with open(zip_path, "rb") as fh:
+            zip_sha = _sha256_of(fh)
+        zf = zipfile.ZipFile(zip_path)
+    except FileNotFoundError:
+        raise _bad(f"The file {zip_path} does not exist.") from None
+    except (zipfile.BadZipFile, OSError, ValueError) as exc:
+        raise _bad(f"{label} is not a readable zip file ({exc}).") from None
+    with zf:
+        infos = zf.infolist()
+        names = [i.filename for i in infos]
+        if len(set(names)) != len(names):
+            dup = sorted({n for n in names if names.count(n) > 1})
+            raise _bad(f"{label} holds the member {dup[0]} more than once.", members=dup[:10])
+        manifest = _read_manifest(zf, label)
+        for name in names:
+            if name != MANIFEST and not _MEMBER.match(name):
+                raise _bad(f"{label} holds an unexpected member {name!r} (a backup holds only {DB_NAME}, "
+                           "datasets/<id>/raw, datasets/<id>/codebook and manifest.json).", member=name[:300])
+        listed = {f["path"]: f for f in manifest["files"]}
+        if len(listed) != len(manifest["files"]):
+            raise _bad(f"The {MANIFEST} in {label} lists a file twice.")
+        members = set(names) - {MANIFEST}
+        if set(listed) != members:
+            missing, extra = sorted(set(listed) - members), sorted(members - set(listed))
+            raise _bad(f"The {MANIFEST} in {label} does not list exactly the zip's files "
+                       f"(listed but absent: {missing[:5]}; present but not listed: {extra[:5]}).",
+                       missing=missing[:50], extra=extra[:50])
+        if DB_NAME not in members:
+            raise _bad(f"{label} holds no database ({DB_NAME}).")
+        by_name = {i.filename: i for i in infos}
+        total = 0
+        for name, entry in listed.items():
+            if by_name[name].file_size != entry["size"]:
+                raise _bad(f"The member {name} of {label} has {by_name[name].file_size} bytes; its manifest states "
+                           f"{entry['size']}.", member=name)
+            total += entry["size"]
+        if max_bytes is not None and total > max_bytes:
+            err = _bad(f"{label} unpacks to {total} bytes, more than the {max_bytes} bytes allowed here.",
+                       total_bytes=total, limit_bytes=max_bytes)
+            err.status, err.code = 413, "too_large"
+            raise err
+        db_copy = scratch / DB_NAME
+        for name, entry in sorted(listed.items()):
+            if name == DB_NAME:
+                with open(db_copy, "wb") as out:
+                    digest = _hash_member(zf, by_name[name], entry["size"], out, label)
+            else:
+                digest = _hash_member(zf, by_name[name], entry["size"], label=label)
+            if digest != entry["sha256"]:
+                raise _bad(f"The member {name} of {label} does not match its SHA-256 in the manifest: the zip was "
+                           "altered or damaged. Nothing was restored.", member=name)
+    _check_database(db_copy, listed, label)
+    return _Verified(manifest, zip_sha, db_copy, {n: e["size"] for n, e in listed.items()}, label)
+
+
+def _check_database(db_copy: Path, listed: dict, label: str) -> None:
+    """The copy is a sound database, migrated to this schema, whose datasets match the zip's files."""
+    try:
+        con = sqlite3.connect(db_copy, isolation_level=None)
+        try:
+            check = con.execute("PRAGMA quick_check").fetchall()
+            if not check or check[0][0] != "ok":
+                raise _bad(f"The database in {label} is damaged (quick_check: {check[0][0] if check else '?'}).")
+            migrate(con)
+            rows = con.execute("SELECT id, sha256, codebook_sha256 FROM datasets").fetchall()
+        finally:
+            con.close()
+    except sqlite3.DatabaseError as exc:
+        raise _bad(f"The database in {label} cannot be read ({exc}).") from None
+    except StartupError as exc:  # SchemaVersionError: written by a newer Scalewright
+        raise _bad(f"The database in {label} cannot be used: {exc}") from None
+    known = set()
+    for dataset_id, sha, cb_sha in rows:
+        for kind, expected in (("raw", sha), ("codebook", cb_sha)):
+            path = f"datasets/{dataset_id}/{kind}"
+            if expected is None:
+                continue
+            known.add(path)
+            if path not in listed or listed[path]["sha256"] != expected:
+                raise _bad(f"The dataset {dataset_id} in {label} lacks its {kind} file, or the file does not match "
+                           "the SHA-256 recorded in the database.", dataset=dataset_id)
+    orphans = sorted(set(listed) - known - {DB_NAME})
+    if orphans:
+        raise _bad(f"{label} holds {orphans[0]}, which belongs to no dataset in its database.", member=orphans[0])
+
+
+# ---------------------------------------------------------------- restore
+
+def _extract(zf: zipfile.ZipFile, name: str, size: int, sha: str, target: Path) -> None:
+    """Unpack one member to ``target`` through a temp file, checking its SHA-256 again; fsync, rename."""
+    tmp = target.with_name(f".{target.name}.{uuid.uuid4().hex[:8]}.tmp")
+    try:
+        with open(tmp, "wb") as out:
+            digest = _hash_member(zf, zf.getinfo(name), size, out)
+            out.flush()
+            os.fsync(out.fileno())
+        if digest != sha:
+            raise _bad(f"The member {name} changed while it was restored; nothing was restored.", member=name)
+        os.replace(tmp, target)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def _free_bytes(path: Path) -> int | None:
+    probe = path
+    while not probe.exists() and probe != probe.parent:
+        probe = probe.parent
+    try:
+        return shutil.disk_usage(probe).free
+    except OSError:
+        return None
+
+
+def restore(data_dir: str | os.PathLike, zip_path: str | os.PathLike, merge: bool = False, *,
+            who: str | None = None, max_bytes: int | None = None, label: str | None = None) -> dict:
+    """Restore a backup zip into ``data_dir``; returns what was added (and, merging, skipped).
+
+    Everything is verified first (see :func:`verify`). Without ``merge`` the folder must be empty or
+    absent; with ``merge`` the zip's new datasets and snapshots are added to the folder (see the module
+    docstring for the id rules). Migrations run on the restored database; the restore is audited.
+    """
+    data_dir, zip_path = Path(data_dir).absolute(), Path(zip_path)
+    with tempfile.TemporaryDirectory(prefix="scalewright-restore-") as scratch:
+        checked = verify(zip_path, scratch, max_bytes=max_bytes, label=label)  # ``label`` names the zip in messages
+        if data_dir.exists() and not data_dir.is_dir():
+            raise _bad(f"{data_dir} is a file, not a folder.")
+        occupied = data_dir.exists() and any(p.name != LOCK_NAME for p in data_dir.iterdir())
+        free = _free_bytes(data_dir)
+        need = sum(checked.sizes.values())
+        if free is not None and need > free:
+            raise _bad(f"The backup needs {need} bytes but only {free} are free on the data folder's disk.")
+        if not occupied:
+            return _restore_fresh(data_dir, zip_path, checked, who)
+        if not merge:
+            raise _bad(f"The data folder {data_dir} is not empty. Restore into an empty folder, or add --merge to "
+                       "add the backup's datasets and snapshots to the ones there.", folder=data_dir.name)
+        if not (data_dir / DB_NAME).is_file():
+            raise _bad(f"The folder {data_dir} is not empty and holds no Scalewright database; restore into an "
+                       "empty folder instead.", folder=data_dir.name)
+        return _merge(data_dir, zip_path, checked, who)
+
+
+def _restore_details(zip_path: Path, checked: _Verified) -> dict:
+    m = checked.manifest
+    return {"zip_sha256": checked.zip_sha, "file": checked.label, "backup_created_at": m.get("created_at"),
+            "backup_software_version": m.get("software_version"), "backup_schema_version": m.get("schema_version")}
+
+
+def _restore_fresh(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) -> dict:
+    data_dir.parent.mkdir(parents=True, exist_ok=True)
+    staging = data_dir.parent / f".{data_dir.name}.restore-{uuid.uuid4().hex[:8]}"
+    staging.mkdir()
+    try:
+        (staging / "datasets").mkdir()
+        with zipfile.ZipFile(zip_path) as zf:
+            for entry in checked.manifest["files"]:
+                target = staging / entry["path"]
+                target.parent.mkdir(parents=True, exist_ok=True)
+                _extract(zf, entry["path"], entry["size"], entry["sha256"], target)
+        con = _connect(staging / DB_NAME)
+        try:
+            con.execute("PRAGMA journal_mode=WAL")
+            migrate(con)
+            n_datasets = con.execute("SELECT count(*) FROM datasets").fetchone()[0]
+            n_snapshots = con.execute("SELECT count(*) FROM snapshots").fetchone()[0]
+            con.execute("BEGIN IMMEDIATE")
+            append_audit(con, "restore", who=who, details={**_restore_details(zip_path, checked), "merge": False,
+                                                           "datasets": n_datasets, "snapshots": n_snapshots})
+            con.execute("COMMIT")
+        finally:
+            con.close()
+        for folder in [staging / "datasets", staging]:
+            _fsync_dir(folder)
+        if data_dir.exists():
+            (data_dir / LOCK_NAME).unlink(missing_ok=True)  # a stale lock file (no live holder: checked)
+            data_dir.rmdir()  # empty (checked); the rename below puts the restored folder in its place
+        os.rename(staging, data_dir)
+        _fsync_dir(data_dir.parent)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return {"mode": "new", "data_dir": str(data_dir), "datasets": n_datasets, "snapshots": n_snapshots,
+            "files": len(checked.manifest["files"])}
+
+
+_DATASET_COLS = ("id", "name", "filename", "codebook_filename", "sha256", "codebook_sha256", "size_bytes", "options",
+                 "meta", "created_at")
+
+
+def _merge(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) -> dict:
+    src = sqlite3.connect(checked.db_copy)
+    try:
+        datasets = src.execute(f"SELECT {', '.join(_DATASET_COLS)} FROM datasets ORDER BY seq").fetchall()
+        snapshots = src.execute("SELECT id, dataset_id, created_at, record FROM snapshots ORDER BY seq").fetchall()
+    finally:
+        src.close()
+    con = _connect(data_dir / DB_NAME)
+    made: list[Path] = []
+    try:
+        migrate(con)
+
+        def plan():
+            have_ds = {r[0]: (r[1], r[2]) for r in con.execute("SELECT id, sha256, codebook_sha256 FROM datasets")}
+            have_snap = dict(con.execute("SELECT id, record FROM snapshots"))
+            add_ds, skip_ds, add_snap, skip_snap, conflicts = [], [], [], [], []
+            for row in datasets:
+                if row[0] not in have_ds:
+                    add_ds.append(row)
+                elif have_ds[row[0]] == (row[4], row[5]):
+                    skip_ds.append(row[0])
+                else:
+                    conflicts.append({"dataset": row[0]})
+            for row in snapshots:
+                if row[0] not in have_snap:
+                    add_snap.append(row)
+                elif have_snap[row[0]] == row[3]:
+                    skip_snap.append(row[0])
+                else:
+                    conflicts.append({"snapshot": row[0]})
+            if conflicts:
+                first = conflicts[0]
+                kind, ident = next(iter(first.items()))
+                raise RestoreConflict(
+                    f"The backup's {kind} {ident} has the same id as a different {kind} in this data folder "
+                    f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
+                    {"conflicts": conflicts[:50]})
+            return add_ds, skip_ds, add_snap, skip_snap
+
+        add_ds, _, _, _ = plan()  # conflicts refuse the merge before anything is written
+        with zipfile.ZipFile(zip_path) as zf:
+            for row in add_ds:
+                folder = data_dir / "datasets" / row[0]
+                if not folder.exists():
+                    folder.mkdir(parents=True)
+                    made.append(folder)
+                for kind, sha in (("raw", row[4]), ("codebook", row[5])):
+                    if sha is not None:
+                        name = f"datasets/{row[0]}/{kind}"
+                        _extract(zf, name, checked.sizes[name], sha, folder / kind)
+                _fsync_dir(folder)
+        con.execute("BEGIN IMMEDIATE")
+        try:
+            add_ds, skip_ds, add_snap, skip_snap = plan()  # again under the write lock
+            for row in add_ds:
+                con.execute(f"INSERT INTO datasets ({', '.join(_DATASET_COLS)}) VALUES ({', '.join('?' * 10)})", row)
+            for row in add_snap:
+                con.execute("INSERT INTO snapshots (id, dataset_id, created_at, record) VALUES (?, ?, ?, ?)", row)
+            summary = {"datasets_added": [r[0] for r in add_ds], "datasets_skipped": skip_ds,
+                       "snapshots_added": [r[0] for r in add_snap], "snapshots_skipped": skip_snap}
+            details = {**_restore_details(zip_path, checked), "merge": True, **summary,
+                       "datasets_added_sha256": {r[0]: r[4] for r in add_ds}}
+            append_audit(con, "restore", who=who, details=details)
+            con.execute("COMMIT")
+        except BaseException:
+            if con.in_transaction:
+                con.execute("ROLLBACK")
+            raise
+    except BaseException:
+        for folder in made:
+            shutil.rmtree(folder, ignore_errors=True)
+        raise
+    finally:
+        con.close()
+    return {"mode": "merge", "data_dir": str(data_dir), **summary}
