@@ -189,3 +189,14 @@ def test_import_refusals(tmp_path):
         assert r.status_code == 422 and "not a readable zip" in r.json()["error"]["message"]
         r = _import(c, b"0" * 20_000)
         assert r.status_code == 413 and r.json()["error"]["code"] == "too_large"
+
+
+def test_loading_the_demo_is_logged_as_uploads_by_the_demo(tmp_path):
+    with local_client(create_app(Settings(data_dir=tmp_path / "d", demo=True))) as client:
+        log = client.get("/api/audit").json()
+        assert [e["action"] for e in log] == ["upload", "upload"]
+        assert {e["who"] for e in log} == {"demo"}
+        stored = {d["id"]: d["sha256"] for d in client.get("/api/datasets").json()}
+        assert {e["dataset_id"]: e["details"]["sha256"] for e in log} == stored
+        client.post("/api/demo")  # already there: nothing added, nothing logged
+        assert len(client.get("/api/audit").json()) == 2
