@@ -1,0 +1,283 @@
+"""Delimited text: byte decoding, title lines, delimiter and decimal comma, and the records' row numbers.
+
+Decoding: a UTF-16 byte-order mark is re-encoded to UTF-8; UTF-8 with or without BOM is read as it is;
+anything else is read as Latin-1 (ISO-8859-1) with a warning. Delimiter (comma, semicolon, tab,
+vertical bar) and decimal comma are detected from the first ``SAMPLE_BYTES``.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import re
+import warnings as _warnings
+from collections.abc import Iterable
+from typing import Any, NoReturn
+
+import numpy as np
+import pandas as pd
+
+from ..stats.errors import InputError
+from .common import (
+    DEFAULT_LIMITS,
+    EXTRA_NA_VALUES,
+    IntakeLimits,
+    check_width,
+    clean_header,
+    first_rows,
+    is_number,
+    unnamed,
+)
+
+CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
+DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
+SAMPLE_BYTES = 256 * 1024
+DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
+DECIMAL_DOT = re.compile(r"^\s*[-+]?\d+\.\d+\s*$")
+
+
+def decode_bytes(raw: bytes, filename: str) -> tuple[bytes, str, list[str]]:
+    """Return (bytes to parse, pandas encoding name, warnings). UTF-16 is re-encoded to UTF-8."""
+    notes: list[str] = []
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            raw = raw.decode("utf-16").encode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise InputError(f"The file '{filename}' starts like UTF-16 text but cannot be decoded: {exc}.",
+                             code="bad_encoding", details={"file": filename}) from exc
+        return raw, "utf-8", notes
+    try:
+        raw.decode("utf-8")  # validity check only; the text itself is not kept
+        return raw, ("utf-8-sig" if raw[:3] == b"\xef\xbb\xbf" else "utf-8"), notes
+    except UnicodeDecodeError as exc:
+        notes.append(f"The file '{filename}' is not valid UTF-8 (first bad byte at position {exc.start}); "
+                     "it was read as Latin-1 (ISO-8859-1), so check that accented letters look right.")
+        return raw, "latin-1", notes
+
+
+def sample_text(raw: bytes, encoding: str) -> tuple[str, bool]:
+    """The first SAMPLE_BYTES decoded, cut at the last complete line. Returns (text, whole_file)."""
+    whole = len(raw) <= SAMPLE_BYTES
+    chunk = raw if whole else raw[:SAMPLE_BYTES]
+    if not whole:
+        cut = chunk.rfind(b"\n")
+        if cut > 0:
+            chunk = chunk[:cut]
+    return chunk.decode(encoding, errors="replace"), whole
+
+
+def detect_delimiter(sample: str, filename: str, *, allow_single: bool = False) -> str:
+    """Pick the delimiter whose field count is the same on every sampled line (most fields wins)."""
+    lines = [ln for ln in sample.splitlines() if ln.strip()][:200]
+    best, best_key = None, None
+    for order, delim in enumerate(CANDIDATE_DELIMITERS):
+        try:
+            counts = [len(r) for r in csv.reader(io.StringIO("\n".join(lines), newline=""), delimiter=delim) if r]
+        except csv.Error:
+            continue
+        if not counts:
+            continue
+        header = counts[0]
+        if header < 2:
+            continue
+        consistency = sum(c == header for c in counts) / len(counts)
+        key = (consistency >= 0.999, consistency, header, -order)
+        if best_key is None or key > best_key:
+            best, best_key = delim, key
+    if best is None and allow_single:
+        return ","
+    if best is None:
+        raise InputError(
+            f"The file '{filename}' is not a table: its first line has a single column. Expected a header "
+            "row of column names and one row per respondent, separated by commas, semicolons or tabs.",
+            code="not_a_table", details={"file": filename})
+    return best
+
+
+def mostly_numbers(cells: Iterable[Any]) -> bool:
+    """Whether most non-empty cells of a row read as numbers (a row of answers, not of column names)."""
+    filled = [str(c).strip() for c in cells if str(c).strip()]
+    return bool(filled) and sum(is_number(c.replace(",", ".")) for c in filled) > len(filled) / 2
+
+
+def blank_title_lines(raw: bytes, sample: str, encoding: str) -> tuple[bytes, str, list[tuple[int, str]]]:
+    """Blank the single-cell title lines above a header row ('Belonging pilot, spring 2026').
+
+    A line is a title when it holds at most one non-empty cell, under every candidate delimiter, while a
+    later line of the first 30 holds three or more. Blanked lines keep their line ends, so row numbers
+    stay those of the file (the parser skips blank lines). Returns (raw, sample, [(row, text)]).
+    """
+    lines = sample.split("\n")[:30]
+
+    def filled(line: str) -> tuple[int, str]:
+        """(most non-empty cells under any delimiter, the text of the line's cells)."""
+        best, text, widest = 0, "", 0
+        for d in CANDIDATE_DELIMITERS:
+            try:
+                rec = next(csv.reader([line.lstrip("\ufeff")], delimiter=d), [])
+            except csv.Error:
+                return 99, ""  # odd quoting: not a plain title, leave the file as it is
+            cells = [cell.strip() for cell in rec if cell.strip()]
+            best = max(best, len(cells))
+            if len(rec) > widest:
+                widest, text = len(rec), " ".join(cells)
+        return best, text
+
+    def blank(line: str) -> bool:
+        return not re.sub(r'[\s,;|"\ufeff]', "", line)
+
+    titles: list[tuple[int, str]] = []
+    counts: list[int] = []
+    first = None
+    for i, ln in enumerate(lines):
+        cnt, text = (0, "") if blank(ln) else filled(ln)
+        counts.append(cnt)
+        if first is not None or cnt == 0:
+            continue
+        if cnt == 1 and ln.count('"') % 2 == 0:
+            titles.append((i + 1, text))
+            continue
+        first = i
+    if not titles or first is None or max(counts[first:]) < 3 or counts[first] < 2:
+        return raw, sample, []
+    if mostly_numbers(max((next(csv.reader([lines[first]], delimiter=d), []) for d in CANDIDATE_DELIMITERS),
+                           key=len)):
+        return raw, sample, []  # the line after the single cell holds answers: that cell was the header
+    parts = raw.split(b"\n", first)
+    raw = b"\n" * first + parts[first]
+    sample = "\n" * first + sample.split("\n", first)[first]
+    return raw, sample, titles
+
+
+def detect_decimal_comma(sample: str, delim: str) -> bool:
+    if delim == ",":
+        return False
+    n_comma = n_dot = 0
+    for row in csv.reader(io.StringIO(sample, newline=""), delimiter=delim):
+        for cell in row:
+            if DECIMAL_COMMA.match(cell):
+                n_comma += 1
+            elif DECIMAL_DOT.match(cell):
+                n_dot += 1
+    return n_comma > n_dot
+
+def scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple[list[str], np.ndarray]:
+    """Check every record has as many fields as the header; return (header, file row number per record).
+
+    Row numbers are 1-based lines of the file (the header is row 1); blank lines are skipped, as the
+    parser skips them. One Python step per line, never per cell.
+    """
+    if b'"' not in raw:
+        lines = raw.split(b"\n")
+        del raw
+        dbyte = delim.encode()
+        header_line, _header_no = None, 0
+        rows: list[int] = []
+        expected = 0
+        for no, line in enumerate(lines, start=1):
+            if line.endswith(b"\r"):
+                line = line[:-1]
+            if not line:
+                continue
+            if header_line is None:
+                header_line, _header_no = line, no
+                expected = line.count(dbyte) + 1
+                continue
+            found = line.count(dbyte) + 1
+            if found != expected:
+                raise_ragged(filename, no, expected, found, delim)
+            rows.append(no)
+        if header_line is None:
+            raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+        header = next(csv.reader([header_line.decode(encoding, errors="replace")], delimiter=delim))
+        return header, np.asarray(rows, dtype=np.int64)
+    text = raw.decode(encoding, errors="replace")
+    text = text.removeprefix("\ufeff")
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim)
+    header: list[str] | None = None
+    rows = []
+    prev_line = 0
+    try:
+        for rec in reader:
+            start = prev_line + 1
+            prev_line = reader.line_num
+            if not rec:
+                continue
+            if header is None:
+                header = rec
+                continue
+            if len(rec) != len(header):
+                raise_ragged(filename, start, len(header), len(rec), delim)
+            rows.append(start)
+    except csv.Error as exc:
+        raise InputError(f"The file '{filename}' could not be read as a table near row {prev_line + 1}: {exc}.",
+                         code="not_a_table", details={"file": filename, "row": prev_line + 1}) from exc
+    if header is None:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    return header, np.asarray(rows, dtype=np.int64)
+
+
+def raise_ragged(filename: str, row: int, expected: int, found: int, delim: str) -> NoReturn:
+    raise InputError(
+        f"Row {row} of '{filename}' has {found} fields but the header has {expected} "
+        f"({DELIMITER_NAMES.get(delim, repr(delim))}-separated). Every row must have one value per column "
+        "(leave a cell empty for a missing answer).",
+        code="ragged_row", details={"file": filename, "row": row, "expected": expected, "found": found,
+                                    "delimiter": delim})
+
+
+def read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limits: IntakeLimits = DEFAULT_LIMITS
+                    ) -> tuple[pd.DataFrame, np.ndarray, list[str], dict]:
+    """Read delimited text. Returns (frame, file row numbers, warnings, info)."""
+    if raw[:2] not in (b"\xff\xfe", b"\xfe\xff") and b"\x00" in raw[:SAMPLE_BYTES]:  # UTF-16 has NULs
+        raise InputError(f"The file '{filename}' is not a table: it contains binary data. Upload a CSV, TSV "
+                         "or XLSX file.", code="not_a_table", details={"file": filename})
+    raw, encoding, notes = decode_bytes(raw, filename)
+    if b"\r" in raw:  # one line end for the scanner and the parser alike: CRLF and lone CR become LF
+        raw = raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+    sample, _ = sample_text(raw, encoding)
+    if not sample.strip().lstrip("\ufeff").strip():
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    raw, sample, titles = blank_title_lines(raw, sample, encoding)
+    if titles:
+        shown = "; ".join(f"row {no}: '{text[:60]}'" for no, text in titles[:3])
+        notes.append(f"{first_rows(len(titles))} of '{filename}' held a single cell ({shown}); "
+                     f"{'it was' if len(titles) == 1 else 'they were'} read as a title, not as the header row.")
+    delim = detect_delimiter(sample.lstrip("\ufeff"), filename, allow_single=as_strings)
+    decimal_comma = (not as_strings) and detect_decimal_comma(sample, delim)
+    check_width(header_width(raw, delim), filename, limits)  # before any structure per cell is built
+    header, row_numbers = scan_records(raw, encoding, delim, filename)
+    names = clean_header(header, filename)
+    opts = {"sep": delim, "header": 0, "names": names, "engine": "c", "skip_blank_lines": True,
+            "skipinitialspace": True, "encoding": encoding, "index_col": False}
+    if as_strings:
+        opts.update(dtype=str, keep_default_na=False)
+    else:
+        opts.update(na_values=EXTRA_NA_VALUES, decimal="," if decimal_comma else ".")
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            df = pd.read_csv(io.BytesIO(raw), **opts)
+    except pd.errors.EmptyDataError as exc:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file",
+                         details={"file": filename}) from exc
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError) as exc:
+        raise InputError(f"The file '{filename}' could not be read as a table: {exc}", code="not_a_table",
+                         details={"file": filename}) from exc
+    if len(row_numbers) != len(df):  # multi-line cells or odd quoting: fall back to record positions
+        row_numbers = np.arange(2, len(df) + 2, dtype=np.int64)
+    info = {"format": "delimited", "delimiter": delim, "encoding": encoding, "decimal_comma": decimal_comma,
+            "unnamed": [names[j] for j in unnamed(header)]}
+    return df, row_numbers, notes, info
+
+
+def header_width(raw: bytes, delim: str) -> int:
+    """Fields in the first non-blank line, counted on the bytes with quoted parts left out (no parsing)."""
+    start = re.match(rb"(?:\xef\xbb\xbf)?[\s,;|]*\n", raw)
+    start = start.end() if start else 0
+    end = raw.find(b"\n", start)
+    line = raw[start:] if end < 0 else raw[start:end]
+    if b'"' in line:
+        line = re.sub(rb'"[^"]*"', b"", line)
+    return line.count(delim.encode()) + 1
+
+
