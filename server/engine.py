@@ -1,57 +1,40 @@
-"""The analysis engine: loads datasets, caches what is expensive, and assembles one analysis.
+"""The engine: loads datasets and caches what is expensive; the analysis itself is ``server.analysis``.
 
 What is cached, and by what it depends on (CONVENTIONS 7):
 
 * the parsed dataset, per dataset id, least recently used dropped first beyond ``cache_bytes``;
 * the full-pool pairwise covariance and correlation matrices, per (dataset, correlation type), computed
-  once on the raw (not reverse-scored) responses (listwise deletion depends on the active items, so its
-  matrices are computed per request from their complete rows; see ``analysis._pool_or_active``). Reverse-keying an item multiplies its row and
-  column by -1 (exact for covariances, Pearson and polychoric correlations), and dropping items takes a
-  submatrix, so a drop never touches the raw responses;
+  once on the raw (not reverse-scored) responses (``analysis.matrices.full_pool``). Reverse-keying an item
+  multiplies its row and column by -1 (exact for covariances, Pearson and polychoric correlations), and
+  dropping items takes a submatrix, so a drop never touches the raw responses;
 * per-item descriptives, per (dataset, reverse set);
-* parallel-analysis thresholds, which depend only on (n, k, iterations, seed, variant);
-* whole answers, per canonical request (a repeated identical request is served from memory).
+* the full-pool reference factor solutions (``analysis.factors.reference_solution``), per settings and
+  number of factors, through the memo the engine hands to the analysis;
+* whole answers, per canonical settings (a repeated identical request is served from memory).
 
-Factor identity: every solution is lined up (order and sign, Tucker's congruence) with the full-pool
-solution of the same settings and number of factors, so a factor keeps its column however many items are
-dropped and in whatever order.
+One analysis goes down the layers only: :meth:`Engine.analyse` gathers the cached inputs and calls
+:func:`server.analysis.run`, which calls the stats; nothing below calls the engine again.
 """
 from __future__ import annotations
 
 import itertools
-import json
 import logging
 import sys
 import threading
 from collections import OrderedDict
-from dataclasses import dataclass
+from collections.abc import Callable, Hashable, Mapping
+from typing import Any
 
 import numpy as np
 
+from .analysis import AnalysisAnswer, AnalysisInputs, AnalysisSettings, run
+from .analysis.matrices import FullPool, PoolUnavailable, constant_notes, full_pool
+from .errors import NotFound
+from .stats.descriptives import ItemDescriptives, item_descriptives
 from .stats.errors import InputError
+from .stats.notes import Note
 
 log = logging.getLogger("scalewright")
-
-CORRELATIONS = ("pearson", "polychoric")
-EXTRACTIONS = ("minres", "ml", "paf")
-ROTATIONS = ("oblimin", "promax", "geomin", "varimax", "quartimax", "none")
-MISSING = ("pairwise", "listwise")
-
-DEFAULTS = {
-    "items": None,
-    "reverse": None,
-    "missing": "pairwise",
-    "correlation": "pearson",
-    "extraction": "minres",
-    "rotation": "oblimin",
-    "gamma": 0.0,
-    "n_factors": None,
-    "thresholds": None,
-    "pa_iterations": 500,
-    "pa_variant": "components",
-    "seed": 20261202,
-}
-
 
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
 _SAMPLE = 1000  # long lists are measured on their first items and scaled
@@ -144,18 +127,8 @@ class _LRU(OrderedDict):
         return value
 
 
-@dataclass(frozen=True)
-class FullPool:
-    """Full-pool pairwise matrices for one (dataset, correlation type), on raw responses."""
-
-    cov: np.ndarray          # pairwise covariance, k x k
-    n_pair: np.ndarray       # pairwise n, k x k
-    corr: np.ndarray         # Pearson or polychoric correlation, k x k
-    warnings: tuple[str, ...]
-
-
 class Engine:
-    """Loads datasets from the store and answers analysis requests, caching full-pool work."""
+    """Loads datasets from the store, caches full-pool work and answers analyses (``server.analysis.run``)."""
 
     def __init__(self, store, *, cache_bytes: int = DEFAULT_CACHE_BYTES):
         self.store = store
@@ -165,21 +138,19 @@ class Engine:
         self._datasets: _LRU = _LRU(None, cache_bytes)
         self._pools: _LRU = _LRU(32, cache_bytes // 4)
         self._descriptives: _LRU = _LRU(64, cache_bytes // 16)
-        self._pa: _LRU = _LRU(64, cache_bytes // 16)
         self._answers: _LRU = _LRU(128, cache_bytes // 4)
         self._references: _LRU = _LRU(64, cache_bytes // 16)
         self._key_locks: dict = {}
-        self._busy = threading.local()
 
     # ------------------------------------------------------------------ datasets
     def dataset(self, dataset_id: str):
-        from .api.errors import not_found
+        """The parsed dataset (``ParsedDataset``), read from the store once; :class:`NotFound` if unknown."""
         from .intake import NO_LIMITS, read_responses
 
         def make():
             record = self.store.get_dataset(dataset_id)
             if record is None:
-                raise not_found("dataset", dataset_id)
+                raise NotFound("dataset", dataset_id)
             opts = dict(record.get("options") or {})
             parsed = read_responses(
                 self.store.read_raw(dataset_id), record.get("filename") or "responses.csv",
@@ -200,19 +171,11 @@ class Engine:
         constant = self.constant_items(dataset_id)
         return [it.name for it in self.dataset(dataset_id).items if it.name not in constant]
 
-    def constant_items(self, dataset_id: str) -> dict[str, str]:
-        """Items that cannot enter a covariance matrix (fewer than two different answers), with why."""
+    def constant_items(self, dataset_id: str) -> Mapping[str, Note]:
+        """Items that cannot enter a covariance matrix (fewer than two different answers), each with why."""
         def make():
             ds = self.dataset(dataset_id)
-            out = {}
-            for j, it in enumerate(ds.items):
-                col = ds.responses[:, j]
-                vals = np.unique(col[~np.isnan(col)])
-                if vals.size < 2:
-                    why = (f"every answer is {vals[0]:g}" if vals.size == 1 else "it has no answers")
-                    out[it.name] = (f"Item '{it.name}' has no variance ({why}); it cannot enter the correlation "
-                                    f"matrix and was left out of the analysis.")
-            return out
+            return constant_notes(ds.responses, [it.name for it in ds.items])
 
         return self._locked((dataset_id, "constant"), self._descriptives, make)
 
@@ -220,10 +183,10 @@ class Engine:
         """Keep a just-uploaded dataset (already parsed) and start its default analysis in the background.
 
         The team usually opens the dataset right after the upload; the first analysis (full-pool
-        matrices, parallel analysis, the reference factor solution) is then already under way or done,
-        and the page's request waits for it instead of starting it again. A dataset whose first analysis
-        would cost more than BACKGROUND_BUDGET (see :func:`background_cost`) is only kept: the page's own
-        request computes it when someone opens the dataset.
+        matrices, parallel analysis) is then already under way or done, and the page's request waits
+        for it instead of starting it again. A dataset whose first analysis would cost more than
+        BACKGROUND_BUDGET (see :func:`background_cost`) is only kept: the page's own request computes it
+        when someone opens the dataset.
         """
         with self._lock:
             self._datasets.get_or(dataset_id, lambda: parsed)
@@ -235,19 +198,21 @@ class Engine:
 
         def warm():
             try:
-                self.analyse(dataset_id, {})
+                self.analyse(dataset_id, None)  # the default settings
             except Exception as exc:  # noqa: BLE001  (the page's own request reports it to the user)
                 log.info("background analysis of %s stopped: %s", dataset_id, exc)
 
         threading.Thread(target=warm, name=f"warm-{dataset_id}", daemon=True).start()
 
     def forget(self, dataset_id: str) -> None:
+        """Drop everything cached about a dataset (after it was deleted or replaced)."""
         with self._lock:
             for cache in (self._datasets, self._pools, self._descriptives, self._answers, self._references):
                 for key in [k for k in cache if k == dataset_id or (isinstance(k, tuple) and k[0] == dataset_id)]:
                     del cache[key]
 
     def reverse_mask(self, dataset_id: str, reverse: list[str] | None) -> np.ndarray:
+        """Which items are reverse-keyed: the codebook's choice, or the items named in ``reverse``."""
         ds = self.dataset(dataset_id)
         names = [it.name for it in ds.items]
         if reverse is None:
@@ -270,152 +235,111 @@ class Engine:
         return X
 
     # ------------------------------------------------------------------ caches
-    def _locked(self, key, cache: _LRU, make):
+    def _locked(self, key: Hashable, cache: _LRU, make: Callable[[], Any]) -> Any:
+        """The value cached under ``key``, made once: concurrent requests for one key wait for the first."""
         with self._lock:
             if key in cache:
                 return cache.get_or(key, make)
             lock = self._key_locks.setdefault(key, threading.Lock())
-        busy = self._busy.__dict__.setdefault("keys", set())
-        if key in busy:  # a computation that needs itself would wait on its own lock forever
-            raise RuntimeError(f"re-entrant computation of {key!r}")
         with lock:  # one computation per key, others wait for it
             with self._lock:
                 if key in cache:
                     return cache.get_or(key, make)
-            busy.add(key)
             try:
                 value = make()
             except BaseException:
                 with self._lock:
                     self._key_locks.pop(key, None)
                 raise
-            finally:
-                busy.discard(key)
             with self._lock:
                 cache.get_or(key, lambda: value)
                 self._key_locks.pop(key, None)
             return value
 
     def full_pool(self, dataset_id: str, correlation: str) -> FullPool:
-        from .stats import correlation as corrmod
-
-        def make():
-            ds = self.dataset(dataset_id)
-            constant = self.constant_items(dataset_id)
-            ok = np.array([it.name not in constant for it in ds.items])
-            X, names = ds.responses[:, ok], [it.name for it in ds.items if it.name not in constant]
-            cov, n_pair = corrmod.pairwise_covariance(X)
-            make_corr = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
-            res = make_corr(X, missing="pairwise", smooth=None, names=names)
-            # constant items never enter an analysis; their rows and columns stay empty
-            k = len(ds.items)
-            full = {"cov": np.full((k, k), np.nan), "n_pair": np.zeros((k, k)), "corr": np.full((k, k), np.nan)}
-            sub = np.ix_(ok, ok)
-            full["cov"][sub], full["n_pair"][sub], full["corr"][sub] = cov, n_pair, np.asarray(res.matrix, float)
-            return FullPool(cov=full["cov"], n_pair=full["n_pair"], corr=full["corr"],
-                            warnings=tuple(res.warnings))
-
-        def make_or_fail():  # a pool that cannot be formed is remembered too, not retried on every request
-            try:
-                return make()
-            except InputError as exc:
-                return exc
-
-        pool = self._locked((dataset_id, correlation), self._pools, make_or_fail)
-        if isinstance(pool, InputError):
-            raise pool
+        """The dataset's full-pool pairwise matrices for one correlation type (cached; InputError if impossible)."""
+        pool = self._pool(dataset_id, correlation)
+        if isinstance(pool, PoolUnavailable):
+            raise InputError(pool.message, code="pool_unavailable", details={"correlation": correlation})
         return pool
 
-    def descriptives(self, dataset_id: str, mask: np.ndarray) -> list[dict]:
-        """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
-        from .stats.descriptives import item_descriptives
+    def _pool(self, dataset_id: str, correlation: str) -> FullPool | PoolUnavailable:
+        def make():  # a pool that cannot be formed is remembered too, not retried on every request
+            ds = self.dataset(dataset_id)
+            try:
+                return full_pool(ds.responses, [it.name for it in ds.items], self.constant_items(dataset_id),
+                                 correlation)
+            except InputError as exc:
+                return PoolUnavailable(exc.message)
 
+        return self._locked((dataset_id, correlation), self._pools, make)
+
+    def descriptives(self, dataset_id: str, mask: np.ndarray) -> list[ItemDescriptives]:
+        """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
         def make():
             ds = self.dataset(dataset_id)
             X = self.scored(dataset_id, [it.name for it, m in zip(ds.items, mask) if m])
-            rows = item_descriptives(X, names=[it.name for it in ds.items],
-                                     mins=[it.min for it in ds.items], maxs=[it.max for it in ds.items])
-            return [r.to_dict() if hasattr(r, "to_dict") else dict(r) for r in rows]
+            return item_descriptives(X, names=[it.name for it in ds.items], mins=[it.min for it in ds.items],
+                                     maxs=[it.max for it in ds.items])
 
-        return self._locked((dataset_id, "desc", tuple(mask.tolist())), self._descriptives, make)
+        return self._locked((dataset_id, "desc", tuple(bool(m) for m in mask)), self._descriptives, make)
 
     # ------------------------------------------------------------------ analysis
-    def resolve(self, dataset_id: str, request: dict) -> dict:
-        """Fill defaults and check every option; returns the canonical settings."""
+    def settings(self, dataset_id: str, request: Mapping[str, Any] | None = None) -> AnalysisSettings:
+        """The request checked against the dataset, with every default filled (``AnalysisSettings.build``)."""
+        ds = self.dataset(dataset_id)
+        return AnalysisSettings.build(request, names=[it.name for it in ds.items],
+                                      declared_reverse=[it.name for it in ds.items if it.reverse],
+                                      constant=list(self.constant_items(dataset_id)))
+
+    def _settings(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None) -> AnalysisSettings:
+        return settings if isinstance(settings, AnalysisSettings) else self.settings(dataset_id, settings)
+
+    def inputs(self, dataset_id: str, settings: AnalysisSettings, *, with_factors: bool = True) -> AnalysisInputs:
+        """What the analysis of ``settings`` reads: responses, codebook and the cached pool work it needs."""
         ds = self.dataset(dataset_id)
         names = [it.name for it in ds.items]
-        req = {**DEFAULTS, **{k: v for k, v in (request or {}).items() if v is not None or k == "n_factors"}}
-        for field, allowed in (("correlation", CORRELATIONS), ("extraction", EXTRACTIONS),
-                               ("rotation", ROTATIONS), ("missing", MISSING)):
-            if req[field] not in allowed:
-                raise InputError(f"'{field}' must be one of {', '.join(allowed)}; got '{req[field]}'.",
-                                 code="bad_option", details={"field": field, "value": req[field]})
-        items = req["items"] if req["items"] is not None else names
-        unknown = [i for i in items if i not in names]
-        if unknown:
-            raise InputError(f"Unknown item(s): {', '.join(map(str, unknown))}. The dataset has "
-                             f"{len(names)} items.", code="unknown_item", details={"items": unknown})
-        if len(set(items)) != len(items):
-            dup = sorted({i for i in items if items.count(i) > 1})
-            raise InputError(f"Item(s) listed twice: {', '.join(dup)}.", code="duplicate_item",
-                             details={"items": dup})
-        constant = self.constant_items(dataset_id)
-        excluded = [i for i in items if i in constant]
-        items = [i for i in items if i not in constant]
-        if len(items) < 2:
-            raise InputError(f"At least 2 active items with some variance are needed; got {len(items)}"
-                             + (f" ({', '.join(excluded)} had no variance)" if excluded else "") + ".",
-                             code="too_few_items", details={"n_items": len(items), "excluded": excluded})
-        # keep the dataset's column order, whatever order the request used
-        order = {n: i for i, n in enumerate(names)}
-        items = sorted(items, key=order.__getitem__)
-        mask = self.reverse_mask(dataset_id, req["reverse"])
-        req["items"] = items
-        req["excluded"] = excluded
-        req["reverse"] = [n for n, m in zip(names, mask) if m]
-        nf = req["n_factors"]
-        if nf is not None and (not isinstance(nf, int) or nf < 1):
-            raise InputError(f"'n_factors' must be a whole number of at least 1, or null; got {nf!r}.",
-                             code="bad_option", details={"field": "n_factors", "value": nf})
-        if not (10 <= int(req["pa_iterations"]) <= 5000):
-            raise InputError("'pa_iterations' must be between 10 and 5000.", code="bad_option",
-                             details={"field": "pa_iterations", "value": req["pa_iterations"]})
-        from .stats.flags import resolve_thresholds
+        rev = set(settings.reverse)
+        pools = {}
+        if settings.missing == "pairwise":
+            for kind in {"pearson", settings.correlation} if with_factors else {"pearson"}:
+                pools[kind] = self._pool(dataset_id, kind)
+        return AnalysisInputs(
+            dataset_id=dataset_id, name=ds.name, n_rows=ds.n_rows, items=ds.items, responses=ds.responses,
+            constant=self.constant_items(dataset_id),
+            descriptives=self.descriptives(dataset_id, np.array([n in rev for n in names])), pools=pools,
+            memo=lambda key, make: self._locked((dataset_id, key), self._references, make))
 
-        resolve_thresholds(req["thresholds"])  # unknown names or out-of-range values: a 4xx now
-        req["pa_iterations"] = int(req["pa_iterations"])
-        req["seed"] = int(req["seed"])
-        req["gamma"] = float(req["gamma"])
-        return req
+    def analyse(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None
+                ) -> AnalysisAnswer:
+        """The whole analysis (cached per canonical settings); a mapping is checked by :meth:`settings` first."""
+        s = self._settings(dataset_id, settings)
+        return self._locked((dataset_id, s.key()), self._answers,
+                            lambda: run(self.inputs(dataset_id, s), s))
 
-    def analyse(self, dataset_id: str, request: dict | None = None) -> dict:
-        settings = self.resolve(dataset_id, request or {})
-        key = (dataset_id, json.dumps(settings, sort_keys=True))
-        return self._locked(key, self._answers, lambda: self._analyse(dataset_id, settings))
-
-    def reliability(self, dataset_id: str, request: dict | None = None) -> dict:
+    def reliability(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None
+                    ) -> AnalysisAnswer:
         """The analysis without its factor sections (reliability, items, constructs, pruning path)."""
-        settings = self.resolve(dataset_id, request or {})
-        key = (dataset_id, "rel", json.dumps(settings, sort_keys=True))
-        return self._locked(key, self._answers, lambda: self._analyse(dataset_id, settings, with_efa=False))
+        s = self._settings(dataset_id, settings)
+        return self._locked((dataset_id, "rel", s.key()), self._answers,
+                            lambda: run(self.inputs(dataset_id, s, with_factors=False), s, with_factors=False))
 
-    def _analyse(self, dataset_id: str, s: dict, *, with_efa: bool = True) -> dict:
-        from .analysis import assemble
+    # ------------------------------------------------------------------ what is cached (for tests and logs)
+    def has_answer(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None) -> bool:
+        """Whether the whole analysis of these settings is in memory (answered without computing)."""
+        s = self._settings(dataset_id, settings)
+        with self._lock:
+            return (dataset_id, s.key()) in self._answers
 
-        return assemble(self, dataset_id, s, with_efa=with_efa)
+    def cached_datasets(self) -> list[str]:
+        """Ids of the parsed datasets in memory, least recently used first."""
+        with self._lock:
+            return list(self._datasets)
 
-    def reference_solution(self, dataset_id: str, s: dict, n_factors: int):
-        """The full-pool solution with the same settings and number of factors (for factor identity)."""
-        ref = {**s, "items": self.pool_items(dataset_id), "n_factors": n_factors}
-        key = (dataset_id, "ref", json_key(ref))
-
-        def make():
-            out = self.analyse(dataset_id, ref)
-            efa = out.get("efa") or {}
-            return {"loadings": efa.get("loadings"), "factors": efa.get("factors")} if efa.get("loadings") else None
-
-        return self._locked(key, self._references, make)
-
-
-def json_key(obj) -> str:
-    return json.dumps(obj, sort_keys=True)
+    def cache_usage(self) -> dict[str, dict[str, int | None]]:
+        """Entries, estimated bytes and byte budget of each cache."""
+        caches = {"datasets": self._datasets, "pools": self._pools, "descriptives": self._descriptives,
+                  "answers": self._answers, "references": self._references}
+        with self._lock:
+            return {name: {"entries": len(c), "bytes": c.nbytes, "max_bytes": c.max_bytes}
+                    for name, c in caches.items()}

@@ -13,6 +13,7 @@ from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 
 from . import __version__
+from .stats.notes import warning_text
 
 __all__ = ["CAUTIONS", "PURPOSE", "render_report"]
 
@@ -650,7 +651,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "</section>",
         _stability_section(snapshot.get("stability")),
     ]
-    warnings = [w for w in (analysis.get("warnings") or []) if w]
+    warnings = [warning_text(w) for w in (analysis.get("warnings") or []) if w]  # coded objects or old sentences
     if warnings:
         parts.append("<section><h2>Warnings from the analysis</h2><ul>"
                      + "".join(f"<li>{_esc(w)}</li>" for w in warnings) + "</ul></section>")

@@ -106,8 +106,8 @@ def test_engine_evicts_datasets_by_bytes_and_reads_an_evicted_one_again(tmp_path
     engine.dataset(b)
     engine.dataset(a)  # 'a' used last: 'b' is the oldest now
     engine.dataset(c)
-    assert list(engine._datasets) == [a, c]
-    assert engine._datasets.nbytes <= budget
+    assert engine.cached_datasets() == [a, c]
+    assert engine.cache_usage()["datasets"]["bytes"] <= budget
     assert reads == [a, b, c]
 
     again = engine.dataset(b)  # evicted: read from disk again, and identical to a fresh reading
@@ -115,9 +115,9 @@ def test_engine_evicts_datasets_by_bytes_and_reads_an_evicted_one_again(tmp_path
     fresh = read_responses(raws[2], "d2.csv", id_column="pid")
     np.testing.assert_array_equal(again.responses, fresh.responses)
     assert again.item_names == fresh.item_names and again.ids == fresh.ids
-    assert list(engine._datasets) == [c, b] and engine._datasets.nbytes <= budget
+    assert engine.cached_datasets() == [c, b] and engine.cache_usage()["datasets"]["bytes"] <= budget
     out = engine.reliability(b, {})
-    assert out  # an analysis on the re-read dataset works
+    assert out.reliability.result.alpha is not None  # an analysis on the re-read dataset works
 
 
 def test_a_dataset_larger_than_the_budget_is_still_served(tmp_path):
@@ -125,10 +125,11 @@ def test_a_dataset_larger_than_the_budget_is_still_served(tmp_path):
     first = store.add_dataset(name="d", raw=csv_bytes(4), filename="d.csv", options={"id_column": "pid"})
     engine = Engine(store, cache_bytes=1024)
     assert engine.dataset(first["id"]).responses.shape == (1500, 12)
-    assert list(engine._datasets) == [first["id"]]  # kept as the only entry
+    assert engine.cached_datasets() == [first["id"]]  # kept as the only entry
 
 
 def test_create_app_gives_the_engine_cache_mb(tmp_path):
     app = create_app(Settings(data_dir=tmp_path / "data", cache_mb=3))
-    assert app.state.engine._datasets.max_bytes == 3 * MB
-    assert app.state.engine._pools.max_bytes == 3 * MB // 4
+    usage = app.state.engine.cache_usage()
+    assert usage["datasets"]["max_bytes"] == 3 * MB
+    assert usage["pools"]["max_bytes"] == usage["answers"]["max_bytes"] == 3 * MB // 4

@@ -10,6 +10,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from ..errors import NotFound
 from ..stats.errors import InputError
 from ..store import StorageError, storage_error
 
@@ -34,6 +35,10 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(ApiError)
     async def _api(_: Request, exc: ApiError):
         return JSONResponse(error_body(exc.code, exc.message, exc.details), status_code=exc.status)
+
+    @app.exception_handler(NotFound)
+    async def _not_found(_: Request, exc: NotFound):
+        return JSONResponse(error_body("not_found", exc.message, {exc.kind: exc.ident}), status_code=404)
 
     @app.exception_handler(InputError)
     async def _input(_: Request, exc: InputError):

@@ -1,34 +1,47 @@
-"""POST /api/datasets/{id}/analysis: validate, call the engine, return its answer."""
+"""POST /api/datasets/{id}/analysis and GET /api/options: validate, call the engine, wrap its answer."""
 from __future__ import annotations
 
-from typing import Literal
+from typing import Any, Literal
 
-from fastapi import APIRouter, Request
-from pydantic import BaseModel, ConfigDict, Field
+from fastapi import APIRouter
+from pydantic import BaseModel, ConfigDict, Field, create_model
+
+from ..analysis.settings import OPTIONS, AnalysisSettings, Option
+from .deps import EngineDep
+from .serialize import AnswerResponse
 
 router = APIRouter(tags=["analysis"])
 
 
-class AnalysisRequest(BaseModel):
+def _field(o: Option) -> tuple[Any, Any]:
+    """The request field of one option: its type, range and default from ``OPTIONS`` (None: the default)."""
+    if o.type == "choice":
+        kind: Any = Literal[o.values]  # type: ignore[valid-type]
+    else:
+        kind = int if o.type == "integer" else float
+    return kind | None, Field(o.default, ge=o.min, le=o.max, description=o.help)
+
+
+class _RequestBase(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     items: list[str] | None = Field(None, description="active item names (default: all)")
     reverse: list[str] | None = Field(None, description="reverse-keyed items, overriding the codebook")
-    missing: Literal["pairwise", "listwise"] = "pairwise"
-    correlation: Literal["pearson", "polychoric"] = "pearson"
-    extraction: Literal["minres", "ml", "paf"] = "minres"
-    rotation: Literal["oblimin", "promax", "geomin", "varimax", "quartimax", "none"] = "oblimin"
-    gamma: float = Field(0.0, ge=-5, le=1, description="oblimin gamma (0 = quartimin)")
-    n_factors: int | None = Field(None, ge=1, le=50)
-    thresholds: dict[str, float] | None = None
-    pa_iterations: int = Field(500, ge=10, le=5000)
-    pa_variant: Literal["components", "factors"] = "components"
-    seed: int | None = None
+    thresholds: dict[str, float] | None = Field(None, description="flag thresholds to change (GET /api/options)")
 
 
-@router.post("/datasets/{dataset_id}/analysis")
-def analyse(dataset_id: str, body: AnalysisRequest, request: Request):
-    payload = body.model_dump(exclude_unset=False)
-    if payload.get("seed") is None:
-        payload.pop("seed")
-    return request.app.state.engine.analyse(dataset_id, payload)
+#: The body of an analysis request: its shape, choices and ranges come from ``AnalysisSettings``' OPTIONS.
+AnalysisRequest = create_model("AnalysisRequest", __base__=_RequestBase,
+                               **{o.name: _field(o) for o in OPTIONS})  # type: ignore[call-overload]
+
+
+@router.post("/datasets/{dataset_id}/analysis", response_class=AnswerResponse)
+def analyse(dataset_id: str, body: AnalysisRequest, engine: EngineDep) -> AnswerResponse:  # type: ignore[valid-type]
+    """The analysis of the request's settings (served from the cache when asked before)."""
+    return AnswerResponse(engine.analyse(dataset_id, body.model_dump()))  # type: ignore[attr-defined]
+
+
+@router.get("/options")
+def options() -> dict:
+    """Every analysis setting and flag threshold: default, choices or range, label and help text."""
+    return AnalysisSettings.describe()

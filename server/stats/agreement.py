@@ -1,7 +1,7 @@
 """Agreement between raters or occasions: ICC, kappas, Krippendorff's alpha, percent agreement.
 
-Every coefficient comes back as a plain dict that serialises to JSON as it is. A coefficient that
-cannot be computed for the data at hand (no variance, a single category, one rater) has
+Every coefficient comes back as a frozen dataclass (serialised to JSON at the API edge). A coefficient
+that cannot be computed for the data at hand (no variance, a single category, one rater) has
 ``value: None`` and a ``reason`` sentence saying why, never a silent NaN. Input that cannot be
 analysed at all raises :class:`~server.stats.errors.InputError` naming the row, column or value.
 
@@ -12,12 +12,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats as sps
 
 from .errors import InputError
+from .notes import Note, note
 
 ICC_FORMS = ("ICC(1,1)", "ICC(A,1)", "ICC(C,1)", "ICC(1,k)", "ICC(A,k)", "ICC(C,k)")
 LEVELS = ("nominal", "ordinal", "interval", "ratio")
@@ -59,12 +60,177 @@ def _boot_weights(n: int, n_boot: int, seed: int, width: int | None = None):
         done += size
 
 
-def _percentile_ci(reps: np.ndarray, ci: float) -> list[float] | None:
+def _percentile_ci(reps: np.ndarray, ci: float) -> tuple[float, float] | None:
     reps = reps[np.isfinite(reps)]
     if not reps.size:
         return None
     a = 1 - ci
-    return [float(np.quantile(reps, a / 2)), float(np.quantile(reps, 1 - a / 2))]
+    return (float(np.quantile(reps, a / 2)), float(np.quantile(reps, 1 - a / 2)))
+
+
+# --------------------------------------------------------------------------------------------- results
+Interval = tuple[float | None, float | None]
+
+
+@dataclass(frozen=True)
+class NotApplicable:
+    """A coefficient that does not apply to this table (e.g. Cohen's kappa for three raters), and why."""
+
+    reason: str
+    value: None = None
+    ci: None = None
+
+
+@dataclass(frozen=True)
+class IccForm:
+    """One of the six ICC forms with its F test against 0 and its confidence interval."""
+
+    value: float | None
+    ci: Interval | None
+    f: float | None
+    df1: int | None
+    df2: float | None
+    p: float | None
+    description: str
+    reason: str | None
+
+
+@dataclass(frozen=True)
+class IccResult:
+    """The six intraclass correlations of a units x raters table (JSON keys ``ICC(1,1)`` ... ``ICC(C,k)``)."""
+
+    icc_1_1: IccForm = field(metadata={"json": "ICC(1,1)"})
+    icc_a_1: IccForm = field(metadata={"json": "ICC(A,1)"})
+    icc_c_1: IccForm = field(metadata={"json": "ICC(C,1)"})
+    icc_1_k: IccForm = field(metadata={"json": "ICC(1,k)"})
+    icc_a_k: IccForm = field(metadata={"json": "ICC(A,k)"})
+    icc_c_k: IccForm = field(metadata={"json": "ICC(C,k)"})
+    n_units: int
+    n_raters: int
+    n_dropped: int
+    recommended: str
+    interpretation: str | None
+    interpretation_source: str
+    reason: str | None
+    warnings: tuple[Note, ...]
+
+    def form(self, name: str) -> IccForm:
+        """The form named as in :data:`ICC_FORMS`, e.g. ``result.form("ICC(A,1)")``."""
+        if name not in _ICC_ATTR:
+            raise KeyError(name)
+        return getattr(self, _ICC_ATTR[name])
+
+
+_ICC_ATTR = dict(zip(ICC_FORMS, ("icc_1_1", "icc_a_1", "icc_c_1", "icc_1_k", "icc_a_k", "icc_c_k")))
+
+
+@dataclass(frozen=True)
+class KappaResult:
+    """Cohen's kappa or weighted kappa of two raters; the test and interval fields are None when undefined."""
+
+    value: float | None
+    ci: Interval | None
+    reason: str | None
+    n_units: int
+    n_dropped: int
+    se_method: str
+    label_source: str
+    se: float | None = None
+    se0: float | None = None
+    z: float | None = None
+    p: float | None = None
+    observed_agreement: float | None = None
+    expected_agreement: float | None = None
+    weights: str | None = None
+    categories: tuple | None = None
+    label: str | None = None
+
+
+@dataclass(frozen=True)
+class WeightedKappas:
+    """Linear and quadratic weighted kappa (each a result or why it does not apply)."""
+
+    linear: KappaResult | NotApplicable
+    quadratic: KappaResult | NotApplicable
+
+
+@dataclass(frozen=True)
+class FleissResult:
+    """Fleiss' kappa with its z test and bootstrap interval."""
+
+    value: float | None
+    ci: Interval | None
+    reason: str | None
+    n_units: int
+    n_raters: int
+    n_dropped: int
+    n_categories: int
+    ci_method: str
+    label_source: str
+    se0: float | None = None
+    z: float | None = None
+    p: float | None = None
+    label: str | None = None
+
+
+@dataclass(frozen=True)
+class KrippendorffResult:
+    """Krippendorff's alpha with its bootstrap interval (``ci_reason`` when no interval could be made)."""
+
+    value: float | None
+    ci: Interval | None
+    reason: str | None
+    level: str
+    n_units: int
+    n_pairable_units: int
+    n_values: int
+    ci_method: str
+    label_source: str
+    label: str | None = None
+    ci_reason: str | None = None
+
+
+@dataclass(frozen=True)
+class PercentAgreement:
+    """Share of complete units on which every rater gave the same rating."""
+
+    value: float | None
+    reason: str | None
+    n_agree: int | None
+    n_units: int
+    n_dropped: int
+    ci: None = None
+
+
+@dataclass(frozen=True)
+class Conventions:
+    """Where the verbal labels come from."""
+
+    kappa_labels: str
+    alpha_labels: str
+    icc_labels: str
+
+
+@dataclass(frozen=True)
+class AgreementSummary:
+    """Every agreement coefficient that suits a units x raters table at a given level."""
+
+    level: str
+    n_units: int
+    n_raters: int
+    n_complete_units: int
+    n_missing: int
+    categories: tuple[str, ...] | None
+    percent_agreement: PercentAgreement
+    cohen_kappa: KappaResult | NotApplicable
+    weighted_kappa: WeightedKappas
+    fleiss_kappa: FleissResult | NotApplicable
+    krippendorff_alpha: KrippendorffResult
+    icc: IccResult | NotApplicable
+    recommended: str | None
+    interpretation: str | None
+    conventions: Conventions
+    warnings: tuple[Note, ...]
 
 
 # --------------------------------------------------------------------------------------------- helpers
@@ -76,11 +242,11 @@ def _num(x) -> float | None:
     return x if math.isfinite(x) else None
 
 
-def _ci_pair(lo, hi) -> list[float | None] | None:
+def _ci_pair(lo, hi) -> Interval | None:
     lo, hi = _num(lo), _num(hi)
     if lo is None and hi is None:
         return None
-    return [lo, hi]
+    return (lo, hi)
 
 
 def _z(ci: float) -> float:
@@ -88,12 +254,6 @@ def _z(ci: float) -> float:
         raise InputError(f"The confidence level must be between 0 and 1 (got {ci}).", code="bad_ci",
                          details={"ci": ci})
     return float(sps.norm.ppf(0.5 + ci / 2))
-
-
-def _undefined(reason: str, **extra) -> dict:
-    out = {"value": None, "ci": None, "reason": reason}
-    out.update(extra)
-    return out
 
 
 def _as_matrix(data, *, name: str = "ratings") -> np.ndarray:
@@ -220,7 +380,7 @@ def koo_li_label(ci: Sequence[float | None] | None, value: float | None = None) 
 
 
 # --------------------------------------------------------------------------------------------- ICC
-def icc(Y, *, ci: float = 0.95) -> dict:
+def icc(Y, *, ci: float = 0.95) -> IccResult:
     """Six intraclass correlations of a units x raters (or units x occasions) table.
 
     Parameters
@@ -232,9 +392,9 @@ def icc(Y, *, ci: float = 0.95) -> dict:
 
     Returns
     -------
-    dict
-        Keys ``ICC(1,1)``, ``ICC(A,1)``, ``ICC(C,1)``, ``ICC(1,k)``, ``ICC(A,k)``, ``ICC(C,k)``, each
-        ``{value, ci: [lo, hi], f, df1, df2, p, description, reason}``; plus ``n_units`` (used),
+    IccResult
+        The six forms (``result.form("ICC(A,1)")``; JSON keys ``ICC(1,1)`` ... ``ICC(C,k)``), each an
+        :class:`IccForm` ``{value, ci: (lo, hi), f, df1, df2, p, description, reason}``; plus ``n_units`` (used),
         ``n_raters``, ``n_dropped`` (rows with a missing rating), ``recommended`` (``ICC(A,1)``),
         ``interpretation`` (Koo & Li label of the recommended form's interval),
         ``interpretation_source``, ``reason`` (None, or why no ICC is defined) and ``warnings``.
@@ -271,19 +431,21 @@ def icc(Y, *, ci: float = 0.95) -> dict:
     Y = Y[keep]
     n = int(Y.shape[0])
     n_dropped = int(n_all - n)
-    warnings: list[str] = []
+    warnings: list[Note] = []
     if n_dropped:
-        warnings.append(f"{n_dropped} unit(s) with a missing rating were left out of the ICC "
-                        f"(complete cases only); {n} remain.")
-    base = {"n_units": n, "n_raters": int(k), "n_dropped": n_dropped, "recommended": "ICC(A,1)",
-            "interpretation": None, "interpretation_source": KOO_LI_SOURCE, "warnings": warnings}
+        warnings.append(note("icc_incomplete_units", f"{n_dropped} unit(s) with a missing rating were left out of "
+                                                     f"the ICC (complete cases only); {n} remain."))
+    def result(forms: dict[str, IccForm], reason: str | None) -> IccResult:
+        rec = forms["ICC(A,1)"]
+        interpretation = None if reason else koo_li_label(rec.ci, rec.value)
+        return IccResult(**{_ICC_ATTR[f]: forms[f] for f in ICC_FORMS}, n_units=n, n_raters=int(k),
+                         n_dropped=n_dropped, recommended="ICC(A,1)", interpretation=interpretation,
+                         interpretation_source=KOO_LI_SOURCE, reason=reason, warnings=tuple(warnings))
 
-    def all_undefined(reason: str) -> dict:
-        out = {form: {"value": None, "ci": None, "f": None, "df1": None, "df2": None, "p": None,
-                      "description": ICC_DESCRIPTIONS[form], "reason": reason} for form in ICC_FORMS}
-        out.update(base)
-        out["reason"] = reason
-        return out
+    def all_undefined(reason: str) -> IccResult:
+        return result({form: IccForm(value=None, ci=None, f=None, df1=None, df2=None, p=None,
+                                     description=ICC_DESCRIPTIONS[form], reason=reason) for form in ICC_FORMS},
+                      reason)
 
     if k < 2:
         return all_undefined("An ICC needs at least two raters or occasions; there is only one column.")
@@ -350,13 +512,14 @@ def icc(Y, *, ci: float = 0.95) -> dict:
         cic1 = cick = (1.0, 1.0)
         if msc == 0:
             cia1 = ciak = (1.0, 1.0)
-        warnings.append("There is no residual variance (the raters' scores differ only by constants), so "
-                        "the F statistics are infinite and the consistency intervals collapse to 1.")
+        warnings.append(note("icc_no_residual", "There is no residual variance (the raters' scores differ only by "
+                                                "constants), so the F statistics are infinite and the consistency "
+                                                "intervals collapse to 1."))
 
-    def entry(form, value, interval, fval, d1, d2, p) -> dict:
-        return {"value": _num(value), "ci": _ci_pair(*interval), "f": _num(fval), "df1": int(d1),
-                "df2": _num(d2) if not float(d2).is_integer() else int(d2), "p": _num(p),
-                "description": ICC_DESCRIPTIONS[form], "reason": None}
+    def entry(form, value, interval, fval, d1, d2, p) -> IccForm:
+        return IccForm(value=_num(value), ci=_ci_pair(*interval), f=_num(fval), df1=int(d1),
+                       df2=_num(d2) if not float(d2).is_integer() else int(d2), p=_num(p),
+                       description=ICC_DESCRIPTIONS[form], reason=None)
 
     out = {
         "ICC(1,1)": entry("ICC(1,1)", v11, ci11, f1, df1, dfw, p1),
@@ -367,14 +530,11 @@ def icc(Y, *, ci: float = 0.95) -> dict:
         "ICC(C,k)": entry("ICC(C,k)", vck, cick, f2, df1, dfe, p2),
     }
     for form in ICC_FORMS:
-        if out[form]["value"] is not None and out[form]["value"] < 0:
-            warnings.append(f"{form} is negative ({out[form]['value']:.3f}): the ratings vary more within "
-                            f"units than between them; read it as no reliability.")
-    out.update(base)
-    rec = out["ICC(A,1)"]
-    out["interpretation"] = koo_li_label(rec["ci"], rec["value"])
-    out["reason"] = None
-    return out
+        value = out[form].value
+        if value is not None and value < 0:
+            warnings.append(note("icc_negative", f"{form} is negative ({value:.3f}): the ratings vary more within "
+                                                 f"units than between them; read it as no reliability."))
+    return result(out, None)
 
 
 # --------------------------------------------------------------------------------------------- kappas
@@ -399,7 +559,7 @@ def _category_values(cats: list) -> np.ndarray | None:
         return None
 
 
-def _kappa_from_table(table: np.ndarray, w: np.ndarray, ci: float) -> dict:
+def _kappa_from_table(table: np.ndarray, w: np.ndarray, ci: float) -> dict | None:
     """Kappa with agreement weights w (1 on the diagonal) and the Fleiss-Cohen-Everitt (1969) SEs."""
     n = float(table.sum())
     p = table / n
@@ -419,26 +579,28 @@ def _kappa_from_table(table: np.ndarray, w: np.ndarray, ci: float) -> dict:
     z = _z(ci)
     zval = kappa / se0 if se0 > 0 else None
     return {"value": float(kappa), "se": se,
-            "ci": [max(-1.0, kappa - z * se), min(1.0, kappa + z * se)],
+            "ci": (max(-1.0, kappa - z * se), min(1.0, kappa + z * se)),
             "se0": se0, "z": _num(zval),
             "p": _num(2 * sps.norm.sf(abs(zval))) if zval is not None else None,
             "observed_agreement": po, "expected_agreement": pe}
 
 
-def _kappa(rater1, rater2, *, weights: str | None, ci: float) -> dict:
+def _kappa(rater1, rater2, *, weights: str | None, ci: float) -> KappaResult:
     a, b, dropped = _pairs(rater1, rater2)
     _z(ci)
     n = int(a.size)
-    note = {"n_units": n, "n_dropped": dropped,
+    note = {"n_units": n, "n_dropped": dropped, "weights": weights,
             "se_method": "asymptotic standard error of Fleiss, Cohen & Everitt (1969), as in SAS PROC FREQ; "
                          "interval = kappa +/- z x SE, clipped to [-1, 1]; p from the SE under kappa = 0",
             "label_source": LANDIS_KOCH_SOURCE}
     if n < 2:
-        return _undefined(f"Kappa needs at least two units rated by both raters; there are {n}.", **note)
+        return KappaResult(value=None, ci=None,
+                           reason=f"Kappa needs at least two units rated by both raters; there are {n}.", **note)
     cats = sorted(set(a.tolist()) | set(b.tolist()), key=lambda c: (isinstance(c, str), c))
     if len(cats) < 2:
-        return _undefined(f"Both raters used only one category ({cats[0]!r}) for every unit, so agreement "
-                          f"expected by chance is 1 and kappa is undefined.", categories=[cats[0]], **note)
+        return KappaResult(value=None, ci=None, reason=f"Both raters used only one category ({cats[0]!r}) for "
+                           f"every unit, so agreement expected by chance is 1 and kappa is undefined.",
+                           categories=(cats[0],), **note)
     index = {c: i for i, c in enumerate(cats)}
     c = len(cats)
     table = np.zeros((c, c))
@@ -463,17 +625,13 @@ def _kappa(rater1, rater2, *, weights: str | None, ci: float) -> dict:
                              code="bad_weights", details={"weights": weights})
     res = _kappa_from_table(table, w, ci)
     if res is None:
-        return _undefined("Both raters put every unit in the same single category, so agreement expected "
-                          "by chance is 1 and kappa is undefined.", **note)
-    res.update(note)
-    res["weights"] = weights
-    res["categories"] = [c if isinstance(c, str) else float(c) for c in cats]
-    res["label"] = landis_koch_label(res["value"])
-    res["reason"] = None
-    return res
+        return KappaResult(value=None, ci=None, reason="Both raters put every unit in the same single category, "
+                           "so agreement expected by chance is 1 and kappa is undefined.", **note)
+    return KappaResult(**res, **note, reason=None, categories=tuple(c if isinstance(c, str) else float(c) for c in cats),
+                       label=landis_koch_label(res["value"]))
 
 
-def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> dict:
+def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> KappaResult:
     """Cohen's (1960) kappa for two raters.
 
     Parameters
@@ -485,7 +643,7 @@ def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> dict:
 
     Returns
     -------
-    dict
+    KappaResult
         ``value, se, ci, se0, z, p, observed_agreement, expected_agreement, n_units, n_dropped,
         categories, label (Landis & Koch), label_source, se_method, reason``.
 
@@ -504,7 +662,7 @@ def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> dict:
     return _kappa(rater1, rater2, weights=None, ci=ci)
 
 
-def weighted_kappa(rater1, rater2, *, weights: str = "linear", ci: float = 0.95) -> dict:
+def weighted_kappa(rater1, rater2, *, weights: str = "linear", ci: float = 0.95) -> KappaResult:
     """Cohen's (1968) weighted kappa with linear or quadratic agreement weights.
 
     Parameters
@@ -519,8 +677,8 @@ def weighted_kappa(rater1, rater2, *, weights: str = "linear", ci: float = 0.95)
 
     Returns
     -------
-    dict
-        As :func:`cohen_kappa`, plus ``weights``.
+    KappaResult
+        As :func:`cohen_kappa`, with ``weights``.
 
     Notes
     -----
@@ -551,10 +709,6 @@ class PairKappa:
     n_units: int
     reason: str | None
 
-    def to_dict(self) -> dict:
-        return {"raters": list(self.raters), "kappa": _num(self.kappa), "se": _num(self.se),
-                "ci": None if self.ci is None else [float(v) for v in self.ci], "n_units": self.n_units,
-                "reason": self.reason}
 
 
 @dataclass(frozen=True)
@@ -567,12 +721,7 @@ class PairwiseKappaResult:
     n_raters: int
     n_units: int
     mean_name: str
-    warnings: tuple[str, ...] = ()
-
-    def to_dict(self) -> dict:
-        return {"pairs": [p.to_dict() for p in self.pairs], "mean": _num(self.mean), "weights": self.weights,
-                "n_raters": self.n_raters, "n_units": self.n_units, "mean_name": self.mean_name,
-                "warnings": list(self.warnings)}
+    warnings: tuple[Note, ...] = ()
 
 
 def _is_missing(v) -> bool:
@@ -641,20 +790,22 @@ def pairwise_cohen_kappa(ratings, *, weights: str | None = None, raters: Sequenc
                          details={"names": len(labels), "raters": int(r)})
     complete = np.array([not any(_is_missing(v) for v in row) for row in Y], dtype=bool)
     Yc = Y[complete]
-    warnings: list[str] = []
+    warnings: list[Note] = []
     if (~complete).any():
-        warnings.append(f"{int((~complete).sum())} unit(s) with a missing rating were left out; every pair uses "
-                        f"the {int(complete.sum())} unit(s) rated by all raters.")
+        warnings.append(note("missing_ratings", f"{int((~complete).sum())} unit(s) with a missing rating were left "
+                                                f"out; every pair uses the {int(complete.sum())} unit(s) rated by all "
+                                                f"raters."))
     pairs = []
     for a in range(r):
         for b in range(a + 1, r):
             res = _kappa(Yc[:, a], Yc[:, b], weights=weights, ci=ci)
-            ci_ab = res.get("ci")
-            pairs.append(PairKappa(raters=(labels[a], labels[b]), kappa=_num(res["value"]), se=_num(res.get("se")),
+            ci_ab = res.ci
+            pairs.append(PairKappa(raters=(labels[a], labels[b]), kappa=_num(res.value), se=_num(res.se),
                                    ci=None if ci_ab is None else (float(ci_ab[0]), float(ci_ab[1])),
-                                   n_units=int(res["n_units"]), reason=res["reason"]))
-            if res["value"] is None:
-                warnings.append(f"Kappa of {labels[a]} and {labels[b]} is undefined: {res['reason']}")
+                                   n_units=int(res.n_units), reason=res.reason))
+            if res.value is None:
+                warnings.append(note("kappa_undefined", f"Kappa of {labels[a]} and {labels[b]} is undefined: "
+                                                        f"{res.reason}", (labels[a], labels[b])))
     vals = [p.kappa for p in pairs if p.kappa is not None]
     mean = float(np.mean(vals)) if vals else None
     name = ("Light's kappa (mean of the pairwise Cohen's kappas; Light 1971)" if weights is None else
@@ -672,7 +823,8 @@ def _fleiss_from_counts(counts: np.ndarray) -> float:
     return (Pi.mean() - pe) / (1 - pe)
 
 
-def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = _BOOT, seed: int = 0) -> dict:
+def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = _BOOT,
+                 seed: int = 0) -> FleissResult:
     """Fleiss' (1971) kappa for a fixed number of raters per unit.
 
     Parameters
@@ -690,7 +842,7 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
 
     Returns
     -------
-    dict
+    FleissResult
         ``value, ci, ci_method, se0, z, p, n_units, n_raters, n_dropped, n_categories, label,
         label_source, reason``.
 
@@ -742,14 +894,15 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
             "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
             "label_source": LANDIS_KOCH_SOURCE}
     if m < 2:
-        return _undefined("Fleiss' kappa needs at least two raters per unit.", **info)
+        return FleissResult(value=None, ci=None, reason="Fleiss' kappa needs at least two raters per unit.", **info)
     if N < 2:
-        return _undefined(f"Fleiss' kappa needs at least two units rated by every rater; there are {N}.", **info)
+        return FleissResult(value=None, ci=None, reason=f"Fleiss' kappa needs at least two units rated by every "
+                                                        f"rater; there are {N}.", **info)
     pj = table.sum(axis=0) / (N * m)
     pe = float((pj ** 2).sum())
     if pe >= 1 - 1e-12:
-        return _undefined("Every rating falls in one category, so agreement expected by chance is 1 and "
-                          "Fleiss' kappa is undefined.", **info)
+        return FleissResult(value=None, ci=None, reason="Every rating falls in one category, so agreement expected "
+                                                        "by chance is 1 and Fleiss' kappa is undefined.", **info)
     kappa = _fleiss_from_counts(table)
     pq = pj * (1 - pj)
     spq = float(pq.sum())
@@ -766,11 +919,9 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
         with np.errstate(divide="ignore", invalid="ignore"):
             reps.append((Pbar - peb) / (1 - peb))
     interval = _percentile_ci(np.concatenate(reps), ci)
-    out = {"value": float(kappa), "ci": interval, "se0": se0, "z": _num(zval),
-           "p": _num(2 * sps.norm.sf(abs(zval))) if zval is not None else None,
-           "label": landis_koch_label(kappa), "reason": None}
-    out.update(info)
-    return out
+    return FleissResult(value=float(kappa), ci=interval, reason=None, se0=se0, z=_num(zval),
+                        p=_num(2 * sps.norm.sf(abs(zval))) if zval is not None else None,
+                        label=landis_koch_label(kappa), **info)
 
 
 # --------------------------------------------------------------------------------------------- Krippendorff
@@ -796,7 +947,7 @@ def _kripp_distance(values: np.ndarray, nv: np.ndarray, level: str) -> np.ndarra
 
 
 def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot: int = _BOOT,
-                       seed: int = 0) -> dict:
+                       seed: int = 0) -> KrippendorffResult:
     """Krippendorff's alpha for any number of raters, missing ratings allowed.
 
     Parameters
@@ -813,7 +964,7 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
 
     Returns
     -------
-    dict
+    KrippendorffResult
         ``value, ci, ci_method, level, n_units, n_pairable_units, n_values (pairable values),
         label (Krippendorff's reliable/tentative/unreliable), label_source, reason``, and ``ci_reason``
         when no interval could be computed.
@@ -850,13 +1001,15 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
             "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
             "label_source": KRIPPENDORFF_SOURCE}
     if Y.shape[1] < 2:
-        return _undefined("Krippendorff's alpha needs at least two raters.", **info)
+        return KrippendorffResult(value=None, ci=None, reason="Krippendorff's alpha needs at least two raters.",
+                                  **info)
     if P.shape[0] == 0:
-        return _undefined("No unit was rated by two or more raters, so there are no pairs to compare.", **info)
+        return KrippendorffResult(value=None, ci=None, reason="No unit was rated by two or more raters, so there "
+                                                              "are no pairs to compare.", **info)
     values = np.unique(P[~np.isnan(P)])
     if values.size < 2:
-        return _undefined(f"Every pairable rating is {values[0]:g}: with one value there is no expected "
-                          f"disagreement and alpha is undefined.", **info)
+        return KrippendorffResult(value=None, ci=None, reason=f"Every pairable rating is {values[0]:g}: with one "
+                                  f"value there is no expected disagreement and alpha is undefined.", **info)
     V = values.size
     U = P.shape[0]
     cnt = np.zeros((U, V))
@@ -896,15 +1049,12 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     else:
         ci_note = f"No interval: ordinal data with {V} distinct values are too many for the bootstrap."
     interval = _percentile_ci(np.concatenate(reps), ci) if reps else None
-    out = {"value": value, "ci": interval, "label": krippendorff_label(value), "reason": None}
-    if ci_note:
-        out["ci_reason"] = ci_note
-    out.update(info)
-    return out
+    return KrippendorffResult(value=value, ci=interval, reason=None, label=krippendorff_label(value),
+                              ci_reason=ci_note, **info)
 
 
 # --------------------------------------------------------------------------------------------- percent
-def percent_agreement(data) -> dict:
+def percent_agreement(data) -> PercentAgreement:
     """Share of units on which all raters gave the same rating.
 
     Parameters
@@ -914,7 +1064,7 @@ def percent_agreement(data) -> dict:
 
     Returns
     -------
-    dict
+    PercentAgreement
         ``value, n_agree, n_units (complete units), n_dropped, reason``.
 
     Notes
@@ -931,11 +1081,11 @@ def percent_agreement(data) -> dict:
     comp = arr[keep]
     info = {"n_units": int(comp.shape[0]), "n_dropped": int((~keep).sum())}
     if arr.shape[1] < 2:
-        return _undefined("Agreement needs at least two raters.", n_agree=None, **info)
+        return PercentAgreement(value=None, reason="Agreement needs at least two raters.", n_agree=None, **info)
     if comp.shape[0] == 0:
-        return _undefined("No unit was rated by every rater.", n_agree=None, **info)
+        return PercentAgreement(value=None, reason="No unit was rated by every rater.", n_agree=None, **info)
     agree = int(sum(all(v == row[0] for v in row[1:]) for row in comp))
-    return {"value": agree / comp.shape[0], "ci": None, "n_agree": agree, "reason": None, **info}
+    return PercentAgreement(value=agree / comp.shape[0], reason=None, n_agree=agree, **info)
 
 
 # --------------------------------------------------------------------------------------------- summary
@@ -1011,7 +1161,7 @@ def _objects(Y: np.ndarray) -> np.ndarray:
     return obj
 
 
-def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> dict:
+def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> AgreementSummary:
     """Every agreement coefficient that suits a units x raters table at a given level.
 
     Parameters
@@ -1025,11 +1175,11 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> d
 
     Returns
     -------
-    dict
+    AgreementSummary
         ``level, n_units, n_raters, n_complete_units, n_missing, categories (text labels or None),
         percent_agreement, cohen_kappa, weighted_kappa {linear, quadratic}, fleiss_kappa,
         krippendorff_alpha, icc, recommended (ICC form, or None), interpretation (Koo & Li reading of
-        its interval), conventions, warnings``. Every coefficient slot is a dict with
+        its interval), conventions, warnings``. Every coefficient slot has
         ``value`` and ``reason``; a coefficient that does not apply (Cohen's kappa for three raters,
         weighted kappa for nominal data, ICC below interval level) has ``value: None`` and a reason.
 
@@ -1067,45 +1217,49 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> d
         i, j = map(int, np.argwhere(Y < 0)[0])
         raise InputError(f"Ratio ratings cannot be negative: row {i + 1}, column {j + 1} holds {Y[i, j]:g}.",
                          code="bad_value", details={"row": i + 1, "column": j + 1, "value": float(Y[i, j])})
-    warnings: list[str] = []
+    warnings: list[Note] = []
     complete = ~np.isnan(Y).any(axis=1)
     n_missing = int(np.isnan(Y).sum())
     if n_missing:
-        warnings.append(f"{n_missing} rating(s) are missing; percent agreement, kappas and the ICC use the "
-                        f"{int(complete.sum())} unit(s) rated by every rater, Krippendorff's alpha uses every "
-                        f"pairable rating.")
+        warnings.append(note("missing_ratings", f"{n_missing} rating(s) are missing; percent agreement, kappas and "
+                                                f"the ICC use the {int(complete.sum())} unit(s) rated by every rater, "
+                                                f"Krippendorff's alpha uses every pairable rating."))
     obj = _objects(Y)
     if labels is not None:
         obj = np.array([[None if v is None else labels[int(v)] for v in r] for r in obj], dtype=object)
 
-    out: dict = {"level": level, "n_units": int(n_units), "n_raters": int(n_raters),
-                 "n_complete_units": int(complete.sum()), "n_missing": n_missing, "categories": labels}
-    out["percent_agreement"] = percent_agreement(obj)
+    cohen: KappaResult | NotApplicable
+    fleiss: FleissResult | NotApplicable
     if n_raters == 2:
-        out["cohen_kappa"] = cohen_kappa(obj[:, 0], obj[:, 1], ci=ci)
+        cohen = cohen_kappa(obj[:, 0], obj[:, 1], ci=ci)
         if level == "nominal":
             why = "Weighted kappa needs ordered categories; nominal categories have no order."
-            out["weighted_kappa"] = {"linear": _undefined(why), "quadratic": _undefined(why)}
+            weighted = WeightedKappas(NotApplicable(why), NotApplicable(why))
         else:
-            out["weighted_kappa"] = {w: weighted_kappa(Y[:, 0], Y[:, 1], weights=w, ci=ci)
-                                     for w in ("linear", "quadratic")}
-        out["fleiss_kappa"] = _undefined("With two raters Cohen's kappa is reported; Fleiss' kappa is given "
-                                         "for three or more raters.")
+            weighted = WeightedKappas(*(weighted_kappa(Y[:, 0], Y[:, 1], weights=w, ci=ci)
+                                        for w in ("linear", "quadratic")))
+        fleiss = NotApplicable("With two raters Cohen's kappa is reported; Fleiss' kappa is given for three or "
+                               "more raters.")
     else:
         why = f"Cohen's kappa compares exactly two raters; there are {n_raters} (see Fleiss' kappa)."
-        out["cohen_kappa"] = _undefined(why)
-        out["weighted_kappa"] = {"linear": _undefined(why), "quadratic": _undefined(why)}
-        out["fleiss_kappa"] = fleiss_kappa(obj, ci=ci)
-    out["krippendorff_alpha"] = krippendorff_alpha(Y, level, ci=ci)
+        cohen = NotApplicable(why)
+        weighted = WeightedKappas(NotApplicable(why), NotApplicable(why))
+        fleiss = fleiss_kappa(obj, ci=ci)
+    icc_result: IccResult | NotApplicable
     if level in ("interval", "ratio"):
-        out["icc"] = icc(Y, ci=ci)
-        out["recommended"] = out["icc"]["recommended"]
-        out["interpretation"] = out["icc"]["interpretation"]
-        warnings.extend(out["icc"]["warnings"][1:] if n_missing else out["icc"]["warnings"])
+        icc_result = icc(Y, ci=ci)
+        recommended, interpretation = icc_result.recommended, icc_result.interpretation
+        # the ICC's own missing-data note repeats the summary's
+        warnings.extend(w for w in icc_result.warnings if w.code != "icc_incomplete_units")
     else:
-        out["icc"] = _undefined(f"The ICC treats ratings as interval-level numbers; these are {level}.")
-        out["recommended"] = out["interpretation"] = None
-    out["conventions"] = {"kappa_labels": LANDIS_KOCH_SOURCE, "alpha_labels": KRIPPENDORFF_SOURCE,
-                          "icc_labels": KOO_LI_SOURCE}
-    out["warnings"] = warnings
-    return out
+        icc_result = NotApplicable(f"The ICC treats ratings as interval-level numbers; these are {level}.")
+        recommended = interpretation = None
+    return AgreementSummary(
+        level=level, n_units=int(n_units), n_raters=int(n_raters), n_complete_units=int(complete.sum()),
+        n_missing=n_missing, categories=None if labels is None else tuple(labels),
+        percent_agreement=percent_agreement(obj), cohen_kappa=cohen, weighted_kappa=weighted, fleiss_kappa=fleiss,
+        krippendorff_alpha=krippendorff_alpha(Y, level, ci=ci), icc=icc_result, recommended=recommended,
+        interpretation=interpretation,
+        conventions=Conventions(kappa_labels=LANDIS_KOCH_SOURCE, alpha_labels=KRIPPENDORFF_SOURCE,
+                                icc_labels=KOO_LI_SOURCE),
+        warnings=tuple(warnings))

@@ -25,6 +25,7 @@ import pandas as pd
 from scipy.special import ndtr, ndtri, owens_t
 
 from server.stats.errors import InputError
+from server.stats.notes import Note, note
 
 __all__ = [
     "CorrelationResult",
@@ -32,10 +33,11 @@ __all__ = [
     "listwise_covariance",
     "pairwise_covariance",
     "pearson_matrix",
+    "perfect_pairs_note",
     "polychoric_matrix",
     "polychoric_pair",
     "smooth_to_pd",
-    "smoothing_message",
+    "smoothing_note",
 ]
 
 _RHO_BOUND = 1.0 - 1e-7
@@ -54,8 +56,8 @@ class CorrelationResult:
         The correlation matrix (smoothed to positive definite when ``smoothed``).
     n_pair : ndarray (k, k) of int
         Number of respondents behind each entry (diagonal: answers to the item).
-    warnings : list of str
-        Sentences about soft problems (sparse categories, empty cells, smoothing).
+    warnings : list of Note
+        Soft problems with their codes (sparse categories, empty cells, smoothing).
     names : list of str
         Item names, in matrix order.
     method : str
@@ -90,7 +92,7 @@ class CorrelationResult:
             "missing": self.missing,
             "smoothed": bool(self.smoothed),
             "min_eigenvalue": float(self.min_eigenvalue),
-            "warnings": list(self.warnings),
+            "warnings": [w.to_dict() for w in self.warnings],
         }
 
 
@@ -265,22 +267,34 @@ def pearson_matrix(X, *, missing: str = "pairwise", names=None, smooth: str | No
                          details={"items": [names[i], names[j]]})
     R = np.clip((R + R.T) / 2, -1.0, 1.0)
     np.fill_diagonal(R, 1.0)
-    warnings: list[str] = []
-    _warn_perfect(R, names, warnings, "Pearson correlation", "their answers are exact linear functions of "
-                  "each other")
+    warnings: list[Note] = []
+    perfect = perfect_pairs_note(R, names, "pearson")
+    if perfect is not None:
+        warnings.append(perfect)
     R, smoothed, lam = _maybe_smooth(R, smooth, "Pearson", names, warnings)
     return CorrelationResult(matrix=R, n_pair=n, warnings=warnings, names=names, method="pearson",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam)
 
 
-def _warn_perfect(R, names, warnings, label, why):
-    iu, ju = np.triu_indices(R.shape[0], 1)
-    edge = np.abs(R[iu, ju]) > 0.9999
-    if edge.any():
-        f = np.nonzero(edge)[0][0]
-        warnings.append(f"{int(edge.sum())} item pair(s) have a {label} of +-1 (for example '{names[iu[f]]}' "
-                        f"and '{names[ju[f]]}', r = {R[iu[f], ju[f]]:.4f}): {why}, which often means a "
-                        "duplicated item. Drop one of each such pair.")
+def perfect_pairs_note(R, names, method: str) -> Note | None:
+    """The ``perfect_correlation`` warning for item pairs correlating +-1 in ``R`` (None when there are none).
+
+    ``method`` is ``"pearson"`` or ``"polychoric"``; ``items`` lists every item of such a pair.
+    """
+    label, why = (("polychoric correlation", "their answers are perfectly ordered together")
+                  if method == "polychoric" else
+                  ("Pearson correlation", "their answers are exact linear functions of each other"))
+    A = np.asarray(R, dtype=float)
+    iu, ju = np.triu_indices(A.shape[0], 1)
+    edge = np.abs(A[iu, ju]) > 0.9999
+    if not edge.any():
+        return None
+    f = np.nonzero(edge)[0][0]
+    involved = sorted(set(iu[edge]) | set(ju[edge]))
+    return note("perfect_correlation",
+                f"{int(edge.sum())} item pair(s) have a {label} of +-1 (for example '{names[iu[f]]}' "
+                f"and '{names[ju[f]]}', r = {A[iu[f], ju[f]]:.4f}): {why}, which often means a "
+                "duplicated item. Drop one of each such pair.", [names[i] for i in involved])
 
 
 def _check_variance(arr: np.ndarray, names: list[str]) -> None:
@@ -300,12 +314,12 @@ def _maybe_smooth(R, smooth, label, names, warnings):
     lam = float(np.linalg.eigvalsh(R)[0])
     if smooth is None:
         if lam <= 0:
-            warnings.append(f"The {label} matrix is not positive definite (smallest eigenvalue {lam:.3g}) "
-                            "and was left unsmoothed.")
+            warnings.append(note("not_positive_definite", f"The {label} matrix is not positive definite "
+                                 f"(smallest eigenvalue {lam:.3g}) and was left unsmoothed."))
         return R, False, lam
     R_s, lam, changed = smooth_to_pd(R, method=smooth)
     if changed:
-        warnings.append(smoothing_message(R, R_s, lam, smooth, label=label, names=names))
+        warnings.append(smoothing_note(R, R_s, lam, smooth, label=label, names=names))
     return R_s, changed, lam
 
 
@@ -708,7 +722,7 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
     R[iu, ju] = rho
     R[ju, iu] = rho
 
-    warnings: list[str] = []
+    warnings: list[Note] = []
     diag_counts = tables[np.arange(k), np.arange(k)].diagonal(axis1=1, axis2=2)  # (k, m)
     thresholds = []
     for j in range(k):
@@ -716,34 +730,49 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
         thresholds.append(_thresholds_from_margins(cnt[None, :])[0, 1:-1])
         sparse = [f"{levels[j][c]:g} ({int(cnt[c])})" for c in range(ncat[j]) if cnt[c] < _SPARSE_CATEGORY]
         if sparse:
-            warnings.append(f"Item '{names[j]}' has fewer than {_SPARSE_CATEGORY} answers in category "
-                            f"{', '.join(sparse)}; its thresholds and polychoric correlations are unstable "
-                            "(consider merging sparse categories).")
+            warnings.append(note("polychoric_sparse_category",
+                                 f"Item '{names[j]}' has fewer than {_SPARSE_CATEGORY} answers in category "
+                                 f"{', '.join(sparse)}; its thresholds and polychoric correlations are unstable "
+                                 "(consider merging sparse categories).", [names[j]]))
     valid = (np.arange(m)[None, :, None] < ci[:, None, None]) & (np.arange(m)[None, None, :] < cj[:, None, None])
     empty = ((pair_tables == 0) & valid).any(axis=(1, 2))
     if empty.any():
-        warnings.append(f"{int(empty.sum())} of {len(iu)} item pairs have at least one empty cell in their "
-                        f"contingency table ({_pair_list(np.nonzero(empty)[0], iu, ju, names)}); "
-                        "their polychoric correlations rest on sparse tables.")
+        warnings.append(note("polychoric_empty_cells",
+                             f"{int(empty.sum())} of {len(iu)} item pairs have at least one empty cell in their "
+                             f"contingency table ({_pair_list(np.nonzero(empty)[0], iu, ju, names)}); "
+                             "their polychoric correlations rest on sparse tables.",
+                             _pair_items(np.nonzero(empty)[0], iu, ju, names)))
     if correction > 0 and had_empty.any():
         idx = np.nonzero(had_empty)[0]
-        warnings.append(f"{correction:g} was added to the empty cells of {len(idx)} pair(s) before estimation "
-                        f"(zero-cell correction, common practice): {_pair_list(idx, iu, ju, names)}.")
+        warnings.append(note("polychoric_zero_cell_correction",
+                             f"{correction:g} was added to the empty cells of {len(idx)} pair(s) before estimation "
+                             f"(zero-cell correction, common practice): {_pair_list(idx, iu, ju, names)}.",
+                             _pair_items(idx, iu, ju, names)))
     edge = np.nonzero(np.abs(rho) >= _BOUNDARY)[0]
     if edge.size:
-        warnings.append(f"The polychoric estimate is at the boundary (|r| >= {_BOUNDARY}) for {edge.size} "
-                        f"pair(s), {_pair_list(edge, iu, ju, names, rho)}: an empty cell or a duplicated item can "
-                        "push the estimate to +-1, and such a value is not a trustworthy correlation.")
+        warnings.append(note("polychoric_boundary",
+                             f"The polychoric estimate is at the boundary (|r| >= {_BOUNDARY}) for {edge.size} "
+                             f"pair(s), {_pair_list(edge, iu, ju, names, rho)}: an empty cell or a duplicated item "
+                             "can push the estimate to +-1, and such a value is not a trustworthy correlation.",
+                             _pair_items(edge, iu, ju, names)))
     if not conv.all():
         first = np.nonzero(~conv)[0][0]
-        warnings.append(f"The polychoric estimate did not converge for {int((~conv).sum())} item pair(s) "
-                        f"(for example '{names[iu[first]]}' x '{names[ju[first]]}').")
-    _warn_perfect(R, names, warnings, "polychoric correlation", "their answers are perfectly ordered "
-                  "together")
+        warnings.append(note("polychoric_not_converged",
+                             f"The polychoric estimate did not converge for {int((~conv).sum())} item pair(s) "
+                             f"(for example '{names[iu[first]]}' x '{names[ju[first]]}').",
+                             _pair_items(np.nonzero(~conv)[0], iu, ju, names)))
+    perfect = perfect_pairs_note(R, names, "polychoric")
+    if perfect is not None:
+        warnings.append(perfect)
     R, smoothed, lam = _maybe_smooth(R, smooth, "polychoric", names, warnings)
     return CorrelationResult(matrix=R, n_pair=n_pair, warnings=warnings, names=names, method="polychoric",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam,
                              thresholds=thresholds)
+
+
+def _pair_items(idx, iu, ju, names) -> list[str]:
+    """The items of the pairs in ``idx``, each once, in matrix order."""
+    return [names[i] for i in sorted(set(iu[idx]) | set(ju[idx]))]
 
 
 def _pair_list(idx, iu, ju, names, rho=None) -> str:
@@ -830,14 +859,15 @@ def smooth_to_pd(R, *, method: str = "eigen", min_eigenvalue: float = 1e-6, max_
     return out, lam, True
 
 
-def smoothing_message(R_before, R_after, smallest: float, method: str, *, label: str = "correlation",
-                      names=None) -> str:
-    """The warning sentence for a smoothed matrix: smallest eigenvalue and the largest change."""
+def smoothing_note(R_before, R_after, smallest: float, method: str, *, label: str = "correlation",
+                   names=None) -> Note:
+    """The ``smoothed`` warning for a smoothed matrix: smallest eigenvalue and the largest change."""
     diff = np.abs(np.asarray(R_after) - np.asarray(R_before))
     i, j = np.unravel_index(np.argmax(diff), diff.shape)
     how = "eigenvalue method" if method == "eigen" else "nearest correlation matrix (Higham 2002)"
     where = ""
     if names is not None and diff[i, j] > 0:
         where = f" ('{names[i]}' with '{names[j]}')"
-    return (f"The {label} matrix was not positive definite (smallest eigenvalue {smallest:.3g}) and was "
-            f"smoothed by the {how}; correlations changed by at most {diff[i, j]:.3f}{where}.")
+    return note("smoothed", f"The {label} matrix was not positive definite (smallest eigenvalue {smallest:.3g}) "
+                f"and was smoothed by the {how}; correlations changed by at most {diff[i, j]:.3f}{where}.",
+                [names[i], names[j]] if where else [])

@@ -45,16 +45,20 @@ from scipy import linalg, optimize, stats
 from . import flags as _flags
 from . import rotation as _rotation
 from .errors import InputError
+from .notes import Note, note
 
 __all__ = [
     "METHODS",
     "PSI_LOWER",
     "EFAResult",
     "Extraction",
+    "cap_factors",
+    "check_factor_model",
     "congruence",
     "extract",
     "factor_analysis",
     "fit_indices",
+    "max_factors",
 ]
 
 METHODS = ("minres", "ml", "paf")
@@ -78,7 +82,7 @@ class Extraction:
     iterations : int
     heywood : list of int
         Indices of Heywood items: communality at or above 1, or the uniqueness at its lower bound.
-    warnings : list of str
+    warnings : list of Note
     method : str
     objective : float
         Value of the fitting function at the solution (NaN for paf).
@@ -90,9 +94,45 @@ class Extraction:
     converged: bool
     iterations: int
     heywood: list[int]
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[Note] = field(default_factory=list)
     method: str = "minres"
     objective: float = float("nan")
+
+
+# --------------------------------------------------------------------------- when a factor model applies
+
+def check_factor_model(n: int, k: int, *, min_items: int = 3) -> None:
+    """Raise :class:`InputError` when ``n`` respondents and ``k`` items cannot carry a factor model.
+
+    With ``n <= k`` the correlation matrix is singular (its rank is below ``k``), so Bartlett's test, KMO
+    and any extraction are meaningless (code ``too_few_rows``); with ``min_items=3`` (the default) fewer
+    than 3 items give no identified common factor (code ``too_few_items``). Pass ``min_items=0`` to
+    check the rows alone.
+    """
+    if n <= k:
+        raise InputError(f"A factor analysis needs more respondents than items (n = {n}, k = {k}); "
+                         f"only the reliability sections are shown.", code="too_few_rows",
+                         details={"n": int(n), "k": int(k)})
+    if k < min_items:
+        raise InputError(f"A factor analysis needs at least {min_items} active items.", code="too_few_items",
+                         details={"k": int(k)})
+
+
+def max_factors(k: int) -> int:
+    """The most factors extracted from ``k`` items: ``k // 2`` (at least 1), so each factor has two items.
+
+    A factor defined by fewer than two (better three) items is not a common factor (common practice;
+    Fabrigar, Wegener, MacCallum & Strahan 1999, Psychological Methods 4, 272-299).
+    """
+    return max(1, int(k) // 2)
+
+
+def cap_factors(m: int, k: int) -> tuple[int, Note | None]:
+    """``m`` limited to :func:`max_factors` of ``k``, with a ``too_many_factors`` warning when it was cut."""
+    top = max_factors(k)
+    if m <= top:
+        return m, None
+    return top, note("too_many_factors", f"{m} factors is too many for {k} items; {top} were extracted.")
 
 
 # --------------------------------------------------------------------------- input checks
@@ -135,8 +175,9 @@ def _check_R(R, names: Sequence[str] | None) -> tuple[np.ndarray, list[str], lis
     iu = np.triu_indices(k, 1)
     dup = np.abs(R[iu]) > 0.9999
     for a, b in zip(iu[0][dup], iu[1][dup]):
-        warnings.append(f"Items '{nm[a]}' and '{nm[b]}' correlate {R[a, b]:.4f}: one duplicates the other. "
-                        f"Drop one of them; together they make the correlation matrix singular.")
+        warnings.append(note("duplicate_items", f"Items '{nm[a]}' and '{nm[b]}' correlate {R[a, b]:.4f}: one "
+                             f"duplicates the other. Drop one of them; together they make the correlation "
+                             f"matrix singular.", [nm[a], nm[b]]))
     return R, nm, warnings
 
 
@@ -285,11 +326,12 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
                          f"others, for instance duplicates). Drop such items or use minres.",
                          code="singular_matrix", details={"min_eigenvalue": min_eig})
     if method != "ml" and min_eig <= 1e-10:
-        warnings.append(f"The correlation matrix is singular (smallest eigenvalue {min_eig:.2g}); some items "
-                        f"are exact combinations of others and their loadings are not trustworthy.")
+        warnings.append(note("singular_matrix", f"The correlation matrix is singular (smallest eigenvalue "
+                             f"{min_eig:.2g}); some items are exact combinations of others and their loadings "
+                             f"are not trustworthy."))
     if method == "ml" and ((k - m) ** 2 - (k + m)) < 0:
-        warnings.append(f"With {k} items, {m} factors leave negative degrees of freedom; the ML "
-                        f"solution is not identified. Extract fewer factors.")
+        warnings.append(note("ml_not_identified", f"With {k} items, {m} factors leave negative degrees of "
+                             f"freedom; the ML solution is not identified. Extract fewer factors."))
 
     smc = _smc(R)
     heywood: list[int] = []
@@ -310,8 +352,8 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
                 break
         objective = float("nan")
         if not converged:
-            warnings.append(f"Principal axis factoring did not converge in {max_iter} iterations "
-                            f"(last change of a communality {delta:.2g}).")
+            warnings.append(note("not_converged", f"Principal axis factoring did not converge in {max_iter} "
+                                 f"iterations (last change of a communality {delta:.2g})."))
         heywood = [i for i in range(k) if h2[i] >= 1.0 - 1e-9]
     else:
         if method == "ml":
@@ -334,16 +376,18 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
         L = _ml_loadings(psi, R, m) if method == "ml" else _uls_loadings(psi, R, m)
         h2 = np.sum(L * L, axis=1)
         if not converged:
-            warnings.append(f"The {'ML' if method == 'ml' else 'minres'} fit stopped after {it} iterations "
-                            f"without converging ({res.message}); treat its loadings with caution.")
+            warnings.append(note("not_converged", f"The {'ML' if method == 'ml' else 'minres'} fit stopped "
+                                 f"after {it} iterations without converging ({res.message}); treat its loadings "
+                                 f"with caution."))
         heywood = [i for i in range(k) if psi[i] <= PSI_LOWER * (1 + 1e-6) or h2[i] >= 1.0 - 1e-9]
     # canonical sign: each unrotated factor's loadings sum positive
     sgn = np.where(L.sum(axis=0) < 0, -1.0, 1.0)
     L = L * sgn[None, :]
     for i in heywood:
-        warnings.append(f"Item '{nm[i]}' is a Heywood case: its communality reached {h2[i]:.3f} (uniqueness "
-                        f"{1 - h2[i]:.3f}), at the boundary of 1. It was reported, not corrected; too many "
-                        f"factors, a duplicated item or a small sample are the usual causes.")
+        warnings.append(note("heywood", f"Item '{nm[i]}' is a Heywood case: its communality reached {h2[i]:.3f} "
+                             f"(uniqueness {1 - h2[i]:.3f}), at the boundary of 1. It was reported, not corrected; "
+                             f"too many factors, a duplicated item or a small sample are the usual causes.",
+                             [nm[i]]))
     return Extraction(L, h2, 1.0 - h2, converged, it, heywood, warnings, method, objective)
 
 
@@ -458,7 +502,7 @@ class EFAResult:
         From :func:`fit_indices`.
     converged : bool
         Extraction and rotation both converged.
-    warnings : list of str
+    warnings : list of Note
     flags : list of dict
         From :func:`server.stats.flags.flag_items`.
     rotation, method : str
@@ -480,7 +524,7 @@ class EFAResult:
     variance: dict
     fit: dict
     converged: bool
-    warnings: list[str]
+    warnings: list[Note]
     flags: list[dict]
     rotation: str
     method: str
@@ -509,7 +553,7 @@ class EFAResult:
                          for key, val in self.variance.items()},
             "fit": {key: (f(v) if isinstance(v, float) else v) for key, v in self.fit.items()},
             "converged": bool(self.converged),
-            "warnings": list(self.warnings),
+            "warnings": [w.to_dict() for w in self.warnings],
             "flags": [dict(x) for x in self.flags],
             "rotation": self.rotation,
             "method": self.method,
@@ -676,8 +720,9 @@ def factor_analysis(R, n_factors: int, *, n: int | None = None, names: Sequence[
         if m != m_prev:
             match += f" The previous solution had {m_prev} factors, this one has {m}."
         if min(congr) < 0.85:
-            warnings.append(f"A factor changed substantially from the previous solution (Tucker's "
-                            f"congruence {min(congr):.2f}, below .85, Lorenzo-Seva & ten Berge 2006).")
+            warnings.append(note("factor_changed", f"A factor changed substantially from the previous solution "
+                                 f"(Tucker's congruence {min(congr):.2f}, below .85, Lorenzo-Seva & ten Berge "
+                                 f"2006)."))
     P = P * sgn[None, :]
     phi = phi * np.outer(sgn, sgn)
     S = P @ phi

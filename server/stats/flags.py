@@ -13,24 +13,52 @@ Heywood, H. B. (1931). On finite sequences of real numbers. Proceedings of the R
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
 from .errors import InputError
 
-__all__ = ["DEFAULT_THRESHOLDS", "FLAG_KINDS", "flag_items", "item_level_flags", "resolve_thresholds"]
+__all__ = ["DEFAULT_THRESHOLDS", "FLAG_KINDS", "THRESHOLDS", "Threshold", "flag_items", "item_level_flags",
+           "resolve_thresholds"]
 
-#: Default thresholds of the flag rules (all heuristics, overridable per request).
-DEFAULT_THRESHOLDS: dict[str, float] = {
-    "primary_min": 0.40,       # weak_loading: primary |loading| below this (Howard 2016)
-    "communality_min": 0.20,   # weak_loading: communality below this (common practice)
-    "cross_min": 0.30,         # cross_loading: second |loading| at least this (Howard 2016)
-    "cross_gap": 0.20,         # cross_loading: ... and less than this below the primary (Howard 2016)
-    "item_rest_min": 0.0,      # reverse_suspect: item-rest r below this (common practice)
-    "heywood_communality": 0.995,  # heywood: communality at or above this (psi at 0.005, the usual bound)
-    "redundant_r": 0.80,       # near_duplicate: |inter-item r| at or above this (common practice)
-    "extreme_share": 0.50,     # floor_ceiling: share of answers at one end at or above this (common practice)
-}
+
+@dataclass(frozen=True)
+class Threshold:
+    """One flag threshold: its default, allowed range, the words a person reads and where the value comes from."""
+
+    name: str
+    default: float
+    min: float
+    max: float
+    label: str
+    source: str
+    help: str
+
+
+#: The flag rules' thresholds (all heuristics, overridable per request); the one home of their defaults.
+THRESHOLDS: tuple[Threshold, ...] = (
+    Threshold("primary_min", 0.40, 0.0, 1.0, "Weak: primary loading below", "Howard 2016",
+              "An item whose largest absolute loading is below this is flagged as weakly explained."),
+    Threshold("communality_min", 0.20, 0.0, 1.0, "Weak: communality below", "common practice",
+              "An item whose communality (variance shared with the factors) is below this is flagged as weak."),
+    Threshold("cross_min", 0.30, 0.0, 1.0, "Cross-loading: a second loading of at least", "Howard 2016",
+              "A second loading at least this large (in absolute value) can make a cross-loading."),
+    Threshold("cross_gap", 0.20, 0.0, 1.0, "Cross-loading: and less than this below the primary", "Howard 2016",
+              "... when it is also less than this below the primary loading."),
+    Threshold("item_rest_min", 0.0, -1.0, 1.0, "Reverse suspect: item-rest r below", "common practice",
+              "An item not declared reverse-keyed whose item-rest correlation is below this may be miskeyed."),
+    Threshold("redundant_r", 0.80, 0.0, 1.0, "Near-duplicate: inter-item r of at least", "Clark & Watson 1995",
+              "Two items correlating at least this much may say the same thing twice."),
+    Threshold("extreme_share", 0.50, 0.0, 1.0, "Floor/ceiling: share of answers at one end of at least",
+              "common practice", "An item with at least this share of answers at one end tells few people apart."),
+    Threshold("heywood_communality", 0.995, 0.0, 1.0, "Heywood: communality of at least", "common practice",
+              "A communality at or above this (uniqueness at the usual 0.005 bound) is a Heywood case."),
+)
+
+#: Default thresholds by name (read from :data:`THRESHOLDS`).
+DEFAULT_THRESHOLDS: dict[str, float] = {t.name: t.default for t in THRESHOLDS}
+_RANGES = {t.name: (t.min, t.max) for t in THRESHOLDS}
 
 FLAG_KINDS = ("cross_loading", "weak_loading", "misplaced", "heywood", "reverse_suspect", "near_duplicate",
               "floor_ceiling")
@@ -53,9 +81,9 @@ def resolve_thresholds(thresholds: Mapping[str, float] | None) -> dict[str, floa
         except (TypeError, ValueError):
             raise InputError(f"Flag threshold '{key}' must be a number; got {value!r}.",
                              code="bad_threshold", details={"threshold": key, "value": str(value)}) from None
-        lo = -1.0 if key == "item_rest_min" else 0.0
-        if not (lo <= v <= 1.0) or not np.isfinite(v):
-            raise InputError(f"Flag threshold '{key}' must lie between {lo:g} and 1; got {v:g}.",
+        lo, hi = _RANGES[key]
+        if not (lo <= v <= hi) or not np.isfinite(v):
+            raise InputError(f"Flag threshold '{key}' must lie between {lo:g} and {hi:g}; got {v:g}.",
                              code="bad_threshold", details={"threshold": key, "value": v})
         out[key] = v
     return out

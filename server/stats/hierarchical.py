@@ -33,6 +33,7 @@ import numpy as np
 
 from . import efa as _efa
 from .errors import InputError
+from .notes import Note, note
 
 __all__ = [
     "GroupOmega",
@@ -82,7 +83,7 @@ class SchmidLeimanResult:
         the one-factor model of ``Phi`` is exact, always so for two or three factors).
     names, factors : tuple of str
         Item and group-factor labels.
-    warnings : tuple of str
+    warnings : tuple of Note
     """
 
     general: np.ndarray = field(compare=False)
@@ -94,7 +95,7 @@ class SchmidLeimanResult:
     second_order_rmsr: float
     names: tuple[str, ...]
     factors: tuple[str, ...]
-    warnings: tuple[str, ...] = ()
+    warnings: tuple[Note, ...] = ()
 
     def to_dict(self) -> dict:
         return {
@@ -106,7 +107,7 @@ class SchmidLeimanResult:
             "second_order_method": self.second_order_method,
             "second_order_rmsr": _num(self.second_order_rmsr),
             "factors": list(self.factors),
-            "warnings": list(self.warnings),
+            "warnings": [w.to_dict() for w in self.warnings],
         }
 
 
@@ -184,7 +185,7 @@ def schmid_leiman(pattern, phi, *, names: Sequence[str] | None = None,
     k, m = P.shape
     nm = _labels(k, names, "item", "item")
     fl = _labels(m, factors, "factor", "Factor")
-    warnings: list[str] = []
+    warnings: list[Note] = []
     rmsr = 0.0
     if m == 1:
         gamma = np.ones(1)
@@ -194,31 +195,35 @@ def schmid_leiman(pattern, phi, *, names: Sequence[str] | None = None,
         gamma = np.full(2, math.sqrt(r) if r > 0 else 0.0)
         method = "two factors: both second-order loadings set to sqrt(phi12)"
         if r > 0:
-            warnings.append(f"With two factors the general factor is not identified from their correlation alone; "
-                            f"both second-order loadings were set to sqrt({r:.3f}) = {gamma[0]:.3f}. Treat omega "
-                            "hierarchical as a rough figure; three or more group factors identify it.")
+            warnings.append(note("general_not_identified", f"With two factors the general factor is not identified "
+                                 f"from their correlation alone; both second-order loadings were set to "
+                                 f"sqrt({r:.3f}) = {gamma[0]:.3f}. Treat omega hierarchical as a rough figure; three "
+                                 "or more group factors identify it."))
         else:
-            warnings.append(f"The two factors correlate {r:.3f}; without a positive correlation there is no general "
-                            "factor, so its loadings are 0 and omega hierarchical is 0.")
+            warnings.append(note("no_general_factor", f"The two factors correlate {r:.3f}; without a positive "
+                                 "correlation there is no general factor, so its loadings are 0 and omega "
+                                 "hierarchical is 0."))
     else:
         ex = _efa.extract(Phi, 1, method="minres", names=fl)
         gamma = ex.loadings[:, 0].copy()
         method = "one-factor minres fit of the factor correlations"
-        warnings.extend(f"Second-order fit: {w}" for w in ex.warnings)
+        warnings.extend(Note(f"second_order_{w.code}", f"Second-order fit: {w.message}", w.items)
+                        for w in ex.warnings)
         iu = np.triu_indices(m, 1)
         rmsr = float(np.sqrt(np.mean((Phi - np.outer(gamma, gamma))[iu] ** 2)))
         if np.any(gamma < 0):
             neg = ", ".join(f"'{fl[j]}'" for j in np.flatnonzero(gamma < 0))
-            warnings.append(f"Factor(s) {neg} load negatively on the general factor: they correlate negatively "
-                            "with the others, so a sum over all items mixes opposite directions.")
+            warnings.append(note("negative_second_order", f"Factor(s) {neg} load negatively on the general factor: "
+                                 "they correlate negatively with the others, so a sum over all items mixes opposite "
+                                 "directions."))
     gamma = np.clip(gamma, -1.0, 1.0)
     g = P @ gamma
     F = P * np.sqrt(np.maximum(1.0 - gamma ** 2, 0.0))[None, :] if m > 1 else np.zeros((k, 0))
     h2 = g ** 2 + np.sum(F ** 2, axis=1)
     u = 1.0 - h2
     for i in np.flatnonzero(u <= _efa.PSI_LOWER):
-        warnings.append(f"Item '{nm[i]}' has a communality of {h2[i]:.3f} in the hierarchical solution (Heywood "
-                        "case); the omega coefficients rest on a boundary solution.")
+        warnings.append(note("heywood", f"Item '{nm[i]}' has a communality of {h2[i]:.3f} in the hierarchical "
+                             "solution (Heywood case); the omega coefficients rest on a boundary solution.", [nm[i]]))
     return SchmidLeimanResult(general=g, group=F, communalities=h2, uniquenesses=u, second_order=gamma,
                               second_order_method=method, second_order_rmsr=rmsr, names=nm, factors=fl,
                               warnings=tuple(warnings))
@@ -293,7 +298,7 @@ class OmegaCoefficients:
         :math:`\\mathbf 1'R\\mathbf 1`, the denominator of the pool-level coefficients.
     denominator : str
         Which variance the coefficients are shares of.
-    warnings : tuple of str
+    warnings : tuple of Note
     """
 
     omega_total: float | None
@@ -303,14 +308,14 @@ class OmegaCoefficients:
     omega_subscale: tuple[GroupOmega, ...]
     total_variance: float
     denominator: str
-    warnings: tuple[str, ...] = ()
+    warnings: tuple[Note, ...] = ()
 
     def to_dict(self) -> dict:
         return {"omega_total": _num(self.omega_total), "omega_hierarchical": _num(self.omega_hierarchical),
                 "ecv": _num(self.ecv), "h": _num(self.h_general),
                 "omega_subscale": [g.to_dict() for g in self.omega_subscale],
                 "total_variance": _num(self.total_variance), "denominator": self.denominator,
-                "warnings": list(self.warnings)}
+                "warnings": [w.to_dict() for w in self.warnings]}
 
 
 def _check_corr(R, k: int) -> np.ndarray:
@@ -384,7 +389,7 @@ def omega_coefficients(R, sl: SchmidLeimanResult, *, groups: Sequence[int | None
     g, F = sl.general, sl.group
     k, m = F.shape
     A = _check_corr(R, k)
-    warnings: list[str] = list(sl.warnings)
+    warnings: list[Note] = list(sl.warnings)
     if groups is None:
         gi = _default_groups(F)
     else:
@@ -401,8 +406,8 @@ def omega_coefficients(R, sl: SchmidLeimanResult, *, groups: Sequence[int | None
     V = float(A.sum())
     common = float(np.sum(g ** 2) + np.sum(F ** 2))
     if V <= 0:
-        warnings.append(f"The variance of the total score is not positive ({V:.3g}); the omega coefficients "
-                        "are undefined (check reverse-keyed items).")
+        warnings.append(note("total_variance_not_positive", f"The variance of the total score is not positive "
+                             f"({V:.3g}); the omega coefficients are undefined (check reverse-keyed items)."))
         omega_t = omega_h = None
     else:
         omega_h = float(g.sum() ** 2 / V)
@@ -410,18 +415,20 @@ def omega_coefficients(R, sl: SchmidLeimanResult, *, groups: Sequence[int | None
     ecv = float(np.sum(g ** 2) / common) if common > 0 else None
     if np.any(g < 0):
         neg = ", ".join(f"'{sl.names[i]}'" for i in np.flatnonzero(g < 0))
-        warnings.append(f"Item(s) {neg} load negatively on the general factor; if they are reverse-keyed, declare "
-                        "them so they are reverse-scored.")
+        warnings.append(note("negative_loading", f"Item(s) {neg} load negatively on the general factor; if they are "
+                             "reverse-keyed, declare them so they are reverse-scored.",
+                             [sl.names[i] for i in np.flatnonzero(g < 0)]))
     h_general = construct_replicability(g)
     if h_general is None:
-        warnings.append("Construct replicability H of the general factor is undefined (a loading at +-1, or "
-                        "no loading at all).")
+        warnings.append(note("h_undefined", "Construct replicability H of the general factor is undefined (a "
+                             "loading at +-1, or no loading at all)."))
     subs = []
     for j in range(m):
         idx = np.flatnonzero(gi == j)
         h = construct_replicability(F[:, j])
         if idx.size == 0:
-            warnings.append(f"No item is assigned to group factor '{sl.factors[j]}', so it has no subscale omega.")
+            warnings.append(note("empty_group_factor", f"No item is assigned to group factor '{sl.factors[j]}', so "
+                                 "it has no subscale omega."))
             subs.append(GroupOmega(sl.factors[j], (), None, None, h))
             continue
         Vj = float(A[np.ix_(idx, idx)].sum())

@@ -17,6 +17,7 @@ import pandas as pd
 from scipy import optimize, special
 
 from .errors import InputError
+from .notes import Note, note
 
 __all__ = [
     "AlphaResult", "GuttmanLambdas", "OmegaResult", "OneFactorFit", "OrdinalAlphaResult",
@@ -295,23 +296,23 @@ class GuttmanLambdas:
     lambda2: float | None
     lambda3: float | None
     lambda6: float | None
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[Note] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {"lambda1": _num(self.lambda1), "lambda2": _num(self.lambda2),
                 "lambda3": _num(self.lambda3), "lambda6": _num(self.lambda6),
-                "warnings": list(self.warnings)}
+                "warnings": [w.to_dict() for w in self.warnings]}
 
 
-def _lambda6(S: np.ndarray, total: float) -> tuple[float | None, str | None]:
+def _lambda6(S: np.ndarray, total: float) -> tuple[float | None, Note | None]:
     R, sd = _cov_to_corr(S)
     try:
         chol = np.linalg.cholesky(R)
     except np.linalg.LinAlgError:
         chol = None
     if chol is None or float(np.min(np.diag(chol))) ** 2 < 1e-10:
-        return None, ("The item covariance matrix is singular (an item is a linear combination of "
-                      "others) or not positive definite, so Guttman's lambda6 is not reported.")
+        return None, note("lambda6_singular", "The item covariance matrix is singular (an item is a linear "
+                          "combination of others) or not positive definite, so Guttman's lambda6 is not reported.")
     # residual variance of each item regressed on all the others: 1 / (S^-1)_jj = s_j^2 / (R^-1)_jj
     err = sd ** 2 / np.diag(np.linalg.inv(R))
     return 1.0 - err.sum() / total, None
@@ -352,9 +353,10 @@ def guttman_lambdas(cov) -> GuttmanLambdas:
     S = _check_cov(cov)
     k = S.shape[0]
     total = S.sum()
-    warnings: list[str] = []
+    warnings: list[Note] = []
     if total <= 0:
-        warnings.append("The total-score variance is not positive, so Guttman's lambdas are undefined.")
+        warnings.append(note("total_variance_not_positive",
+                             "The total-score variance is not positive, so Guttman's lambdas are undefined."))
         return GuttmanLambdas(None, None, None, None, warnings)
     l1 = 1.0 - np.trace(S) / total
     off = S - np.diag(np.diag(S))
@@ -614,12 +616,12 @@ class OmegaResult:
     loadings: tuple[float, ...]            # covariance metric
     standardized_loadings: tuple[float, ...]
     converged: bool
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[Note] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {"omega_total": _num(self.omega_total), "loadings": [float(v) for v in self.loadings],
                 "standardized_loadings": [float(v) for v in self.standardized_loadings],
-                "converged": self.converged, "warnings": list(self.warnings)}
+                "converged": self.converged, "warnings": [w.to_dict() for w in self.warnings]}
 
 
 def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult:
@@ -627,18 +629,20 @@ def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult
     lam = fit.loadings * sd
     total = float(S.sum())
     omega = float(lam.sum() ** 2 / total) if total > 0 else float("nan")
-    warnings = []
+    warnings: list[Note] = []
+    label = [str(names[j]) if names is not None else str(j + 1) for j in range(len(lam))]
     if not fit.converged:
-        warnings.append("The one-factor model behind omega did not converge; omega is approximate.")
+        warnings.append(note("omega_not_converged",
+                             "The one-factor model behind omega did not converge; omega is approximate."))
     for j in fit.heywood:
-        warnings.append(f"Item {_item_label(j, names)} is a Heywood case in the one-factor model (communality "
-                        f"{fit.loadings[j] ** 2:.3f}, at or above the 0.995 bound); omega rests on a boundary "
-                        "solution and may be overstated.")
+        warnings.append(note("omega_heywood", f"Item {_item_label(j, names)} is a Heywood case in the one-factor "
+                             f"model (communality {fit.loadings[j] ** 2:.3f}, at or above the 0.995 bound); omega "
+                             "rests on a boundary solution and may be overstated.", [label[j]]))
     neg = [j for j in range(len(lam)) if fit.loadings[j] < 0]
     if neg:
         which = ", ".join(_item_label(j, names) for j in neg)
-        warnings.append(f"Item(s) {which} load negatively on the common factor; if they are reverse-keyed, "
-                        "declare them so they are reverse-scored.")
+        warnings.append(note("negative_loading", f"Item(s) {which} load negatively on the common factor; if they "
+                             "are reverse-keyed, declare them so they are reverse-scored.", [label[j] for j in neg]))
     return OmegaResult(omega_total=omega, loadings=tuple(float(v) for v in lam),
                        standardized_loadings=tuple(float(v) for v in fit.loadings),
                        converged=fit.converged, warnings=warnings)
@@ -716,7 +720,7 @@ class ReliabilityResult:
     items_for_80: int | None
     items_for_90: int | None
     loadings: tuple[float, ...] = field(default=(), compare=False)  # standardized one-factor loadings
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[Note] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -729,7 +733,7 @@ class ReliabilityResult:
             "inter_item_r_range": [_num(v) for v in self.inter_item_r_range],
             "scale_mean": _num(self.scale_mean), "scale_sd": _num(self.scale_sd), "sem": _num(self.sem),
             "items_for_80": self.items_for_80, "items_for_90": self.items_for_90,
-            "loadings": [float(v) for v in self.loadings], "warnings": list(self.warnings),
+            "loadings": [float(v) for v in self.loadings], "warnings": [w.to_dict() for w in self.warnings],
         }
 
 
@@ -820,26 +824,29 @@ def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float 
     if n < 2:
         raise InputError(f"At least 2 respondents are needed; got {n}.", code="too_few_respondents",
                          details={"respondents": n})
-    warnings: list[str] = []
+    warnings: list[Note] = []
     total = float(S.sum())
     R, _sd = _cov_to_corr(S)
     iu = np.triu_indices(k, 1)
     rs = R[iu]
     rbar = float(rs.mean())
     if np.any(np.abs(rs) > 1 + 1e-9):
-        warnings.append("Some pairwise correlations exceed 1 in absolute value: the pairwise-complete "
-                        "covariances are inconsistent (much missing data); consider listwise deletion.")
+        warnings.append(note("pairwise_inconsistent", "Some pairwise correlations exceed 1 in absolute value: the "
+                             "pairwise-complete covariances are inconsistent (much missing data); consider "
+                             "listwise deletion."))
 
     alpha = _alpha(S)
     avg_cov = float(S[iu].mean())
     if avg_cov < 0:
-        warnings.append(f"The average inter-item covariance is negative ({avg_cov:.3g}), so alpha is negative "
-                        "and meaningless; check whether reverse-keyed items have been reverse-scored.")
+        warnings.append(note("negative_average_covariance", f"The average inter-item covariance is negative "
+                             f"({avg_cov:.3g}), so alpha is negative and meaningless; check whether reverse-keyed "
+                             "items have been reverse-scored."))
     if math.isfinite(alpha):
         lo, hi = feldt_ci(alpha, k, n, ci)
         sem = math.sqrt(total) * math.sqrt(1 - alpha) if alpha <= 1 else None
     else:
-        warnings.append("The total-score variance is not positive, so alpha is undefined.")
+        warnings.append(note("total_variance_not_positive",
+                             "The total-score variance is not positive, so alpha is undefined."))
         lo = hi = sem = None
 
     alpha_std = k * rbar / (1 + (k - 1) * rbar) if 1 + (k - 1) * rbar != 0 else float("nan")
@@ -854,7 +861,8 @@ def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float 
         warnings.extend(om.warnings)
     else:
         omega, loadings = None, ()
-        warnings.append("Omega needs at least 3 items (a one-factor model of 2 items is not identified).")
+        warnings.append(note("omega_too_few_items",
+                             "Omega needs at least 3 items (a one-factor model of 2 items is not identified)."))
 
     _r, sh = split_half_odd_even(S) if total > 0 else (None, None)
 
@@ -867,8 +875,8 @@ def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float 
         scale_mean = float(mu.sum())
 
     if min_pair_n is not None and min_pair_n < 0.5 * n:
-        warnings.append(f"Some item pairs were answered together by only {min_pair_n} of {n} respondents; "
-                        "their pairwise covariances rest on few cases.")
+        warnings.append(note("few_pairwise", f"Some item pairs were answered together by only {min_pair_n} of {n} "
+                             "respondents; their pairwise covariances rest on few cases."))
 
     return ReliabilityResult(
         k=int(k), n=int(n), n_complete=int(n_complete),
@@ -907,11 +915,11 @@ class OrdinalAlphaResult:
     k: int
     mean_r: float
     note: str = _ORDINAL_NOTE
-    warnings: tuple[str, ...] = ()
+    warnings: tuple[Note, ...] = ()
 
     def to_dict(self) -> dict:
         return {"alpha": _num(self.alpha), "k": self.k, "mean_r": _num(self.mean_r), "note": self.note,
-                "warnings": list(self.warnings)}
+                "warnings": [w.to_dict() for w in self.warnings]}
 
 
 def ordinal_alpha(polychoric_matrix, *, names=None) -> OrdinalAlphaResult:
@@ -953,8 +961,9 @@ def ordinal_alpha(polychoric_matrix, *, names=None) -> OrdinalAlphaResult:
     den = 1.0 + (k - 1) * rbar
     warnings = []
     if rbar < 0:
-        warnings.append(f"The mean polychoric correlation is negative ({rbar:.3f}), so ordinal alpha is "
-                        "meaningless; check whether reverse-keyed items have been reversed.")
+        warnings.append(note("negative_average_correlation", f"The mean polychoric correlation is negative "
+                             f"({rbar:.3f}), so ordinal alpha is meaningless; check whether reverse-keyed items "
+                             "have been reversed."))
     alpha = k * rbar / den if den > 0 else None
     return OrdinalAlphaResult(alpha=_num(alpha), k=int(k), mean_r=rbar, warnings=tuple(warnings))
 
@@ -967,11 +976,11 @@ class OrdinalOmegaResult:
     loadings: tuple[float, ...]
     converged: bool
     note: str = _ORDINAL_NOTE
-    warnings: tuple[str, ...] = ()
+    warnings: tuple[Note, ...] = ()
 
     def to_dict(self) -> dict:
         return {"omega": _num(self.omega), "loadings": [float(v) for v in self.loadings],
-                "converged": self.converged, "note": self.note, "warnings": list(self.warnings)}
+                "converged": self.converged, "note": self.note, "warnings": [w.to_dict() for w in self.warnings]}
 
 
 def ordinal_omega(polychoric_matrix, *, start=None, names=None) -> OrdinalOmegaResult:

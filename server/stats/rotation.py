@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
+from .notes import Note, note
 
 __all__ = [
     "OBLIQUE",
@@ -68,7 +69,7 @@ class RotationResult:
         Iterations of the best start (of the varimax step for promax).
     criterion : float
         Value of the rotation criterion at the solution (NaN for promax, which has none).
-    warnings : list of str
+    warnings : list of Note
     method : str
     """
 
@@ -78,7 +79,7 @@ class RotationResult:
     converged: bool
     iterations: int
     criterion: float
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[Note] = field(default_factory=list)
     method: str = ""
 
     @property
@@ -223,14 +224,14 @@ def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: in
                 or (conv == best[4] and Q < best[3] - 1e-9 * (1.0 + abs(best[3])))):
             best = (None, T, L, Q, conv, it)
     _, T, L, Q, conv, it = best
-    warnings: list[str] = []
+    warnings: list[Note] = []
     if not conv:
-        warnings.append(f"The {name} rotation did not converge in {max_iter} iterations from any of "
-                        f"{len(starts)} starts; the loadings shown are from the best start and may "
-                        f"not be a true optimum.")
+        warnings.append(note("rotation_not_converged", f"The {name} rotation did not converge in {max_iter} "
+                             f"iterations from any of {len(starts)} starts; the loadings shown are from the best "
+                             f"start and may not be a true optimum."))
     elif n_conv < len(starts):
-        warnings.append(f"The {name} rotation converged from {n_conv} of {len(starts)} starts; the "
-                        f"best converged start is shown.")
+        warnings.append(note("rotation_some_starts_failed", f"The {name} rotation converged from {n_conv} of "
+                             f"{len(starts)} starts; the best converged start is shown."))
     pattern = L * w[:, None]
     phi = T.T @ T if oblique else np.eye(m)
     return RotationResult(pattern, phi, T, bool(conv), int(it), float(Q), warnings, name)
@@ -344,7 +345,8 @@ def varimax(A, normalize: bool = True, *, max_iter: int = 2000, tol: float = 1e-
             break
     z = X @ T
     crit = -float(np.sum((z ** 2 - np.mean(z ** 2, axis=0)) ** 2)) / 4.0
-    warnings = [] if converged else [f"The varimax rotation did not converge in {max_iter} iterations."]
+    warnings = [] if converged else [note("rotation_not_converged",
+                                          f"The varimax rotation did not converge in {max_iter} iterations.")]
     return RotationResult(z * w[:, None], np.eye(m), T, converged, it, crit, warnings, "varimax")
 
 

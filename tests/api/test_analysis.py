@@ -45,7 +45,8 @@ def test_missing_policies_match_pingouin_documentation(client):
     assert pair["reliability"]["missing"] == "pairwise" and lst["reliability"]["missing"] == "listwise"
     # 12 respondents for 11 items: the factor sections step aside with a warning, not an error
     assert pair["efa"]["n_factors"] == 0
-    assert any("more respondents than items" in w for w in pair["warnings"])
+    assert any(w["code"] == "too_few_rows" and "more respondents than items" in w["message"]
+               for w in pair["warnings"])
 
 
 def test_a_drop_uses_the_submatrix_and_equals_a_direct_computation(client, pg_alpha_data):
@@ -168,7 +169,8 @@ def test_an_item_without_variance_is_left_out_with_a_warning(client, pg_alpha_da
     ds = _upload(client, frame)
     out = client.post(f"/api/datasets/{ds}/analysis", json={}).json()
     assert "FLAT" not in [r["name"] for r in out["items"]] and out["settings"]["excluded"] == ["FLAT"]
-    assert any("'FLAT' has no variance (every answer is 4)" in w for w in out["warnings"])
+    assert [w["items"] for w in out["warnings"] if w["code"] == "no_variance"] == [["FLAT"]]
+    assert any("'FLAT' has no variance (every answer is 4)" in w["message"] for w in out["warnings"])
     assert round(out["reliability"]["alpha"], 3) == 0.592  # pingouin docs: the same ten items
     # naming it explicitly (as the dashboard does after a drop) gives the same answer, not an error
     keep = [c for c in frame.columns if c != "Q1"]
@@ -196,7 +198,7 @@ def test_an_upload_starts_the_first_analysis_in_the_background(app, client, pg_a
     ds = _upload(client, pg_alpha_data)
     engine = app.state.engine
     deadline = time.time() + 30
-    while not any(isinstance(k, tuple) and k[0] == ds and k[1].startswith("{") for k in list(engine._answers)):
+    while not engine.has_answer(ds):
         assert time.time() < deadline, "the background analysis never finished"
         time.sleep(0.05)
     first = client.post(f"/api/datasets/{ds}/analysis", json={}).json()

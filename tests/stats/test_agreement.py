@@ -54,15 +54,15 @@ def test_icc_shrout_fleiss_1979():
     # Mapping of names: Shrout & Fleiss ICC(1,1) = McGraw & Wong ICC(1,1); ICC(2,1) = ICC(A,1);
     # ICC(3,1) = ICC(C,1); ICC(1,4) = ICC(1,k); ICC(2,4) = ICC(A,k); ICC(3,4) = ICC(C,k) with k = 4 judges.
     r = icc(shrout_fleiss())
-    assert round(r["ICC(1,1)"]["value"], 2) == 0.17  # Shrout & Fleiss 1979, published ICC(1,1)
-    assert round(r["ICC(A,1)"]["value"], 2) == 0.29  # Shrout & Fleiss 1979, published ICC(2,1)
-    assert round(r["ICC(C,1)"]["value"], 2) == 0.71  # Shrout & Fleiss 1979, published ICC(3,1)
-    assert round(r["ICC(1,k)"]["value"], 2) == 0.44  # Shrout & Fleiss 1979, published ICC(1,4)
-    assert round(r["ICC(A,k)"]["value"], 2) == 0.62  # Shrout & Fleiss 1979, published ICC(2,4)
-    assert round(r["ICC(C,k)"]["value"], 2) == 0.91  # Shrout & Fleiss 1979, published ICC(3,4)
-    assert r["n_units"] == 6 and r["n_raters"] == 4 and r["n_dropped"] == 0
-    assert r["ICC(1,1)"]["df1"] == 5 and r["ICC(1,1)"]["df2"] == 18   # one-way: n-1, n(k-1)
-    assert r["ICC(A,1)"]["df2"] == 15                                 # two-way: (n-1)(k-1)
+    assert round(r.form("ICC(1,1)").value, 2) == 0.17  # Shrout & Fleiss 1979, published ICC(1,1)
+    assert round(r.form("ICC(A,1)").value, 2) == 0.29  # Shrout & Fleiss 1979, published ICC(2,1)
+    assert round(r.form("ICC(C,1)").value, 2) == 0.71  # Shrout & Fleiss 1979, published ICC(3,1)
+    assert round(r.form("ICC(1,k)").value, 2) == 0.44  # Shrout & Fleiss 1979, published ICC(1,4)
+    assert round(r.form("ICC(A,k)").value, 2) == 0.62  # Shrout & Fleiss 1979, published ICC(2,4)
+    assert round(r.form("ICC(C,k)").value, 2) == 0.91  # Shrout & Fleiss 1979, published ICC(3,4)
+    assert r.n_units == 6 and r.n_raters == 4 and r.n_dropped == 0
+    assert r.form("ICC(1,1)").df1 == 5 and r.form("ICC(1,1)").df2 == 18   # one-way: n-1, n(k-1)
+    assert r.form("ICC(A,1)").df2 == 15                                 # two-way: (n-1)(k-1)
 
 
 def test_icc_pingouin_docs_wine_data():
@@ -76,9 +76,9 @@ def test_icc_pingouin_docs_wine_data():
                   "ICC(C,1)": (0.729, 11.787, [0.43, 0.93]), "ICC(1,k)": (0.914, 11.680, [0.75, 0.98]),
                   "ICC(A,k)": (0.914, 11.787, [0.75, 0.98]), "ICC(C,k)": (0.915, 11.787, [0.75, 0.98])}
     for form, (value, f, ci) in documented.items():
-        assert round(r[form]["value"], 3) == value  # pingouin docs, icc data set
-        assert round(r[form]["f"], 3) == f  # pingouin docs, icc data set
-        assert [round(x, 2) for x in r[form]["ci"]] == ci  # pingouin docs, icc data set
+        assert round(r.form(form).value, 3) == value  # pingouin docs, icc data set
+        assert round(r.form(form).f, 3) == f  # pingouin docs, icc data set
+        assert [round(x, 2) for x in r.form(form).ci] == ci  # pingouin docs, icc data set
 
 
 def test_icc_matches_pingouin_intraclass_corr_at_full_precision():
@@ -91,35 +91,35 @@ def test_icc_matches_pingouin_intraclass_corr_at_full_precision():
     ref = pg.intraclass_corr(long, "t", "r", "s").set_index("Type")
     r = icc(Y)
     for form in ICC_FORMS:
-        assert r[form]["value"] == pytest.approx(ref.loc[form, "ICC"], abs=1e-10)  # pingouin.intraclass_corr
-        assert [round(x, 2) for x in r[form]["ci"]] == list(ref.loc[form, "CI95"])  # pingouin rounds CI95 to .01
-        assert r[form]["p"] == pytest.approx(ref.loc[form, "pval"], rel=1e-8)  # pingouin.intraclass_corr
-        assert r[form]["df2"] == ref.loc[form, "df2"]  # pingouin.intraclass_corr
+        assert r.form(form).value == pytest.approx(ref.loc[form, "ICC"], abs=1e-10)  # pingouin.intraclass_corr
+        assert [round(x, 2) for x in r.form(form).ci] == list(ref.loc[form, "CI95"])  # pingouin rounds CI95 to .01
+        assert r.form(form).p == pytest.approx(ref.loc[form, "pval"], rel=1e-8)  # pingouin.intraclass_corr
+        assert r.form(form).df2 == ref.loc[form, "df2"]  # pingouin.intraclass_corr
 
 
 def test_icc_drops_incomplete_units_and_says_so():
     Y = shrout_fleiss()
     Y_missing = np.vstack([Y, [[3, np.nan, 4, 5]]])
     r = icc(Y_missing)
-    assert r["n_dropped"] == 1 and r["n_units"] == 6
-    assert r["ICC(C,k)"]["value"] == pytest.approx(icc(Y)["ICC(C,k)"]["value"])  # same as complete data
-    assert any("missing" in w for w in r["warnings"])
+    assert r.n_dropped == 1 and r.n_units == 6
+    assert r.form("ICC(C,k)").value == pytest.approx(icc(Y).form("ICC(C,k)").value)  # same as complete data
+    assert [w.code for w in r.warnings] == ["icc_incomplete_units"] and "missing" in r.warnings[0].message
 
 
 def test_icc_undefined_cases_give_reasons_not_nan():
     same = icc(np.full((5, 3), 4.0))
-    assert same["ICC(A,1)"]["value"] is None and "same" in same["ICC(A,1)"]["reason"]
+    assert same.form("ICC(A,1)").value is None and "same" in same.form("ICC(A,1)").reason
     flat_units = icc(np.array([[1.0, 2.0], [1.0, 2.0], [1.0, 2.0]]))
-    assert flat_units["reason"] and flat_units["ICC(C,1)"]["value"] is None
+    assert flat_units.reason and flat_units.form("ICC(C,1)").value is None
     one_rater = icc(np.array([[1.0], [2.0], [3.0]]))
-    assert one_rater["ICC(1,1)"]["value"] is None and "two raters" in one_rater["reason"]
+    assert one_rater.form("ICC(1,1)").value is None and "two raters" in one_rater.reason
 
 
 def test_icc_perfect_consistency_has_no_infinities():
     Y = np.array([[1.0, 3.0], [2.0, 4.0], [5.0, 7.0], [3.0, 5.0]])   # rater 2 = rater 1 + 2
     r = icc(Y)
-    assert r["ICC(C,1)"]["value"] == pytest.approx(1.0)  # identity: no residual variance
-    assert r["ICC(C,1)"]["f"] is None and r["ICC(A,1)"]["value"] < 1
+    assert r.form("ICC(C,1)").value == pytest.approx(1.0)  # identity: no residual variance
+    assert r.form("ICC(C,1)").f is None and r.form("ICC(A,1)").value < 1
 
 
 def test_icc_rejects_text():
@@ -132,22 +132,22 @@ def test_icc_rejects_text():
 def test_cohen_kappa_statsmodels_table10_sas_printout():
     a, b = expand([[0, 4, 1], [0, 8, 0], [0, 1, 5]])
     r = cohen_kappa(a, b)
-    assert round(r["value"], 4) == 0.4842  # statsmodels test_inter_rater, SAS printout: Kappa
-    assert round(r["se"], 4) == 0.1380  # SAS printout: ASE
-    assert [round(x, 4) for x in r["ci"]] == [0.2137, 0.7547]  # SAS printout: 95% confidence limits
-    assert round(r["se0"], 4) == 0.1484  # SAS printout: ASE under H0
-    assert round(r["z"], 4) == 3.2626  # SAS printout: Z
-    assert round(r["p"], 4) == 0.0011  # SAS printout: two-sided Pr > |Z|
-    assert r["label"] == "moderate"  # Landis & Koch (1977) band .41-.60
+    assert round(r.value, 4) == 0.4842  # statsmodels test_inter_rater, SAS printout: Kappa
+    assert round(r.se, 4) == 0.1380  # SAS printout: ASE
+    assert [round(x, 4) for x in r.ci] == [0.2137, 0.7547]  # SAS printout: 95% confidence limits
+    assert round(r.se0, 4) == 0.1484  # SAS printout: ASE under H0
+    assert round(r.z, 4) == 3.2626  # SAS printout: Z
+    assert round(r.p, 4) == 0.0011  # SAS printout: two-sided Pr > |Z|
+    assert r.label == "moderate"  # Landis & Koch (1977) band .41-.60
 
 
 def test_linear_weighted_kappa_statsmodels_table10_sas_printout():
     a, b = expand([[0, 4, 1], [0, 8, 0], [0, 1, 5]])
     r = weighted_kappa(a, b, weights="linear")
-    assert round(r["value"], 4) == 0.4701  # statsmodels test_inter_rater, SAS printout: weighted kappa
-    assert round(r["se"], 4) == 0.1457  # SAS printout: ASE
-    assert [round(x, 4) for x in r["ci"]] == [0.1845, 0.7558]  # SAS printout: 95% confidence limits
-    assert round(r["se0"], 4) == 0.1426  # SAS printout: ASE under H0
+    assert round(r.value, 4) == 0.4701  # statsmodels test_inter_rater, SAS printout: weighted kappa
+    assert round(r.se, 4) == 0.1457  # SAS printout: ASE
+    assert [round(x, 4) for x in r.ci] == [0.1845, 0.7558]  # SAS printout: 95% confidence limits
+    assert round(r.se0, 4) == 0.1426  # SAS printout: ASE under H0
 
 
 def test_kappas_match_statsmodels_and_sklearn_on_random_ratings():
@@ -158,20 +158,20 @@ def test_kappas_match_statsmodels_and_sklearn_on_random_ratings():
     a = rng.integers(1, 6, size=60)
     b = np.clip(a + rng.integers(-1, 2, size=60), 1, 5)
     for w in ("linear", "quadratic"):
-        ours = weighted_kappa(a, b, weights=w)["value"]
+        ours = weighted_kappa(a, b, weights=w).value
         assert ours == pytest.approx(cohen_kappa_score(a, b, weights=w), abs=1e-12)  # scikit-learn
     table = pd.crosstab(a, b).reindex(index=range(1, 6), columns=range(1, 6), fill_value=0).to_numpy()
     sm = cohens_kappa(table, wt="quadratic")
     r = weighted_kappa(a, b, weights="quadratic")
-    assert r["se"] == pytest.approx(math.sqrt(sm.var_kappa), abs=1e-12)  # statsmodels cohens_kappa
-    assert cohen_kappa(a, b)["value"] == pytest.approx(cohen_kappa_score(a, b), abs=1e-12)  # scikit-learn
+    assert r.se == pytest.approx(math.sqrt(sm.var_kappa), abs=1e-12)  # statsmodels cohens_kappa
+    assert cohen_kappa(a, b).value == pytest.approx(cohen_kappa_score(a, b), abs=1e-12)  # scikit-learn
 
 
 def test_kappa_drops_missing_pairs_and_handles_a_single_category():
     r = cohen_kappa([1, 2, None, 2], [1, 2, 1, float("nan")])
-    assert r["n_units"] == 2 and r["n_dropped"] == 2
+    assert r.n_units == 2 and r.n_dropped == 2
     r = cohen_kappa(["a", "a", "a"], ["a", "a", "a"])
-    assert r["value"] is None and "one category" in r["reason"]
+    assert r.value is None and "one category" in r.reason
     with pytest.raises(InputError):
         weighted_kappa(["low", "high"], ["high", "high"])
 
@@ -181,10 +181,10 @@ def test_fleiss_kappa_statsmodels_table1():
     from statsmodels.stats.tests.test_inter_rater import table1
 
     r = fleiss_kappa(table1, counts=True)
-    assert round(r["value"], 3) == 0.210  # statsmodels test_inter_rater (Wikipedia's Fleiss example)
-    assert r["value"] == pytest.approx(sm_fleiss(table1), abs=1e-12)  # statsmodels fleiss_kappa
-    assert r["ci"][0] < r["value"] < r["ci"][1]
-    assert r["n_raters"] == 14 and r["n_units"] == 10
+    assert round(r.value, 3) == 0.210  # statsmodels test_inter_rater (Wikipedia's Fleiss example)
+    assert r.value == pytest.approx(sm_fleiss(table1), abs=1e-12)  # statsmodels fleiss_kappa
+    assert r.ci[0] < r.value < r.ci[1]
+    assert r.n_raters == 14 and r.n_units == 10
 
 
 def test_fleiss_kappa_fleiss_1971_diagnoses():
@@ -193,17 +193,17 @@ def test_fleiss_kappa_fleiss_1971_diagnoses():
     from statsmodels.stats.tests.test_inter_rater import diagnoses
 
     r = fleiss_kappa(diagnoses)
-    assert round(r["value"], 3) == 0.430  # Fleiss (1971), 30 patients x 6 psychiatrists
-    assert r["value"] == pytest.approx(sm_fleiss(aggregate_raters(diagnoses)[0]), abs=1e-12)  # statsmodels
-    assert r["n_units"] == 30 and r["n_raters"] == 6
+    assert round(r.value, 3) == 0.430  # Fleiss (1971), 30 patients x 6 psychiatrists
+    assert r.value == pytest.approx(sm_fleiss(aggregate_raters(diagnoses)[0]), abs=1e-12)  # statsmodels
+    assert r.n_units == 30 and r.n_raters == 6
 
 
 def test_fleiss_kappa_bootstrap_is_reproducible_and_degenerate_case_explained():
     from statsmodels.stats.tests.test_inter_rater import diagnoses
 
-    assert fleiss_kappa(diagnoses)["ci"] == fleiss_kappa(diagnoses)["ci"]  # fixed seed
+    assert fleiss_kappa(diagnoses).ci == fleiss_kappa(diagnoses).ci  # fixed seed
     r = fleiss_kappa(np.full((4, 3), 2))
-    assert r["value"] is None and "one category" in r["reason"]
+    assert r.value is None and "one category" in r.reason
 
 
 # ------------------------------------------------------------------------------------------------ alpha
@@ -214,11 +214,11 @@ def test_krippendorff_2011_example(level, published):
 
     data = krippendorff_table()
     r = krippendorff_alpha(data, level)
-    assert round(r["value"], 3) == published  # Krippendorff (2011), 4 observers x 12 units with missing values
+    assert round(r.value, 3) == published  # Krippendorff (2011), 4 observers x 12 units with missing values
     ref = krippendorff.alpha(reliability_data=data.T, level_of_measurement=level)
-    assert r["value"] == pytest.approx(ref, abs=1e-12)  # krippendorff package 0.9.0
-    assert r["n_pairable_units"] == 11  # unit 12 has a single value (Krippendorff 2011)
-    assert r["ci"][0] <= r["value"] <= r["ci"][1]
+    assert r.value == pytest.approx(ref, abs=1e-12)  # krippendorff package 0.9.0
+    assert r.n_pairable_units == 11  # unit 12 has a single value (Krippendorff 2011)
+    assert r.ci[0] <= r.value <= r.ci[1]
 
 
 def test_krippendorff_random_data_matches_package():
@@ -229,14 +229,14 @@ def test_krippendorff_random_data_matches_package():
     data[rng.random(data.shape) < 0.2] = np.nan
     for level in ("nominal", "ordinal", "interval", "ratio"):
         ref = krippendorff.alpha(reliability_data=data.T, level_of_measurement=level)
-        assert krippendorff_alpha(data, level)["value"] == pytest.approx(ref, abs=1e-12)  # krippendorff package
+        assert krippendorff_alpha(data, level).value == pytest.approx(ref, abs=1e-12)  # krippendorff package
 
 
 def test_krippendorff_degenerate_and_bad_input():
     r = krippendorff_alpha(np.array([[1.0, 1.0], [1.0, np.nan], [1.0, 1.0]]), "interval")
-    assert r["value"] is None and "no expected" in r["reason"]
+    assert r.value is None and "no expected" in r.reason
     r = krippendorff_alpha(np.array([[1.0, np.nan], [np.nan, 2.0]]), "nominal")
-    assert r["value"] is None and "pairs" in r["reason"]
+    assert r.value is None and "pairs" in r.reason
     with pytest.raises(InputError):
         krippendorff_alpha([[1, 2]], "cardinal")
     with pytest.raises(InputError) as e:
@@ -250,13 +250,13 @@ def test_percent_agreement_invented_ten_units():
     first = [1, 2, 3, 1, 2, 3, 1, 2, 3, 1]
     second = [1, 2, 3, 2, 2, 3, 1, 2, 1, 1]
     r = percent_agreement(np.column_stack([first, second]).astype(object))
-    assert r["value"] == pytest.approx(0.80)  # common practice: 8 agreements / 10 possible agreements
-    assert r["n_agree"] == 8
+    assert r.value == pytest.approx(0.80)  # common practice: 8 agreements / 10 possible agreements
+    assert r.n_agree == 8
 
 
 def test_percent_agreement_counts_only_units_rated_by_everyone():
     r = percent_agreement(np.array([[1, 1], [2, None], [3, 2]], dtype=object))
-    assert r["value"] == pytest.approx(0.5) and r["n_dropped"] == 1  # common practice
+    assert r.value == pytest.approx(0.5) and r.n_dropped == 1  # common practice
 
 
 # ------------------------------------------------------------------------------------------------ labels
@@ -281,9 +281,9 @@ def test_icc_invariances():
     shifted = icc(Y + 10)
     per_rater = icc(Y + np.array([0.0, 3.0, -2.0, 5.0]))
     for form in ICC_FORMS:
-        assert shifted[form]["value"] == pytest.approx(base[form]["value"])
-    assert per_rater["ICC(C,1)"]["value"] == pytest.approx(base["ICC(C,1)"]["value"])
-    assert per_rater["ICC(A,1)"]["value"] < base["ICC(A,1)"]["value"]
+        assert shifted.form(form).value == pytest.approx(base.form(form).value)
+    assert per_rater.form("ICC(C,1)").value == pytest.approx(base.form("ICC(C,1)").value)
+    assert per_rater.form("ICC(A,1)").value < base.form("ICC(A,1)").value
 
 
 def test_koo_li_label_reads_the_interval():
@@ -296,31 +296,31 @@ def test_koo_li_label_reads_the_interval():
 def test_summary_two_raters_ordinal():
     a, b = expand([[0, 4, 1], [0, 8, 0], [0, 1, 5]])
     s = agreement_summary(np.column_stack([a, b]).tolist(), "ordinal")
-    assert s["n_units"] == 19 and s["n_raters"] == 2
-    assert round(s["cohen_kappa"]["value"], 4) == 0.4842  # statsmodels / SAS printout
-    assert round(s["weighted_kappa"]["linear"]["value"], 4) == 0.4701  # statsmodels / SAS printout
-    assert s["fleiss_kappa"]["value"] is None and s["fleiss_kappa"]["reason"]
-    assert s["icc"]["value"] is None and "interval" in s["icc"]["reason"]
-    assert s["krippendorff_alpha"]["level"] == "ordinal"
+    assert s.n_units == 19 and s.n_raters == 2
+    assert round(s.cohen_kappa.value, 4) == 0.4842  # statsmodels / SAS printout
+    assert round(s.weighted_kappa.linear.value, 4) == 0.4701  # statsmodels / SAS printout
+    assert s.fleiss_kappa.value is None and s.fleiss_kappa.reason
+    assert s.icc.value is None and "interval" in s.icc.reason
+    assert s.krippendorff_alpha.level == "ordinal"
 
 
 def test_summary_interval_many_raters_has_icc_and_fleiss():
     data = krippendorff_table()
     rows = [[None if np.isnan(v) else float(v) for v in row] for row in data]
     s = agreement_summary(rows, "interval")
-    assert round(s["krippendorff_alpha"]["value"], 3) == 0.849  # Krippendorff (2011)
-    assert s["icc"]["n_units"] == 8 and s["icc"]["n_dropped"] == 4
-    assert s["cohen_kappa"]["value"] is None
-    assert s["fleiss_kappa"]["n_units"] == 8
-    assert s["recommended"] == "ICC(A,1)" and s["interpretation"]
-    assert s["warnings"]
+    assert round(s.krippendorff_alpha.value, 3) == 0.849  # Krippendorff (2011)
+    assert s.icc.n_units == 8 and s.icc.n_dropped == 4
+    assert s.cohen_kappa.value is None
+    assert s.fleiss_kappa.n_units == 8
+    assert s.recommended == "ICC(A,1)" and s.interpretation
+    assert [w.code for w in s.warnings] == ["missing_ratings"]  # the ICC's own missing note is not repeated
 
 
 def test_summary_nominal_text_labels():
     s = agreement_summary([["yes", "no"], ["yes", "yes"], ["no", "no"], ["no", "no"], [None, "no"]], "nominal")
-    assert s["categories"] == ["no", "yes"]
-    assert s["percent_agreement"]["value"] == pytest.approx(0.75)  # common practice: 3 of 4 complete units
-    assert s["weighted_kappa"]["linear"]["value"] is None
+    assert s.categories == ("no", "yes")
+    assert s.percent_agreement.value == pytest.approx(0.75)  # common practice: 3 of 4 complete units
+    assert s.weighted_kappa.linear.value is None
 
 
 @pytest.mark.parametrize("ratings,level,code", [

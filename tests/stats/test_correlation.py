@@ -233,9 +233,12 @@ def test_sparse_category_and_empty_cell_warnings():
     X = _ordinal_pool(n=300)
     X[:3, 1] = 6  # a sixth category with 3 answers
     res = polychoric_matrix(X, names=[f"Q{j}" for j in range(X.shape[1])])
-    text = " ".join(res.warnings)
+    text = " ".join(w.message for w in res.warnings)
     assert "Item 'Q1' has fewer than 5 answers in category 6 (3)" in text
     assert "empty cell" in text
+    sparse = [w for w in res.warnings if w.code == "polychoric_sparse_category"]
+    assert [w.items for w in sparse] == [("Q1",)]
+    assert any(w.code == "polychoric_empty_cells" and "Q1" in w.items for w in res.warnings)
 
 
 def test_too_many_categories_and_constant_item():
@@ -256,7 +259,7 @@ def test_duplicated_item_is_warned_and_smoothed():
     X = np.column_stack([X, X[:, 0]])
     res = polychoric_matrix(X)
     assert res.matrix[0, -1] > 0.999
-    assert any("perfectly ordered" in w for w in res.warnings)
+    assert any(w.code == "perfect_correlation" and "perfectly ordered" in w.message for w in res.warnings)
     assert res.smoothed and np.linalg.eigvalsh(res.matrix)[0] > 0
 
 
@@ -264,7 +267,8 @@ def test_duplicated_item_named_in_pearson_warning():
     X = _ordinal_pool()
     X = np.column_stack([X, 2 * X[:, 3] + 1])
     res = pearson_matrix(X, smooth=None)
-    assert any("'item4' and 'item9'" in w and "duplicated item" in w for w in res.warnings)
+    assert any("'item4' and 'item9'" in w.message and "duplicated item" in w.message for w in res.warnings)
+    assert [w.items for w in res.warnings if w.code == "perfect_correlation"] == [("item4", "item9")]
 
 
 def test_listwise_polychoric_uses_complete_rows():
@@ -319,7 +323,7 @@ def test_pd_matrix_unchanged_and_warning_text():
     pool = np.column_stack([_ordinal_pool()[:, :2]] * 2)  # duplicated columns: singular
     res = pearson_matrix(pool)
     assert res.smoothed
-    smooth_msg = [w for w in res.warnings if "smoothed" in w]
+    smooth_msg = [w.message for w in res.warnings if w.code == "smoothed"]
     assert len(smooth_msg) == 1
     assert "was not positive definite (smallest eigenvalue" in smooth_msg[0]
     assert "changed by at most" in smooth_msg[0]

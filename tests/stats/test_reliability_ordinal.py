@@ -57,4 +57,4 @@ def test_ordinal_inputs_are_checked():
     with pytest.raises(InputError):
         ordinal_omega(np.eye(2))  # omega needs 3 items
     neg = ordinal_alpha(np.array([[1, -.3, -.3], [-.3, 1, -.3], [-.3, -.3, 1]]))
-    assert neg.alpha < 0 and "negative" in neg.warnings[0]  # reported, as reliability_from_cov does
+    assert neg.alpha < 0 and "negative" in neg.warnings[0].message  # reported, as reliability_from_cov does

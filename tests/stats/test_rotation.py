@@ -114,7 +114,7 @@ def test_non_convergence_is_a_warning_not_an_exception():
     A = harman_unrotated()
     res = rot.oblimin(A, max_iter=2, random_starts=2)
     assert not res.converged
-    assert any("did not converge" in w for w in res.warnings)
+    assert any(w.code == "rotation_not_converged" and "did not converge" in w.message for w in res.warnings)
 
 
 def test_one_factor_is_returned_unchanged():

@@ -1,0 +1,359 @@
+"""Snapshots as a service: check a draft, build the record (removal trail, analysis, stability), compare two.
+
+A snapshot is immutable. Saving recomputes everything on the server (the removal trail and the full
+analysis of the kept items) so the record never depends on what a browser sent as numbers. The record
+is stored as plain JSON: ``to_json`` (the API edge's serializer, passed in by the route, which keeps this
+module free of the API layer) turns the typed answers into the same JSON the live routes send.
+Bad drafts raise :class:`~server.stats.errors.InputError` naming the item or field; an unknown id
+raises :class:`~server.errors.NotFound`.
+"""
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import Any
+
+from . import __version__
+from .engine import Engine
+from .errors import NotFound
+from .retest import RetestQuery, compute_retest
+from .stats.agreement import agreement_summary
+from .stats.errors import InputError
+from .stats.notes import Note, note
+from .store import StoreBackend
+
+#: Our own small vocabulary of reasons for removing an item (the free-text reason is always required).
+REASON_CODES = ("cross-loading", "weak", "belongs-elsewhere", "redundant", "wording", "floor-ceiling", "other")
+
+MAX_NAME = 200
+MAX_TEXT = 20_000
+
+COMPARED_COEFFICIENTS = ("alpha", "alpha_standardized", "omega_total", "lambda2", "lambda6", "split_half",
+                         "mean_inter_item_r", "scale_mean", "scale_sd", "sem", "n_complete")
+
+ToJson = Callable[[Any], Any]
+
+
+@dataclass(frozen=True)
+class Removal:
+    """One removed item as the user gave it (``alpha_after``/``omega_after`` are recomputed, never taken)."""
+
+    item: str
+    reason: str | None = None
+    code: str | None = None
+
+
+@dataclass(frozen=True)
+class AgreementTable:
+    """A rater table to compute and keep with the snapshot."""
+
+    ratings: Sequence[Sequence[Any]]
+    level: str
+
+
+@dataclass(frozen=True)
+class Draft:
+    """A snapshot to save, as received (checked by :func:`check_draft`)."""
+
+    name: str
+    items: Sequence[str]
+    author: str = ""
+    note: str = ""
+    removed: Sequence[Removal] = ()
+    settings: Mapping[str, Any] | None = None
+    parent: str | None = None
+    retest: RetestQuery | None = None
+    agreement: AgreementTable | None = None
+
+
+def _bad(code: str, message: str, **details: Any) -> InputError:
+    return InputError(message, code=code, details=details)
+
+
+def normalise_code(code: str | None) -> str | None:
+    """'Belongs elsewhere', 'floor/ceiling', 'cross_loading' -> the vocabulary's spelling."""
+    if code is None or not code.strip():
+        return None
+    return "-".join(code.strip().lower().replace("/", " ").replace("_", " ").replace("-", " ").split())
+
+
+def check_draft(draft: Draft, known: Sequence[str]) -> list[dict]:
+    """Explicit checks that name the offending item; returns the cleaned ``removed`` list."""
+    if not draft.name.strip():
+        raise _bad("missing_name", "The snapshot needs a name.")
+    if len(draft.name) > MAX_NAME:
+        raise _bad("name_too_long", f"The snapshot name has {len(draft.name)} characters; at most {MAX_NAME}.")
+    for field_name in ("author", "note"):
+        if len(getattr(draft, field_name)) > MAX_TEXT:
+            raise _bad("text_too_long", f"The {field_name} is longer than {MAX_TEXT} characters.", field=field_name)
+    known_set = set(known)
+    seen: set[str] = set()
+    for item in draft.items:
+        if item not in known_set:
+            raise _bad("unknown_item", f"Kept item '{item}' is not an item of this data set.", item=item)
+        if item in seen:
+            raise _bad("duplicate_item", f"Item '{item}' is listed twice among the kept items.", item=item)
+        seen.add(item)
+    if len(draft.items) < 2:
+        raise _bad("too_few_items", f"A snapshot needs at least 2 kept items; {len(draft.items)} given.",
+                   n_items=len(draft.items))
+    removed = []
+    removed_seen: set[str] = set()
+    for position, r in enumerate(draft.removed):
+        if r.item not in known_set:
+            raise _bad("unknown_item", f"Removed item '{r.item}' is not an item of this data set.",
+                       item=r.item, position=position)
+        if r.item in seen:
+            raise _bad("kept_and_removed", f"Item '{r.item}' is listed both as kept and as removed.", item=r.item)
+        if r.item in removed_seen:
+            raise _bad("duplicate_item", f"Item '{r.item}' is listed twice among the removed items.", item=r.item)
+        removed_seen.add(r.item)
+        reason = (r.reason or "").strip()
+        if not reason:
+            raise _bad("missing_reason", f"Removed item '{r.item}' needs a reason (a sentence the team agreed on).",
+                       item=r.item, position=position)
+        if len(reason) > MAX_TEXT:
+            raise _bad("text_too_long", f"The reason for removing '{r.item}' is longer than {MAX_TEXT} characters.",
+                       item=r.item)
+        code = normalise_code(r.code)
+        if code is not None and code not in REASON_CODES:
+            raise _bad("unknown_reason_code", f"Removed item '{r.item}' has the code '{r.code}'; use one of "
+                       + ", ".join(REASON_CODES) + " (or none).", item=r.item, reason_code=r.code,
+                       allowed=list(REASON_CODES))
+        removed.append({"item": r.item, "reason": reason, "code": code})
+    return removed
+
+
+def _finite(value: Any) -> Any:
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def coefficients(analysis: Mapping[str, Any]) -> dict:
+    """Alpha and omega total of an analysis answer (JSON form)."""
+    rel = analysis.get("reliability") or {}
+    return {"alpha": _finite(rel.get("alpha")), "omega_total": _finite(rel.get("omega_total"))}
+
+
+def light(snap: Mapping[str, Any]) -> dict:
+    """A snapshot without its full analysis, for lists."""
+    rel = (snap.get("analysis") or {}).get("reliability") or {}
+    return {
+        "id": snap.get("id"),
+        "dataset_id": snap.get("dataset_id"),
+        "name": snap.get("name"),
+        "author": snap.get("author"),
+        "note": snap.get("note"),
+        "created_at": snap.get("created_at"),
+        "parent": snap.get("parent"),
+        "items": snap.get("items"),
+        "n_items": len(snap.get("items") or []),
+        "removed": removals(snap),
+        "alpha": rel.get("alpha"),
+        "omega_total": rel.get("omega_total"),
+        "dataset_sha256": snap.get("dataset_sha256"),
+        "software_version": snap.get("software_version"),
+    }
+
+
+def removals(snap: Mapping[str, Any]) -> list[dict]:
+    """The removed items with reason and code, as a restore or a list shows them."""
+    return [{"item": r.get("item"), "reason": r.get("reason"), "code": r.get("code")}
+            for r in snap.get("removed") or []]
+
+
+def restore_view(snap: Mapping[str, Any]) -> dict:
+    """The snapshot's items, settings and removal record, ready for the dashboard to load."""
+    return {"snapshot_id": snap.get("id"), "dataset_id": snap.get("dataset_id"), "name": snap.get("name"),
+            "items": snap.get("items"), "settings": snap.get("settings") or {}, "removed": removals(snap)}
+
+
+def get(store: StoreBackend, snapshot_id: str) -> dict:
+    """The stored snapshot; 404 when there is none with this id."""
+    snap = store.get_snapshot(snapshot_id)
+    if snap is None:
+        raise NotFound("snapshot", snapshot_id)
+    return snap
+
+
+def item_meta(dataset: Any, items: Sequence[str], reverse: Sequence[str] | None, to_json: ToJson) -> list[dict]:
+    """Codebook facts of the kept items, with the reverse keying the analysis used (for the scoring key)."""
+    by_name = {m.name: m for m in dataset.items}
+    out = []
+    for name in items:
+        m = by_name[name]
+        d = to_json(m.to_dict() if hasattr(m, "to_dict") else dict(vars(m)))
+        d["codebook_reverse"] = bool(m.reverse)
+        d["reverse"] = bool(name in reverse) if reverse is not None else bool(m.reverse)
+        out.append(d)
+    return out
+
+
+def effective_reverse(analysis: Mapping[str, Any], settings: Mapping[str, Any]) -> list[str] | None:
+    """The reverse-keyed items the analysis used: the resolved setting, else the request's, else None
+    (= the codebook)."""
+    for source in ((analysis.get("settings") or {}), settings):
+        rev = source.get("reverse")
+        if isinstance(rev, list):
+            return [str(r) for r in rev]
+    return None
+
+
+def stability(engine: Engine, store: StoreBackend, draft: Draft, dataset_id: str, kept: list[str],
+              reverse: list[str] | None, to_json: ToJson) -> dict | None:
+    """The stability and agreement results a snapshot includes (the same code as their routes)."""
+    if draft.retest is None and draft.agreement is None:
+        return None
+    out: dict[str, Any] = {}
+    if draft.retest is not None:
+        query = replace(draft.retest, first=dataset_id, snapshot=None, items=list(draft.retest.items or kept),
+                        reverse=draft.retest.reverse if draft.retest.reverse is not None else reverse)
+        out["retest"] = to_json(compute_retest(engine, store, query))
+        out["retest_request"] = to_json(query)
+    if draft.agreement is not None:
+        out["agreement"] = to_json(agreement_summary(draft.agreement.ratings, draft.agreement.level))
+        out["agreement_level"] = draft.agreement.level
+    return out
+
+
+def trail(engine: Engine, dataset_id: str, payload: Mapping[str, Any], kept: list[str], removed: list[dict],
+          analysis: Mapping[str, Any], to_json: ToJson) -> list[dict]:
+    """Alpha and omega from kept + every removed item, taking the removed items out one at a time in order.
+
+    The last step is ``analysis`` itself (the kept items); each ``removed`` entry gets the coefficients
+    after its removal (``alpha_after``, ``omega_after``, ``n_items_after``).
+    """
+    removed_items = [r["item"] for r in removed]
+    steps = []
+    for step in range(len(removed) + 1):
+        pool = kept + removed_items[step:]
+        result = analysis if step == len(removed) else \
+            to_json(engine.reliability(dataset_id, {**payload, "items": pool}))
+        steps.append({"step": step, "removed": removed_items[step - 1] if step else None, "n_items": len(pool),
+                      **coefficients(result)})
+    for r, t in zip(removed, steps[1:]):
+        r.update({"alpha_after": t["alpha"], "omega_after": t["omega_total"], "n_items_after": t["n_items"]})
+    return steps
+
+
+def save(engine: Engine, store: StoreBackend, dataset_id: str, draft: Draft, payload: Mapping[str, Any],
+         to_json: ToJson) -> dict:
+    """Check the draft, recompute the trail, the analysis of the kept items and any stability, and store it.
+
+    ``payload`` is the checked analysis request (the settings as the analysis route hands them to the
+    engine); ``draft.settings`` is kept as the user gave it, for restore. Returns the stored record.
+    """
+    dataset = engine.dataset(dataset_id)  # 404 if unknown
+    record = store.get_dataset(dataset_id) or {}
+    removed = check_draft(draft, [m.name for m in dataset.items])
+    if draft.parent is not None:
+        parent = store.get_snapshot(draft.parent)
+        if parent is None:
+            raise _bad("unknown_parent", f"The parent snapshot '{draft.parent}' does not exist.", parent=draft.parent)
+        if parent.get("dataset_id") != dataset_id:
+            raise _bad("parent_other_dataset", f"The parent snapshot '{draft.parent}' belongs to another data set.",
+                       parent=draft.parent, parent_dataset_id=parent.get("dataset_id"))
+    settings = dict(draft.settings or {})
+    kept = list(draft.items)
+    # The full analysis of the kept items, exactly as POST /api/datasets/{id}/analysis would answer it.
+    analysis = to_json(engine.analyse(dataset_id, {**payload, "items": kept}))
+    steps = trail(engine, dataset_id, payload, kept, removed, analysis, to_json)
+    reverse = effective_reverse(analysis, settings)
+    snapshot = {
+        "dataset_id": dataset_id,
+        "dataset_name": record.get("name") or getattr(dataset, "name", None),
+        "dataset_sha256": record.get("sha256"),
+        "name": draft.name.strip(),
+        "author": draft.author.strip(),
+        "note": draft.note,
+        "items": kept,
+        "removed": removed,
+        "trail": steps,
+        "settings": settings,
+        "item_meta": item_meta(dataset, kept, reverse, to_json),
+        "id_column": getattr(dataset, "id_column", None),
+        "analysis": analysis,
+        "software_version": __version__,
+        "parent": draft.parent,
+        "stability": stability(engine, store, draft, dataset_id, kept, reverse, to_json),
+    }
+    try:
+        return store.add_snapshot(dataset_id, snapshot)
+    except KeyError:  # the data set was deleted while we computed
+        raise NotFound("dataset", dataset_id) from None
+
+
+def _change(a: Any, b: Any) -> Any:
+    if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not isinstance(a, bool) \
+            and not isinstance(b, bool):
+        return b - a
+    return None
+
+
+def _loadings_by_item(analysis: Mapping[str, Any]) -> tuple[dict, list]:
+    efa = analysis.get("efa") or {}
+    loadings = efa.get("loadings")
+    labels = efa.get("factors") or []
+    if isinstance(loadings, dict):
+        return {str(k): list(v) for k, v in loadings.items()}, labels
+    if isinstance(loadings, list):
+        return dict(zip(efa.get("items") or analysis.get("settings", {}).get("items") or [], loadings)), labels
+    return {}, labels
+
+
+def _primary(row: list) -> dict | None:
+    vals = [(abs(v), i, v) for i, v in enumerate(row) if isinstance(v, (int, float)) and math.isfinite(v)]
+    if not vals:
+        return None
+    _, i, v = max(vals)
+    return {"factor": i, "loading": v}
+
+
+def compare(sa: Mapping[str, Any], sb: Mapping[str, Any]) -> dict:
+    """What changed from snapshot ``sa`` to snapshot ``sb``: items, coefficients, loadings, settings."""
+    items_a, items_b = list(sa.get("items") or []), list(sb.get("items") or [])
+    set_a, set_b = set(items_a), set(items_b)
+    rel_a = (sa.get("analysis") or {}).get("reliability") or {}
+    rel_b = (sb.get("analysis") or {}).get("reliability") or {}
+    coefs: dict[str, dict] = {"n_items": {"a": len(items_a), "b": len(items_b), "change": len(items_b) - len(items_a)}}
+    for key in COMPARED_COEFFICIENTS:
+        if key in rel_a or key in rel_b:
+            va, vb = rel_a.get(key), rel_b.get(key)
+            coefs[key] = {"a": va, "b": vb, "change": _change(va, vb)}
+    load_a, labels_a = _loadings_by_item(sa.get("analysis") or {})
+    load_b, labels_b = _loadings_by_item(sb.get("analysis") or {})
+    same_shape = bool(load_a) and bool(load_b) and labels_a == labels_b
+    loadings = []
+    for item in [i for i in items_b if i in set_a]:
+        la, lb = load_a.get(item), load_b.get(item)
+        change = None
+        if same_shape and la is not None and lb is not None and len(la) == len(lb):
+            change = [_change(x, y) for x, y in zip(la, lb)]
+        loadings.append({"item": item, "a": la, "b": lb, "change": change,
+                         "primary_a": _primary(la) if la else None, "primary_b": _primary(lb) if lb else None})
+    settings_a, settings_b = sa.get("settings") or {}, sb.get("settings") or {}
+    settings_changed = {k: {"a": settings_a.get(k), "b": settings_b.get(k)}
+                        for k in sorted(set(settings_a) | set(settings_b)) if settings_a.get(k) != settings_b.get(k)}
+    warnings: list[Note] = []
+    if sa.get("dataset_id") != sb.get("dataset_id"):
+        warnings.append(note("compare_other_dataset", "The two snapshots come from different data sets; their "
+                                                      "numbers are not directly comparable."))
+    if load_a and load_b and not same_shape:
+        warnings.append(note("compare_factors_differ", "The two factor solutions have different factors (number "
+                                                       "or labels), so loading changes are shown side by side "
+                                                       "without differences."))
+    return {
+        "a": {"id": sa.get("id"), "name": sa.get("name"), "created_at": sa.get("created_at"),
+              "dataset_id": sa.get("dataset_id"), "factors": labels_a},
+        "b": {"id": sb.get("id"), "name": sb.get("name"), "created_at": sb.get("created_at"),
+              "dataset_id": sb.get("dataset_id"), "factors": labels_b},
+        "items_added": [i for i in items_b if i not in set_a],
+        "items_removed": [i for i in items_a if i not in set_b],
+        "items_common": [i for i in items_b if i in set_a],
+        "coefficients": coefs,
+        "loadings": loadings,
+        "settings_changed": settings_changed,
+        "warnings": warnings,
+    }
