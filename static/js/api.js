@@ -47,6 +47,7 @@ async function call(method, url, { json, form, signal } = {}) {
 
 export const api = {
   health: () => call("GET", "/api/health"),
+  options: () => call("GET", "/api/options"),
   listDatasets: () => call("GET", "/api/datasets"),
   getDataset: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}`),
   deleteDataset: (id) => call("DELETE", `/api/datasets/${encodeURIComponent(id)}`),

@@ -1,8 +1,9 @@
 // Wiring: load the state from the URL, run the refit queue, route between views, live collaboration.
 import { api } from "./api.js";
+import { optionLabel, settingName, thresholdLabel, warningText } from "./labels.js";
 import {
-  DEFAULT_SETTINGS, VIEWS, actions, allItems, analysisRequest, keptItems, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
-  shared, state, undo, writeUrl,
+  VIEWS, actions, allItems, analysisRequest, keptItems, applyShared, canRedo, canUndo, clearHistory, readUrl, redo, remember,
+  settingDefaults, shared, state, undo, writeUrl,
 } from "./state.js";
 import { clear, fmt, h } from "./views/dom.js";
 import * as alphaView from "./views/alpha.js";
@@ -84,7 +85,7 @@ function renderSummary() {
   const w = clear($("#analysis-warnings"));
   if (warnings.length) {
     w.append(h("details", {}, h("summary", { text: `${warnings.length} note${warnings.length === 1 ? "" : "s"} from the analysis` }),
-      h("ul", {}, warnings.map((t) => h("li", { text: t })))));
+      h("ul", {}, warnings.map((t) => h("li", { text: warningText(t) })))));
   }
 }
 
@@ -223,7 +224,7 @@ Object.assign(actions, {
   setThreshold(key, value) {
     remember();
     if (value == null) delete state.thresholds[key]; else state.thresholds[key] = value;
-    const label = settingsView.thresholdLabel(key);
+    const label = thresholdLabel(key);
     changed("settings", value == null ? `set “${label}” back to its default` : `set “${label}” to ${value}`);
   },
   resetThresholds() { remember(); state.thresholds = {}; changed("settings", "set every flag threshold back to its default"); },
@@ -245,7 +246,7 @@ Object.assign(actions, {
       const removedOrder = (r.removed || []).map((x) => x.item || x);
       state.dropped = [...removedOrder.filter((n) => !keep.has(n)), ...allItems().filter((n) => !keep.has(n) && !removedOrder.includes(n))];
       const settings = {};
-      for (const k of Object.keys(DEFAULT_SETTINGS)) if (s[k] !== undefined) settings[k] = s[k];
+      for (const k of Object.keys(settingDefaults())) if (s[k] !== undefined) settings[k] = s[k];
       applyShared({ dropped: state.dropped, reverse: Array.isArray(s.reverse) ? s.reverse : null,
         thresholds: s.thresholds || {}, settings });
       state.view = "board";
@@ -336,11 +337,8 @@ function connectLive() {
 }
 
 // "Ana dropped O8", "Ben set correlation to polychoric": what teammates read in the toast and the feed.
-const SETTING_NAMES = { correlation: "correlation", extraction: "extraction", rotation: "rotation", missing: "missing answers",
-  n_factors: "number of factors" };
 function settingText(key, value) {
-  const shown = value == null ? "automatic" : settingsView.optionLabel(key, value);
-  return `set ${SETTING_NAMES[key] || key} to ${shown}`;
+  return `set ${settingName(key)} to ${optionLabel(key, value)}`;
 }
 function changeText(who, msg) {
   const d = String(msg.detail || "").trim();
@@ -358,7 +356,7 @@ function hideFollowIfSame() {
 const sameShared = (a, b) => JSON.stringify(normalise(a)) === JSON.stringify(normalise(b));
 function normalise(s) {
   return { dropped: [...(s.dropped || [])].sort(), reverse: s.reverse ? [...s.reverse].sort() : null,
-    settings: { ...DEFAULT_SETTINGS, ...(s.settings || {}) }, thresholds: s.thresholds || {} };
+    settings: { ...settingDefaults(), ...(s.settings || {}) }, thresholds: s.thresholds || {} };
 }
 
 // A page that joins late hears the team's last change; if its own state differs, it may follow.
@@ -413,7 +411,7 @@ function toast(text) {
 function wireChrome() {
   $("#undo").addEventListener("click", () => actions.undo());
   $("#redo").addEventListener("click", () => actions.redo());
-  $("#save-snapshot").addEventListener("click", () => snapshotsView.openDialog());
+  $("#save-snapshot").addEventListener("click", () => snapshotsView.openDialog(state));
   const who = $("#who");
   who.value = state.who;
   who.addEventListener("change", () => { state.who = who.value.trim(); localStorage.setItem("scalewright.who", state.who); });
@@ -433,7 +431,7 @@ function wireChrome() {
   const dlg = $("#snapshot-dialog");
   dlg.querySelector("form").addEventListener("submit", async (e) => {
     e.preventDefault();
-    await snapshotsView.submitDialog();
+    await snapshotsView.submitDialog(state);
   });
   dlg.querySelector("#snap-cancel").addEventListener("click", () => dlg.close());
   document.addEventListener("keydown", (e) => {
@@ -450,10 +448,23 @@ function wireChrome() {
   });
 }
 
+// The choices, defaults and flag thresholds the server accepts: read once, before the URL is.
+async function loadOptions() {
+  try {
+    state.options = await api.options();
+    state.optionsError = null;
+  } catch (e) {
+    state.options = null;
+    state.optionsError = e;
+  }
+}
+
 async function boot() {
   const t0 = performance.now();
+  await loadOptions();
   readUrl();
   wireChrome();
+  if (state.optionsError) toast(`The analysis settings could not be read from the server: ${state.optionsError.message}`);
   renderAll();
   const lists = refreshDatasets();
   if (state.dataset) await loadDataset();

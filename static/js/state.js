@@ -1,22 +1,25 @@
 // The one state object of the dashboard, and its sync with the page URL.
 // URL keys: d (dataset id), drop (removed items, in the order they were removed), rev (reverse-keyed
-// override), corr, ext, rot, miss, nf (number of factors), th (flag thresholds k:v,...), v (view).
-
-export const DEFAULT_SETTINGS = Object.freeze({
-  correlation: "pearson", extraction: "minres", rotation: "oblimin", missing: "pairwise", n_factors: null,
-});
+// override), corr, ext, rot, miss, nf (number of factors), any other served setting under its own name,
+// th (flag thresholds k:v,...), v (view). Settings equal to the served default stay out of the URL.
+// The choices, defaults and thresholds come from the server (GET /api/options, in state.options).
 
 export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "workspace"];
+
+// Short URL keys of the settings that had them before the options were served; others use their name.
+const URL_KEYS = { correlation: "corr", extraction: "ext", rotation: "rot", missing: "miss", n_factors: "nf" };
 
 export const state = {
   // shared (in the URL)
   dataset: null,          // dataset id
   dropped: [],            // removed item names, in removal order
   reverse: null,          // null = the codebook's reverse-keyed items; else a list of names
-  settings: { ...DEFAULT_SETTINGS },
+  settings: {},           // analysis settings by name (the served defaults, then what the team chose)
   thresholds: {},         // overrides of the flag rules
   view: "start",
   // local to this page
+  options: null,          // GET /api/options: {settings: [{name, type, default, choices?, min?, max?, help}], thresholds: [...]}
+  optionsError: null,     // why the options could not be read (the settings page says so)
   meta: null,             // dataset record {id, name, n_rows, items: [...], warnings}
   analysis: null,         // last analysis answer
   previous: null,         // the analysis before it (for the change marks)
@@ -32,7 +35,43 @@ export const state = {
   who: localStorage.getItem("scalewright.who") || "",
   projector: localStorage.getItem("scalewright.projector") === "1",
   live: { listener: null, peers: 0, feed: [] },
+  // what each view keeps between renders (views hold no state of their own)
+  board: { focus: null },                 // the item row to keep the keyboard focus on
+  renders: { loadings: 0, alpha: 0 },     // chart renders, exposed as data-rendered for the tests
+  start: { upload: null,                  // {record} or {error} of the last upload
+    form: { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" } },
+  snapshots: { list: [], compareWith: null, comparison: null, message: null },
+  stability: {
+    retest: null, retestAsked: null,        // the last retest answer and the request behind it
+    agreement: null, agreementAsked: null,  // the last agreement answer and {ratings, level} behind it
+    retestSummary: "", agreementSummary: "",
+    pick: { first: null, second: null, itemsSecond: "", score: "sum", level: "ordinal", text: "", file: null, fileText: null,
+      source: "current", snapshots: [], snapshotsFor: null, wavesFor: null },
+  },
+  workspace: { onlyThis: false, message: null },
 };
+
+// ---- settings from the served options
+/** The served default of every analysis setting, by name ({} until the options are read). */
+export function settingDefaults() {
+  return Object.fromEntries((state.options?.settings || []).map((o) => [o.name, o.default ?? null]));
+}
+
+/** The served default of every flag threshold, by name. */
+export function thresholdDefaults() {
+  return Object.fromEntries((state.options?.thresholds || []).map((t) => [t.name, t.default]));
+}
+
+/** What the save-snapshot dialog may include: the last successful comparisons of this page. */
+export function lastStability() {
+  const st = state.stability;
+  const retestOk = st.retest && !st.retest.error && st.retestAsked && st.retestAsked.first === state.dataset;
+  const agreementOk = st.agreement && !st.agreement.error;
+  return {
+    retest: retestOk ? st.retestAsked : null, retestSummary: retestOk ? st.retestSummary : "",
+    agreement: agreementOk ? st.agreementAsked : null, agreementSummary: agreementOk ? st.agreementSummary : "",
+  };
+}
 
 // ---- undo / redo over the shared part of the state
 const past = [];
@@ -50,7 +89,7 @@ export function shared() {
 export function applyShared(s) {
   state.dropped = [...(s.dropped || [])];
   state.reverse = s.reverse ? [...s.reverse] : null;
-  state.settings = { ...DEFAULT_SETTINGS, ...(s.settings || {}) };
+  state.settings = { ...settingDefaults(), ...(s.settings || {}) };
   state.thresholds = { ...(s.thresholds || {}) };
 }
 
@@ -87,13 +126,8 @@ export function keptItems() {
 export function itemMeta(name) { return state.meta ? state.meta.items.find((it) => it.name === name) : undefined; }
 
 export function analysisRequest() {
-  const body = {
-    missing: state.settings.missing,
-    correlation: state.settings.correlation,
-    extraction: state.settings.extraction,
-    rotation: state.settings.rotation,
-    n_factors: state.settings.n_factors,
-  };
+  const body = {};
+  for (const [k, v] of Object.entries(state.settings)) if (v !== undefined) body[k] = v;
   if (state.dropped.length) body.items = keptItems(); // no items = the whole pool
   if (state.reverse) body.reverse = state.reverse;
   if (Object.keys(state.thresholds).length) body.thresholds = state.thresholds;
@@ -107,18 +141,26 @@ const unescName = (n) => n.replace(/%2C/gi, ",").replace(/%25/g, "%");
 const list = (v) => (v ? v.split(",").filter(Boolean).map(unescName) : []);
 const joinNames = (names) => names.map(escName).join(",");
 
+// A setting's value as read from the URL, by its served type.
+function fromUrl(option, raw) {
+  if (option.type === "integer" || option.type === "number") {
+    const n = Number(raw);
+    return Number.isNaN(n) ? option.default ?? null : n;
+  }
+  if (option.type === "boolean") return raw === "1" || raw === "true";
+  return raw;
+}
+
 export function readUrl() {
   const q = new URLSearchParams(location.search);
   state.dataset = q.get("d") || null;
   state.dropped = list(q.get("drop"));
   state.reverse = q.has("rev") ? list(q.get("rev")) : null;
-  state.settings = {
-    correlation: q.get("corr") || DEFAULT_SETTINGS.correlation,
-    extraction: q.get("ext") || DEFAULT_SETTINGS.extraction,
-    rotation: q.get("rot") || DEFAULT_SETTINGS.rotation,
-    missing: q.get("miss") || DEFAULT_SETTINGS.missing,
-    n_factors: q.get("nf") ? Number(q.get("nf")) : null,
-  };
+  state.settings = {};
+  for (const o of state.options?.settings || []) {
+    const raw = q.get(URL_KEYS[o.name] || o.name);
+    state.settings[o.name] = raw == null || raw === "" ? o.default ?? null : fromUrl(o, raw);
+  }
   state.thresholds = {};
   for (const pair of list(q.get("th"))) {
     const [k, v] = pair.split(":");
@@ -135,12 +177,10 @@ export function writeUrl(push = false) {
   if (state.dataset) q.set("d", state.dataset);
   if (state.dropped.length) q.set("drop", joinNames(state.dropped));
   if (state.reverse) q.set("rev", joinNames(state.reverse));
-  const s = state.settings;
-  if (s.correlation !== DEFAULT_SETTINGS.correlation) q.set("corr", s.correlation);
-  if (s.extraction !== DEFAULT_SETTINGS.extraction) q.set("ext", s.extraction);
-  if (s.rotation !== DEFAULT_SETTINGS.rotation) q.set("rot", s.rotation);
-  if (s.missing !== DEFAULT_SETTINGS.missing) q.set("miss", s.missing);
-  if (s.n_factors) q.set("nf", String(s.n_factors));
+  const defaults = settingDefaults();
+  for (const [k, v] of Object.entries(state.settings)) {
+    if (v != null && v !== defaults[k]) q.set(URL_KEYS[k] || k, String(v));
+  }
   const th = Object.entries(state.thresholds).map(([k, v]) => `${k}:${v}`);
   if (th.length) q.set("th", th.join(","));
   if (state.view !== "start" || state.dataset) q.set("v", state.view);

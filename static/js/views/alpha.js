@@ -1,11 +1,9 @@
 // Alpha curves: alpha-if-deleted per item against the current alpha, the pruning path, per-construct coefficients.
 import { alphaIfDeleted, pruningPath } from "../charts.js";
-import { actions, itemMeta, state } from "../state.js";
+import { actions, itemMeta } from "../state.js";
 import { clear, fmt, h, note, section, table } from "./dom.js";
 
-let renders = 0;
-
-export function render(container) {
+export function render(container, state) {
   clear(container);
   const a = state.analysis;
   if (!a) { container.append(note("No analysis yet.")); return; }
@@ -43,7 +41,7 @@ export function render(container) {
       h("dl", { class: "facts" }, facts.map(([k, v]) => [h("dt", { text: k }), h("dd", { text: String(v) })])))),
     path,
     h("p", { class: "muted", text: "The pruning path drops, at each step, the item whose removal leaves the highest alpha. Where it levels off is where a short form stops paying for its brevity. Alpha rising is not the same as the scale measuring the right thing." })));
-  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha, onPick: showPick }).then(() => curve.setAttribute("data-rendered", String((renders += 1))));
+  alphaIfDeleted(curve, { items: a.items || [], alpha: rel.alpha, onPick: showPick }).then(() => curve.setAttribute("data-rendered", String((state.renders.alpha += 1))));
   const p = a.pruning_path || [];
   const full = p.length && p[0].removed == null ? p : [{ removed: null, n_items: (a.items || []).length, alpha: rel.alpha, omega_total: rel.omega_total }, ...p];
   pruningPath(path, { path: full });

@@ -1,20 +1,7 @@
 // The item board: one row per item, keep/drop toggle, the numbers that argue for or against it.
-import { actions, allItems, itemMeta, state } from "../state.js";
+import { flagWord, flagsByItem } from "../labels.js";
+import { actions, allItems, itemMeta } from "../state.js";
 import { clear, fmt, h, note, pct, select } from "./dom.js";
-
-export const FLAG_WORDS = {
-  cross_loading: "cross-loads", weak_loading: "weak", misplaced: "elsewhere", heywood: "Heywood",
-  reverse_suspect: "reverse?", near_duplicate: "duplicate?", floor_ceiling: "floor/ceiling",
-};
-export const flagWord = (kind) => FLAG_WORDS[kind] || String(kind || "flag").replace(/_/g, " ");
-
-let focusName = null;
-
-export function flagsByItem(analysis) {
-  const out = {};
-  for (const f of analysis?.efa?.flags || []) (out[f.item] ||= []).push(f);
-  return out;
-}
 
 function countsOf(row) {
   const c = row?.counts;
@@ -38,7 +25,7 @@ function distBar(row) {
   return bar;
 }
 
-function sortValue(key, name, row, flags, order) {
+function sortValue(state, key, name, row, flags, order) {
   switch (key) {
     case "name": return name;
     case "construct": return itemMeta(name)?.construct || "";
@@ -53,7 +40,7 @@ function sortValue(key, name, row, flags, order) {
   }
 }
 
-export function render(container) {
+export function render(container, state) {
   const a = state.analysis;
   const keep = new Set(allItems().filter((n) => !state.dropped.includes(n)));
   const rows = Object.fromEntries((a?.items || []).map((r) => [r.name, r]));
@@ -69,8 +56,8 @@ export function render(container) {
   else if (state.filter.flag) names = names.filter(({ n }) => (flags[n] || []).some((f) => f.kind === state.filter.flag));
   const { key, dir } = state.sort;
   names.sort((x, y) => {
-    const vx = sortValue(key, x.n, rows[x.n], flags, x.i);
-    const vy = sortValue(key, y.n, rows[y.n], flags, y.i);
+    const vx = sortValue(state, key, x.n, rows[x.n], flags, x.i);
+    const vy = sortValue(state, key, y.n, rows[y.n], flags, y.i);
     return (vx < vy ? -1 : vx > vy ? 1 : x.i - y.i) * dir;
   });
 
@@ -92,7 +79,7 @@ export function render(container) {
       "aria-label": `${n}${kept ? "" : " (dropped)"}: ${m.text || ""}` },
     h("td", {}, h("button", { class: `toggle ${kept ? "on" : "off"}`, role: "switch", "aria-checked": String(kept),
       title: kept ? `Drop ${n} (D)` : `Restore ${n} (D)`, text: kept ? "keep" : "dropped",
-      onclick: (e) => { e.stopPropagation(); focusName = n; actions.toggle(n); } })),
+      onclick: (e) => { e.stopPropagation(); state.board.focus = n; actions.toggle(n); } })),
     h("th", { scope: "row", class: "name",
       title: kept && r ? `n ${r.n ?? "—"} · mean ${fmt(r.mean, 2)} · sd ${fmt(r.sd, 2)}${r.skew != null ? ` · skew ${fmt(r.skew, 2)}` : ""}` : null }, n, m.reverse || (state.reverse || []).includes(n) ? h("span", { class: "rev", title: "reverse-keyed", text: " ↺" }) : null),
     h("td", { class: "wording", text: m.text || "" }),
@@ -105,8 +92,8 @@ export function render(container) {
     h("td", {}, kept && r ? distBar(r) : null),
     h("td", { class: "flags" }, itemFlags.map((f) => h("span", { class: `flag ${f.kind}`, tabindex: 0, role: "note",
       "aria-label": `${flagWord(f.kind)}: ${f.message}`, dataset: { tip: f.message }, text: flagWord(f.kind) }))));
-    tr.addEventListener("keydown", (e) => onKey(e, n, tr));
-    tr.addEventListener("focus", () => { focusName = n; });
+    tr.addEventListener("keydown", (e) => onKey(state, e, n, tr));
+    tr.addEventListener("focus", () => { state.board.focus = n; });
     tbody.append(tr);
   }
 
@@ -126,17 +113,18 @@ export function render(container) {
       head("Floor / ceiling", "ceiling", "Share of answers at the lowest / highest option"),
       h("th", { scope: "col", text: "Answers" }), head("Flags", "flags", "Heuristic flags from the factor analysis"))),
     tbody)));
+  const focusName = state.board.focus;
   if (focusName && container.contains(document.activeElement) === false && document.activeElement === document.body) {
     const again = tbody.querySelector(`tr[data-item="${CSS.escape(focusName)}"]`);
     if (again) again.focus({ preventScroll: true });
   }
 }
 
-function onKey(e, name, tr) {
+function onKey(state, e, name, tr) {
   if (e.target.tagName === "SELECT" || e.target.tagName === "INPUT") return;
   if (e.key === "ArrowDown" || e.key === "j") { e.preventDefault(); tr.nextElementSibling?.focus(); }
   else if (e.key === "ArrowUp" || e.key === "k") { e.preventDefault(); tr.previousElementSibling?.focus(); }
   else if ((e.key === "d" || e.key === "D" || e.key === " " || e.key === "Delete") && e.target === tr) {
-    e.preventDefault(); focusName = name; actions.toggle(name);
+    e.preventDefault(); state.board.focus = name; actions.toggle(name);
   }
 }

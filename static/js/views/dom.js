@@ -48,7 +48,8 @@ export function warningList(warnings, title = "Things to know") {
   if (!warnings || !warnings.length) return null;
   return h("details", { class: "warnings", open: warnings.length <= 3 },
     h("summary", { text: `${title} (${warnings.length})` }),
-    h("ul", {}, warnings.map((w) => h("li", { text: w }))));
+    // H1 (issue 10): warnings are {code, message, items}; old snapshots and upload notes are plain strings.
+    h("ul", {}, warnings.map((w) => h("li", { text: w != null && typeof w === "object" ? String(w.message ?? w.code ?? "") : String(w ?? "") }))));
 }
 
 export function table(columns, rows, { caption, className = "grid" } = {}) {

@@ -1,9 +1,9 @@
 // How many factors: scree against the parallel-analysis threshold, MAP, and the override.
 import { mapCurve, scree } from "../charts.js";
-import { actions, state } from "../state.js";
+import { actions } from "../state.js";
 import { clear, fmt, h, note, section, table } from "./dom.js";
 
-export function render(container) {
+export function render(container, state) {
   clear(container);
   const a = state.analysis;
   const ret = a?.retention;

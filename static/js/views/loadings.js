@@ -1,8 +1,7 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
 import { factorCorrelations, loadingsHeatmap } from "../charts.js";
-import { actions, itemMeta, state } from "../state.js";
-import { flagWord, flagsByItem } from "./board.js";
-import { optionLabel } from "./settings.js";
+import { flagWord, flagsByItem, optionLabel, warningText } from "../labels.js";
+import { actions, itemMeta } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
 
 function asMatrix(obj, items) {
@@ -24,13 +23,11 @@ export function ordered(efa) {
   return rows;
 }
 
-let renders = 0;
-
-export function render(container) {
+export function render(container, state) {
   clear(container);
   const efa = state.analysis?.efa;
   if (!efa || !efa.loadings || !Object.keys(efa.loadings).length) {
-    container.append(section("Loadings", note(efa?.warnings?.join(" ") || "No factor solution yet.")));
+    container.append(section("Loadings", note((efa?.warnings || []).map(warningText).join(" ") || "No factor solution yet.")));
     return;
   }
   const items = Object.keys(efa.loadings);
@@ -85,7 +82,7 @@ export function render(container) {
     h("div", { class: "heat-layout" }, heat, side),
     warningList(efa.warnings, "About this solution")));
   loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), onPick: showPick, title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
-    .then(() => heat.setAttribute("data-rendered", String((renders += 1))));
+    .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
   if (efa.factor_correlations && efa.factor_correlations.length > 1) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
   } else {

@@ -1,23 +1,17 @@
 // Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
 import { api } from "../api.js";
-import { actions, analysisRequest, itemMeta, keptItems, state } from "../state.js";
+import { actions, analysisRequest, itemMeta, keptItems, lastStability } from "../state.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
-import { lastStability } from "./stability.js";
 
 export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
   ["redundant", "redundant"], ["wording", "wording"], ["floor-ceiling", "floor/ceiling"], ["other", "other"]];
 const CODE_OF_FLAG = { cross_loading: "cross-loading", weak_loading: "weak", misplaced: "belongs-elsewhere", reverse_suspect: "wording", heywood: "other",
   near_duplicate: "redundant", floor_ceiling: "floor-ceiling" };
 
-let snapshots = [];
-let compareWith = null;
-let comparison = null;
-let message = null;
-
 // Every flag message ends with the same caution; in a reason it is noise (the report says it once).
 const CAUTION = /\s*These thresholds are heuristics, not tests\.\s*/g;
 
-export function defaultReason(item) {
+export function defaultReason(state, item) {
   const flags = state.lastFlags[item] || [];
   if (flags.length) {
     return { reason: flags.map((f) => String(f.message || "").replace(CAUTION, " ").trim()).join(" "),
@@ -32,7 +26,7 @@ export function defaultReason(item) {
 
 // Items dropped before this page saw them active (e.g. opened from a shared link): ask the server how
 // they looked in the whole pool with the current settings, so their reasons can be pre-filled too.
-async function learnUnseen() {
+async function learnUnseen(state) {
   const unseen = state.dropped.filter((n) => !(n in state.lastFlags));
   if (!unseen.length || !state.dataset) return;
   const body = analysisRequest();
@@ -49,9 +43,9 @@ async function learnUnseen() {
   } catch { /* the reasons stay empty; the team types them */ }
 }
 
-export async function openDialog() {
+export async function openDialog(state) {
   const dlg = document.getElementById("snapshot-dialog");
-  await learnUnseen();
+  await learnUnseen(state);
   const body = clear(dlg.querySelector(".dialog-body"));
   const removed = [...state.dropped];
   body.append(h("p", { text: `${keptItems().length} items kept, ${removed.length} removed. Give each removal a reason: it goes into the record and the report.` }));
@@ -59,7 +53,7 @@ export async function openDialog() {
   const fit = (ta) => { ta.style.height = "auto"; ta.style.height = `${Math.min(ta.scrollHeight + 2, 200)}px`; };
   const areas = [];
   for (const item of removed) {
-    const d = defaultReason(item);
+    const d = defaultReason(state, item);
     const area = h("textarea", { class: "reason-text", name: `reason-${item}`, value: d.reason, required: true, rows: 2,
       dataset: { item }, placeholder: "Why it goes (required)", "aria-label": `Reason for removing ${item}`,
       oninput: (e) => fit(e.target) });
@@ -84,7 +78,7 @@ export async function openDialog() {
   for (const a of areas) { fit(a); a.scrollTop = 0; a.setSelectionRange(0, 0); }
 }
 
-export async function submitDialog() {
+export async function submitDialog(state) {
   const dlg = document.getElementById("snapshot-dialog");
   const err = dlg.querySelector(".dialog-error");
   const removed = state.dropped.map((item) => {
@@ -116,7 +110,7 @@ export async function submitDialog() {
     const saved = await api.saveSnapshot(state.dataset, body);
     state.parentSnapshot = { id: saved.id, name: saved.name || body.name };
     dlg.close();
-    message = `Saved “${saved.name || body.name}”.`;
+    state.snapshots.message = `Saved “${saved.name || body.name}”.`;
     actions.broadcast("snapshot", `saved snapshot ${saved.name || body.name}`);
     actions.show("snapshots");
     return true;
@@ -126,9 +120,9 @@ export async function submitDialog() {
   }
 }
 
-async function load() {
+async function load(state) {
   const got = await api.listSnapshots(state.dataset);
-  snapshots = Array.isArray(got) ? got : got.snapshots || [];
+  state.snapshots.list = Array.isArray(got) ? got : got.snapshots || [];
 }
 
 function coef(s, key) {
@@ -137,11 +131,12 @@ function coef(s, key) {
   return rel[key];
 }
 
-export async function render(container) {
+export async function render(container, state) {
   clear(container);
   container.append(section("Snapshots", note("Loading…")));
-  try { await load(); } catch (e) { clear(container).append(section("Snapshots", note(e.message, "error"))); return; }
+  try { await load(state); } catch (e) { clear(container).append(section("Snapshots", note(e.message, "error"))); return; }
   clear(container);
+  const { list: snapshots, compareWith, comparison, message } = state.snapshots;
   const rows = snapshots.map((s) => {
     const kept = (s.items || []).length;
     const removed = (s.removed || []).length;
@@ -150,7 +145,7 @@ export async function render(container) {
       h("a", { href: api.reportUrl(s.id), target: "_blank", rel: "noopener", text: "Report" }),
       h("a", { href: api.scoringKeyUrl(s.id), download: "", text: "Scoring key" }),
       h("button", { text: compareWith === s.id ? "Comparing…" : "Compare", "aria-pressed": String(compareWith === s.id),
-        onclick: () => pickCompare(container, s.id) }));
+        onclick: () => pickCompare(container, state, s.id) }));
     const parent = s.parent ? snapshots.find((x) => x.id === s.parent) : null;
     return [h("span", { class: "snap-name" }, h("span", { text: s.name || s.id }),
       s.parent ? h("span", { class: "muted lineage", text: ` ↳ revises ${parent ? parent.name : s.parent}` }) : null), s.author || "—", (s.created_at || "").replace("T", " ").slice(0, 16),
@@ -165,18 +160,19 @@ export async function render(container) {
       : note("No snapshots yet."),
     compareWith ? note("Pick a second snapshot to compare with.") : null,
     comparison ? renderComparison(comparison) : null));
-  message = null;
+  state.snapshots.message = null;
 }
 
-async function pickCompare(container, id) {
-  if (!compareWith) { compareWith = id; comparison = null; render(container); return; }
-  if (compareWith === id) { compareWith = null; render(container); return; }
+async function pickCompare(container, state, id) {
+  const page = state.snapshots;
+  if (!page.compareWith) { page.compareWith = id; page.comparison = null; render(container, state); return; }
+  if (page.compareWith === id) { page.compareWith = null; render(container, state); return; }
   // Always from the older snapshot to the newer one, whichever was clicked first.
-  const when = (x) => snapshots.find((sn) => sn.id === x)?.created_at || "";
-  const [older, newer] = when(compareWith) <= when(id) ? [compareWith, id] : [id, compareWith];
-  try { comparison = await api.compareSnapshots(older, newer); } catch (e) { comparison = { error: e.message }; }
-  compareWith = null;
-  render(container);
+  const when = (x) => page.list.find((sn) => sn.id === x)?.created_at || "";
+  const [older, newer] = when(page.compareWith) <= when(id) ? [page.compareWith, id] : [id, page.compareWith];
+  try { page.comparison = await api.compareSnapshots(older, newer); } catch (e) { page.comparison = { error: e.message }; }
+  page.compareWith = null;
+  render(container, state);
 }
 
 // Plain names for the coefficients the compare route returns.

@@ -1,25 +1,12 @@
 // Stability and agreement: two waves (test-retest / parallel forms) and a rater table.
 import { api } from "../api.js";
 import { blandAltman, retestScatter } from "../charts.js";
-import { allItems, keptItems, state } from "../state.js";
+import { allItems, keptItems } from "../state.js";
 import { clear, fmt, h, note, section, select, table, warningList } from "./dom.js";
 
-let retestResult = null;
-let agreementResult = null;
-let retestAsked = null;     // the request behind retestResult (for a snapshot to include)
-let agreementAsked = null;  // {ratings, level} behind agreementResult
-
-/** What the save-snapshot dialog may include: the last successful comparisons of this page. */
-export function lastStability() {
-  return {
-    retest: retestResult && !retestResult.error && retestAsked && retestAsked.first === state.dataset ? retestAsked : null,
-    retestSummary: retestResult && !retestResult.error ? `${retestResult.recommended || "ICC"} ${num(val(retestResult.icc?.[retestResult.recommended]))} with ${retestResult.second?.name || "the second wave"}` : "",
-    agreement: agreementResult && !agreementResult.error ? agreementAsked : null,
-    agreementSummary: agreementResult && !agreementResult.error ? `${agreementResult.n_units} units, ${agreementResult.n_raters} raters` : "",
-  };
-}
-const pick = { first: null, second: null, itemsSecond: "", score: "sum", level: "ordinal", text: "", file: null, fileText: null,
-  source: "current", snapshots: [], snapshotsFor: null };
+// The last results live in state.stability (the save-snapshot dialog offers them through lastStability()).
+const retestSummary = (r) => `${r.recommended || "ICC"} ${num(val(r.icc?.[r.recommended]))} with ${r.second?.name || "the second wave"}`;
+const agreementSummary = (r) => `${r.n_units} units, ${r.n_raters} raters`;
 
 const num = (v, d = 3) => (typeof v === "number" ? fmt(v, d) : v == null ? "—" : String(v));
 const ci = (c) => (Array.isArray(c) && c.length === 2 ? `${fmt(c[0], 2)} to ${fmt(c[1], 2)}` : "—");
@@ -65,8 +52,8 @@ function withCi(v) {
   return v.ci ? `${num(v.value)} (${ci(v.ci)})` : num(v.value);
 }
 
-function renderRetest(box) {
-  const r = retestResult;
+function renderRetest(box, state) {
+  const { retest: r, pick } = state.stability;
   if (!r) return;
   if (r.error) { box.append(note(r.error, "error")); return; }
   const pairs = pairsOf(r);
@@ -113,8 +100,8 @@ function renderRetest(box) {
   box.append(warningList(r.warnings));
 }
 
-function renderAgreement(box) {
-  const r = agreementResult;
+function renderAgreement(box, state) {
+  const { agreement: r, pick } = state.stability;
   if (!r) return;
   if (r.error) { box.append(note(r.error, "error")); return; }
   const rows = [];
@@ -153,8 +140,10 @@ function renderAgreement(box) {
   box.append(warningList(r.warnings));
 }
 
-export function render(container) {
+export function render(container, state) {
   clear(container);
+  const st = state.stability;
+  const { pick } = st;
   const datasets = state.datasets.map((d) => [d.id, d.name || d.id]);
   if (pick.wavesFor !== state.dataset) { pick.wavesFor = state.dataset; pick.first = null; pick.second = null; } // another pool opened
   pick.first ||= state.dataset;
@@ -177,11 +166,11 @@ export function render(container) {
       else Object.assign(body, { snapshot: pick.source });
       const other = pick.itemsSecond.split(/[,;\s]+/).map((x) => x.trim()).filter(Boolean);
       if (other.length) body.items_second = other; // parallel forms: the other form's items, in the same order
-      retestResult = await api.retest(body);
-      retestAsked = { ...body, first: body.first || retestResult.first?.id };
-    } catch (e) { retestResult = { error: e.message }; }
+      const answer = await api.retest(body);
+      Object.assign(st, { retest: answer, retestAsked: { ...body, first: body.first || answer.first?.id }, retestSummary: retestSummary(answer) });
+    } catch (e) { st.retest = { error: e.message }; }
     run.disabled = false;
-    clear(retestBox); renderRetest(retestBox);
+    clear(retestBox); renderRetest(retestBox, state);
   } });
   const textArea = h("textarea", { id: "ratings-text", rows: 8, cols: 50, placeholder: "One row per unit, one column per rater (comma or tab separated); a header row and a first column of unit labels are recognised; empty = missing.",
     oninput: (e) => { pick.text = e.target.value; } });
@@ -194,7 +183,7 @@ export function render(container) {
   const example = h("button", { id: "ratings-example", text: "Use the invented example (3 coordinators, 40 logs)", onclick: async () => {
     try {
       pick.text = await api.demoRatings(); textArea.value = pick.text; pick.file = null; pick.level = "ordinal";
-    } catch (e) { agreementResult = { error: e.message }; clear(agreeBox); renderAgreement(agreeBox); }
+    } catch (e) { st.agreement = { error: e.message }; clear(agreeBox); renderAgreement(agreeBox, state); }
   } });
   const runAgree = h("button", { class: "primary", id: "run-agreement", text: "Compute agreement", onclick: async () => {
     runAgree.disabled = true;
@@ -204,14 +193,15 @@ export function render(container) {
         form.append("file", pick.file, pick.file.name);
         form.append("level", pick.level);
         form.append("id_column", parseRatings(pick.text).hasUnits ? "yes" : "no");
-        agreementResult = await api.agreementUpload(form);
+        st.agreement = await api.agreementUpload(form);
       } else {
-        agreementResult = await api.agreement({ ratings: parseRatings(pick.text).ratings, level: pick.level });
+        st.agreement = await api.agreement({ ratings: parseRatings(pick.text).ratings, level: pick.level });
       }
-      agreementAsked = { ratings: parseRatings(pick.text).ratings, level: pick.level };
-    } catch (e) { agreementResult = { error: e.message }; }
+      st.agreementAsked = { ratings: parseRatings(pick.text).ratings, level: pick.level };
+      st.agreementSummary = agreementSummary(st.agreement);
+    } catch (e) { st.agreement = { error: e.message }; }
     runAgree.disabled = false;
-    clear(agreeBox); renderAgreement(agreeBox);
+    clear(agreeBox); renderAgreement(agreeBox, state);
   } });
   container.append(
     section("Test-retest or parallel forms",
@@ -232,13 +222,13 @@ export function render(container) {
         h("label", {}, "Level ", select([["nominal", "nominal"], ["ordinal", "ordinal"], ["interval", "interval"], ["ratio", "ratio"]], pick.level, (v) => { pick.level = v; })),
         runAgree, example),
       textArea, agreeBox));
-  renderRetest(retestBox);
-  renderAgreement(agreeBox);
+  renderRetest(retestBox, state);
+  renderAgreement(agreeBox, state);
   if (pick.snapshotsFor !== state.dataset && state.dataset) {
     pick.snapshotsFor = state.dataset;
     api.listSnapshots(state.dataset).then((got) => {
       pick.snapshots = Array.isArray(got) ? got : [];
-      if (pick.snapshots.length && container.isConnected && state.view === "stability") render(container);
+      if (pick.snapshots.length && container.isConnected && state.view === "stability") render(container, state);
     }).catch(() => {});
   }
 }

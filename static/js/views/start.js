@@ -1,20 +1,20 @@
 // Start: upload a response file (+ optional codebook), see intake warnings and the detected items,
 // or open an existing dataset (the demo among them).
-import { actions, state } from "../state.js";
+import { actions } from "../state.js";
 import { clear, h, note, section, table, warningList } from "./dom.js";
 
-let lastUpload = null; // {record, error}
-// What was chosen and typed, kept across re-renders: after a refused file the team fixes one field and
-// tries again instead of picking both files a second time.
-const kept = { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" };
+// state.start.upload is the last upload ({record} or {error}); state.start.form what was chosen and typed,
+// kept across re-renders: after a refused file the team fixes one field and tries again instead of
+// picking both files a second time.
 
 function restoreFile(input, file) {
   if (!file) return;
   try { const dt = new DataTransfer(); dt.items.add(file); input.files = dt.files; } catch { /* an old browser: pick again */ }
 }
 
-export function render(container) {
+export function render(container, state) {
   clear(container);
+  const kept = state.start.form;
   const responsesInput = h("input", { type: "file", id: "file-responses", name: "file",
     accept: ".csv,.tsv,.txt,.xlsx,text/csv,text/tab-separated-values" });
   const codebookInput = h("input", { type: "file", id: "file-codebook", name: "codebook", accept: ".csv,.xlsx,text/csv" });
@@ -77,14 +77,14 @@ export function render(container) {
     submit.disabled = true;
     status.textContent = "Reading…";
     try {
-      lastUpload = { record: await actions.upload(fd) };
+      state.start.upload = { record: await actions.upload(fd) };
       Object.assign(kept, { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" });
     } catch (err) {
-      lastUpload = { error: err };
+      state.start.upload = { error: err };
     } finally {
       submit.disabled = false;
     }
-    render(container);
+    render(container, state);
   } },
   drop,
   h("div", { class: "fields" },
@@ -96,7 +96,8 @@ export function render(container) {
     h("label", {}, "Highest answer ", smax)),
   chosen, submit, status);
 
-  if (lastUpload) container.append(uploadResult(lastUpload));
+  const lastUpload = state.start.upload;
+  if (lastUpload) container.append(uploadResult(state, lastUpload));
   container.append(section(lastUpload?.record ? "Bring another file" : "Bring a draft item pool",
     note("Files stay on this machine: they are read by the Scalewright server you started and kept in its data folder."),
     form));
@@ -115,7 +116,7 @@ export function render(container) {
     h("div", { class: "toolbar" }, demoButton)));
 }
 
-function uploadResult({ record, error }) {
+function uploadResult(state, { record, error }) {
   if (error) {
     const details = Object.entries(error.details || {}).filter(([, v]) => v != null && !(Array.isArray(v) && !v.length));
     const shown = (v) => (Array.isArray(v) ? v.join(", ") : typeof v === "object" ? JSON.stringify(v) : String(v));
@@ -130,7 +131,7 @@ function uploadResult({ record, error }) {
   return section(`Read: ${record.name}`,
     h("div", { class: "toolbar" },
       h("p", { text: `${record.n_rows} respondents, ${items.length} items${constructs.size ? `, ${constructs.size} constructs` : ""}.` }),
-      h("button", { class: "primary", id: "open-uploaded", text: "Start trimming", onclick: () => { lastUpload = null; actions.openDataset(record.id); } })),
+      h("button", { class: "primary", id: "open-uploaded", text: "Start trimming", onclick: () => { state.start.upload = null; actions.openDataset(record.id); } })),
     warningList(record.warnings, "What the reader noticed"),
     table(["Item", "Wording", "Construct", "Reverse", "Range", "Missing"],
       items.map((it) => [it.name, it.text || "", it.construct || "—", it.reverse ? "yes" : "", `${it.min}–${it.max}`, it.n_missing ?? 0]),

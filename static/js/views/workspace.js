@@ -1,6 +1,5 @@
 // Workspace: download a backup of everything, import one (merge), and read the audit log.
 import { api } from "../api.js";
-import { state } from "../state.js";
 import { clear, h, note, section, table } from "./dom.js";
 
 const ACTIONS = {
@@ -8,8 +7,7 @@ const ACTIONS = {
   snapshot_restore: "restored a snapshot", backup: "downloaded a backup", restore: "imported a backup",
   schema_upgrade: "upgraded the database",
 };
-let onlyThis = false;
-let message = null; // {text, error}
+// state.workspace: onlyThis (the log filter) and message ({text, error}, shown once after an import).
 
 const short = (sha) => (sha ? `${String(sha).slice(0, 12)}…` : "");
 const plural = (n, word) => `${n} ${word}${n === 1 ? "" : "s"}`;
@@ -30,35 +28,37 @@ function detailText(e) {
   return parts.join(" · ");
 }
 
-function datasetName(id) {
+function datasetName(state, id) {
   if (!id) return "";
   const d = state.datasets.find((x) => x.id === id);
   return d ? d.name : `${id} (deleted)`;
 }
 
-function importForm(container) {
+function importForm(container, state) {
   const input = h("input", { type: "file", id: "workspace-file", accept: ".zip,application/zip" });
   const button = h("button", { type: "submit", id: "workspace-import", text: "Import" });
   return h("form", { class: "toolbar", onsubmit: async (ev) => {
     ev.preventDefault();
     const f = input.files[0];
-    if (!f) { message = { text: "Choose a backup zip first.", error: true }; render(container); return; }
+    if (!f) { state.workspace.message = { text: "Choose a backup zip first.", error: true }; render(container, state); return; }
     const fd = new FormData();
     fd.append("file", f, f.name);
     button.disabled = true;
     try {
       const r = await api.importWorkspace(fd);
-      message = { text: `Imported ${f.name}: added ${plural(r.datasets_added.length, "dataset")} and ${plural(r.snapshots_added.length, "snapshot")}; `
+      state.workspace.message = { text: `Imported ${f.name}: added ${plural(r.datasets_added.length, "dataset")} and ${plural(r.snapshots_added.length, "snapshot")}; `
         + `skipped ${plural(r.datasets_skipped.length, "dataset")} and ${plural(r.snapshots_skipped.length, "snapshot")} already here.` };
       try { state.datasets = await api.listDatasets(); } catch { /* the start view reloads them */ }
     } catch (err) {
-      message = { text: `Not imported: ${err.message}`, error: true };
+      state.workspace.message = { text: `Not imported: ${err.message}`, error: true };
     }
-    render(container);
+    render(container, state);
   } }, h("label", {}, "Backup zip ", input), button);
 }
 
-export async function render(container) {
+export async function render(container, state) {
+  const page = state.workspace;
+  const { onlyThis, message } = page;
   let log;
   try {
     log = await api.audit(onlyThis && state.dataset ? { dataset_id: state.dataset } : {});
@@ -73,19 +73,19 @@ export async function render(container) {
     h("div", { class: "toolbar" },
       h("a", { class: "button", id: "workspace-backup", href: api.backupUrl(state.who), download: "", text: "Download a backup (.zip)",
         onclick: (ev) => { ev.currentTarget.href = api.backupUrl(state.who); } })), // the name as it is now
-    importForm(container),
+    importForm(container, state),
     message ? h("p", { class: message.error ? "error" : "ok", role: message.error ? "alert" : "status", id: "workspace-message", text: message.text }) : null));
-  message = null;
+  page.message = null;
 
   const filter = state.dataset ? h("label", {}, h("input", { type: "checkbox", id: "audit-only-this", checked: onlyThis,
-    onchange: (ev) => { onlyThis = ev.target.checked; render(container); } }), " only this dataset") : null;
+    onchange: (ev) => { page.onlyThis = ev.target.checked; render(container, state); } }), " only this dataset") : null;
   let body;
   if (log.error) body = note(log.error, "error");
   else if (!log.length) body = note("Nothing recorded yet.");
   else {
     body = h("div", { class: "table-scroll" }, table(["#", "When (UTC)", "Who", "What", "Dataset", "Details"],
       log.map((e) => [String(e.seq), (e.at || "").replace("T", " ").slice(0, 19), e.who || "—", ACTIONS[e.action] || e.action,
-        datasetName(e.dataset_id), detailText(e)]),
+        datasetName(state, e.dataset_id), detailText(e)]),
       { className: "grid audit", caption: "Newest first" }));
   }
   container.append(section("Audit log",
