@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 from typing import Any
 
 from . import __version__
+from .analysis.settings import OPTIONS
 from .engine import Engine
 from .errors import NotFound
 from .retest import RetestQuery, compute_retest
@@ -333,7 +334,11 @@ def compare(sa: Mapping[str, Any], sb: Mapping[str, Any]) -> dict:
             change = [_change(x, y) for x, y in zip(la, lb)]
         loadings.append({"item": item, "a": la, "b": lb, "change": change,
                          "primary_a": _primary(la) if la else None, "primary_b": _primary(lb) if lb else None})
-    settings_a, settings_b = sa.get("settings") or {}, sb.get("settings") or {}
+    # a setting a snapshot did not store was at its default (older snapshots and API clients store only
+    # what they chose), so it differs only when the other snapshot chose something else
+    defaults = {opt.name: opt.default for opt in OPTIONS}
+    settings_a = {**defaults, **(sa.get("settings") or {})}
+    settings_b = {**defaults, **(sb.get("settings") or {})}
     settings_changed = {k: {"a": settings_a.get(k), "b": settings_b.get(k)}
                         for k in sorted(set(settings_a) | set(settings_b)) if settings_a.get(k) != settings_b.get(k)}
     warnings: list[Note] = []

@@ -103,6 +103,17 @@ def test_compare_lists_changes_between_two_records(demo):
     assert [w.code for w in snapshots.compare(a, other)["warnings"]] == ["compare_other_dataset"]
 
 
+def test_compare_treats_a_setting_one_snapshot_did_not_store_as_its_default():
+    from server.analysis.settings import OPTIONS
+
+    defaults = {o.name: o.default for o in OPTIONS}
+    a = {"items": ["A", "B"], "settings": {"correlation": "pearson"}}  # an older record: the page sent four settings
+    b = {"items": ["A", "B"], "settings": dict(defaults)}                # a newer one: every served setting
+    assert snapshots.compare(a, b)["settings_changed"] == {}
+    c = {"items": ["A", "B"], "settings": {**defaults, "seed": 7}}
+    assert snapshots.compare(a, c)["settings_changed"] == {"seed": {"a": defaults["seed"], "b": 7}}
+
+
 def test_light_restore_and_missing_snapshot(demo):
     engine, store, ds = demo
     rec = snapshots.save(engine, store, ds, draft(), {}, to_jsonable)
