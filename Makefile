@@ -29,8 +29,9 @@ test-fast: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python -m bench
 
-lint: $(STAMP)
+lint: $(STAMP)   # ruff on server, tests and bench; mypy on server/stats and server/analysis ([tool.mypy])
 	$(BIN)/ruff check server tests bench
+	$(BIN)/mypy
 
 clean:
 	rm -rf $(VENV) .pytest_cache

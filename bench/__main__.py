@@ -62,7 +62,10 @@ def run_module(name: str) -> list[dict]:
 def format_table(rows: list[dict]) -> str:
     cells = [[_cell(r, k) for k in COLUMNS] for r in rows]
     widths = [max([len(c)] + [len(row[i]) for row in cells]) for i, c in enumerate(COLUMNS)]
-    line = lambda values: " | ".join(v.ljust(w) for v, w in zip(values, widths)).rstrip()
+
+    def line(values: list[str]) -> str:
+        return " | ".join(v.ljust(w) for v, w in zip(values, widths)).rstrip()
+
     out = [line(COLUMNS), "-+-".join("-" * w for w in widths)]
     out += [line(row) for row in cells]
     return "\n".join(out)

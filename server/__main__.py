@@ -1,11 +1,14 @@
 """Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--demo]``,
-``scalewright backup --data-dir DIR --out FILE.zip`` and ``scalewright restore --data-dir DIR FILE.zip [--merge]``."""
+``scalewright backup --data-dir DIR --out FILE.zip``, ``scalewright restore --data-dir DIR FILE.zip [--merge]``
+and ``scalewright analyse FILE [--codebook FILE] [--json]`` (``server.script``)."""
 from __future__ import annotations
 
 import argparse
 import sys
 from pathlib import Path
 
+from .script import add_arguments as add_analyse_arguments
+from .script import main as analyse_command
 from .settings import Settings
 
 
@@ -43,6 +46,8 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--merge", action="store_true",
                    help="add the backup's new datasets and snapshots to a folder already in use")
     r.add_argument("--who", default=None, help="your name, for the audit log")
+    a = sub.add_parser("analyse", help="analyse a response file and print a summary (or --json, the API's answer)")
+    add_analyse_arguments(a)
     return p
 
 
@@ -119,6 +124,8 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     if args.command in ("backup", "restore"):
         return _workspace_command(args)
+    if args.command == "analyse":
+        return analyse_command(args)
     return 2
 
 
