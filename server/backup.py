@@ -29,6 +29,7 @@ empty or absent: the zip is unpacked into a temporary folder beside it, migrated
 """
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
@@ -174,10 +175,8 @@ def backup(data_dir: str | os.PathLike, out_zip: str | os.PathLike, *, who: str 
         os.replace(tmp_zip, out_zip)
         _fsync_dir(out_zip.parent)
     except BaseException:
-        try:
+        with contextlib.suppress(OSError):
             os.unlink(tmp_zip)
-        except OSError:
-            pass
         raise
     summary = {"path": str(out_zip), "sha256": zip_sha, "size": out_zip.stat().st_size, "datasets": n_datasets,
                "snapshots": n_snapshots, "files": len(files), "schema_version": version}
@@ -274,8 +273,8 @@ def _hash_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, declared: int, out=
             while chunk := src.read(CHUNK):
                 size += len(chunk)
                 if size > declared:
-                    raise _bad(f"The member {info.filename} of {label} unpacks to more than the {declared} bytes its manifest "
-                               "states.", member=info.filename)
+                    raise _bad(f"The member {info.filename} of {label} unpacks to more than the {declared} "
+                               "bytes its manifest states.", member=info.filename)
                 digest.update(chunk)
                 if out is not None:
                     out.write(chunk)
@@ -396,10 +395,8 @@ def _extract(zf: zipfile.ZipFile, name: str, size: int, sha: str, target: Path) 
             raise _bad(f"The member {name} changed while it was restored; nothing was restored.", member=name)
         os.replace(tmp, target)
     except BaseException:
-        try:
+        with contextlib.suppress(OSError):
             os.unlink(tmp)
-        except OSError:
-            pass
         raise
 
 

@@ -12,8 +12,14 @@ as an example upload.
 """
 from __future__ import annotations
 
+import contextlib
 import threading
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from .engine import Engine
+    from .store import StoreBackend
 
 DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_data"
 DEMO_RESPONSES = DEMO_DIR / "workshop_responses.csv"
@@ -48,17 +54,16 @@ def _add(store, name: str, responses: Path, role: str) -> str:
     meta["demo"] = role
     record = store.add_dataset(name=name, raw=raw, filename=responses.name, codebook_raw=codebook_raw,
                                codebook_filename=DEMO_CODEBOOK.name, options=dict(DEMO_OPTIONS), meta=meta)
-    try:  # the demo's datasets enter the log like any upload (a log failure does not undo the load)
+    # the demo's datasets enter the log like any upload (a log failure does not undo the load)
+    with contextlib.suppress(Exception):
         store.audit("upload", who="demo", dataset_id=record["id"],
                     details={"name": name, "filename": responses.name, "sha256": record["sha256"],
                              "codebook_filename": DEMO_CODEBOOK.name, "codebook_sha256": record["codebook_sha256"],
                              "demo": role})
-    except Exception:  # noqa: BLE001
-        pass
     return record["id"]
 
 
-def ensure_demo_loaded(store, engine=None) -> str:
+def ensure_demo_loaded(store: StoreBackend, engine: Engine | None = None) -> str:
     """Add the demo datasets to ``store`` unless datasets of those names exist; return wave 1's id.
 
     Parameters

@@ -23,7 +23,7 @@ import sys
 import threading
 from collections import OrderedDict
 from collections.abc import Callable, Hashable, Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -34,13 +34,16 @@ from .stats.descriptives import ItemDescriptives, item_descriptives
 from .stats.errors import InputError
 from .stats.notes import Note
 
+if TYPE_CHECKING:
+    from .intake import ParsedDataset
+
 log = logging.getLogger("scalewright")
 
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
 _SAMPLE = 1000  # long lists are measured on their first items and scaled
 
 
-def footprint(obj, _seen: set | None = None, _depth: int = 0) -> int:
+def footprint(obj: object, _seen: set | None = None, _depth: int = 0) -> int:
     """An estimate of the bytes ``obj`` holds: arrays by ``nbytes``, containers and objects recursively.
 
     Lists, tuples and dicts longer than a thousand entries are measured on their first thousand and
@@ -143,7 +146,7 @@ class Engine:
         self._key_locks: dict = {}
 
     # ------------------------------------------------------------------ datasets
-    def dataset(self, dataset_id: str):
+    def dataset(self, dataset_id: str) -> ParsedDataset:
         """The parsed dataset (``ParsedDataset``), read from the store once; :class:`NotFound` if unknown."""
         from .intake import NO_LIMITS, read_responses
 
@@ -179,7 +182,7 @@ class Engine:
 
         return self._locked((dataset_id, "constant"), self._descriptives, make)
 
-    def prime(self, dataset_id: str, parsed) -> None:
+    def prime(self, dataset_id: str, parsed: ParsedDataset) -> None:
         """Keep a just-uploaded dataset (already parsed) and start its default analysis in the background.
 
         The team usually opens the dataset right after the upload; the first analysis (full-pool
@@ -256,23 +259,28 @@ class Engine:
                 self._key_locks.pop(key, None)
             return value
 
-    def full_pool(self, dataset_id: str, correlation: str) -> FullPool:
+    def full_pool(self, dataset_id: str, correlation: str, zero_cell_correction: float = 0.5) -> FullPool:
         """The dataset's full-pool pairwise matrices for one correlation type (cached; InputError if impossible)."""
-        pool = self._pool(dataset_id, correlation)
+        pool = self._pool(dataset_id, correlation, zero_cell_correction)
         if isinstance(pool, PoolUnavailable):
             raise InputError(pool.message, code="pool_unavailable", details={"correlation": correlation})
         return pool
 
-    def _pool(self, dataset_id: str, correlation: str) -> FullPool | PoolUnavailable:
+    def _pool(self, dataset_id: str, correlation: str, zero_cell_correction: float = 0.5
+              ) -> FullPool | PoolUnavailable:
+        # the zero-cell correction changes polychoric estimates only: the Pearson pool is one per dataset
+        zcc = float(zero_cell_correction) if correlation == "polychoric" else 0.0
+
         def make():  # a pool that cannot be formed is remembered too, not retried on every request
             ds = self.dataset(dataset_id)
             try:
                 return full_pool(ds.responses, [it.name for it in ds.items], self.constant_items(dataset_id),
-                                 correlation)
+                                 correlation, zero_cell_correction=zcc)
             except InputError as exc:
                 return PoolUnavailable(exc.message)
 
-        return self._locked((dataset_id, correlation), self._pools, make)
+        key = (dataset_id, correlation) if correlation != "polychoric" else (dataset_id, correlation, zcc)
+        return self._locked(key, self._pools, make)
 
     def descriptives(self, dataset_id: str, mask: np.ndarray) -> list[ItemDescriptives]:
         """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
@@ -303,7 +311,7 @@ class Engine:
         pools = {}
         if settings.missing == "pairwise":
             for kind in {"pearson", settings.correlation} if with_factors else {"pearson"}:
-                pools[kind] = self._pool(dataset_id, kind)
+                pools[kind] = self._pool(dataset_id, kind, settings.zero_cell_correction)
         return AnalysisInputs(
             dataset_id=dataset_id, name=ds.name, n_rows=ds.n_rows, items=ds.items, responses=ds.responses,
             constant=self.constant_items(dataset_id),

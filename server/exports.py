@@ -67,7 +67,7 @@ def neutralise_cell(text: str) -> str:
     return text
 
 
-def format_number(value) -> str:
+def format_number(value: float | int | None) -> str:
     """Write a number so that it reads back as the same float: integers without ``.0``, NaN as empty."""
     if value is None:
         return ""

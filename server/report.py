@@ -188,10 +188,19 @@ _RELIABILITY_ORDER = ("alpha", "alpha_standardized", "omega_total", "omega_hiera
 #: Keys of a reliability block that are bookkeeping, not results to print.
 _RELIABILITY_SKIP = {"k", "n", "ci_level", "loadings", "warnings", "items", "min_pair_n"}
 
+#: Keys shown in the omega family (issue 11) rather than in the list of coefficients.
+_OMEGA_KEYS = {"omega_total", "omega_unidimensional", "omega_hierarchical", "omega_subscale", "omega_groups", "ecv",
+               "h", "omega_basis", "omega_note", "omega_source", "alpha_ordinal", "omega_ordinal", "ordinal_note",
+               "item_table", "pruning_path", "one_factor_fit", "basis"}
+
 
 def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
+    """The coefficients of a reliability block. Without ``omega_basis`` (snapshots saved before issue 11) the
+    stored omega is the one-factor omega of all kept items and is labelled as unidimensional."""
     pairs = []
     shown = set(_RELIABILITY_SKIP)
+    if "omega_basis" in block:
+        shown |= _OMEGA_KEYS
     if "min_pairwise_n" not in block and "min_pair_n" in block:
         shown.discard("min_pair_n")
     keys = [k for k in _RELIABILITY_ORDER if k in block] + [k for k in block if k not in _RELIABILITY_ORDER]
@@ -206,8 +215,99 @@ def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
             level = block.get("ci_level", 0.95) if key == "alpha" else 0.95
             level = f"{level * 100:.0f}%" if _is_number(level) else "95%"
             text += f" <span class=\"muted\">({level} CI {_num(lo)} to {_num(hi)})</span>"
-        pairs.append((_esc(_label(key)), text))
+        label = "Omega (unidimensional)" if key == "omega_total" and "omega_basis" not in block else _label(key)
+        pairs.append((_esc(label), text))
     return pairs
+
+
+_OMEGA_BASIS = {"schmid_leiman": "Schmid-Leiman transformation of the oblique solution with the retained factors",
+                "one_factor": "one factor retained: omega total is the unidimensional omega",
+                "one_factor_only": "no factor model fitted: omega total is the unidimensional omega",
+                "unavailable": "no factor model could be fitted"}
+
+
+def _omega_section(rel: Mapping) -> str:
+    """The omega family of the kept items (Schmid & Leiman 1957; McDonald 1999; Zinbarg et al. 2005)."""
+    if not rel:
+        return ""
+    if "omega_basis" not in rel:
+        return ("<p class=\"muted\">Saved before omega hierarchical was computed: the omega above is the omega of "
+                "one factor fitted to every kept item (unidimensional). On items written for several subscales it "
+                "can read low even when each subscale is reliable.</p>")
+    basis = rel.get("omega_basis")
+    pairs = [("Omega total", f"{_num(rel.get('omega_total'))} <span class=\"muted\">("
+              f"{_esc(_OMEGA_BASIS.get(basis, basis))})</span>"),
+             ("Omega hierarchical", _num(rel.get("omega_hierarchical"))),
+             ("Explained common variance (ECV)", _num(rel.get("ecv"))),
+             ("Construct replicability H (general factor; Hancock &amp; Mueller 2001)", _num(rel.get("h"))),
+             ("Omega (unidimensional: one factor for every item)", _num(rel.get("omega_unidimensional")))]
+    sub = rel.get("omega_subscale")
+    if isinstance(sub, Mapping):
+        pairs += [(f"Omega subscale, {_esc(k)}", _num(v)) for k, v in sub.items()]
+    if rel.get("alpha_ordinal") is not None or rel.get("omega_ordinal") is not None:
+        pairs += [("Ordinal alpha", _num(rel.get("alpha_ordinal"))), ("Ordinal omega", _num(rel.get("omega_ordinal")))]
+    out = ["<h3>Omega and the total score</h3>", _kv_table(pairs)]
+    if rel.get("omega_note"):
+        out.append(f"<p class=\"omega-note\">{_esc(rel['omega_note'])}</p>")
+    if rel.get("ordinal_note"):
+        out.append(f"<p class=\"muted\">{_esc(rel['ordinal_note'])}</p>")
+    if rel.get("omega_source"):
+        out.append(f"<p class=\"muted\">{_esc(rel['omega_source'])}</p>")
+    out.append("<p class=\"muted\">Schmid &amp; Leiman (1957); McDonald (1999); "
+               "Zinbarg, Revelle, Yovel &amp; Li (2005).</p>")
+    return "".join(out)
+
+
+def _residual_sentence(fit) -> str:
+    """'Items X and Y share more than the single factor explains (residual r = .21).'"""
+    lr = fit.get("largest_residual") if isinstance(fit, Mapping) else None
+    if not isinstance(lr, Mapping) or not _is_number(lr.get("r")) or len(lr.get("items") or []) < 2:
+        return ""
+    x, y = (str(i) for i in lr["items"][:2])
+    verb = "share more than the single factor explains" if lr["r"] >= 0 else "share less than the single factor implies"
+    return f"Items {_esc(x)} and {_esc(y)} {verb} (residual r = {_num(lr['r'], 2)})."
+
+
+def _subscales_section(constructs, meta: Mapping[str, Mapping]) -> str:
+    """Each subscale's own item analysis and the fit of its one-factor model (issue 11)."""
+    if not isinstance(constructs, Mapping):
+        return ""
+    parts = []
+    for name, block in constructs.items():
+        if not isinstance(block, Mapping) or not isinstance(block.get("item_table"), list):
+            continue
+        parts.append(f"<h3>Subscale: {_esc(name)}</h3>")
+        fit = block.get("one_factor_fit")
+        line = (f"<p>{_num(block.get('n_items'))} items; alpha {_num(block.get('alpha'))}, omega (one factor) "
+                f"{_num(block.get('omega_unidimensional', block.get('omega_total')))}")
+        if block.get("alpha_ordinal") is not None:
+            line += (f"; ordinal alpha {_num(block.get('alpha_ordinal'))}, "
+                     f"ordinal omega {_num(block.get('omega_ordinal'))}")
+        if isinstance(fit, Mapping) and fit.get("rmsr") is not None:
+            line += f"; one-factor RMSR {_num(fit.get('rmsr'))}"
+        parts.append(line + ".</p>")
+        sentence = _residual_sentence(fit)
+        if sentence:
+            parts.append(f"<p>{sentence}</p>")
+        rows = []
+        for r in block["item_table"]:
+            if not isinstance(r, Mapping):
+                continue
+            others = {k: v for k, v in (r.get("r_other") or {}).items() if _is_number(v)}
+            best = max(others.items(), key=lambda kv: kv[1]) if others else None
+            text = (meta.get(str(r.get("name"))) or {}).get("text") or ""
+            rows.append([_esc(r.get("name")), f"<span class=\"text\">{_esc(text)}</span>",
+                         _num(r.get("item_rest_r"), 2), _num(r.get("alpha_if_deleted")),
+                         _num(r.get("omega_if_deleted")),
+                         f"{_num(best[1], 2)} ({_esc(best[0])})" if best else "&ndash;"])
+        if rows:
+            parts.append(_table(["Item", "Text", "Item-rest r (within)", "Alpha if deleted", "Omega if deleted",
+                                 "Highest r with another subscale"], rows, num_cols={2, 3, 4, 5}))
+    if not parts:
+        return ""
+    return ("<section><h2>Subscales</h2><p class=\"muted\">Each subscale's own item analysis: item-rest r against "
+            "the rest of that subscale, and each item's highest correlation with the rest of another subscale "
+            "(higher than its own item-rest r: it may belong there).</p>" + "".join(parts) + "</section>")
 
 
 def _trail(snapshot: Mapping) -> list[dict]:
@@ -447,19 +547,22 @@ def _constructs_section(constructs) -> str:
         return ""
     if not entries:
         return ""
+    any_fit = any(isinstance(b, Mapping) and isinstance(b.get("one_factor_fit"), Mapping) for _, b in entries)
     rows = []
     for name, block in entries:
         if not isinstance(block, Mapping):
             continue
         rel = block.get("reliability", block)
         ci = rel.get("alpha_ci")
+        fit = rel.get("one_factor_fit") if isinstance(rel.get("one_factor_fit"), Mapping) else {}
         rows.append([_esc(name), _num(rel.get("n_items", len(block.get("items") or []) or None)),
                      _num(rel.get("alpha")), _num(ci, 3) if ci is not None else "&ndash;",
-                     _num(rel.get("omega_total"))])
+                     _num(rel.get("omega_unidimensional", rel.get("omega_total")))]
+                    + ([_num(fit.get("rmsr"))] if any_fit else []))
     if not rows:
         return ""
-    return "<h3>By construct</h3>" + _table(["Construct", "Items", "Alpha", "95% CI", "Omega"], rows,
-                                            num_cols={1, 2, 3, 4})
+    header = ["Construct", "Items", "Alpha", "95% CI", "Omega (one factor)"] + (["One-factor RMSR"] if any_fit else [])
+    return "<h3>By construct</h3>" + _table(header, rows, num_cols=set(range(1, len(header))))
 
 
 _SETTING_WORDS = {"minres": "minimum residual (minres)", "ml": "maximum likelihood", "paf": "principal axis",
@@ -636,14 +739,19 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "<section><h2>Reliability of the kept items</h2>",
         _kv_table(_reliability_pairs(reliability)) if reliability
         else "<p class=\"muted\">No reliability results were stored.</p>",
+        _omega_section(reliability),
         _constructs_section(analysis.get("constructs")),
         "</section>",
         "<section><h2>Removed items, in order</h2>",
         _removed_section(snapshot),
         "</section>",
         "<section><h2>Item statistics</h2>",
+        ("<p class=\"muted\">Whole-pool figures: item-rest r, alpha and omega if deleted treat every kept item as "
+         "one scale; each subscale's own figures are under Subscales below.</p>"
+         if analysis.get("items_scope") == "pool" else ""),
         _items_section(analysis.get("items") or [], meta),
         "</section>",
+        _subscales_section(analysis.get("constructs"), meta),
         "<section><h2>Factor loadings</h2>",
         (f"<p>{_num(efa.get('n_factors'))} factor(s), extraction {_esc(settings.get('extraction', ''))}, "
          f"rotation {_esc(settings.get('rotation', ''))}.</p>" if efa else ""),

@@ -8,7 +8,7 @@ raise :class:`~server.stats.errors.InputError` naming the dataset, item or IDs i
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 
@@ -31,6 +31,7 @@ class RetestQuery:
     snapshot: str | None = None
     score: str = "sum"
     reverse: Sequence[str] | None = None
+    by_construct: bool = False
 
 
 @dataclass(frozen=True)
@@ -64,6 +65,7 @@ class RetestAnswer(RetestResult):
     n_matched: int
     only_first: Unmatched
     only_second: Unmatched
+    by_construct: dict[str, RetestResult] | None = None
 
 
 def _wave(dataset_id: str, ds) -> Wave:
@@ -120,6 +122,46 @@ def _range_warnings(ds1, ds2, items: Sequence[str]) -> list[Note]:
                             f"wave but {other.min:g}-{other.max:g} in the second; reverse scoring and totals may not "
                             f"be comparable.", [it.name]))
     return out
+
+
+def _by_construct(ds1, ds2, A: np.ndarray, B: np.ndarray, items: list[str], items2: list[str],
+                  matched: list[str], score: str, parallel: bool) -> tuple[dict[str, RetestResult], list[Note]]:
+    """The retest block of each codebook construct of the first wave among the chosen items.
+
+    A block is exactly the whole-scale statistics of a retest restricted to that construct's items (the
+    second wave's items paired by position for parallel forms). Items without a construct are in no block
+    (note ``items_without_construct``); a construct with one chosen item gets a full block whose total is
+    that item, with the note ``construct_one_item``.
+    """
+    if len(items2) != len(items):
+        raise InputError(f"Stability per construct pairs the forms' items by position, but the first form has "
+                         f"{len(items)} item(s) and the second {len(items2)}; give forms of equal length or leave "
+                         f"out `by_construct`.", code="by_construct_unequal_forms",
+                         details={"n_first": len(items), "n_second": len(items2)})
+    construct_of = {it.name: it.construct for it in ds1.items}
+    groups: dict[str, list[int]] = {}
+    for j, name in enumerate(items):
+        if construct_of.get(name):
+            groups.setdefault(str(construct_of[name]), []).append(j)
+    notes: list[Note] = []
+    loose = [name for name in items if not construct_of.get(name)]
+    if not groups:
+        notes.append(note("no_constructs", f"None of the chosen items has a construct in the codebook of the first "
+                          f"wave '{ds1.name}', so there is no per-construct block."))
+    elif loose:
+        notes.append(note("items_without_construct", f"{len(loose)} chosen item(s) have no construct in the first "
+                          f"wave's codebook and are in no per-construct block: "
+                          f"{', '.join(loose[:10])}{', ...' if len(loose) > 10 else ''}.", loose))
+    blocks: dict[str, RetestResult] = {}
+    for construct, cols in groups.items():
+        names, names2 = [items[j] for j in cols], [items2[j] for j in cols]
+        res = retest(A[:, cols], B[:, cols], score=score, items=names, items_second=names2, ids=matched)
+        extra = [] if parallel else _range_warnings(ds1, ds2, names)
+        if len(cols) == 1:
+            extra.append(note("construct_one_item", f"Construct '{construct}' has one chosen item ({names[0]}); "
+                              f"its total is that item's score.", names))
+        blocks[construct] = replace(res, warnings=tuple(extra) + tuple(res.warnings))
+    return blocks, notes
 
 
 def compute_retest(engine: Engine, store: StoreBackend, query: RetestQuery) -> RetestAnswer:
@@ -204,9 +246,14 @@ def compute_retest(engine: Engine, store: StoreBackend, query: RetestQuery) -> R
         warnings.insert(0, note("retest_unmatched", f"{len(matched)} respondent(s) are in both waves; "
                                 f"{len(only_first)} only in the first and {len(only_second)} only in the second are "
                                 f"left out."))
+    blocks = None
+    if query.by_construct:
+        blocks, construct_notes = _by_construct(ds1, ds2, A, B, items, items2, matched, query.score,
+                                                 parallel)
+        warnings.extend(construct_notes)
     stats = {f.name: getattr(result, f.name) for f in fields(RetestResult)}
     stats["warnings"] = tuple(warnings) + tuple(result.warnings)
     return RetestAnswer(**stats, first=_wave(first, ds1), second=_wave(second, ds2), snapshot=query.snapshot,
                         parallel_forms=parallel, reverse=tuple(reverse), reverse_second=tuple(reverse2),
                         n_matched=len(matched), only_first=Unmatched(len(only_first), tuple(only_first)),
-                        only_second=Unmatched(len(only_second), tuple(only_second)))
+                        only_second=Unmatched(len(only_second), tuple(only_second)), by_construct=blocks)

@@ -30,7 +30,8 @@ REASON_CODES = ("cross-loading", "weak", "belongs-elsewhere", "redundant", "word
 MAX_NAME = 200
 MAX_TEXT = 20_000
 
-COMPARED_COEFFICIENTS = ("alpha", "alpha_standardized", "omega_total", "lambda2", "lambda6", "split_half",
+COMPARED_COEFFICIENTS = ("alpha", "alpha_standardized", "omega_total", "omega_unidimensional", "omega_hierarchical",
+                         "lambda2", "lambda6", "split_half",
                          "mean_inter_item_r", "scale_mean", "scale_sd", "sem", "n_complete")
 
 ToJson = Callable[[Any], Any]
@@ -133,9 +134,14 @@ def _finite(value: Any) -> Any:
 
 
 def coefficients(analysis: Mapping[str, Any]) -> dict:
-    """Alpha and omega total of an analysis answer (JSON form)."""
+    """Alpha and the one-factor omega of an analysis answer (JSON form), as every step of the trail has it.
+
+    The trail's ``omega_total`` is the unidimensional omega (``omega_unidimensional`` since issue 11): the
+    reliability-only steps have no factor model, so the last step must not switch to a Schmid-Leiman omega.
+    """
     rel = analysis.get("reliability") or {}
-    return {"alpha": _finite(rel.get("alpha")), "omega_total": _finite(rel.get("omega_total"))}
+    return {"alpha": _finite(rel.get("alpha")),
+            "omega_total": _finite(rel.get("omega_unidimensional", rel.get("omega_total")))}
 
 
 def light(snap: Mapping[str, Any]) -> dict:
@@ -312,12 +318,20 @@ def _primary(row: list) -> dict | None:
     return {"factor": i, "loading": v}
 
 
+def _omega_labelled(rel: Mapping[str, Any]) -> Mapping[str, Any]:
+    """A record saved before issue 11 (no ``omega_basis``): its ``omega_total`` was the one-factor omega, so it
+    is compared as ``omega_unidimensional`` and not with a later Schmid-Leiman omega total."""
+    if "omega_basis" in rel or "omega_total" not in rel:
+        return rel
+    return {**rel, "omega_unidimensional": rel["omega_total"], "omega_total": None}
+
+
 def compare(sa: Mapping[str, Any], sb: Mapping[str, Any]) -> dict:
     """What changed from snapshot ``sa`` to snapshot ``sb``: items, coefficients, loadings, settings."""
     items_a, items_b = list(sa.get("items") or []), list(sb.get("items") or [])
     set_a, set_b = set(items_a), set(items_b)
-    rel_a = (sa.get("analysis") or {}).get("reliability") or {}
-    rel_b = (sb.get("analysis") or {}).get("reliability") or {}
+    rel_a = _omega_labelled((sa.get("analysis") or {}).get("reliability") or {})
+    rel_b = _omega_labelled((sb.get("analysis") or {}).get("reliability") or {})
     coefs: dict[str, dict] = {"n_items": {"a": len(items_a), "b": len(items_b), "change": len(items_b) - len(items_a)}}
     for key in COMPARED_COEFFICIENTS:
         if key in rel_a or key in rel_b:

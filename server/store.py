@@ -31,7 +31,7 @@ import sqlite3
 import threading
 import uuid
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from pathlib import Path
 from typing import Any, Protocol, runtime_checkable
 
@@ -183,10 +183,8 @@ def _move_atomic(src: Path, dest: Path) -> tuple[str, int]:
 
 
 def _unlink_quietly(path: Path) -> None:
-    try:
+    with suppress(OSError):
         os.unlink(path)
-    except OSError:
-        pass
 
 
 # ---- faults: storage errors, start-up checks, one server per data folder
@@ -361,10 +359,8 @@ class DataDirLock:
     def release(self) -> None:
         if self._fd is None:
             return
-        try:
+        with suppress(OSError):
             os.ftruncate(self._fd, 0)
-        except OSError:
-            pass
         os.close(self._fd)  # closing the descriptor drops the flock
         self._fd = None
 
@@ -382,10 +378,8 @@ def lock_data_dir(data_dir: str | os.PathLike, *, port: int | None = None) -> Da
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
     except OSError as exc:
         holder = {}
-        try:
+        with suppress(OSError, ValueError):
             holder = json.loads(os.pread(fd, 4096, 0).decode("utf-8") or "{}")
-        except (OSError, ValueError):
-            pass
         os.close(fd)
         if exc.errno not in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
             raise StartupError(f"The lock file {os.path.abspath(path)} cannot be locked "
@@ -717,10 +711,8 @@ class SQLiteStore:
                 raise err from exc
             raise
         if deleted:
-            try:
+            with suppress(KeyError):  # ids in the table are always well formed
                 shutil.rmtree(self._folder(dataset_id), ignore_errors=True)
-            except KeyError:  # pragma: no cover - ids in the table are always well formed
-                pass
         return deleted
 
     def read_raw(self, dataset_id: str) -> bytes:

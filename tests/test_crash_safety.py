@@ -135,7 +135,8 @@ def test_kill_9_while_saving_loses_nothing_acknowledged(tmp_path):
             assert sid in listed_ids, f"acknowledged snapshot {sid} ({record['name']}) was lost"
             assert httpx.get(f"{base}/api/snapshots/{sid}", timeout=30).json() == record
         unacked = [s for s in listed if s["id"] not in acked]
-        print(f"sent {len(sent)}, acknowledged {len(acked)}, stored {len(listed)}, stored unacknowledged {len(unacked)}")
+        print(f"sent {len(sent)}, acknowledged {len(acked)}, stored {len(listed)}, "
+              f"stored unacknowledged {len(unacked)}")
         assert len(unacked) <= N_WRITERS  # only requests in flight at the kill may have landed unacknowledged
         for s in listed:
             assert s["name"] in sent

@@ -1,6 +1,7 @@
 """Files that cost more than they weigh (issue 9, item 2): XLSX grids, zip bombs, wide tables, absurd answers."""
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import io
 import logging
@@ -31,10 +32,8 @@ def _refused(raw: bytes, name: str, **kw) -> InputError:
 def _peak_mb(fn) -> float:
     """Peak of Python (and numpy) allocations while fn runs, in MB."""
     tracemalloc.start()
-    try:
+    with contextlib.suppress(InputError):
         fn()
-    except InputError:
-        pass
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     return peak / MB

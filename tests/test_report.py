@@ -155,3 +155,73 @@ def test_report_tolerates_nan_and_missing_values():
 def test_report_notes_a_changed_dataset_hash():
     page = render_report(make_snapshot(), {"name": "workshop.csv", "sha256": "cd" * 32})
     assert "different SHA-256" in page
+
+
+# ---- issue 11: the omega family, per-subscale sections, and snapshots saved before them
+def make_subscale_snapshot() -> dict:
+    snap = make_snapshot()
+    rel = snap["analysis"]["reliability"]
+    rel.update(omega_total=0.861, omega_hierarchical=0.612, omega_unidimensional=0.8302, ecv=0.55, h=0.83,
+               omega_subscale={"belonging": 0.21, "F2": 0.34}, omega_groups=[], omega_basis="schmid_leiman",
+               omega_note="Omega hierarchical .61: about 61% of the total score's variance is owed to one "
+                          "general factor.", omega_source="minres, oblimin, 2 factors")
+    evil_group = "pride " + EVIL
+    snap["analysis"]["items_scope"] = "pool"
+    snap["analysis"]["items_note"] = "Item-rest r in 'items' are whole-pool figures."
+    snap["analysis"]["constructs"] = {
+        "belonging": {"items": ["Q1", "Q2"], "n_items": 2, "alpha": 0.75, "alpha_ci": [0.6, 0.84],
+                      "omega_total": 0.76, "omega_unidimensional": 0.76,
+                      "one_factor_fit": {"rmsr": 0.0412, "largest_residual": {"r": 0.213, "items": ["Q1", "Q2"]}},
+                      "item_table": [{"name": "Q1", "item_rest_r": 0.6012, "alpha_if_deleted": 0.7123,
+                                      "omega_if_deleted": 0.7234, "r_other": {evil_group: 0.4456}},
+                                     {"name": "Q2", "item_rest_r": 0.5511, "alpha_if_deleted": 0.7011,
+                                      "omega_if_deleted": 0.7022, "r_other": {evil_group: 0.6677}}],
+                      "pruning_path": []},
+        evil_group: {"items": ["Q3", "Q4"], "n_items": 2, "alpha": 0.66, "omega_total": 0.67,
+                     "omega_unidimensional": 0.67, "one_factor_fit": {"rmsr": 0.02, "largest_residual": None},
+                     "item_table": [{"name": "Q3", "item_rest_r": 0.49, "alpha_if_deleted": None,
+                                     "omega_if_deleted": None, "r_other": {"belonging": 0.1}}],
+                     "pruning_path": []},
+    }
+    return snap
+
+
+def test_report_shows_the_omega_family_and_its_sentence():
+    page = render_report(make_subscale_snapshot(), {})
+    text = " ".join(parse(page).text)
+    assert "Omega hierarchical" in text and "0.612" in text
+    assert "Explained common variance (ECV)" in text and "0.550" in text
+    assert "Hancock & Mueller 2001" in text and "0.830" in text
+    assert "Omega subscale, belonging" in text and "0.210" in text
+    assert "Omega (unidimensional: one factor for every item)" in text
+    assert "Schmid-Leiman transformation" in text and "0.861" in text
+    assert "about 61% of the total score's variance" in text  # the stored omega_note, as written
+    assert "Omega (unidimensional)" not in text.replace("Omega (unidimensional:", "")  # new snapshots: no old label
+    # the family is not repeated in the generic list of coefficients
+    assert "Omega basis" not in text and "Omega source" not in text
+
+
+def test_report_has_a_section_per_subscale_with_its_item_table_and_fit():
+    page = render_report(make_subscale_snapshot(), {})
+    text = " ".join(parse(page).text)
+    assert "Subscales" in text and "Subscale: belonging" in text
+    assert "Subscale: pride " + EVIL in text          # a construct name is text
+    assert EVIL not in page
+    belonging = text[text.index("Subscale: belonging"):text.index("Subscale: pride")]
+    assert "0.60" in belonging and "0.712" in belonging and "0.723" in belonging  # Q1's within-subscale figures
+    assert "0.67 (pride " + EVIL + ")" in belonging   # Q2's highest r with another subscale, named
+    assert "Items Q1 and Q2 share more than the single factor explains (residual r = 0.21)." in belonging
+    assert "one-factor RMSR 0.041" in belonging
+    assert "Whole-pool figures" in text               # the pool item table says what it is
+    assert "One-factor RMSR" in text                  # and the by-construct table carries the fit
+
+
+def test_report_of_an_old_snapshot_labels_its_omega_unidimensional():
+    snap = make_snapshot()                            # stored before issue 11: no omega_basis, no item tables
+    assert "omega_basis" not in snap["analysis"]["reliability"]
+    page = render_report(snap, {})
+    text = " ".join(parse(page).text)
+    assert "Omega (unidimensional)" in text and "0.830" in text  # the stored number, as stored
+    assert "McDonald's omega (total)" not in text
+    assert "Omega hierarchical" not in text
+    assert "Subscale:" not in text

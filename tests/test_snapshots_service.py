@@ -114,6 +114,16 @@ def test_compare_treats_a_setting_one_snapshot_did_not_store_as_its_default():
     assert snapshots.compare(a, c)["settings_changed"] == {"seed": {"a": defaults["seed"], "b": 7}}
 
 
+def test_compare_reads_an_older_records_omega_total_as_unidimensional():
+    old = {"items": ["A", "B", "C"], "analysis": {"reliability": {"omega_total": 0.80}}}  # saved before issue 11
+    new = {"items": ["A", "B", "C"], "analysis": {"reliability": {
+        "omega_total": 0.90, "omega_unidimensional": 0.82, "omega_hierarchical": 0.6, "omega_basis": "schmid_leiman"}}}
+    coefs = snapshots.compare(old, new)["coefficients"]
+    assert coefs["omega_unidimensional"]["a"] == 0.80 and coefs["omega_unidimensional"]["b"] == 0.82
+    assert coefs["omega_total"]["a"] is None and coefs["omega_total"]["change"] is None  # not the same quantity
+    assert old["analysis"]["reliability"] == {"omega_total": 0.80}  # the stored record itself is untouched
+
+
 def test_light_restore_and_missing_snapshot(demo):
     engine, store, ds = demo
     rec = snapshots.save(engine, store, ds, draft(), {}, to_jsonable)

@@ -14,7 +14,8 @@ VIEWS = JS / "views"
 HELPERS = {"dom.js"}  # the DOM helper module lives beside the views but renders no view
 
 # import ... from "x"; import "x"; import("x")
-IMPORT = re.compile(r"""(?:^\s*import\b[^"';]*?\bfrom\s*|^\s*import\s*|\bimport\s*\(\s*)["']([^"']+)["']""", re.MULTILINE)
+IMPORT = re.compile(r"""(?:^\s*import\b[^"';]*?\bfrom\s*|^\s*import\s*|\bimport\s*\(\s*)["']([^"']+)["']""",
+                    re.MULTILINE)
 NUMBER = r"(-?(?:\d+\.?\d*|\.\d+))"
 
 

@@ -18,7 +18,36 @@ from ..stats.reliability import ReliabilityResult
 from .settings import AnalysisSettings
 
 __all__ = ["AnalysisAnswer", "ConstructBlock", "CorrelationsSection", "DatasetInfo", "EfaSection", "FactorSections",
-           "ItemRow", "ReliabilitySection"]
+           "ItemRow", "OmegaFamily", "ReliabilitySection"]
+
+ITEMS_NOTE = ("Item-rest r, alpha and omega if deleted in 'items' are whole-pool figures (every active item as "
+              "one scale); each subscale's own figures are in constructs[name].item_table.")
+ORDINAL_NOTE = ("Ordinal alpha and omega come from the polychoric correlations: they describe the continuous "
+                "latent responses behind the answer categories, not the observed sum score (Zumbo, Gadermann & "
+                "Zeisser 2007).")
+ONE_FACTOR_ONLY = ("Reliability-only answer: no factor model was fitted, so omega total is the one-factor "
+                   "(unidimensional) omega and there is no omega hierarchical.")
+
+
+@dataclass(frozen=True)
+class OmegaFamily:
+    """The pool's omega family from the retained factor model (``basis``: schmid_leiman, one_factor, unavailable)."""
+
+    omega_total: float | None
+    omega_hierarchical: float | None
+    omega_subscale: Mapping[str, float | None]
+    omega_groups: tuple[Mapping[str, Any], ...]
+    ecv: float | None
+    h: float | None
+    basis: str
+    note: str
+    source: str  # which solution and matrix the figures come from
+
+    def to_dict(self) -> dict:
+        return {"omega_total": self.omega_total, "omega_hierarchical": self.omega_hierarchical,
+                "omega_subscale": dict(self.omega_subscale), "omega_groups": list(self.omega_groups),
+                "ecv": self.ecv, "h": self.h, "omega_basis": self.basis, "omega_note": self.note,
+                "omega_source": self.source}
 
 
 @dataclass(frozen=True)
@@ -40,14 +69,25 @@ class ReliabilitySection:
     n_items: int
     min_pairwise_n: int
     basis: str
+    omega: OmegaFamily | None = None  # None: reliability-only answer (omega_basis "one_factor_only")
+    ordinal: Mapping[str, Any] | None = None  # alpha_ordinal, omega_ordinal (polychoric correlations)
 
     @property
     def warnings(self) -> list[Note]:
         return list(self.result.warnings)
 
     def to_dict(self) -> dict:
-        return {**self.result.to_dict(), "missing": self.missing, "n_items": self.n_items,
-                "min_pairwise_n": self.min_pairwise_n, "basis": self.basis}
+        uni = self.result.omega_total
+        out = {**self.result.to_dict(), "missing": self.missing, "n_items": self.n_items,
+               "min_pairwise_n": self.min_pairwise_n, "basis": self.basis, "omega_unidimensional": uni}
+        if self.omega is None:
+            out.update(omega_total=uni, omega_hierarchical=None, omega_subscale={}, omega_groups=[], ecv=None, h=None,
+                       omega_basis="one_factor_only", omega_note=ONE_FACTOR_ONLY)
+        else:
+            out.update(self.omega.to_dict())
+        if self.ordinal is not None:
+            out.update(self.ordinal)
+        return out
 
 
 @dataclass(frozen=True)
@@ -74,17 +114,28 @@ class ItemRow:
 
 @dataclass(frozen=True)
 class ConstructBlock:
-    """The reliability of one codebook construct's active items (``result`` None below two items)."""
+    """One subscale (a codebook construct or a factor's items): its reliability (``result`` None below two
+    items), its own item table and pruning path, the one-factor fit and, with polychoric correlations, its
+    ordinal coefficients."""
 
     items: tuple[str, ...]
     result: ReliabilityResult | None
     warnings: tuple[Note, ...] = ()
+    item_table: tuple[Mapping[str, Any], ...] = ()  # name, item_rest_r, alpha/omega_if_deleted, r_other
+    pruning_path: tuple[Mapping[str, Any], ...] = ()
+    one_factor_fit: Mapping[str, Any] | None = None  # rmsr, largest_residual {r, items}
+    ordinal: Mapping[str, Any] | None = None  # alpha_ordinal, omega_ordinal
 
     def to_dict(self) -> dict:
+        own = {"items": list(self.items), "n_items": len(self.items), "item_table": list(self.item_table),
+               "pruning_path": list(self.pruning_path), "one_factor_fit": self.one_factor_fit}
+        if self.ordinal is not None:
+            own.update(self.ordinal)
         if self.result is None:
-            return {"items": list(self.items), "n_items": len(self.items), "alpha": None,
-                    "warnings": list(self.warnings)}
-        return {**self.result.to_dict(), "items": list(self.items), "n_items": len(self.items)}
+            return {**own, "alpha": None, "omega_unidimensional": None, "warnings": list(self.warnings)}
+        out = {**self.result.to_dict(), **own, "omega_unidimensional": self.result.omega_total}
+        out["warnings"] = [*out["warnings"], *self.warnings]
+        return out
 
 
 @dataclass(frozen=True)
@@ -106,6 +157,7 @@ class EfaSection:
     result: EFAResult | None
     flags: tuple[dict, ...]
     warnings: tuple[Note, ...]
+    withheld: Mapping[str, Any] | None = None  # a degenerate solution not shown: n_factors, rotation, gamma, reason
 
     @property
     def n_factors(self) -> int:
@@ -113,7 +165,10 @@ class EfaSection:
 
     def to_dict(self) -> dict:
         base = {"n_factors": 0} if self.result is None else self.result.to_dict()
-        return {**base, "flags": list(self.flags), "warnings": list(self.warnings)}
+        out = {**base, "flags": list(self.flags), "warnings": list(self.warnings)}
+        if self.withheld is not None:
+            out["withheld"] = dict(self.withheld)
+        return out
 
 
 @dataclass(frozen=True)
@@ -124,6 +179,7 @@ class FactorSections:
     factorability: Mapping[str, Any] | None
     retention: Mapping[str, Any] | None
     efa: EfaSection
+    omega: OmegaFamily | None = None
 
 
 @dataclass(frozen=True)
@@ -139,11 +195,14 @@ class AnalysisAnswer:
     pruning_path: Sequence[Mapping[str, Any]]
     factors: FactorSections | None
     warnings: tuple[Note, ...]
+    grouping: Mapping[str, Any] | None = None  # requested, used, note
 
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"dataset": self.dataset, "settings": self.settings, "version": self.version,
-                               "reliability": self.reliability, "items": list(self.items),
-                               "constructs": dict(self.constructs), "pruning_path": list(self.pruning_path)}
+                               "reliability": self.reliability, "items": list(self.items), "items_scope": "pool",
+                               "items_note": ITEMS_NOTE, "grouping": None if self.grouping is None else
+                               dict(self.grouping), "constructs": dict(self.constructs),
+                               "pruning_path": list(self.pruning_path)}
         if self.factors is not None:
             out.update(correlations=self.factors.correlations, factorability=self.factors.factorability,
                        retention=self.factors.retention, efa=self.factors.efa)

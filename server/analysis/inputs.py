@@ -70,11 +70,13 @@ class AnalysisInputs:
 
     @classmethod
     def from_responses(cls, responses: np.ndarray, items: Sequence[ItemInfo], reverse: Sequence[str], *,
-                       dataset_id: str = "responses", name: str = "responses", correlations: Sequence[str] = ("pearson",),
-                       memo: Memo = no_memo) -> AnalysisInputs:
+                       dataset_id: str = "responses", name: str = "responses",
+                       correlations: Sequence[str] = ("pearson",), memo: Memo = no_memo,
+                       zero_cell_correction: float = 0.5) -> AnalysisInputs:
         """Inputs computed afresh (no cache): constant items, descriptives for ``reverse``, the full pools.
 
-        ``correlations`` lists the pools to form (the settings' correlation type and ``"pearson"``).
+        ``correlations`` lists the pools to form (the settings' correlation type and ``"pearson"``);
+        ``zero_cell_correction`` is the polychoric pool's (the settings' value).
         """
         X = np.asarray(responses, dtype=float)
         names = [it.name for it in items]
@@ -88,7 +90,7 @@ class AnalysisInputs:
         pools: dict[str, FullPool | PoolUnavailable] = {}
         for kind in dict.fromkeys(["pearson", *correlations]):
             try:
-                pools[kind] = full_pool(X, names, constant, kind)
+                pools[kind] = full_pool(X, names, constant, kind, zero_cell_correction=zero_cell_correction)
             except InputError as exc:
                 pools[kind] = PoolUnavailable(exc.message)
         return cls(dataset_id=dataset_id, name=name, n_rows=X.shape[0], items=items, responses=X, constant=constant,

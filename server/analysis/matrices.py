@@ -31,6 +31,9 @@ class FullPool:
     n_pair: np.ndarray   # pairwise n, k x k
     corr: np.ndarray     # Pearson or polychoric correlation, k x k
     warnings: tuple[Note, ...]
+    empty: np.ndarray | None = None      # polychoric: k x k, the pair's table has an empty cell
+    corrected: np.ndarray | None = None  # polychoric: k x k, the zero-cell correction filled a cell of it
+    correction: float = 0.0              # the zero-cell correction the polychoric estimates used
 
 
 @dataclass(frozen=True)
@@ -49,10 +52,18 @@ class ActiveMatrices:
     corr: np.ndarray
     warnings: tuple[Note, ...]  # of the matrix they were taken from (the pool's or their own)
     note: Note | None           # set when the pool could not be formed and the items' own matrix was used
+    from_pool: bool = False     # the matrices are a submatrix of the pool (its warnings name pool items)
+    empty: np.ndarray | None = None      # the pool's empty-cell pairs, restricted to the active items
+    corrected: np.ndarray | None = None
+    correction: float = 0.0
 
 
-def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[str], correlation: str) -> FullPool:
+def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[str], correlation: str, *,
+              zero_cell_correction: float = 0.0) -> FullPool:
     """The pairwise matrices of every item with some variance, on the raw responses.
+
+    Polychoric estimates add ``zero_cell_correction`` to the empty cells of each pair's table; the pool
+    also keeps which pairs have empty cells, so the notes about them can be recounted for any subset.
 
     Raises :class:`InputError` when the pool cannot form a matrix (two items never answered together...).
     """
@@ -61,16 +72,23 @@ def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[
     kept = [n for n in names if n not in constant]
     cov, n_pair = corrmod.pairwise_covariance(X)
     make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
-    res = make(X, missing="pairwise", smooth=None, names=kept)
+    kw = {"zero_cell_correction": zero_cell_correction} if correlation == "polychoric" else {}
+    res = make(X, missing="pairwise", smooth=None, names=kept, **kw)
     k = len(names)
     full_cov, full_n, full_corr = np.full((k, k), np.nan), np.zeros((k, k)), np.full((k, k), np.nan)
     sub = np.ix_(ok, ok)
     full_cov[sub], full_n[sub], full_corr[sub] = cov, n_pair, np.asarray(res.matrix, float)
-    return FullPool(cov=full_cov, n_pair=full_n, corr=full_corr, warnings=tuple(res.warnings))
+    empty = corrected = None
+    if correlation == "polychoric":
+        empty, corrected = np.zeros((k, k), dtype=bool), np.zeros((k, k), dtype=bool)
+        empty[sub], corrected[sub] = corrmod.empty_cell_pairs(X)
+    return FullPool(cov=full_cov, n_pair=full_n, corr=full_corr, warnings=tuple(res.warnings), empty=empty,
+                    corrected=corrected, correction=float(zero_cell_correction) if correlation == "polychoric" else 0.0)
 
 
 def active_matrices(responses: np.ndarray, idx: np.ndarray, names: Sequence[str], *, correlation: str,
-                    missing: str, pool: FullPool | PoolUnavailable | None) -> ActiveMatrices:
+                    missing: str, pool: FullPool | PoolUnavailable | None,
+                    zero_cell_correction: float = 0.0) -> ActiveMatrices:
     """The matrices of the active items (columns ``idx`` of ``responses``, called ``names``).
 
     Pairwise: the submatrix of ``pool`` (the cached full pool of this correlation type), or, when it is
@@ -81,7 +99,9 @@ def active_matrices(responses: np.ndarray, idx: np.ndarray, names: Sequence[str]
     if missing == "pairwise":
         if isinstance(pool, FullPool):
             sub = np.ix_(idx, idx)
-            return ActiveMatrices(pool.cov[sub], pool.n_pair[sub], pool.corr[sub], pool.warnings, None)
+            return ActiveMatrices(pool.cov[sub], pool.n_pair[sub], pool.corr[sub], pool.warnings, None, True,
+                                  None if pool.empty is None else pool.empty[sub],
+                                  None if pool.corrected is None else pool.corrected[sub], pool.correction)
         if isinstance(pool, PoolUnavailable):
             note_ = note("pool_unavailable", f"The {correlation} matrix of the whole item pool could not be formed "
                          f"({pool.message}); this analysis uses the active items' own matrix, recomputed from their "
@@ -91,7 +111,8 @@ def active_matrices(responses: np.ndarray, idx: np.ndarray, names: Sequence[str]
         X = X[~np.isnan(X).any(axis=1)]
     cov, n_pair = corrmod.pairwise_covariance(X)
     make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
-    res = make(X, missing=missing, smooth=None, names=list(names))
+    kw = {"zero_cell_correction": zero_cell_correction} if correlation == "polychoric" else {}
+    res = make(X, missing=missing, smooth=None, names=list(names), **kw)
     return ActiveMatrices(cov, n_pair, np.asarray(res.matrix, float), tuple(res.warnings), note_)
 
 
@@ -130,17 +151,64 @@ def min_pair_n(n_pair: np.ndarray) -> int:
 # factor sections, so the pool's "left unsmoothed" note does not apply.
 _POOL_ONLY = frozenset({"not_positive_definite", "perfect_correlation", "polychoric_boundary"})
 _PER_ITEM = frozenset({"polychoric_sparse_category"})
+# Notes about pairs of the pool, recounted on the active items when the pool keeps its pair flags.
+_PAIR_CODES = frozenset({"polychoric_empty_cells", "polychoric_zero_cell_correction", "polychoric_boundary"})
+_BOUNDARY = 0.995  # as server.stats.correlation: an estimate this close to +-1 is a boundary estimate
+_NAMED_PAIRS = 5
 
 
-def pool_warnings_for(warnings: Sequence[Note], R: np.ndarray, names: Sequence[str], correlation: str) -> list[Note]:
+def _pairs_text(pairs: list[tuple[int, int]], names: Sequence[str], R: np.ndarray | None = None) -> str:
+    parts = [f"'{names[i]}' x '{names[j]}'" + ("" if R is None else f" (r = {R[i, j]:.4f})")
+             for i, j in pairs[:_NAMED_PAIRS]]
+    more = f" and {len(pairs) - _NAMED_PAIRS} more" if len(pairs) > _NAMED_PAIRS else ""
+    return ", ".join(parts) + more
+
+
+def _pair_notes(R: np.ndarray, names: Sequence[str], empty: np.ndarray, corrected: np.ndarray,
+                correction: float) -> list[Note]:
+    """The empty-cell, zero-cell-correction and boundary notes of the active items' pairs (as polychoric_matrix)."""
+    k = len(names)
+    iu, ju = np.triu_indices(k, 1)
+    out = []
+
+    def items_of(pairs):
+        return [names[i] for i in sorted({i for p in pairs for i in p})]
+
+    e = [(int(i), int(j)) for i, j in zip(iu, ju) if empty[i, j]]
+    if e:
+        out.append(note("polychoric_empty_cells", f"{len(e)} of {len(iu)} item pairs have at least one empty cell in "
+                        f"their contingency table ({_pairs_text(e, names)}); their polychoric correlations rest on "
+                        "sparse tables.", items_of(e)))
+    c = [(int(i), int(j)) for i, j in zip(iu, ju) if corrected[i, j]]
+    if correction > 0 and c:
+        out.append(note("polychoric_zero_cell_correction", f"{correction:g} was added to the empty cells of {len(c)} "
+                        f"pair(s) before estimation (zero-cell correction, common practice): "
+                        f"{_pairs_text(c, names)}.", items_of(c)))
+    b = [(int(i), int(j)) for i, j in zip(iu, ju) if abs(R[i, j]) >= _BOUNDARY]
+    if b:
+        out.append(note("polychoric_boundary", f"The polychoric estimate is at the boundary (|r| >= {_BOUNDARY}) for "
+                        f"{len(b)} pair(s), {_pairs_text(b, names, R)}: an empty cell or a duplicated item can push "
+                        "the estimate to +-1, and such a value is not a trustworthy correlation.", items_of(b)))
+    return out
+
+
+def pool_warnings_for(warnings: Sequence[Note], R: np.ndarray, names: Sequence[str], correlation: str, *,
+                      empty: np.ndarray | None = None, corrected: np.ndarray | None = None,
+                      correction: float = 0.0) -> list[Note]:
     """The matrix warnings that concern the active items ``names`` (with ``R`` their correlation matrix).
 
     Per-item notes about inactive items and the pool-only notes (:data:`_POOL_ONLY`) are left out, and
-    the +-1 pairs are counted on ``R``; the counts of sparse polychoric tables still describe the pool.
+    the +-1 pairs are counted on ``R``. With the pool's pair flags (``empty``, ``corrected``: the active
+    items' submatrices) the empty-cell, zero-cell-correction and boundary notes are recounted on the
+    active pairs; without them, a pair note naming an inactive item is left out.
     """
     active = set(names)
+    recount = empty is not None and corrected is not None
     out = [w for w in warnings
-           if w.code not in _POOL_ONLY and (w.code not in _PER_ITEM or active.issuperset(w.items))]
+           if w.code not in _POOL_ONLY and not (recount and w.code in _PAIR_CODES)
+           and ((w.code not in _PER_ITEM and w.code not in _PAIR_CODES) or active.issuperset(w.items))]
+    if empty is not None and corrected is not None:  # recount
+        out.extend(_pair_notes(R, list(names), empty, corrected, correction))
     perfect = corrmod.perfect_pairs_note(R, list(names), correlation)
     if perfect is not None:
         out.append(perfect)

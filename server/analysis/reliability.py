@@ -1,18 +1,24 @@
 """Reliability sections: the scale's coefficients and each codebook construct's, from one covariance matrix."""
 from __future__ import annotations
 
+import math
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
+from ..stats.efa import EFAResult
+from ..stats.items import item_table, pruning_path
 from ..stats.notes import Note, note
-from ..stats.reliability import reliability_from_cov
+from ..stats.reliability import ordinal_alpha, ordinal_omega, reliability_from_cov
 from .answer import ConstructBlock, ReliabilitySection
 from .inputs import AnalysisInputs
 from .matrices import active_matrices, listwise_covariance, min_pair_n
 from .settings import AnalysisSettings
 
-__all__ = ["ScaleCovariance", "construct_blocks", "scale_covariance", "scale_reliability"]
+__all__ = ["ScaleCovariance", "construct_blocks", "one_factor_fit", "ordinal_coefficients", "r_other",
+           "scale_covariance", "scale_reliability", "subscale_groups"]
 
 BASIS = ("Item covariances of the observed (reverse-scored) answers: the coefficients describe the sum score "
          "people actually get. The correlation setting (Pearson or polychoric) applies to the factor sections only.")
@@ -72,23 +78,112 @@ def scale_reliability(sc: ScaleCovariance, settings: AnalysisSettings) -> Reliab
                               min_pairwise_n=min_pair, basis=BASIS)
 
 
-def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: ScaleCovariance
-                     ) -> dict[str, ConstructBlock]:
-    """The reliability of each codebook construct's active items, in order of first appearance."""
-    names = list(settings.items)
+def _by_construct(inputs: AnalysisInputs, names: Sequence[str]) -> dict[str, list[int]]:
     meta = {it.name: it for it in inputs.items}
-    by_construct: dict[str, list[int]] = {}
+    out: dict[str, list[int]] = {}
     for j, n in enumerate(names):
         c = meta[n].construct
         if c:
-            by_construct.setdefault(c, []).append(j)
+            out.setdefault(c, []).append(j)
+    return out
+
+
+def subscale_groups(inputs: AnalysisInputs, settings: AnalysisSettings, efa: EFAResult | None, *,
+                    factors_run: bool = True) -> tuple[dict[str, list[int]], dict[str, Any]]:
+    """The subscales of the ``grouping`` setting (name -> positions in ``settings.items``) and what was used.
+
+    ``construct``: the codebook's constructs (without any, the items' primary factors); ``factor``: each item
+    under the factor of its largest absolute pattern loading in ``efa``, named by the factor labels (without
+    a factor solution: no groups); ``pool``: no groups. Returns ``{"requested", "used", "note"}`` beside.
+    """
+    names = list(settings.items)
+    requested = used = settings.grouping
+    why = None
+    if used == "construct":
+        groups = _by_construct(inputs, names)
+        if groups:
+            return groups, {"requested": requested, "used": "construct", "note": None}
+        used = "factor"
+        why = "The codebook names no constructs for the active items, so the subscales are the items' primary factors."
+    if used == "factor":
+        if efa is not None:
+            prim = np.argmax(np.abs(efa.pattern), axis=1)
+            groups = {}
+            for j in np.argsort(prim, kind="stable"):
+                groups.setdefault(efa.factors[int(prim[j])], []).append(int(j))
+            return groups, {"requested": requested, "used": "factor", "note": why}
+        reason = ("no factor model was fitted in this answer" if not factors_run
+                  else "there is no factor solution to group them by")
+        why = (why + " " if why else "") + f"No subscales: {reason}; the item analysis is the whole pool's."
+        used = "pool"
+    return {}, {"requested": requested, "used": used, "note": why}
+
+
+def r_other(cov: np.ndarray, i: int, groups: Mapping[str, Sequence[int]], own: str) -> dict[str, float | None]:
+    r"""Correlation of item ``i`` with the sum score of every other group, from the covariance matrix.
+
+    :math:`r = \sum_{j\in G} S_{ij} / \sqrt{S_{ii}\,\mathbf 1'S_{GG}\mathbf 1}` (the correlation of an item
+    with a sum of other items; a high value for another subscale is the classic sign that an item belongs
+    there).
+    """
+    out: dict[str, float | None] = {}
+    for g, js in groups.items():
+        if g == own:
+            continue
+        v = float(cov[np.ix_(js, js)].sum())
+        den = cov[i, i] * v
+        out[g] = float(cov[i, js].sum() / math.sqrt(den)) if den > 0 else None
+    return out
+
+
+def one_factor_fit(cov: np.ndarray, loadings: Sequence[float], names: Sequence[str]) -> dict[str, Any] | None:
+    """RMSR and the largest residual correlation of the one-factor model behind omega (None below 3 items).
+
+    Residuals are ``R - (l l' + diag(u))`` off the diagonal, with ``R`` the correlation matrix of ``cov`` and
+    ``l`` the standardized one-factor loadings; RMSR is the root mean square of the lower-triangle residuals
+    (each pair once; the diagonal left out), as ``psych::fa``'s ``rms``.
+    """
+    k = len(names)
+    lam = np.asarray(loadings, dtype=float)
+    if k < 3 or lam.size != k:
+        return None
+    d = np.sqrt(np.diag(cov))
+    R = cov / np.outer(d, d)
+    il = np.tril_indices(k, -1)
+    resid = (R - np.outer(lam, lam))[il]
+    p = int(np.argmax(np.abs(resid)))
+    return {"rmsr": float(np.sqrt(np.mean(resid ** 2))),
+            "largest_residual": {"r": float(resid[p]), "items": [names[il[1][p]], names[il[0][p]]]}}
+
+
+def ordinal_coefficients(R: np.ndarray, names: Sequence[str]) -> tuple[dict[str, Any], list[Note]]:
+    """``alpha_ordinal`` and ``omega_ordinal`` of a polychoric matrix (Zumbo, Gadermann & Zeisser 2007)."""
+    a = ordinal_alpha(R, names=list(names))
+    o = ordinal_omega(R, names=list(names)) if len(names) >= 3 else None
+    notes = [*a.warnings, *(o.warnings if o is not None else ())]
+    return {"alpha_ordinal": a.alpha, "omega_ordinal": None if o is None else o.omega}, notes
+
+
+def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: ScaleCovariance,
+                     groups: Mapping[str, Sequence[int]] | None = None, R_ordinal: np.ndarray | None = None
+                     ) -> dict[str, ConstructBlock]:
+    """Each subscale's reliability, item table, pruning path and one-factor fit.
+
+    ``groups`` maps a subscale to positions in ``settings.items`` (default: the codebook constructs, in
+    order of first appearance); ``R_ordinal``, the active items' polychoric matrix, adds the ordinal
+    coefficients. Everything is computed within the subscale's own items (``r_other``: with the others').
+    """
+    names = list(settings.items)
+    by_construct = _by_construct(inputs, names) if groups is None else {g: list(js) for g, js in groups.items()}
     X = inputs.responses[:, inputs.columns(names)]
     out = {}
     for c, js in by_construct.items():
         items = tuple(names[j] for j in js)
         if len(js) < 2:
+            row = {"name": items[0], "item_rest_r": None, "alpha_if_deleted": None, "omega_if_deleted": None,
+                   "r_other": r_other(sc.cov, js[0], by_construct, c)}
             out[c] = ConstructBlock(items, None, (note("construct_one_item", f"Construct '{c}' has only one active "
-                                                       f"item; no reliability for it.", items),))
+                                                       f"item; no reliability for it.", items),), item_table=(row,))
             continue
         sub = np.ix_(js, js)
         if settings.missing == "listwise":
@@ -96,7 +191,14 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
         else:
             Xc = X[:, js]
             n_c, n_cc = int((~np.isnan(Xc).all(axis=1)).sum()), int((~np.isnan(Xc).any(axis=1)).sum())
-        rel = reliability_from_cov(sc.cov[sub], n=n_c, n_complete=n_cc, means=sc.means[js],
+        S = sc.cov[sub]
+        rel = reliability_from_cov(S, n=n_c, n_complete=n_cc, means=sc.means[js],
                                    min_pair_n=min_pair_n(sc.n_pair[sub]), names=list(items), missing=settings.missing)
-        out[c] = ConstructBlock(items, rel)
+        start = rel.loadings if len(rel.loadings) == len(js) else None
+        table = tuple({**r, "r_other": r_other(sc.cov, j, by_construct, c)}
+                      for r, j in zip(item_table(S, names=list(items), start=start), js))
+        steps = tuple(pruning_path(S, names=list(items), min_items=min(3, len(js)), start=start))
+        ordinal, more = (None, []) if R_ordinal is None else ordinal_coefficients(R_ordinal[sub], items)
+        out[c] = ConstructBlock(items, rel, tuple(more), item_table=table, pruning_path=steps,
+                                one_factor_fit=one_factor_fit(S, rel.loadings, items), ordinal=ordinal)
     return out

@@ -3,7 +3,8 @@
 FastAPI documents only the success answer and a 422 in its own validation schema. ``install_openapi``
 post-processes the generated document once: it adds the answers every route shares (421 foreign Host,
 401 missing token, 403 another site's change, 404 unknown id in the path, 400 undecodable body,
-422 invalid parameters or body, 500, 503 data folder unavailable, 507 disk full on writes) and points every 4xx/5xx at ``ErrorBody``.
+422 invalid parameters or body, 500, 503 data folder unavailable, 507 disk full on writes) and points every
+4xx/5xx at ``ErrorBody``.
 Codes particular to one route (400, 409, 413, 415...) are declared on its decorator with
 :func:`error_responses`.
 """

@@ -13,8 +13,14 @@ from __future__ import annotations
 import functools
 import ipaddress
 import socket
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
+from typing import TYPE_CHECKING
 from urllib.parse import urlsplit
+
+if TYPE_CHECKING:
+    from starlette.requests import Request
+
+    from ..settings import Settings
 
 WILDCARD_HOSTS = {"0.0.0.0", "::", ""}
 LOOPBACK_NAMES = {"localhost", "127.0.0.1", "::1"}
@@ -105,7 +111,7 @@ def host_is_allowed(host_header: str | None, *, bound: str, port: int, allowed: 
     return name in names
 
 
-def is_cross_origin(method: str, headers, scheme: str) -> bool:
+def is_cross_origin(method: str, headers: Mapping[str, str], scheme: str) -> bool:
     """True for a state-changing request sent by a page of another origin (``Origin`` or ``Sec-Fetch-Site``)."""
     if method.upper() not in STATE_CHANGING:
         return False
@@ -131,7 +137,7 @@ def is_cross_origin(method: str, headers, scheme: str) -> bool:
             or (origin_port or DEFAULT_PORTS[parts.scheme]) != own_port)
 
 
-def refusal(request, settings) -> tuple[int, str, str, dict] | None:
+def refusal(request: Request, settings: Settings) -> tuple[int, str, str, dict] | None:
     """``(status, code, message, details)`` when ``request`` must be refused (421 or 403), else None."""
     host = request.headers.get("host")
     if not host_is_allowed(host, bound=settings.host, port=settings.port, allowed=settings.allowed_hosts,

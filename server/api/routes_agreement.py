@@ -35,6 +35,8 @@ class RetestRequest(BaseModel):
     score: Literal["sum", "mean"] = Field("sum", description="Total score per respondent.")
     reverse: list[str] | None = Field(None, description="Reverse-keyed items of the first dataset, overriding "
                                                         "its codebook (and the snapshot's settings).")
+    by_construct: bool = Field(False, description="Also return `by_construct`: the same stability block for each "
+                                                  "construct of the first wave's codebook among the chosen items.")
 
 
 class AgreementRequest(BaseModel):
@@ -74,7 +76,7 @@ async def post_agreement_upload(request: Request, file: Annotated[UploadFile, Fi
                          limits=IntakeLimits.from_settings(request.app.state.settings))
     columns, unit_ids = table.raters, table.unit_ids
     try:
-        summary = agreement_summary(table.ratings, level)
+        summary = agreement_summary(table.ratings, level, raters=[str(c) for c in columns])
     except InputError as exc:  # name the file and the rater column in the message
         if isinstance(exc.details.get("column"), int):
             j = exc.details["column"] - 1

@@ -11,6 +11,7 @@ whatever the outcome.
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import tempfile
@@ -117,10 +118,8 @@ def _upload_folder(request: Request) -> Path:
 
 def _remove_files(paths: list[Path]) -> None:
     for path in paths:
-        try:
+        with contextlib.suppress(OSError):
             path.unlink(missing_ok=True)
-        except OSError:
-            pass
 
 
 async def _read_form(request: Request, limit: int, made: list[Path] | None = None):
@@ -226,7 +225,7 @@ UPLOAD_BODY = {"requestBody": {"required": True, "content": {"multipart/form-dat
 
 @router.post("/datasets", status_code=201, openapi_extra=UPLOAD_BODY,
              responses={201: {"model": DatasetOut}, **error_responses(400, 413, 415, 422)})
-async def upload_dataset(request: Request):
+async def upload_dataset(request: Request) -> JSONResponse:
     """Upload a response file (and optional codebook); answers 201 with the dataset and its warnings."""
     made: list[Path] = []  # the upload's temp files: moved into the store on success, removed here anyway
     try:
@@ -235,7 +234,7 @@ async def upload_dataset(request: Request):
         _remove_files(made)
 
 
-async def _upload_dataset(request: Request, made: list[Path]):
+async def _upload_dataset(request: Request, made: list[Path]) -> JSONResponse:
     limit = request.app.state.settings.max_upload_bytes
     form = await _read_form(request, limit, made)
     try:
@@ -279,14 +278,14 @@ async def _upload_dataset(request: Request, made: list[Path]):
     return JSONResponse(dataset_out(record), status_code=201)
 
 
-@router.get("/datasets", responses={200: {"model": list[DatasetOut]}})
-def list_datasets(request: Request):
+@router.get("/datasets", response_model=None, responses={200: {"model": list[DatasetOut]}})
+def list_datasets(request: Request) -> list[dict]:
     """All datasets, newest first."""
     return [dataset_out(r) for r in request.app.state.store.list_datasets()]
 
 
-@router.get("/datasets/{dataset_id}", responses={200: {"model": DatasetOut}})
-def get_dataset(dataset_id: str, request: Request):
+@router.get("/datasets/{dataset_id}", response_model=None, responses={200: {"model": DatasetOut}})
+def get_dataset(dataset_id: str, request: Request) -> dict:
     """One dataset (the same shape as the upload's answer)."""
     record = request.app.state.store.get_dataset(dataset_id)
     if record is None:
@@ -295,7 +294,7 @@ def get_dataset(dataset_id: str, request: Request):
 
 
 @router.delete("/datasets/{dataset_id}", status_code=204)
-def delete_dataset(dataset_id: str, request: Request):
+def delete_dataset(dataset_id: str, request: Request) -> Response:
     """Delete a dataset and its raw files (its snapshots are kept). 404 if unknown."""
     gone = request.app.state.store.get_dataset(dataset_id)  # its name and SHA-256, for the audit log
     if not request.app.state.store.delete_dataset(dataset_id):
@@ -305,8 +304,8 @@ def delete_dataset(dataset_id: str, request: Request):
     return Response(status_code=204)
 
 
-@router.post("/demo", responses={200: {"model": DatasetOut}})
-def open_demo(request: Request):
+@router.post("/demo", response_model=None, responses={200: {"model": DatasetOut}})
+def open_demo(request: Request) -> dict:
     """Add the invented demo datasets (both waves) if they are not there yet; answer with wave 1."""
     from ..demo import ensure_demo_loaded
 
@@ -315,7 +314,7 @@ def open_demo(request: Request):
 
 
 @router.get("/demo/ratings", response_class=PlainTextResponse)
-def demo_ratings():
+def demo_ratings() -> PlainTextResponse:
     """The invented rater table of the demo (units x raters CSV), for the agreement area."""
     from ..demo import DEMO_RATINGS
 

@@ -31,6 +31,7 @@ wraps uvicorn's SIGINT/SIGTERM handlers and closes every stream first.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import itertools
 import json
 import secrets
@@ -102,10 +103,8 @@ class LiveHub:
         body = {"event": "presence", "dataset": dataset, "listeners": len(group)}
         for listener in list(group.values()):
             if listener.id != exclude:
-                try:
+                with contextlib.suppress(asyncio.QueueFull):
                     listener.queue.put_nowait(body)
-                except asyncio.QueueFull:
-                    pass
 
     def count(self, dataset: str) -> int:
         return len(self._listeners.get(dataset, {}))
@@ -136,10 +135,9 @@ class LiveHub:
         self.closing = True
         for group in list(self._listeners.values()):
             for listener in list(group.values()):
-                try:
+                # a full queue: the stream still sees ``closing`` on its next poll
+                with contextlib.suppress(asyncio.QueueFull):
                     listener.queue.put_nowait(_CLOSE)
-                except asyncio.QueueFull:
-                    pass  # the stream still sees ``closing`` on its next poll
 
     def wrap_signal_handlers(self) -> None:
         """Close the streams before uvicorn's own SIGINT/SIGTERM handling (main thread only)."""
@@ -153,10 +151,8 @@ class LiveHub:
 
                 def handler(signum, frame, previous=previous):
                     self.closing = True
-                    try:
+                    with contextlib.suppress(RuntimeError):  # loop already closed
                         loop.call_soon_threadsafe(self.close_all)
-                    except RuntimeError:  # loop already closed
-                        pass
                     if callable(previous):
                         previous(signum, frame)
                     elif previous == signal.SIG_DFL and signum == signal.SIGINT:
@@ -193,7 +189,7 @@ def _sse(event: str | None, data: dict, ident: int | None = None) -> str:
 
 @router.get("/datasets/{dataset_id}/events", include_in_schema=True, responses=error_responses(429),
             summary="Live stream of other pages' changes to this dataset (server-sent events)")
-async def events(dataset_id: str, request: Request):
+async def events(dataset_id: str, request: Request) -> StreamingResponse:
     _check_dataset(request, dataset_id)
     hub = hub_of(request)
     hub.wrap_signal_handlers()
@@ -241,9 +237,9 @@ class LiveMessage(BaseModel):
     detail: str = Field("", max_length=300, description="Optional short human-readable description.")
 
 
-@router.post("/datasets/{dataset_id}/events", status_code=202, responses=error_responses(413),
+@router.post("/datasets/{dataset_id}/events", status_code=202, response_model=None, responses=error_responses(413),
              summary="Relay a change to every other page open on this dataset")
-async def post_event(dataset_id: str, message: LiveMessage, request: Request):
+async def post_event(dataset_id: str, message: LiveMessage, request: Request) -> dict[str, int]:
     _check_dataset(request, dataset_id)
     size = len(json.dumps(message.state, separators=(",", ":")))
     if size > MAX_STATE_BYTES:

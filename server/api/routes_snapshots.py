@@ -85,15 +85,16 @@ def analysis_payload(settings: dict[str, Any]) -> dict[str, Any]:
 
 
 @router.post("/datasets/{dataset_id}/snapshots", status_code=201)
-def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request, engine: EngineDep, store: StoreDep):
+def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request, engine: EngineDep,
+                  store: StoreDep) -> AnswerResponse:
     """Save a snapshot: recompute the trail and the full analysis of the kept items, then store it."""
     stored = snapshots.save(engine, store, dataset_id, _draft(body), analysis_payload(body.settings), to_jsonable)
     audit_snapshot(request, "snapshot", stored, who=body.author)
     return AnswerResponse(stored, status_code=201)
 
 
-@router.get("/datasets/{dataset_id}/snapshots")
-def list_snapshots(dataset_id: str, store: StoreDep):
+@router.get("/datasets/{dataset_id}/snapshots", response_model=None)
+def list_snapshots(dataset_id: str, store: StoreDep) -> list[dict[str, Any]]:
     """The data set's snapshots, newest first, without their full analyses."""
     snaps = store.list_snapshots(dataset_id)
     if not snaps and store.get_dataset(dataset_id) is None:
@@ -101,20 +102,20 @@ def list_snapshots(dataset_id: str, store: StoreDep):
     return [snapshots.light(s) for s in snaps]
 
 
-@router.get("/snapshots/{snapshot_id}")
-def get_snapshot(snapshot_id: str, store: StoreDep):
+@router.get("/snapshots/{snapshot_id}", response_model=None)
+def get_snapshot(snapshot_id: str, store: StoreDep) -> dict[str, Any]:
     """One snapshot with everything stored at save time."""
     return snapshots.get(store, snapshot_id)
 
 
 @router.get("/snapshots/{a}/compare/{b}")
-def compare_snapshots(a: str, b: str, store: StoreDep):
+def compare_snapshots(a: str, b: str, store: StoreDep) -> AnswerResponse:
     """What changed from snapshot ``a`` to snapshot ``b``: items, coefficients, loadings."""
     return AnswerResponse(snapshots.compare(snapshots.get(store, a), snapshots.get(store, b)))
 
 
-@router.get("/snapshots/{snapshot_id}/restore")
-def restore_snapshot(snapshot_id: str, request: Request, store: StoreDep):
+@router.get("/snapshots/{snapshot_id}/restore", response_model=None)
+def restore_snapshot(snapshot_id: str, request: Request, store: StoreDep) -> dict[str, Any]:
     """The snapshot's items, settings and removal record, ready for the dashboard to load."""
     snap = snapshots.get(store, snapshot_id)
     audit_snapshot(request, "snapshot_restore", snap)
@@ -122,7 +123,7 @@ def restore_snapshot(snapshot_id: str, request: Request, store: StoreDep):
 
 
 @router.get("/snapshots/{snapshot_id}/report", response_class=HTMLResponse)
-def snapshot_report(snapshot_id: str, store: StoreDep):
+def snapshot_report(snapshot_id: str, store: StoreDep) -> HTMLResponse:
     """The printable HTML report of a snapshot (no scripts, inline SVG charts)."""
     snap = snapshots.get(store, snapshot_id)
     page = render_report(snap, store.get_dataset(snap.get("dataset_id")) or {})
@@ -141,7 +142,7 @@ def _csv_response(text: str, filename: str) -> Response:
 
 
 @router.get("/snapshots/{snapshot_id}/scoring-key")
-def snapshot_scoring_key(snapshot_id: str, engine: EngineDep, store: StoreDep):
+def snapshot_scoring_key(snapshot_id: str, engine: EngineDep, store: StoreDep) -> Response:
     """CSV of the kept items: item, text, construct, reverse, min, max."""
     snap = snapshots.get(store, snapshot_id)
     meta = snap.get("item_meta")
@@ -153,7 +154,7 @@ def snapshot_scoring_key(snapshot_id: str, engine: EngineDep, store: StoreDep):
 
 
 @router.get("/snapshots/{snapshot_id}/responses", responses=error_responses(409))
-def snapshot_responses(snapshot_id: str, engine: EngineDep, store: StoreDep, scored: bool = False):
+def snapshot_responses(snapshot_id: str, engine: EngineDep, store: StoreDep, scored: bool = False) -> Response:
     """CSV of the kept items' responses, raw or (``?scored=true``) with reverse items scored as min+max-x."""
     snap = snapshots.get(store, snapshot_id)
     dataset_id = snap["dataset_id"]

@@ -7,6 +7,7 @@ snapshot's ``author``. The audit log is append-only (SQL triggers) and keeps ent
 """
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import shutil
@@ -97,16 +98,15 @@ def audit_snapshot(request: Request, action: str, snap: dict | None, who: str | 
 
 @router.get("/audit", response_model=list[AuditEntryOut])
 def audit_log(request: Request, dataset_id: str | None = Query(None, max_length=64, description="Only entries "
-              "about this dataset."), limit: int = Query(200, ge=1, le=10_000, description="At most this many.")):
+              "about this dataset."), limit: int = Query(200, ge=1, le=10_000, description="At most this many.")
+              ) -> list[dict]:
     """The audit log, newest first (highest ``seq`` first)."""
     return request.app.state.store.list_audit(dataset_id=dataset_id, limit=limit)
 
 
 def _unlink(path: str) -> None:
-    try:
+    with contextlib.suppress(OSError):
         os.unlink(path)
-    except OSError:
-        pass
 
 
 def _bad_backup(exc: BackupError) -> ApiError:
@@ -116,7 +116,7 @@ def _bad_backup(exc: BackupError) -> ApiError:
 @router.get("/workspace/backup", response_class=FileResponse, responses={
     200: {"content": {"application/zip": {}}, "description": "The zip: database copy, raw files, manifest.json."},
     **error_responses(422)})
-async def workspace_backup(request: Request):
+async def workspace_backup(request: Request) -> FileResponse:
     """Download the whole workspace as one zip (as ``scalewright backup`` writes it); audited."""
     stamp = utc_now()[:19].replace("-", "").replace(":", "").replace("T", "-")
     folder = tempfile.mkdtemp(prefix="scalewright-backup-")
@@ -196,7 +196,7 @@ async def _receive_zip(request: Request, limit: int) -> tuple[str, str, str | No
                      "file": {"type": "string", "format": "binary", "description": "A Scalewright backup zip."},
                      "who": {"type": "string", "description": "Your name, for the audit log."}}}}}}},
              responses=error_responses(400, 409, 413, 415, 422))
-async def workspace_restore(request: Request):
+async def workspace_restore(request: Request) -> JSONResponse:
     """Import a backup zip into this workspace (merge: new datasets and snapshots are added, identical ones
     skipped, the same id with other content refuses the whole import with 409); audited."""
     settings = request.app.state.settings

@@ -13,12 +13,14 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import stats as sps
 
 from .errors import InputError
-from .notes import Note, note
+from .notes import Note, note, unique
 
 ICC_FORMS = ("ICC(1,1)", "ICC(A,1)", "ICC(C,1)", "ICC(1,k)", "ICC(A,k)", "ICC(C,k)")
 LEVELS = ("nominal", "ordinal", "interval", "ratio")
@@ -231,6 +233,7 @@ class AgreementSummary:
     interpretation: str | None
     conventions: Conventions
     warnings: tuple[Note, ...]
+    pairwise_cohen: PairwiseCohen | None = None  # three or more raters only (None with two)
 
 
 # --------------------------------------------------------------------------------------------- helpers
@@ -380,7 +383,7 @@ def koo_li_label(ci: Sequence[float | None] | None, value: float | None = None) 
 
 
 # --------------------------------------------------------------------------------------------- ICC
-def icc(Y, *, ci: float = 0.95) -> IccResult:
+def icc(Y: ArrayLike, *, ci: float = 0.95) -> IccResult:
     """Six intraclass correlations of a units x raters (or units x occasions) table.
 
     Parameters
@@ -428,7 +431,7 @@ def icc(Y, *, ci: float = 0.95) -> IccResult:
     _z(ci)
     n_all, k = Y.shape
     keep = ~np.isnan(Y).any(axis=1)
-    Y = Y[keep]
+    Y = np.asarray(Y[keep])  # (asarray: keeps the type checker on ndarray)
     n = int(Y.shape[0])
     n_dropped = int(n_all - n)
     warnings: list[Note] = []
@@ -559,7 +562,7 @@ def _category_values(cats: list) -> np.ndarray | None:
         return None
 
 
-def _kappa_from_table(table: np.ndarray, w: np.ndarray, ci: float) -> dict | None:
+def _kappa_from_table(table: np.ndarray, w: np.ndarray, ci: float) -> dict[str, Any] | None:
     """Kappa with agreement weights w (1 on the diagonal) and the Fleiss-Cohen-Everitt (1969) SEs."""
     n = float(table.sum())
     p = table / n
@@ -589,10 +592,11 @@ def _kappa(rater1, rater2, *, weights: str | None, ci: float) -> KappaResult:
     a, b, dropped = _pairs(rater1, rater2)
     _z(ci)
     n = int(a.size)
-    note = {"n_units": n, "n_dropped": dropped, "weights": weights,
-            "se_method": "asymptotic standard error of Fleiss, Cohen & Everitt (1969), as in SAS PROC FREQ; "
-                         "interval = kappa +/- z x SE, clipped to [-1, 1]; p from the SE under kappa = 0",
-            "label_source": LANDIS_KOCH_SOURCE}
+    note: dict[str, Any] = {
+        "n_units": n, "n_dropped": dropped, "weights": weights,
+        "se_method": "asymptotic standard error of Fleiss, Cohen & Everitt (1969), as in SAS PROC FREQ; "
+                     "interval = kappa +/- z x SE, clipped to [-1, 1]; p from the SE under kappa = 0",
+        "label_source": LANDIS_KOCH_SOURCE}
     if n < 2:
         return KappaResult(value=None, ci=None,
                            reason=f"Kappa needs at least two units rated by both raters; there are {n}.", **note)
@@ -627,11 +631,13 @@ def _kappa(rater1, rater2, *, weights: str | None, ci: float) -> KappaResult:
     if res is None:
         return KappaResult(value=None, ci=None, reason="Both raters put every unit in the same single category, "
                            "so agreement expected by chance is 1 and kappa is undefined.", **note)
-    return KappaResult(**res, **note, reason=None, categories=tuple(c if isinstance(c, str) else float(c) for c in cats),
+    return KappaResult(**res, **note, reason=None,
+                       categories=tuple(c if isinstance(c, str) else float(c) for c in cats),
                        label=landis_koch_label(res["value"]))
 
 
-def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> KappaResult:
+def cohen_kappa(rater1: Sequence[Any] | np.ndarray, rater2: Sequence[Any] | np.ndarray, *,
+                ci: float = 0.95) -> KappaResult:
     """Cohen's (1960) kappa for two raters.
 
     Parameters
@@ -662,7 +668,8 @@ def cohen_kappa(rater1, rater2, *, ci: float = 0.95) -> KappaResult:
     return _kappa(rater1, rater2, weights=None, ci=ci)
 
 
-def weighted_kappa(rater1, rater2, *, weights: str = "linear", ci: float = 0.95) -> KappaResult:
+def weighted_kappa(rater1: Sequence[Any] | np.ndarray, rater2: Sequence[Any] | np.ndarray, *,
+                   weights: str = "linear", ci: float = 0.95) -> KappaResult:
     """Cohen's (1968) weighted kappa with linear or quadratic agreement weights.
 
     Parameters
@@ -724,11 +731,21 @@ class PairwiseKappaResult:
     warnings: tuple[Note, ...] = ()
 
 
+@dataclass(frozen=True)
+class PairwiseCohen:
+    """Pairwise Cohen's kappas of three or more raters: unweighted, and linear/quadratic weighted when ordered."""
+
+    kappa: PairwiseKappaResult
+    linear: PairwiseKappaResult | NotApplicable
+    quadratic: PairwiseKappaResult | NotApplicable
+
+
 def _is_missing(v) -> bool:
     return v is None or (isinstance(v, float) and math.isnan(v)) or (isinstance(v, str) and not v.strip())
 
 
-def pairwise_cohen_kappa(ratings, *, weights: str | None = None, raters: Sequence[str] | None = None,
+def pairwise_cohen_kappa(ratings: Sequence[Sequence[Any]] | np.ndarray, *, weights: str | None = None,
+                         raters: Sequence[str] | None = None,
                          ci: float = 0.95) -> PairwiseKappaResult:
     """Cohen's kappa for every pair of raters, and their mean (Light's kappa).
 
@@ -799,9 +816,9 @@ def pairwise_cohen_kappa(ratings, *, weights: str | None = None, raters: Sequenc
     for a in range(r):
         for b in range(a + 1, r):
             res = _kappa(Yc[:, a], Yc[:, b], weights=weights, ci=ci)
-            ci_ab = res.ci
+            lo, hi = res.ci if res.ci is not None else (None, None)
             pairs.append(PairKappa(raters=(labels[a], labels[b]), kappa=_num(res.value), se=_num(res.se),
-                                   ci=None if ci_ab is None else (float(ci_ab[0]), float(ci_ab[1])),
+                                   ci=None if lo is None or hi is None else (float(lo), float(hi)),
                                    n_units=int(res.n_units), reason=res.reason))
             if res.value is None:
                 warnings.append(note("kappa_undefined", f"Kappa of {labels[a]} and {labels[b]} is undefined: "
@@ -823,7 +840,8 @@ def _fleiss_from_counts(counts: np.ndarray) -> float:
     return (Pi.mean() - pe) / (1 - pe)
 
 
-def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = _BOOT,
+def fleiss_kappa(data: Sequence[Sequence[Any]] | np.ndarray, *, counts: bool = False, ci: float = 0.95,
+                 n_boot: int = _BOOT,
                  seed: int = 0) -> FleissResult:
     """Fleiss' (1971) kappa for a fixed number of raters per unit.
 
@@ -890,9 +908,10 @@ def fleiss_kappa(data, *, counts: bool = False, ci: float = 0.95, n_boot: int = 
             for v in row:
                 table[i, index[v]] += 1
     N = int(table.shape[0])
-    info = {"n_units": N, "n_raters": m, "n_dropped": n_dropped, "n_categories": int((table.sum(axis=0) > 0).sum()),
-            "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
-            "label_source": LANDIS_KOCH_SOURCE}
+    info: dict[str, Any] = {
+        "n_units": N, "n_raters": m, "n_dropped": n_dropped, "n_categories": int((table.sum(axis=0) > 0).sum()),
+        "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
+        "label_source": LANDIS_KOCH_SOURCE}
     if m < 2:
         return FleissResult(value=None, ci=None, reason="Fleiss' kappa needs at least two raters per unit.", **info)
     if N < 2:
@@ -946,7 +965,8 @@ def _kripp_distance(values: np.ndarray, nv: np.ndarray, level: str) -> np.ndarra
     return (between - (nv[..., :, None] + nv[..., None, :]) / 2) ** 2
 
 
-def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot: int = _BOOT,
+def krippendorff_alpha(data: Sequence[Sequence[Any]] | np.ndarray, level: str = "nominal", *,
+                       ci: float = 0.95, n_boot: int = _BOOT,
                        seed: int = 0) -> KrippendorffResult:
     """Krippendorff's alpha for any number of raters, missing ratings allowed.
 
@@ -996,10 +1016,10 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
     m_u = (~np.isnan(Y)).sum(axis=1)
     pairable = m_u >= 2
     P = Y[pairable]
-    info = {"level": level, "n_units": int(Y.shape[0]), "n_pairable_units": int(pairable.sum()),
-            "n_values": int(m_u[pairable].sum()),
-            "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
-            "label_source": KRIPPENDORFF_SOURCE}
+    info: dict[str, Any] = {"level": level, "n_units": int(Y.shape[0]), "n_pairable_units": int(pairable.sum()),
+                            "n_values": int(m_u[pairable].sum()),
+                            "ci_method": f"percentile bootstrap over units ({n_boot} resamples, seed {seed})",
+                            "label_source": KRIPPENDORFF_SOURCE}
     if Y.shape[1] < 2:
         return KrippendorffResult(value=None, ci=None, reason="Krippendorff's alpha needs at least two raters.",
                                   **info)
@@ -1054,7 +1074,7 @@ def krippendorff_alpha(data, level: str = "nominal", *, ci: float = 0.95, n_boot
 
 
 # --------------------------------------------------------------------------------------------- percent
-def percent_agreement(data) -> PercentAgreement:
+def percent_agreement(data: Sequence[Sequence[Any]] | np.ndarray) -> PercentAgreement:
     """Share of units on which all raters gave the same rating.
 
     Parameters
@@ -1079,7 +1099,7 @@ def percent_agreement(data) -> PercentAgreement:
         if arr.size else np.zeros(arr.shape, bool)
     keep = ~miss.any(axis=1)
     comp = arr[keep]
-    info = {"n_units": int(comp.shape[0]), "n_dropped": int((~keep).sum())}
+    info: dict[str, Any] = {"n_units": int(comp.shape[0]), "n_dropped": int((~keep).sum())}
     if arr.shape[1] < 2:
         return PercentAgreement(value=None, reason="Agreement needs at least two raters.", n_agree=None, **info)
     if comp.shape[0] == 0:
@@ -1112,7 +1132,7 @@ def _parse_ratings(ratings, level: str) -> tuple[np.ndarray, list | None]:
             raise InputError(f"Row {i + 1} has {len(row)} rating(s) but row 1 has {width}; every unit needs "
                              f"one column per rater (use null for a missing rating).", code="mismatched_columns",
                              details={"row": i + 1, "expected": width, "found": len(row)})
-        out = []
+        out: list[float | str | None] = []
         for j, v in enumerate(row):
             if v is None or (isinstance(v, float) and math.isnan(v)):
                 out.append(None)
@@ -1161,7 +1181,18 @@ def _objects(Y: np.ndarray) -> np.ndarray:
     return obj
 
 
-def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> AgreementSummary:
+def _pairwise_cohen(obj: np.ndarray, level: str, *, ci: float, raters: Sequence[str] | None) -> PairwiseCohen:
+    """Pairwise Cohen's kappas (labels as rated) and, above the nominal level, weighted kappas (numbers)."""
+    if level == "nominal":
+        why = NotApplicable("Weighted kappa needs ordered categories; nominal categories have no order.")
+        return PairwiseCohen(pairwise_cohen_kappa(obj, raters=raters, ci=ci), why, why)
+    return PairwiseCohen(pairwise_cohen_kappa(obj, raters=raters, ci=ci),
+                         *(pairwise_cohen_kappa(obj, weights=w, raters=raters, ci=ci)
+                           for w in ("linear", "quadratic")))
+
+
+def agreement_summary(ratings: Sequence[Sequence[Any]] | np.ndarray, level: str = "nominal", *,
+                      ci: float = 0.95, raters: Sequence[str] | None = None) -> AgreementSummary:
     """Every agreement coefficient that suits a units x raters table at a given level.
 
     Parameters
@@ -1172,6 +1203,8 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> A
     level : {"nominal", "ordinal", "interval", "ratio"}
     ci : float
         Confidence level.
+    raters : sequence of str, optional
+        Rater names for ``pairwise_cohen`` (default "rater 1", "rater 2", ...).
 
     Returns
     -------
@@ -1182,6 +1215,9 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> A
         its interval), conventions, warnings``. Every coefficient slot has
         ``value`` and ``reason``; a coefficient that does not apply (Cohen's kappa for three raters,
         weighted kappa for nominal data, ICC below interval level) has ``value: None`` and a reason.
+        With three or more raters ``pairwise_cohen`` holds :func:`pairwise_cohen_kappa` for every pair
+        (``kappa``; ``linear`` and ``quadratic`` weighted above the nominal level) with the mean (Light
+        1971); with two raters it is None (``cohen_kappa`` and ``weighted_kappa`` are that pair).
 
     Raises
     ------
@@ -1230,6 +1266,7 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> A
 
     cohen: KappaResult | NotApplicable
     fleiss: FleissResult | NotApplicable
+    pairwise: PairwiseCohen | None = None
     if n_raters == 2:
         cohen = cohen_kappa(obj[:, 0], obj[:, 1], ci=ci)
         if level == "nominal":
@@ -1245,9 +1282,16 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> A
         cohen = NotApplicable(why)
         weighted = WeightedKappas(NotApplicable(why), NotApplicable(why))
         fleiss = fleiss_kappa(obj, ci=ci)
+        pairwise = _pairwise_cohen(obj, level, ci=ci, raters=raters)
+        # each pair's undefined kappa is worth a warning; the missing-units note repeats the summary's
+        warnings.extend(unique(w for res in (pairwise.kappa, pairwise.linear, pairwise.quadratic)
+                               if isinstance(res, PairwiseKappaResult)
+                               for w in res.warnings if w.code != "missing_ratings"))
     icc_result: IccResult | NotApplicable
     if level in ("interval", "ratio"):
         icc_result = icc(Y, ci=ci)
+        recommended: str | None
+        interpretation: str | None
         recommended, interpretation = icc_result.recommended, icc_result.interpretation
         # the ICC's own missing-data note repeats the summary's
         warnings.extend(w for w in icc_result.warnings if w.code != "icc_incomplete_units")
@@ -1262,4 +1306,4 @@ def agreement_summary(ratings, level: str = "nominal", *, ci: float = 0.95) -> A
         interpretation=interpretation,
         conventions=Conventions(kappa_labels=LANDIS_KOCH_SOURCE, alpha_labels=KRIPPENDORFF_SOURCE,
                                 icc_labels=KOO_LI_SOURCE),
-        warnings=tuple(warnings))
+        warnings=tuple(warnings), pairwise_cohen=pairwise)

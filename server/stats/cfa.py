@@ -41,8 +41,10 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import optimize, special, stats
 
 from .errors import InputError
@@ -150,7 +152,7 @@ class _Model:
         self.free_variances = free_variances        # marker method: factor variances are free
         self.lam_idx = np.argwhere(pattern)         # (i, k) rows, item-major
         m = self.m
-        self.phi_idx = [(k, l) for k in range(m) for l in range(k, m) if k != l or free_variances]
+        self.phi_idx = [(k, k2) for k in range(m) for k2 in range(k, m) if k != k2 or free_variances]
         self.nl, self.nphi = len(self.lam_idx), len(self.phi_idx)
         self.q = self.nl + self.nphi + self.p
 
@@ -158,14 +160,14 @@ class _Model:
         L = self.fixed.copy()
         L[self.lam_idx[:, 0], self.lam_idx[:, 1]] = x[: self.nl]
         Phi = np.eye(self.m)
-        for v, (k, l) in zip(x[self.nl: self.nl + self.nphi], self.phi_idx):
-            Phi[k, l] = Phi[l, k] = v
+        for v, (k, k2) in zip(x[self.nl: self.nl + self.nphi], self.phi_idx):
+            Phi[k, k2] = Phi[k2, k] = v
         theta = x[self.nl + self.nphi:]
         return L, Phi, theta
 
     def pack(self, L: np.ndarray, Phi: np.ndarray, theta: np.ndarray) -> np.ndarray:
         return np.concatenate([L[self.lam_idx[:, 0], self.lam_idx[:, 1]],
-                               [Phi[k, l] for k, l in self.phi_idx], theta])
+                               [Phi[k, k2] for k, k2 in self.phi_idx], theta])
 
     @staticmethod
     def sigma(L, Phi, theta) -> np.ndarray:
@@ -188,7 +190,7 @@ class _Model:
         G = (G + G.T) / 2
         gL = 2.0 * G @ L @ Phi
         LGL = L.T @ G @ L
-        gphi = [(LGL[k, l] if k == l else 2.0 * LGL[k, l]) for k, l in self.phi_idx]
+        gphi = [(LGL[k, k2] if k == k2 else 2.0 * LGL[k, k2]) for k, k2 in self.phi_idx]
         g = np.concatenate([gL[self.lam_idx[:, 0], self.lam_idx[:, 1]], gphi, np.diag(G)])
         return float(F), g
 
@@ -201,10 +203,10 @@ class _Model:
         for f, (i, k) in enumerate(self.lam_idx):
             U[i, f] = 1.0
             V[:, f] = LP[:, k]
-        for j, (k, l) in enumerate(self.phi_idx):
+        for j, (k, k2) in enumerate(self.phi_idx):
             f = self.nl + j
             U[:, f] = L[:, k]
-            V[:, f] = L[:, l] if k != l else L[:, k] / 2
+            V[:, f] = L[:, k2] if k != k2 else L[:, k] / 2
         for i in range(p):
             f = self.nl + self.nphi + i
             U[i, f] = 1.0
@@ -240,7 +242,7 @@ def _rmsea_ci(chisq: float, df: float, n_used: int, level: float = 0.90) -> list
 
 # --------------------------------------------------------------------------- input checks
 
-def _check_inputs(S, structure, n, names):
+def _check_inputs(S, structure, n, names) -> tuple[np.ndarray, list[str], dict[str, list[int]]]:
     S = np.asarray(S, dtype=float)
     if S.ndim != 2 or S.shape[0] != S.shape[1] or S.shape[0] < 2:
         raise InputError(f"The matrix must be square with at least 2 items; got shape {S.shape}.",
@@ -288,7 +290,7 @@ def _check_inputs(S, structure, n, names):
 
 # --------------------------------------------------------------------------- the fit
 
-def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n: int,
+def confirmatory_factor_analysis(S: ArrayLike, structure: Mapping[str, Sequence[str]], *, n: int,
                                  names: Sequence[str] | None = None, identification: str = "std_lv",
                                  likelihood: str = "wishart", residual_covariances: bool = True,
                                  n_largest: int = 10, max_iter: int = 5000, tol: float = 1e-7) -> CFAResult:
@@ -389,7 +391,7 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
     df = p * (p + 1) // 2 - q
 
     def unfitted(extra: list[Note]) -> CFAResult:
-        fit = {key: None for key in ("chisq", "p", "cfi", "tli", "rmsea", "srmr", "aic", "bic", "fmin")}
+        fit: dict[str, Any] = {key: None for key in ("chisq", "p", "cfi", "tli", "rmsea", "srmr", "aic", "bic", "fmin")}
         fit.update({"df": df, "n_parameters": q, "rmsea_ci": [None, None], "baseline": None})
         return CFAResult(tuple(nm), tuple(factors), False, identification, likelihood, n, n_used, fit,
                          warnings=tuple(warnings + extra))
@@ -399,7 +401,8 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
     if small or df < 0:
         reasons = []
         if small:
-            need = "3 items when it is the only factor" if m == 1 else "at least 2 items (and correlate with another factor)"
+            need = ("3 items when it is the only factor" if m == 1
+                    else "at least 2 items (and correlate with another factor)")
             reasons.append(f"factor(s) {', '.join(repr(f) for f in small)} have too few items (a factor needs {need})")
         if df < 0:
             reasons.append(f"the model has {q} free parameters for {p * (p + 1) // 2} variances and covariances "
@@ -426,7 +429,7 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
     L0 = np.zeros((p, m))
     for k in range(m):
         rows = np.flatnonzero(pattern[:, k])
-        for i in rows:
+        for i in rows.tolist():
             others = R[i, rows[rows != i]]
             sgn = -1.0 if others.sum() < 0 else 1.0
             L0[i, k] = sgn * np.sqrt(smc[i] / pattern[i].sum())
@@ -522,13 +525,13 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
     # Jacobian of standardized loadings (all p x m entries), factor correlations, std uniquenesses
     J_l = np.zeros((p, m, model.q))
     J_l -= (Lstd / (2.0 * sig_d[:, None]))[:, :, None] * dsig[:, None, :]
-    for f, (i, k) in enumerate(model.lam_idx):
+    for f, (i, k) in enumerate(model.lam_idx.tolist()):
         J_l[i, k, f] += np.sqrt(phid[k] / sig_d[i])
     J_r = np.zeros((m, m, model.q))
-    for j, (k, l) in enumerate(model.phi_idx):
+    for j, (k, k2) in enumerate(model.phi_idx):
         f = nl + j
-        if k != l:
-            J_r[k, l, f] = J_r[l, k, f] = 1.0 / np.sqrt(phid[k] * phid[l])
+        if k != k2:
+            J_r[k, k2, f] = J_r[k2, k, f] = 1.0 / np.sqrt(phid[k] * phid[k2])
         else:   # a free factor variance (marker method)
             J_l[:, k, f] += L[:, k] / (2.0 * np.sqrt(phid[k] * sig_d))
             for ll in range(m):
@@ -593,24 +596,26 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
     if Hinv is not None:
         G = W - W @ S @ W
         LP = L @ Phi
-        cand, Uc, Vc = [], [], []
+        cand: list[tuple[str, int, int]] = []
+        u_cols: list[np.ndarray] = []
+        v_cols: list[np.ndarray] = []
         for i in range(p):
             for k in range(m):
                 if not pattern[i, k]:
                     u = np.zeros(p)
                     u[i] = 1.0
                     cand.append(("loading", i, k))
-                    Uc.append(u)
-                    Vc.append(LP[:, k])
+                    u_cols.append(u)
+                    v_cols.append(LP[:, k])
         if residual_covariances:
-            for i, j in zip(*iu):
+            for i, j in zip(*(x.tolist() for x in iu)):
                 u, v = np.zeros(p), np.zeros(p)
                 u[i], v[j] = 1.0, 1.0
                 cand.append(("residual_covariance", i, j))
-                Uc.append(u)
-                Vc.append(v)
+                u_cols.append(u)
+                v_cols.append(v)
         if cand:
-            Uc, Vc = np.array(Uc).T, np.array(Vc).T
+            Uc, Vc = np.array(u_cols).T, np.array(v_cols).T
             g_c = 2.0 * np.sum(Uc * (G @ Vc), axis=0)
             H_cf = _info(W, Uc, Vc, U, V)
             h_eff = _info_diag(W, Uc, Vc) - np.sum((H_cf @ Hinv) * H_cf, axis=1)
@@ -633,7 +638,7 @@ def confirmatory_factor_analysis(S, structure: Mapping[str, Sequence[str]], *, n
 
     params: list[dict] = []
     for k, fac in enumerate(factors):
-        for i in np.flatnonzero(pattern[:, k]):
+        for i in np.flatnonzero(pattern[:, k]).tolist():
             free = bool(model.pattern[i, k])
             s = float(L_se[i, k]) if free else 0.0
             z, pv = z_crit(L[i, k], s) if free else (None, None)

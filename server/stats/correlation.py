@@ -18,18 +18,21 @@ row and column instead of being recomputed.
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 from scipy.special import ndtr, ndtri, owens_t
 
-from server.stats.errors import InputError
-from server.stats.notes import Note, note
+from .errors import InputError
+from .notes import Note, note
 
 __all__ = [
     "CorrelationResult",
     "bivariate_normal_cdf",
+    "empty_cell_pairs",
     "listwise_covariance",
     "pairwise_covariance",
     "pearson_matrix",
@@ -151,7 +154,7 @@ def _check_missing(missing: str) -> None:
 # ----------------------------------------------------------------------------------------------
 # Pearson
 
-def pairwise_covariance(X) -> tuple[np.ndarray, np.ndarray]:
+def pairwise_covariance(X: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Covariance matrix from pairwise-complete observations (as ``pandas.DataFrame.cov``).
 
     Parameters
@@ -195,7 +198,7 @@ def _pairwise_moments(arr: np.ndarray):
     return cov, n.astype(int), cxy, ssx
 
 
-def listwise_covariance(X) -> tuple[np.ndarray, int]:
+def listwise_covariance(X: ArrayLike) -> tuple[np.ndarray, int]:
     """Covariance matrix (divisor n - 1) of the rows with no missing answer.
 
     Returns
@@ -212,7 +215,8 @@ def listwise_covariance(X) -> tuple[np.ndarray, int]:
     return np.cov(sub, rowvar=False, ddof=1), int(sub.shape[0])
 
 
-def pearson_matrix(X, *, missing: str = "pairwise", names=None, smooth: str | None = "eigen"
+def pearson_matrix(X: ArrayLike, *, missing: str = "pairwise", names: Sequence[str] | None = None,
+                   smooth: str | None = "eigen"
                    ) -> CorrelationResult:
     """Pearson product-moment correlation matrix of the items.
 
@@ -276,7 +280,7 @@ def pearson_matrix(X, *, missing: str = "pairwise", names=None, smooth: str | No
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam)
 
 
-def perfect_pairs_note(R, names, method: str) -> Note | None:
+def perfect_pairs_note(R: np.ndarray, names: Sequence[str], method: str) -> Note | None:
     """The ``perfect_correlation`` warning for item pairs correlating +-1 in ``R`` (None when there are none).
 
     ``method`` is ``"pearson"`` or ``"polychoric"``; ``items`` lists every item of such a pair.
@@ -326,7 +330,7 @@ def _maybe_smooth(R, smooth, label, names, warnings):
 # ----------------------------------------------------------------------------------------------
 # bivariate normal
 
-def bivariate_normal_cdf(h, k, rho) -> np.ndarray:
+def bivariate_normal_cdf(h: ArrayLike, k: ArrayLike, rho: ArrayLike) -> np.ndarray:
     """P(X <= h, Y <= k) for a standard bivariate normal with correlation rho, elementwise.
 
     Broadcasts ``h``, ``k`` and ``rho``; ``h`` and ``k`` may be +-inf; ``|rho| < 1``.
@@ -523,10 +527,10 @@ def _estimate_rho(tables: np.ndarray, ci: np.ndarray, cj: np.ndarray, *, tol: fl
         with np.errstate(divide="ignore", invalid="ignore"):
             step = score / info
         new = r + step
-        l, h = lo[active], hi[active]
-        outside = ~np.isfinite(new) | (new <= l) | (new >= h)
-        new = np.where(outside, 0.5 * (l + h), new)
-        done = (np.abs(new - r) < tol) | (h - l < tol)
+        lo_a, hi_a = lo[active], hi[active]
+        outside = ~np.isfinite(new) | (new <= lo_a) | (new >= hi_a)
+        new = np.where(outside, 0.5 * (lo_a + hi_a), new)
+        done = (np.abs(new - r) < tol) | (hi_a - lo_a < tol)
         rho[active] = new
         converged[active[done]] = True
         active = active[~done]
@@ -594,7 +598,7 @@ def _correct_zero_cells(tables: np.ndarray, value: float) -> tuple[np.ndarray, n
     return tables, empty.any(axis=(1, 2))
 
 
-def polychoric_pair(table, *, zero_cell_correction: float = 0.0) -> float:
+def polychoric_pair(table: ArrayLike, *, zero_cell_correction: float = 0.0) -> float:
     """Two-step polychoric (tetrachoric for 2 x 2) correlation of one contingency table.
 
     Parameters
@@ -648,7 +652,8 @@ def polychoric_pair(table, *, zero_cell_correction: float = 0.0) -> float:
     return float(rho[0])
 
 
-def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10, names=None,
+def polychoric_matrix(X: ArrayLike, *, missing: str = "pairwise", max_categories: int = 10,
+                      names: Sequence[str] | None = None,
                       smooth: str | None = "eigen", zero_cell_correction: float = 0.0) -> CorrelationResult:
     """Polychoric (tetrachoric for binary items) correlation matrix, all pairs at once.
 
@@ -770,6 +775,33 @@ def polychoric_matrix(X, *, missing: str = "pairwise", max_categories: int = 10,
                              thresholds=thresholds)
 
 
+def empty_cell_pairs(X: ArrayLike, *, max_categories: int = 10) -> tuple[np.ndarray, np.ndarray]:
+    """Which item pairs have empty cells in their pairwise contingency table, as two k x k boolean matrices.
+
+    The first marks a pair with an empty cell among the two items' categories (what the
+    ``polychoric_empty_cells`` note of :func:`polychoric_matrix` counts), the second one with an empty
+    cell inside the rows and columns observed in that pair's table (the cells a zero-cell correction
+    fills). Lets a caller recount those notes for a subset of items without estimating again.
+    """
+    arr, names = _as_matrix(X, None)
+    codes, levels = _codes(arr, names, int(max_categories))
+    k = arr.shape[1]
+    ncat = np.array([len(v) for v in levels])
+    m = int(ncat.max())
+    tables = _all_tables(codes, m)
+    iu, ju = np.triu_indices(k, 1)
+    pair_tables = tables[iu, ju]
+    ci, cj = ncat[iu], ncat[ju]
+    valid = (np.arange(m)[None, :, None] < ci[:, None, None]) & (np.arange(m)[None, None, :] < cj[:, None, None])
+    empty = ((pair_tables == 0) & valid).any(axis=(1, 2))
+    _, inside = _correct_zero_cells(pair_tables, 0.0)
+    out = np.zeros((2, k, k), dtype=bool)
+    for a, flags in enumerate((empty, inside)):
+        out[a, iu, ju] = flags
+        out[a, ju, iu] = flags
+    return out[0], out[1]
+
+
 def _pair_items(idx, iu, ju, names) -> list[str]:
     """The items of the pairs in ``idx``, each once, in matrix order."""
     return [names[i] for i in sorted(set(iu[idx]) | set(ju[idx]))]
@@ -788,7 +820,7 @@ def _pair_list(idx, iu, ju, names, rho=None) -> str:
 # ----------------------------------------------------------------------------------------------
 # smoothing
 
-def smooth_to_pd(R, *, method: str = "eigen", min_eigenvalue: float = 1e-6, max_iter: int = 200,
+def smooth_to_pd(R: ArrayLike, *, method: str = "eigen", min_eigenvalue: float = 1e-6, max_iter: int = 200,
                  tol: float = 1e-10) -> tuple[np.ndarray, float, bool]:
     """Make a correlation matrix positive definite, if it is not.
 
@@ -846,7 +878,7 @@ def smooth_to_pd(R, *, method: str = "eigen", min_eigenvalue: float = 1e-6, max_
             dS = X - Rk
             Y_new = X.copy()
             np.fill_diagonal(Y_new, 1.0)
-            delta = np.linalg.norm(Y_new - Y) / max(np.linalg.norm(Y), 1e-300)
+            delta = float(np.linalg.norm(Y_new - Y)) / max(float(np.linalg.norm(Y)), 1e-300)
             Y = Y_new
             if delta < tol:
                 break
@@ -859,15 +891,15 @@ def smooth_to_pd(R, *, method: str = "eigen", min_eigenvalue: float = 1e-6, max_
     return out, lam, True
 
 
-def smoothing_note(R_before, R_after, smallest: float, method: str, *, label: str = "correlation",
-                   names=None) -> Note:
+def smoothing_note(R_before: np.ndarray, R_after: np.ndarray, smallest: float, method: str, *,
+                   label: str = "correlation",
+                   names: Sequence[str] | None = None) -> Note:
     """The ``smoothed`` warning for a smoothed matrix: smallest eigenvalue and the largest change."""
     diff = np.abs(np.asarray(R_after) - np.asarray(R_before))
-    i, j = np.unravel_index(np.argmax(diff), diff.shape)
+    i, j = (int(v) for v in np.unravel_index(np.argmax(diff), diff.shape))
     how = "eigenvalue method" if method == "eigen" else "nearest correlation matrix (Higham 2002)"
-    where = ""
-    if names is not None and diff[i, j] > 0:
-        where = f" ('{names[i]}' with '{names[j]}')"
+    pair = [names[i], names[j]] if names is not None and diff[i, j] > 0 else []
+    where = f" ('{pair[0]}' with '{pair[1]}')" if pair else ""
     return note("smoothed", f"The {label} matrix was not positive definite (smallest eigenvalue {smallest:.3g}) "
                 f"and was smoothed by the {how}; correlations changed by at most {diff[i, j]:.3f}{where}.",
-                [names[i], names[j]] if where else [])
+                pair)

@@ -6,9 +6,11 @@ active, so dropping an item never recomputes them.
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .errors import InputError
 
@@ -41,7 +43,7 @@ def _per_item(values, k: int, label: str) -> np.ndarray:
     return arr
 
 
-def reverse_score(X, mins, maxs, mask) -> np.ndarray:
+def reverse_score(X: ArrayLike, mins: ArrayLike, maxs: ArrayLike, mask: ArrayLike) -> np.ndarray:
     """Reverse-score the items selected by ``mask``: ``x -> min + max - x``.
 
     Parameters
@@ -126,7 +128,8 @@ def _clean(x) -> float | None:
     return x if np.isfinite(x) else None
 
 
-def item_descriptives(X, *, names, mins, maxs) -> list[ItemDescriptives]:
+def item_descriptives(X: ArrayLike, *, names: Sequence[str], mins: ArrayLike,
+                      maxs: ArrayLike) -> list[ItemDescriptives]:
     """Per-item n, mean, SD, skew, kurtosis, floor/ceiling shares and category counts.
 
     Parameters

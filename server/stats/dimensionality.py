@@ -5,13 +5,15 @@ needs the raw responses, so the engine can work from its cached full-pool matrix
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import stats
 
-from server.stats.correlation import polychoric_matrix
-from server.stats.errors import InputError
+from .correlation import polychoric_matrix
+from .errors import InputError
 
 __all__ = [
     "KMOResult",
@@ -145,13 +147,13 @@ def _inverse(R: np.ndarray, names=None) -> np.ndarray:
     return np.linalg.inv(R)
 
 
-def smc(R) -> np.ndarray:
+def smc(R: ArrayLike) -> np.ndarray:
     """Squared multiple correlation of each item with all others: ``1 - 1 / diag(R^-1)``."""
     A = _corr(R)
     return 1.0 - 1.0 / np.diag(_inverse(A))
 
 
-def kaiser_count(eigs) -> int:
+def kaiser_count(eigs: ArrayLike) -> int:
     """Number of eigenvalues greater than 1 (Kaiser 1960), for comparison only.
 
     References
@@ -165,7 +167,7 @@ def kaiser_count(eigs) -> int:
 # ----------------------------------------------------------------------------------------------
 # factorability
 
-def kmo(R, *, names=None) -> KMOResult:
+def kmo(R: ArrayLike, *, names: Sequence[str] | None = None) -> KMOResult:
     """Kaiser-Meyer-Olkin measure of sampling adequacy, overall and per item.
 
     Parameters
@@ -201,7 +203,7 @@ def kmo(R, *, names=None) -> KMOResult:
     return KMOResult(kmo=float(overall), msa=msa)
 
 
-def bartlett_sphericity(R, n: int, *, names=None) -> tuple[float, int, float]:
+def bartlett_sphericity(R: ArrayLike, n: int, *, names: Sequence[str] | None = None) -> tuple[float, int, float]:
     """Bartlett's test that the population correlation matrix is the identity.
 
     Parameters
@@ -321,7 +323,8 @@ def _random_reference(n, k, iterations, variant, seed, percentile):
     return threshold, mean
 
 
-def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iterations: int = 500,
+def parallel_analysis(n: int, k: int, *, observed_eigenvalues: ArrayLike | None = None,
+                      R: ArrayLike | None = None, iterations: int = 500,
                       percentile: float = 95, variant: str = "components", seed: int | None = None
                       ) -> ParallelResult:
     """Horn's parallel analysis against random normal data of the same size.
@@ -395,7 +398,7 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues=None, R=None, iter
                           percentile=float(percentile), seed=seed)
 
 
-def permuted_ordinal_data(X, *, seed=None) -> np.ndarray:
+def permuted_ordinal_data(X: ArrayLike, *, seed: int | np.random.Generator | None = None) -> np.ndarray:
     """Random ordinal data with exactly the observed marginal distributions.
 
     Each column of ``X`` (respondents x items, NaN for missing) is permuted independently, so every item
@@ -416,17 +419,20 @@ def permuted_ordinal_data(X, *, seed=None) -> np.ndarray:
 
 
 def _polychoric_eigenvalues(X: np.ndarray, variant: str, missing: str, max_categories: int,
-                            R=None) -> np.ndarray:
-    A = polychoric_matrix(X, missing=missing, max_categories=max_categories).matrix if R is None else R
+                            R=None, zero_cell_correction: float = 0.0) -> np.ndarray:
+    A = (polychoric_matrix(X, missing=missing, max_categories=max_categories,
+                           zero_cell_correction=zero_cell_correction).matrix if R is None else R)
     if variant == "factors":
         A = A.copy()
         np.fill_diagonal(A, smc(A))
     return np.linalg.eigvalsh(A)[::-1]
 
 
-def parallel_analysis_polychoric(X, *, R=None, iterations: int = 100, percentile: float = 95,
+def parallel_analysis_polychoric(X: ArrayLike, *, R: ArrayLike | None = None, iterations: int = 100,
+                                 percentile: float = 95,
                                  variant: str = "components", seed: int | None = None,
-                                 missing: str = "pairwise", max_categories: int = 10) -> ParallelResult:
+                                 missing: str = "pairwise", max_categories: int = 10,
+                                 zero_cell_correction: float = 0.0) -> ParallelResult:
     """Parallel analysis for polychoric correlations against permuted ordinal data.
 
     Parameters
@@ -446,8 +452,8 @@ def parallel_analysis_polychoric(X, *, R=None, iterations: int = 100, percentile
         Seed for ``numpy.random.default_rng``; the same seed gives the same result.
     missing : {"pairwise", "listwise"}
         Missing-data policy of the polychoric matrices; listwise drops incomplete rows before permuting.
-    max_categories : int
-        Passed to :func:`server.stats.correlation.polychoric_matrix`.
+    max_categories, zero_cell_correction :
+        Passed to :func:`server.stats.correlation.polychoric_matrix` (use the observed matrix's correction).
 
     Returns
     -------
@@ -498,11 +504,12 @@ def parallel_analysis_polychoric(X, *, R=None, iterations: int = 100, percentile
         if R.shape[0] != k:
             raise InputError(f"R has {R.shape[0]} items but the responses have {k}.", code="bad_shape",
                              details={"items_R": int(R.shape[0]), "items": int(k)})
-    observed = _polychoric_eigenvalues(arr, variant, missing, max_categories, R)
+    observed = _polychoric_eigenvalues(arr, variant, missing, max_categories, R, zero_cell_correction)
     rng = np.random.default_rng(seed)
     rand = np.empty((int(iterations), k))
     for b in range(int(iterations)):
-        rand[b] = _polychoric_eigenvalues(permuted_ordinal_data(arr, seed=rng), variant, missing, max_categories)
+        rand[b] = _polychoric_eigenvalues(permuted_ordinal_data(arr, seed=rng), variant, missing, max_categories,
+                                          zero_cell_correction=zero_cell_correction)
     threshold = np.percentile(rand, percentile, axis=0)
     above = observed > threshold
     n_factors = int(k if above.all() else np.argmin(above))
@@ -514,7 +521,7 @@ def parallel_analysis_polychoric(X, *, R=None, iterations: int = 100, percentile
 # ----------------------------------------------------------------------------------------------
 # MAP
 
-def velicer_map(R) -> MAPResult:
+def velicer_map(R: ArrayLike) -> MAPResult:
     """Velicer's minimum average partial (MAP) test, squared and fourth-power versions.
 
     Parameters
@@ -578,9 +585,13 @@ def _floats(a, nd=6):
     return [None if not np.isfinite(x) else round(float(x), nd) for x in np.asarray(a, dtype=float)]
 
 
-def retention_summary(R, n: int, *, iterations: int = 500, seed: int | None = None,
-                      variant: str = "components", percentile: float = 95) -> dict:
+def retention_summary(R: ArrayLike, n: int, *, iterations: int = 500, seed: int | None = None,
+                      variant: str = "components", percentile: float = 95,
+                      parallel: ParallelResult | None = None) -> dict:
     """How many factors: parallel analysis, MAP and Kaiser, ready for JSON.
+
+    ``parallel``: a parallel analysis already made (e.g. :func:`parallel_analysis_polychoric`) used instead
+    of :func:`parallel_analysis` against random normal data; ``parallel.method`` says which it was.
 
     Returns
     -------
@@ -592,15 +603,15 @@ def retention_summary(R, n: int, *, iterations: int = 500, seed: int | None = No
     """
     A = _corr(R)
     k = A.shape[0]
-    pa = parallel_analysis(n, k, R=A, iterations=iterations, percentile=percentile, variant=variant,
-                           seed=seed)
+    pa = parallel if parallel is not None else parallel_analysis(n, k, R=A, iterations=iterations,
+                                                                 percentile=percentile, variant=variant, seed=seed)
     mp = velicer_map(A)
     eigs = np.linalg.eigvalsh(A)[::-1]
     return {
         "parallel": {"n_factors": pa.n_factors, "observed": _floats(pa.observed),
                      "threshold": _floats(pa.threshold), "random_mean": _floats(pa.random_mean),
                      "variant": pa.variant, "iterations": pa.iterations, "percentile": pa.percentile,
-                     "seed": seed},
+                     "seed": pa.seed if parallel is not None else seed, "method": pa.method},
         "map": {"n_factors": mp.n_factors, "values": _floats(mp.values, 8),
                 "n_factors4": mp.n_factors4, "values4": _floats(mp.values4, 8)},
         "kaiser": {"n_factors": kaiser_count(eigs), "eigenvalues": _floats(eigs)},
@@ -608,7 +619,7 @@ def retention_summary(R, n: int, *, iterations: int = 500, seed: int | None = No
     }
 
 
-def factorability_summary(R, n: int, *, names=None) -> dict:
+def factorability_summary(R: ArrayLike, n: int, *, names: Sequence[str] | None = None) -> dict:
     """KMO, MSA per item, Bartlett's test and the determinant, ready for JSON.
 
     Returns

@@ -36,10 +36,12 @@ Kuhn, H. W. (1955). The Hungarian method for the assignment problem. Naval Resea
 """
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import linalg, optimize, stats
 
 from . import flags as _flags
@@ -147,7 +149,7 @@ def _item_names(k: int, names: Sequence[str] | None) -> list[str]:
     return names
 
 
-def _check_R(R, names: Sequence[str] | None) -> tuple[np.ndarray, list[str], list[str]]:
+def _check_R(R, names: Sequence[str] | None) -> tuple[np.ndarray, list[str], list[Note]]:
     """Validate a correlation matrix; return it, the names and warnings about near-duplicates."""
     R = np.array(R, dtype=float)
     if R.ndim != 2 or R.shape[0] != R.shape[1]:
@@ -171,7 +173,7 @@ def _check_R(R, names: Sequence[str] | None) -> tuple[np.ndarray, list[str], lis
                          code="bad_matrix", details={"item": nm[i], "value": float(R[i, i])})
     R = (R + R.T) / 2.0
     np.fill_diagonal(R, 1.0)
-    warnings = []
+    warnings: list[Note] = []
     iu = np.triu_indices(k, 1)
     dup = np.abs(R[iu]) > 0.9999
     for a, b in zip(iu[0][dup], iu[1][dup]):
@@ -263,7 +265,7 @@ def _ml_discrepancy(R: np.ndarray, L: np.ndarray, psi: np.ndarray) -> float:
 
 # --------------------------------------------------------------------------- extraction
 
-def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
+def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | None = None,
             max_iter: int = 1000, tol: float | None = None, names: Sequence[str] | None = None) -> Extraction:
     """Extract ``n_factors`` unrotated factors from a correlation matrix.
 
@@ -339,7 +341,7 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
         h2 = smc.copy()
         converged = False
         it = 0
-        for it in range(1, max_iter + 1):
+        for it in range(1, max_iter + 1):  # noqa: B007  (the count is read after the loop)
             S = R.copy()
             np.fill_diagonal(S, h2)
             vals, vecs = _top_eig(S, m)
@@ -356,6 +358,8 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
                                  f"iterations (last change of a communality {delta:.2g})."))
         heywood = [i for i in range(k) if h2[i] >= 1.0 - 1e-9]
     else:
+        fun: Callable[..., tuple[float, np.ndarray]]
+        args: tuple[Any, ...]
         if method == "ml":
             fun, args = _ml_fun, (R, m, float(np.linalg.slogdet(R)[1]))
         else:
@@ -391,7 +395,7 @@ def extract(R, n_factors: int, *, method: str = "minres", n: int | None = None,
     return Extraction(L, h2, 1.0 - h2, converged, it, heywood, warnings, method, objective)
 
 
-def fit_indices(R, loadings, uniquenesses, n: int | None, method: str) -> dict:
+def fit_indices(R: np.ndarray, loadings: np.ndarray, uniquenesses: np.ndarray, n: int | None, method: str) -> dict:
     """Fit of a factor solution to the correlation matrix.
 
     Returns
@@ -463,7 +467,7 @@ def fit_indices(R, loadings, uniquenesses, n: int | None, method: str) -> dict:
 
 # --------------------------------------------------------------------------- factor identity
 
-def congruence(A, B) -> np.ndarray:
+def congruence(A: ArrayLike, B: ArrayLike) -> np.ndarray:
     """Tucker's congruence coefficients between the columns of A and of B (same rows).
 
     ``phi(a, b) = sum(a b) / sqrt(sum(a²) sum(b²))`` (Tucker 1951).
@@ -572,7 +576,7 @@ def _previous_matrix(previous, names: list[str]) -> tuple[np.ndarray | None, lis
         prev = {"loadings": {n: list(r) for n, r in zip(previous.names, previous.pattern)},
                 "factors": previous.factors}
     elif isinstance(previous, Mapping):
-        prev = previous
+        prev = dict(previous)
     else:
         raise InputError("The previous solution must be an earlier EFA result or its JSON.",
                          code="bad_previous", details={})
@@ -615,10 +619,12 @@ def _label_factors(pattern: np.ndarray, constructs: Sequence[str | None] | None)
     return labels
 
 
-def factor_analysis(R, n_factors: int, *, n: int | None = None, names: Sequence[str] | None = None,
+def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names: Sequence[str] | None = None,
                     method: str = "minres", rotation: str = "oblimin", gamma: float = 0.0,
-                    constructs: Sequence[str | None] | None = None, previous=None,
-                    thresholds: Mapping[str, float] | None = None, item_rest_r=None,
+                    constructs: Sequence[str | None] | None = None, previous: EFAResult | Mapping[str,
+                    Any] | None = None,
+                    thresholds: Mapping[str, float] | None = None,
+                    item_rest_r: Sequence[float | None] | np.ndarray | None = None,
                     reverse: Sequence[bool] | None = None, seed: int = 0, random_starts: int = 5,
                     max_iter: int = 1000) -> EFAResult:
     """Extract, rotate, order, reflect, label and flag: the whole ``efa`` section of issue 3.
@@ -704,10 +710,10 @@ def factor_analysis(R, n_factors: int, *, n: int | None = None, names: Sequence[
         r_idx, c_idx = optimize.linear_sum_assignment(-np.abs(C))
         m_prev = prevM.shape[1]
         # new order: matched factors in the previous order, then the unmatched ones by variance
-        perm = [None] * m_prev
+        perm: list[int | None] = [None] * m_prev
         for r, c in zip(r_idx, c_idx):
             perm[c] = r
-        new_order = [r for r in perm if r is not None] + [j for j in range(m) if j not in set(r_idx)]
+        new_order = [int(r) for r in perm if r is not None] + [j for j in range(m) if j not in set(r_idx)]
         sgn = np.ones(m)
         for r, c in zip(r_idx, c_idx):
             if C[r, c] < 0:

@@ -16,6 +16,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .errors import InputError
 
@@ -95,8 +96,11 @@ def _factor_name(labels: Sequence[str], j: int) -> str:
     return lab if lab == generic else f"factor {j + 1} ('{lab}')"
 
 
-def flag_items(pattern, *, names: Sequence[str], communalities=None, factor_labels: Sequence[str] | None = None,
-               constructs: Sequence[str | None] | None = None, item_rest_r=None,
+def flag_items(pattern: ArrayLike, *, names: Sequence[str],
+               communalities: Sequence[float | None] | np.ndarray | None = None,
+               factor_labels: Sequence[str] | None = None,
+               constructs: Sequence[str | None] | None = None,
+               item_rest_r: Sequence[float | None] | np.ndarray | None = None,
                reverse: Sequence[bool] | None = None, thresholds: Mapping[str, float] | None = None,
                heywood: Sequence[str] | None = None) -> list[dict]:
     """Flag items by the rules of issue 3.
@@ -223,7 +227,8 @@ def flag_items(pattern, *, names: Sequence[str], communalities=None, factor_labe
     return flags
 
 
-def item_level_flags(R, *, names: Sequence[str], floor=None, ceiling=None,
+def item_level_flags(R: ArrayLike, *, names: Sequence[str], floor: Sequence[float | None] | np.ndarray | None = None,
+                     ceiling: Sequence[float | None] | np.ndarray | None = None,
                      thresholds: Mapping[str, float] | None = None) -> list[dict]:
     """Flags that need no factor model: near-duplicate pairs and answers piled at one end.
 

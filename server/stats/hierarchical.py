@@ -30,6 +30,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from . import efa as _efa
 from .errors import InputError
@@ -135,7 +136,7 @@ def _check_solution(pattern, phi) -> tuple[np.ndarray, np.ndarray]:
     return P, (F + F.T) / 2
 
 
-def schmid_leiman(pattern, phi, *, names: Sequence[str] | None = None,
+def schmid_leiman(pattern: ArrayLike, phi: ArrayLike | None, *, names: Sequence[str] | None = None,
                   factors: Sequence[str] | None = None) -> SchmidLeimanResult:
     """Schmid-Leiman transformation of an oblique factor solution.
 
@@ -229,7 +230,7 @@ def schmid_leiman(pattern, phi, *, names: Sequence[str] | None = None,
                               warnings=tuple(warnings))
 
 
-def construct_replicability(loadings) -> float | None:
+def construct_replicability(loadings: ArrayLike) -> float | None:
     """Hancock & Mueller's (2001) coefficient H of a factor from its standardized loadings.
 
     Notes
@@ -335,7 +336,7 @@ def _default_groups(F: np.ndarray) -> np.ndarray:
     return np.argmax(np.abs(F), axis=1)
 
 
-def omega_coefficients(R, sl: SchmidLeimanResult, *, groups: Sequence[int | None] | None = None
+def omega_coefficients(R: ArrayLike, sl: SchmidLeimanResult, *, groups: Sequence[int | None] | None = None
                        ) -> OmegaCoefficients:
     """Omega total, omega hierarchical, omega per group factor, ECV and H from a Schmid-Leiman solution.
 

@@ -10,8 +10,10 @@ omega-if-deleted are run as one batch, warm-started from the full-set solution.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .errors import InputError
 from .reliability import _H, _check_cov, _cov_to_corr, _fit_batch, _num, _off_diagonal, one_factor_loadings
@@ -27,7 +29,7 @@ def _names(names, k: int) -> list[str]:
     return names
 
 
-def alpha_if_deleted(cov) -> np.ndarray:
+def alpha_if_deleted(cov: ArrayLike) -> np.ndarray:
     """Cronbach's alpha of the remaining items after deleting each item in turn (closed form).
 
     Notes
@@ -53,7 +55,7 @@ def alpha_if_deleted(cov) -> np.ndarray:
     return np.where(Vj > 0, out, np.nan)
 
 
-def item_rest_correlations(cov) -> np.ndarray:
+def item_rest_correlations(cov: ArrayLike) -> np.ndarray:
     """Corrected item-total correlation: each item with the sum of the other items.
 
     Notes
@@ -82,7 +84,7 @@ def _start(R: np.ndarray, start) -> np.ndarray:
     return one_factor_loadings(R).loadings
 
 
-def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = None) -> np.ndarray:
+def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: ArrayLike | None = None) -> np.ndarray:
     """Omega total for each item subset (rows of ``mask``), fitted as one warm-started batch."""
     R, sd = _cov_to_corr(S)
     start = _start(R, start)
@@ -114,7 +116,7 @@ def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: np.ndarray | None = N
     return out
 
 
-def item_table(cov, *, names, start=None) -> list[dict]:
+def item_table(cov: ArrayLike, *, names: Sequence[str] | None, start: ArrayLike | None = None) -> list[dict]:
     """Item-rest correlation, alpha if deleted and omega if deleted for every item.
 
     Parameters
@@ -148,15 +150,13 @@ def item_table(cov, *, names, start=None) -> list[dict]:
     names = _names(names, k)
     r_rest = item_rest_correlations(S)
     a_del = alpha_if_deleted(S)
-    if k >= 4:
-        o_del = _omega_subsets(S, ~np.eye(k, dtype=bool), start)
-    else:
-        o_del = np.full(k, np.nan)
+    o_del = _omega_subsets(S, ~np.eye(k, dtype=bool), start) if k >= 4 else np.full(k, np.nan)
     return [{"name": names[j], "item_rest_r": _num(r_rest[j]), "alpha_if_deleted": _num(a_del[j]),
              "omega_if_deleted": _num(o_del[j])} for j in range(k)]
 
 
-def pruning_path(cov, *, names, min_items: int = 3, start=None) -> list[dict]:
+def pruning_path(cov: ArrayLike, *, names: Sequence[str] | None, min_items: int = 3,
+                 start: ArrayLike | None = None) -> list[dict]:
     """Greedy backward elimination by alpha: the curve the dashboard draws.
 
     Parameters
@@ -221,7 +221,7 @@ def pruning_path(cov, *, names, min_items: int = 3, start=None) -> list[dict]:
             m -= 1
             removed.append(j)
     step_of = np.full(k, len(removed))  # the step at which each item leaves (never: past the end)
-    for s_, j in enumerate(removed[1:], start=1):
+    for s_, j in enumerate([r for r in removed if r is not None], start=1):  # removed[0] is None
         step_of[j] = s_
     masks = np.arange(len(removed))[:, None] < step_of[None, :]
     omegas = _omega_subsets(S, masks, start) if k >= 3 else np.full(len(masks), np.nan)

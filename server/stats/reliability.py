@@ -10,10 +10,12 @@ giving plain JSON types.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 from scipy import optimize, special
 
 from .errors import InputError
@@ -230,7 +232,7 @@ class AlphaResult:
                 "n": self.n, "k": self.k, "missing": self.missing}
 
 
-def cronbach_alpha(responses, *, missing: str = "pairwise", ci: float = 0.95) -> AlphaResult:
+def cronbach_alpha(responses: ArrayLike, *, missing: str = "pairwise", ci: float = 0.95) -> AlphaResult:
     """Cronbach's coefficient alpha of a respondents x items table.
 
     Parameters
@@ -318,7 +320,7 @@ def _lambda6(S: np.ndarray, total: float) -> tuple[float | None, Note | None]:
     return 1.0 - err.sum() / total, None
 
 
-def guttman_lambdas(cov) -> GuttmanLambdas:
+def guttman_lambdas(cov: ArrayLike) -> GuttmanLambdas:
     """Guttman's (1945) lower bounds to reliability from an item covariance matrix.
 
     Parameters
@@ -481,7 +483,7 @@ def _fit_batch(Ro: np.ndarray, L0: np.ndarray, mask: np.ndarray, *, tol: float =
     LR = L @ Ro
     it = 0
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for it in range(1, max_iter + 1):
+        for it in range(1, max_iter + 1):  # noqa: B007  (the count is read after the loop)
             U = _coordinate_update(LR, L, pad, mf)
             UR = U @ Ro
             c = _optimal_scale(U, UR)
@@ -548,7 +550,7 @@ def _fit_bounded(R: np.ndarray, start: np.ndarray | None = None) -> tuple[np.nda
     return lam, psi, bool(res.success), int(res.nit)
 
 
-def one_factor_loadings(corr, start=None) -> OneFactorFit:
+def one_factor_loadings(corr: ArrayLike, start: ArrayLike | None = None) -> OneFactorFit:
     """Minres (unweighted least squares) loadings of a one-factor model for a correlation matrix.
 
     Parameters
@@ -648,7 +650,8 @@ def _omega_from_fit(S: np.ndarray, fit: OneFactorFit, names=None) -> OmegaResult
                        converged=fit.converged, warnings=warnings)
 
 
-def mcdonald_omega(cov, *, start=None, names=None) -> OmegaResult:
+def mcdonald_omega(cov: ArrayLike, *, start: ArrayLike | None = None,
+                   names: Sequence[str] | None = None) -> OmegaResult:
     """McDonald's omega total from a one-factor minres model.
 
     Parameters
@@ -761,9 +764,10 @@ def split_half_odd_even(S: np.ndarray) -> tuple[float, float]:
     return float(r), float(2 * r / (1 + r)) if r > -1 else float("nan")
 
 
-def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float = 0.95,
-                         min_pair_n: int | None = None, names=None, missing: str | None = "pairwise",
-                         start=None) -> ReliabilityResult:
+def reliability_from_cov(cov: ArrayLike, *, n: int, n_complete: int, means: ArrayLike | None = None, ci: float = 0.95,
+                         min_pair_n: int | None = None, names: Sequence[str] | None = None,
+                         missing: str | None = "pairwise",
+                         start: ArrayLike | None = None) -> ReliabilityResult:
     """All internal-consistency statistics of a set of items from their covariance matrix.
 
     Parameters
@@ -841,6 +845,9 @@ def reliability_from_cov(cov, *, n: int, n_complete: int, means=None, ci: float 
         warnings.append(note("negative_average_covariance", f"The average inter-item covariance is negative "
                              f"({avg_cov:.3g}), so alpha is negative and meaningless; check whether reverse-keyed "
                              "items have been reverse-scored."))
+    lo: float | None
+    hi: float | None
+    sem: float | None
     if math.isfinite(alpha):
         lo, hi = feldt_ci(alpha, k, n, ci)
         sem = math.sqrt(total) * math.sqrt(1 - alpha) if alpha <= 1 else None
@@ -922,7 +929,7 @@ class OrdinalAlphaResult:
                 "warnings": [w.to_dict() for w in self.warnings]}
 
 
-def ordinal_alpha(polychoric_matrix, *, names=None) -> OrdinalAlphaResult:
+def ordinal_alpha(polychoric_matrix: ArrayLike, *, names: Sequence[str] | None = None) -> OrdinalAlphaResult:
     """Ordinal alpha of Zumbo, Gadermann & Zeisser (2007) from a polychoric correlation matrix.
 
     Parameters
@@ -983,7 +990,8 @@ class OrdinalOmegaResult:
                 "converged": self.converged, "note": self.note, "warnings": [w.to_dict() for w in self.warnings]}
 
 
-def ordinal_omega(polychoric_matrix, *, start=None, names=None) -> OrdinalOmegaResult:
+def ordinal_omega(polychoric_matrix: ArrayLike, *, start: ArrayLike | None = None,
+                  names: Sequence[str] | None = None) -> OrdinalOmegaResult:
     """Ordinal omega (Zumbo, Gadermann & Zeisser 2007): McDonald's omega of a polychoric matrix.
 
     Parameters

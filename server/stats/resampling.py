@@ -16,6 +16,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import optimize, special
 
 from .efa import congruence
@@ -116,7 +117,7 @@ def _finite(values) -> tuple[np.ndarray, int]:
     return v[ok], int((~ok).sum())
 
 
-def percentile_interval(values, *, level: float = 0.95) -> Interval:
+def percentile_interval(values: ArrayLike, *, level: float = 0.95) -> Interval:
     """Efron's percentile interval: the ``(1 - level)/2`` and ``(1 + level)/2`` quantiles of the resamples.
 
     Quantiles are interpolated linearly between order statistics (numpy's and scipy's default, type 7
@@ -137,7 +138,7 @@ def percentile_interval(values, *, level: float = 0.95) -> Interval:
     return Interval(float(lo), float(hi), level, "percentile", int(v.size), dropped)
 
 
-def bca_interval(values, estimate: float, jackknife_values, *, level: float = 0.95) -> Interval:
+def bca_interval(values: ArrayLike, estimate: float, jackknife_values: ArrayLike, *, level: float = 0.95) -> Interval:
     """Efron's (1987) bias-corrected and accelerated (BCa) interval.
 
     Parameters
@@ -206,7 +207,7 @@ def bca_interval(values, estimate: float, jackknife_values, *, level: float = 0.
     return Interval(float(lo), float(hi), level, "bca", int(v.size), dropped, None, z0, a)
 
 
-def align_factors(loadings, reference, *, phi=None) -> Alignment:
+def align_factors(loadings: ArrayLike, reference: ArrayLike, *, phi: ArrayLike | None = None) -> Alignment:
     """Reorder and reflect a resample's factors to match the reference factors.
 
     Factors are paired by the Hungarian assignment (Kuhn 1955) maximising the summed absolute Tucker

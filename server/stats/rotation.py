@@ -27,6 +27,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .errors import InputError
 from .notes import Note, note
@@ -122,7 +123,7 @@ def _gpa_orthogonal(A: np.ndarray, vgq: Callable, T0: np.ndarray, max_iter: int,
     al = 1.0
     converged = False
     it = 0
-    for it in range(max_iter + 1):
+    for it in range(max_iter + 1):  # noqa: B007  (the count is read after the loop)
         M = T.T @ G
         S = (M + M.T) / 2.0
         Gp = G - T @ S
@@ -154,7 +155,7 @@ def _gpa_oblique(A: np.ndarray, vgq: Callable, T0: np.ndarray, max_iter: int, to
     al = 1.0
     converged = False
     it = 0
-    for it in range(max_iter + 1):
+    for it in range(max_iter + 1):  # noqa: B007  (the count is read after the loop)
         Gp = G - T * np.sum(T * G, axis=0)[None, :]
         s = float(np.sqrt(np.sum(Gp * Gp)))
         if s < tol:
@@ -223,6 +224,7 @@ def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: in
         if (best is None or (conv and not best[4])
                 or (conv == best[4] and Q < best[3] - 1e-9 * (1.0 + abs(best[3])))):
             best = (None, T, L, Q, conv, it)
+    assert best is not None  # at least one start always runs
     _, T, L, Q, conv, it = best
     warnings: list[Note] = []
     if not conv:
@@ -239,7 +241,7 @@ def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: in
 
 # --------------------------------------------------------------------------- public rotations
 
-def oblimin(A, gamma: float = 0.0, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
+def oblimin(A: ArrayLike, gamma: float = 0.0, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
             max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
     """Direct oblimin rotation by gradient projection; ``gamma=0`` is quartimin.
 
@@ -277,7 +279,7 @@ def oblimin(A, gamma: float = 0.0, *, normalize: bool = False, random_starts: in
                 random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol)
 
 
-def geomin(A, epsilon: float = 0.01, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
+def geomin(A: ArrayLike, epsilon: float = 0.01, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
            max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
     """Oblique geomin rotation by gradient projection.
 
@@ -298,7 +300,7 @@ def geomin(A, epsilon: float = 0.01, *, normalize: bool = False, random_starts: 
                 random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol)
 
 
-def quartimax(A, *, normalize: bool = False, max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
+def quartimax(A: ArrayLike, *, normalize: bool = False, max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
     """Orthogonal quartimax rotation by gradient projection.
 
     Notes
@@ -313,7 +315,7 @@ def quartimax(A, *, normalize: bool = False, max_iter: int = _MAX_ITER, tol: flo
                 random_starts=1, seed=0, max_iter=max_iter, tol=tol)
 
 
-def varimax(A, normalize: bool = True, *, max_iter: int = 2000, tol: float = 1e-13) -> RotationResult:
+def varimax(A: ArrayLike, normalize: bool = True, *, max_iter: int = 2000, tol: float = 1e-13) -> RotationResult:
     """Varimax rotation (Kaiser 1958), with Kaiser row normalisation by default.
 
     Uses the classic SVD iteration (as R's ``stats::varimax``): with ``z = A T``,
@@ -334,7 +336,7 @@ def varimax(A, normalize: bool = True, *, max_iter: int = 2000, tol: float = 1e-
     d = 0.0
     converged = False
     it = 0
-    for it in range(1, max_iter + 1):
+    for it in range(1, max_iter + 1):  # noqa: B007  (the count is read after the loop)
         z = X @ T
         B = X.T @ (z ** 3 - z * (np.sum(z * z, axis=0) / k)[None, :])
         U, s, Vt = np.linalg.svd(B)
@@ -350,7 +352,7 @@ def varimax(A, normalize: bool = True, *, max_iter: int = 2000, tol: float = 1e-
     return RotationResult(z * w[:, None], np.eye(m), T, converged, it, crit, warnings, "varimax")
 
 
-def promax(A, power: int = 4, *, normalize: bool = True, max_iter: int = _MAX_ITER) -> RotationResult:
+def promax(A: ArrayLike, power: int = 4, *, normalize: bool = True, max_iter: int = _MAX_ITER) -> RotationResult:
     """Promax rotation (Hendrickson & White 1964) from a Kaiser-normalised varimax solution.
 
     Notes
@@ -387,7 +389,7 @@ def promax(A, power: int = 4, *, normalize: bool = True, max_iter: int = _MAX_IT
                           "promax")
 
 
-def rotate(A, method: str = "oblimin", *, gamma: float = 0.0, epsilon: float = 0.01, power: int = 4,
+def rotate(A: ArrayLike, method: str = "oblimin", *, gamma: float = 0.0, epsilon: float = 0.01, power: int = 4,
            random_starts: int = 5, seed: int = 0) -> RotationResult:
     """Dispatch by name: one of :data:`ROTATIONS` (``"none"`` returns ``A`` unchanged)."""
     A = _check_loadings(A)

@@ -10,6 +10,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import stats as sps
 
 from .agreement import KOO_LI_SOURCE, IccResult, _num, icc
@@ -132,10 +133,7 @@ def _corr(a: np.ndarray, b: np.ndarray, kind: str, ci: float) -> Correlation:
         if np.ptp(x) == 0:
             return Correlation(value=None, ci=None, p=None, reason=f"Every score in the {label} wave is {x[0]:g}; "
                                                                    f"with no variance {name} is undefined.")
-    if kind == "pearson":
-        res = sps.pearsonr(a, b)
-    else:
-        res = sps.spearmanr(a, b)
+    res = sps.pearsonr(a, b) if kind == "pearson" else sps.spearmanr(a, b)
     r = float(res.statistic)
     interval = None
     if n > 3 and abs(r) < 1:
@@ -170,12 +168,13 @@ def _compare(a: np.ndarray, b: np.ndarray, *, ci: float) -> dict:
     # Bland-Altman
     d = b - a
     if n >= 2:
-        sd_d: float | None = float(d.std(ddof=1))
+        sd = float(d.std(ddof=1))
+        sd_d: float | None = sd
         md = float(d.mean())
-        se_md = float(sd_d) / math.sqrt(n)
+        se_md = sd / math.sqrt(n)
         t = float(sps.t.ppf(0.5 + ci / 2, n - 1))
         md_ci: tuple[float, float] | None = (md - t * se_md, md + t * se_md)
-        loa = LimitsOfAgreement(lower=md - 1.96 * float(sd_d), upper=md + 1.96 * float(sd_d), reason=None,
+        loa = LimitsOfAgreement(lower=md - 1.96 * sd, upper=md + 1.96 * sd, reason=None,
                                 formula=LOA_FORMULA)
     else:
         sd_d = md_ci = None
@@ -190,7 +189,7 @@ def _compare(a: np.ndarray, b: np.ndarray, *, ci: float) -> dict:
             "limits_of_agreement": loa}
 
 
-def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
+def retest(first: ArrayLike, second: ArrayLike, *, score: str = "sum", items: list[str] | None = None,
            items_second: list[str] | None = None, ids: list[str] | None = None,
            ci: float = 0.95) -> RetestResult:
     """Test-retest (or parallel-forms) stability of a scale's total score and of each item.
@@ -220,8 +219,8 @@ def retest(first, second, *, score: str = "sum", items: list[str] | None = None,
         ``interpretation`` (Koo & Li reading of the recommended ICC's interval), ``sem``,
         ``mdc95``, ``mean_difference``, ``mean_difference_ci``, ``sd_difference``,
         ``limits_of_agreement {lower, upper}``, ``means``/``sds`` per wave, ``scores``
-        (``[[first, second], ...]`` per kept respondent), ``score_ids`` (their IDs when given), ``per_item`` (list with the same
-        statistics per item pair, plus ``item`` and ``item_second``), ``formulas``, ``warnings``.
+        (``[[first, second], ...]`` per kept respondent), ``score_ids`` (their IDs when given), ``per_item``
+        (list with the same statistics per item pair, plus ``item`` and ``item_second``), ``formulas``, ``warnings``.
 
     Notes
     -----

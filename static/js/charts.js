@@ -139,7 +139,7 @@ export function factorCorrelations(el, { factors: labels, matrix }) {
 }
 
 // items: [{name, text, alpha_if_deleted}], alpha: current alpha
-export function alphaIfDeleted(el, { items, alpha, onPick }) {
+export function alphaIfDeleted(el, { items, alpha, onPick, title }) {
   const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
   const trace = {
     type: "scatter", mode: "markers", x: items.map((it) => esc(it.name)), y: items.map((it) => it.alpha_if_deleted),
@@ -158,7 +158,7 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
   const hi = Math.max(...ys);
   const pad = Math.max((hi - lo) * 0.12, 0.002);
   const layout = base({
-    title: { text: "Alpha if each item is dropped (above the line: the scale is better without it)", x: 0,
+    title: { text: esc(title || "Alpha if each item is dropped (above the line: the scale is better without it)"), x: 0,
       font: { size: fontSize() + 1 } },
     height: 320, shapes, annotations, showlegend: false,
     xaxis: { tickangle: -45, gridcolor: GRID },
@@ -170,7 +170,7 @@ export function alphaIfDeleted(el, { items, alpha, onPick }) {
 }
 
 // path: [{removed, n_items, alpha, omega_total}] (first entry: the current set, removed null)
-export function pruningPath(el, { path }) {
+export function pruningPath(el, { path, title }) {
   const x = path.map((p) => p.n_items);
   const label = path.map((p) => (p.removed ? `after dropping ${esc(p.removed)}` : "current set"));
   const alpha = { type: "scatter", mode: "lines+markers+text", name: "alpha", x, y: path.map((p) => p.alpha),
@@ -178,11 +178,11 @@ export function pruningPath(el, { path }) {
     textfont: { size: fontSize() - 2, color: MUTED }, cliponaxis: false,
     customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
     hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
-  const omega = { type: "scatter", mode: "lines+markers", name: "omega (total)", x, y: path.map((p) => p.omega_total),
+  const omega = { type: "scatter", mode: "lines+markers", name: "omega (one factor)", x, y: path.map((p) => p.omega_total),
     customdata: label, line: { color: OMEGA, width: 2, dash: "dot" }, marker: { size: 6, symbol: "diamond" },
     hovertemplate: "%{x} items (%{customdata}): omega %{y:.3f}<extra></extra>" };
   const layout = base({
-    title: { text: "Pruning path: dropping the item that costs least, one at a time", x: 0, font: { size: fontSize() + 1 } },
+    title: { text: esc(title || "Pruning path: dropping the item that costs least, one at a time"), x: 0, font: { size: fontSize() + 1 } },
     height: 340, legend: { orientation: "h", x: 1, xanchor: "right", y: 1.02, yanchor: "bottom" },
     margin: { l: 60, r: 20, t: 64, b: 48 },
     xaxis: { title: { text: "items kept" }, range: [Math.max(...x) + 0.5, Math.min(...x) - 0.5], dtick: 1, gridcolor: GRID },

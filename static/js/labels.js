@@ -45,3 +45,37 @@ export function thresholdLabel(key) {
 
 /** A warning's text: analysis answers give {code, message, items}; older snapshots keep plain sentences. */
 export const warningText = (w) => (w != null && typeof w === "object" ? String(w.message ?? w.code ?? "") : String(w ?? ""));
+
+// Coded warnings that concern particular items: the chip shown on those items' board and heatmap rows.
+export const WARNING_WORDS = {
+  factor_few_items: "factor has few items", polychoric_empty_cells: "empty cell", polychoric_zero_cell_correction: "empty cell",
+  polychoric_boundary: "boundary r", polychoric_sparse_category: "sparse category", rotation_degenerate: "degenerate rotation",
+};
+
+/** Every coded warning of an answer (top level, correlations, factor solution), each (code, items) once. */
+export function codedWarnings(analysis) {
+  const seen = new Set();
+  const out = [];
+  for (const w of [...(analysis?.warnings || []), ...(analysis?.correlations?.warnings || []), ...(analysis?.efa?.warnings || [])]) {
+    if (w == null || typeof w !== "object" || !w.code) continue;
+    const key = JSON.stringify([w.code, w.items || [], w.message]);
+    if (!seen.has(key)) { seen.add(key); out.push(w); }
+  }
+  return out;
+}
+
+/** The item-level warnings of an answer (codes in WARNING_WORDS), grouped by item: {item: [{code, word, message}]}. */
+export function warningsByItem(analysis) {
+  const out = {};
+  for (const w of codedWarnings(analysis)) {
+    if (!WARNING_WORDS[w.code]) continue;
+    for (const it of w.items || []) {
+      const list = (out[it] ||= []);
+      if (!list.some((x) => x.code === w.code && x.message === w.message)) list.push({ code: w.code, word: WARNING_WORDS[w.code], message: w.message });
+    }
+  }
+  return out;
+}
+
+/** The warning with this code (first found), or undefined. */
+export const findWarning = (analysis, code) => codedWarnings(analysis).find((w) => w.code === code);

@@ -71,14 +71,15 @@ function renderSummary() {
   const rel = a?.reliability || {};
   const stat = (id, label, value, extra) => h("div", { class: "stat", id }, h("span", { class: "label", text: label }),
     h("span", { class: "value", text: value }), extra);
-  box.append(
+  box.append(...[
     stat("stat-alpha", "α", fmt(rel.alpha), delta("alpha", (x) => x?.reliability?.alpha)),
     stat("stat-ci", "95% CI", rel.alpha_ci ? `${fmt(rel.alpha_ci[0], 2)}–${fmt(rel.alpha_ci[1], 2)}` : "—"),
     stat("stat-omega", "ω", fmt(rel.omega_total), delta("omega", (x) => x?.reliability?.omega_total)),
+    rel.omega_hierarchical != null ? stat("stat-omega-h", "ωh", fmt(rel.omega_hierarchical)) : null,
     stat("stat-items", "items", `${kept} / ${total}`),
     stat("stat-factors", "factors", a?.efa?.n_factors != null ? String(a.efa.n_factors) : "—"),
     stat("stat-kmo", "KMO", fmt(a?.factorability?.kmo, 2)),
-  );
+  ].filter(Boolean));
   if (state.pending) box.append(h("span", { class: "spinner", role: "status", text: "refitting…" }));
   if (state.error) box.append(h("span", { class: "error", role: "alert", text: state.error.message }));
   const warnings = a?.warnings || [];
@@ -190,6 +191,7 @@ Object.assign(actions, {
     state.lastFlags = {};
     state.lastRows = {};
     state.parentSnapshot = null;
+    state.subscale = "";
     clearHistory();
     state.view = "board";
     writeUrl(true);
@@ -215,10 +217,11 @@ Object.assign(actions, {
   undo() { if (undo()) changed("undo", "undid the last change"); },
   redo() { if (redo()) changed("redo", "redid a change"); },
   sortBy(key) {
-    state.sort = state.sort.key === key ? { key, dir: -state.sort.dir } : { key, dir: key === "item_rest_r" ? 1 : key === "alpha_if_deleted" ? -1 : 1 };
+    state.sort = state.sort.key === key ? { key, dir: -state.sort.dir } : { key, dir: key === "item_rest_r" ? 1 : ["alpha_if_deleted", "omega_if_deleted", "r_other_max"].includes(key) ? -1 : 1 };
     renderView();
   },
   filter(part) { Object.assign(state.filter, part); renderView(); },
+  setSubscale(name) { state.subscale = name || ""; writeUrl(); renderView(); },
   setStructure(on) { state.structure = on; renderView(); },
   setSetting(key, value) { remember(); state.settings[key] = value; changed("settings", settingText(key, value)); },
   setThreshold(key, value) {

@@ -1,7 +1,8 @@
 // The one state object of the dashboard, and its sync with the page URL.
 // URL keys: d (dataset id), drop (removed items, in the order they were removed), rev (reverse-keyed
 // override), corr, ext, rot, miss, nf (number of factors), any other served setting under its own name,
-// th (flag thresholds k:v,...), v (view). Settings equal to the served default stay out of the URL.
+// th (flag thresholds k:v,...), v (view), sub (the subscale the board and the alpha curves show).
+// Settings equal to the served default stay out of the URL.
 // The choices, defaults and thresholds come from the server (GET /api/options, in state.options).
 
 export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "workspace"];
@@ -17,6 +18,7 @@ export const state = {
   settings: {},           // analysis settings by name (the served defaults, then what the team chose)
   thresholds: {},         // overrides of the flag rules
   view: "start",
+  subscale: "",           // "" = whole-pool figures on the board and the alpha curves; else a group of analysis.constructs
   // local to this page
   options: null,          // GET /api/options: {settings: [{name, type, default, choices?, min?, max?, help}], thresholds: [...]}
   optionsError: null,     // why the options could not be read (the settings page says so)
@@ -46,7 +48,7 @@ export const state = {
     agreement: null, agreementAsked: null,  // the last agreement answer and {ratings, level} behind it
     retestSummary: "", agreementSummary: "",
     pick: { first: null, second: null, itemsSecond: "", score: "sum", level: "ordinal", text: "", file: null, fileText: null,
-      source: "current", snapshots: [], snapshotsFor: null, wavesFor: null },
+      source: "current", snapshots: [], snapshotsFor: null, wavesFor: null, byConstruct: false },
   },
   workspace: { onlyThis: false, message: null },
 };
@@ -125,6 +127,17 @@ export function keptItems() {
 }
 export function itemMeta(name) { return state.meta ? state.meta.items.find((it) => it.name === name) : undefined; }
 
+/** The chosen subscale's block of the analysis (null for the whole pool or when the group is gone). */
+export function subscaleBlock(analysis = state.analysis) {
+  if (!state.subscale) return null;
+  return analysis?.constructs?.[state.subscale] || null;
+}
+
+/** The groups the subscale selector offers: the analysis's constructs that carry an item table. */
+export function subscaleNames(analysis = state.analysis) {
+  return Object.entries(analysis?.constructs || {}).filter(([, b]) => Array.isArray(b?.item_table)).map(([name]) => name);
+}
+
 export function analysisRequest() {
   const body = {};
   for (const [k, v] of Object.entries(state.settings)) if (v !== undefined) body[k] = v;
@@ -166,6 +179,7 @@ export function readUrl() {
     const [k, v] = pair.split(":");
     if (k && v !== undefined && !Number.isNaN(Number(v))) state.thresholds[k] = Number(v);
   }
+  state.subscale = q.get("sub") || "";
   const v = q.get("v");
   state.view = VIEWS.includes(v) ? v : state.dataset ? "board" : "start";
 }
@@ -184,6 +198,7 @@ export function writeUrl(push = false) {
   const th = Object.entries(state.thresholds).map(([k, v]) => `${k}:${v}`);
   if (th.length) q.set("th", th.join(","));
   if (state.view !== "start" || state.dataset) q.set("v", state.view);
+  if (state.subscale) q.set("sub", state.subscale);
   const url = `${location.pathname}?${q.toString().replace(/%2C/g, ",").replace(/%3A/g, ":")}`;
   if (url !== location.pathname + location.search) {
     if (push) history.pushState(null, "", url); else history.replaceState(null, "", url);

@@ -30,5 +30,6 @@ def build(frame: pd.DataFrame, request: dict | None = None, *, constructs: dict 
     names = [it.name for it in items]
     settings = AnalysisSettings.build(request, names=names, constant=list(constant_notes(X, names)))
     kw = {"memo": memo} if memo is not None else {}
-    inputs = AnalysisInputs.from_responses(X, items, settings.reverse, correlations=[settings.correlation], **kw)
+    inputs = AnalysisInputs.from_responses(X, items, settings.reverse, correlations=[settings.correlation],
+                                           zero_cell_correction=settings.zero_cell_correction, **kw)
     return inputs, settings

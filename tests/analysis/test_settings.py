@@ -79,4 +79,5 @@ def test_to_dict_is_the_answer_settings_section():
     assert s.to_dict() == {"items": NAMES, "reverse": [], "excluded": [], "missing": "pairwise",
                            "correlation": "pearson", "extraction": "minres", "rotation": "oblimin", "gamma": 0.0,
                            "n_factors": 2, "thresholds": {"primary_min": 0.5}, "pa_iterations": 500,
-                           "pa_variant": "components", "seed": 20261202}
+                           "pa_variant": "components", "pa_iterations_polychoric": 30,
+                           "zero_cell_correction": 0.5, "grouping": "construct", "seed": 20261202}

@@ -97,7 +97,8 @@ def test_listwise_scale_mean_and_sd_rest_on_the_same_complete_rows(client):
     ds = _upload(client, data)
     keep = ["Q1", "Q2", "Q3", "Q4"]
     rel = client.post(f"/api/datasets/{ds}/analysis",
-                      json={"missing": "listwise", "items": keep, "reverse": ["Q3"], "n_factors": 1}).json()["reliability"]
+                      json={"missing": "listwise", "items": keep, "reverse": ["Q3"], "n_factors": 1}
+                      ).json()["reliability"]
     scored = data[keep].dropna()
     scored["Q3"] = 6 - scored["Q3"]
     total = scored.sum(axis=1)

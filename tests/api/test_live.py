@@ -6,6 +6,7 @@ subprocess and stops it with SIGINT while a stream is open.
 """
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import signal
@@ -120,10 +121,8 @@ class EventReader:
         return self.of(kind)
 
     def close(self):
-        try:
+        with contextlib.suppress(OSError):
             self._sock.shutdown(socket.SHUT_RDWR)
-        except OSError:
-            pass
         self._sock.close()
 
 

@@ -85,7 +85,9 @@ def _same_numbers(client, body, clean):
 
 
 def _qualtrics(nl="\n") -> bytes:
-    q = lambda t: '"' + t.replace('"', '""') + '"'
+    def q(t: str) -> str:
+        return '"' + t.replace('"', '""') + '"'
+
     rows = [["ResponseId", *ITEMS],
             [q("Response ID"), *(q(f"How much do you agree? - I feel part of group {j}") for j in range(6))],
             [q('{"ImportId":"_recordId"}'), *(q(f'{{"ImportId":"QID{j}"}}') for j in range(6))]]

@@ -16,7 +16,7 @@ def test_options_serve_settings_and_thresholds(client):
     body = r.json()
     by = {o["name"]: o for o in body["settings"]}
     assert set(by) == {"correlation", "missing", "extraction", "rotation", "gamma", "n_factors", "pa_iterations",
-                       "pa_variant", "seed"}
+                       "pa_variant", "pa_iterations_polychoric", "zero_cell_correction", "grouping", "seed"}
     assert by["seed"]["default"] == 20261202 and by["correlation"]["choices"][0] == {"value": "pearson",
                                                                                      "label": "Pearson"}
     assert {t["name"] for t in body["thresholds"]} >= {"primary_min", "cross_gap", "redundant_r"}

@@ -6,6 +6,7 @@ bench/out/browser_timings.json for ``make bench``; no test asserts on speed.
 """
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import socket
@@ -49,8 +50,8 @@ def server(tmp_path_factory):
     data = tmp_path_factory.mktemp("browser-data")
     port = _free_port()
     log = open(data / "server.log", "wb")  # noqa: SIM115  (open for the server's whole life, closed below)
-    proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port), "--data-dir", str(data / "d")],
-                            cwd=ROOT, stdout=log, stderr=subprocess.STDOUT)
+    proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port),
+                             "--data-dir", str(data / "d")], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT)
     base = f"http://127.0.0.1:{port}"
     deadline = time.time() + 30
     while True:
@@ -110,10 +111,8 @@ def timings():
         return
     TIMINGS_FILE.parent.mkdir(parents=True, exist_ok=True)
     previous = {}
-    try:  # keep the timings of tests that did not run this time (e.g. a -k selection)
+    with contextlib.suppress(OSError, ValueError):  # keep the timings of tests that did not run (a -k selection)
         previous = json.loads(TIMINGS_FILE.read_text()).get("timings", {})
-    except (OSError, ValueError):
-        pass
     TIMINGS_FILE.write_text(json.dumps({"written_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                                         "units": "milliseconds, wall clock from the test driver unless "
                                                  "the name ends in _in_page_ms (performance.now in the page)",

@@ -42,7 +42,8 @@ def test_stability_area_shows_scatter_bland_altman_and_icc(page, server, demo, r
     page.click("#run-agreement")
     page.wait_for_selector("table.agreement")
     first_row = page.locator("table.agreement tbody tr").first.inner_text()
-    assert "80.0% (8 of 10 units)" in first_row  # 8 of 10 units agree (the invented example); a share, shown as one
+    # 8 of 10 units agree (the invented example); a share, shown as one
+    assert "80.0% (8 of 10 units)" in first_row
     assert "Cohen" in page.inner_text("table.agreement")
     assert page.errors == []
 
@@ -68,7 +69,8 @@ def test_snapshots_compare_and_restore(page, server, demo):
     page.wait_for_selector("#comparison")
     text = page.inner_text("#comparison")
     assert "items removed W3" in text  # from the older snapshot A to the newer B
-    assert "B: without C7 and W3" in page.inner_text("#comparison table.compare-coefficients thead")  # named columns, not "First/Second"
+    # named columns, not "First/Second"
+    assert "B: without C7 and W3" in page.inner_text("#comparison table.compare-coefficients thead")
     row_b = page.locator("table.snapshots tbody tr", has_text="B: without C7 and W3")
     before = fitted_marker(page)
     row_b.get_by_role("button", name="Restore").click()
@@ -157,7 +159,8 @@ def test_dashboard_works_with_the_access_token(browser, tmp_path):
         deadline = time.time() + 30
         while time.time() < deadline:
             try:
-                if httpx.get(f"{base}/api/health", headers={"X-Scalewright-Token": "s3cret"}, timeout=1).status_code == 200:
+                health = httpx.get(f"{base}/api/health", headers={"X-Scalewright-Token": "s3cret"}, timeout=1)
+                if health.status_code == 200:
                     break
             except httpx.HTTPError:
                 time.sleep(0.1)
@@ -290,7 +293,8 @@ def test_item_names_with_commas_survive_the_url(page, server, browser):
     open_dataset(page, server, ds["id"], view="board")
     for item in ("A,1", "B%2C"):
         before = fitted_marker(page)
-        page.locator("#item-board tbody tr", has=page.locator("th.name", has_text=item)).locator("button.toggle").click()
+        row = page.locator("#item-board tbody tr", has=page.locator("th.name", has_text=item))
+        row.locator("button.toggle").click()
         wait_refit(page, before)
     assert js_state(page, "s.dropped") == ["A,1", "B%2C"]
     other = browser.new_context().new_page()

@@ -56,14 +56,16 @@ def test_heatmap_and_alpha_curve_render(page, server, demo, timings):
     started = time.perf_counter()
     open_dataset(page, server, demo["id"], view="loadings")
     timings.setdefault("page_load_to_heatmap_ms", []).append(round((time.perf_counter() - started) * 1000, 1))
-    timings.setdefault("page_load_in_page_ms", []).append(round(page.evaluate("window.scalewright.timings.firstFitMs"), 1))
+    first_fit = page.evaluate("window.scalewright.timings.firstFitMs")
+    timings.setdefault("page_load_in_page_ms", []).append(round(first_fit, 1))
     page.wait_for_selector("#heatmap[data-rendered]")
     n_items = js_state(page, "Object.keys(s.analysis.efa.loadings).length")
     n_factors = js_state(page, "s.analysis.efa.n_factors")
     assert n_factors >= 2
     cells = page.locator("#heatmap .hm text, #heatmap text.textpoint, #heatmap g.heatmaplayer text").count()
     if cells == 0:  # plotly versions differ in where heatmap texts live; count every number-like svg text
-        cells = page.evaluate("[...document.querySelectorAll('#heatmap svg text')].filter(t => /^-?\\d\\.\\d\\d$/.test(t.textContent)).length")
+        cells = page.evaluate("[...document.querySelectorAll('#heatmap svg text')]"
+                              ".filter(t => /^-?\\d\\.\\d\\d$/.test(t.textContent)).length")
     assert cells == n_items * n_factors  # one printed value per cell (texttemplate)
     assert page.locator("#phi svg").count() >= 1  # factor correlations beside the heatmap
     page.click("#tab-alpha")
@@ -254,7 +256,8 @@ def test_hostile_item_wording_is_shown_as_text(page, server):
     for item, wording in (("H1", hostile), ("H3", "<b>Bold</b> <a href=x>link</a>")):
         tick = page.locator("#heatmap .ytick text", has_text=item).first.bounding_box()
         page.mouse.move(area["x"] + area["width"] / 2, tick["y"] + tick["height"] / 2)
-        wait_js(page, "w => (document.querySelector('#heatmap .hoverlayer') || {}).textContent?.includes(w)", wording, 5000)
+        wait_js(page, "w => (document.querySelector('#heatmap .hoverlayer') || {}).textContent?.includes(w)",
+                wording, 5000)
         assert page.locator("#heatmap .hoverlayer a").count() == 0
     assert page.locator("#view img").count() == 0
     assert page.evaluate("window.__pwned") is None

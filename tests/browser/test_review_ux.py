@@ -161,8 +161,9 @@ def test_the_header_coefficients_stay_on_one_line(browser, server, demo):
         page.click('tr[data-item="C7"] button.toggle')  # a drop adds the change marks
         wait_refit(page, before)
         assert page.locator("#summary .delta").count() >= 1
-        tops = page.evaluate("[...document.querySelectorAll('#summary .stat')].map(e => Math.round(e.getBoundingClientRect().top))")
-        assert len(tops) == 6 and len(set(tops)) == 1
+        tops = page.evaluate("[...document.querySelectorAll('#summary .stat')]"
+                             ".map(e => Math.round(e.getBoundingClientRect().top))")
+        assert len(tops) == 7 and len(set(tops)) == 1  # alpha, CI, omega, omega h, items, factors, KMO
     finally:
         context.close()
 
@@ -215,7 +216,8 @@ def test_the_second_wave_defaults_to_another_file(page, server, demo):
     assert page.input_value("#wave-first") == copy["id"]
     second = page.input_value("#wave-second")
     assert second != newest["id"] and second != copy["id"]
-    assert page.evaluate("id => window.scalewright.state.datasets.find(d => d.id === id).sha256", second) != copy["sha256"]
+    sha = page.evaluate("id => window.scalewright.state.datasets.find(d => d.id === id).sha256", second)
+    assert sha != copy["sha256"]
 
 
 def test_a_tab_opened_with_the_keyboard_keeps_the_focus(page, server, demo):

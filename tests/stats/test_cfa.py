@@ -169,7 +169,7 @@ def test_analytic_gradient_matches_finite_differences(hs_S):
         x = np.concatenate([rng.uniform(0.3, 0.8, model.nl), rng.uniform(0.1, 0.4, model.nphi),
                             rng.uniform(0.3, 0.7, 9)])
         if free_var:
-            x[model.nl: model.nl + model.nphi][[j for j, (k, l) in enumerate(model.phi_idx) if k == l]] = 1.2
+            x[model.nl: model.nl + model.nphi][[j for j, (k, k2) in enumerate(model.phi_idx) if k == k2]] = 1.2
         logdet = np.linalg.slogdet(R)[1]
         _, g = model.objective(x, R, logdet)
         h = 1e-6

@@ -1,6 +1,6 @@
 // The item board: one row per item, keep/drop toggle, the numbers that argue for or against it.
-import { flagWord, flagsByItem } from "../labels.js";
-import { actions, allItems, itemMeta } from "../state.js";
+import { flagWord, flagsByItem, warningsByItem } from "../labels.js";
+import { actions, allItems, itemMeta, subscaleBlock, subscaleNames } from "../state.js";
 import { clear, fmt, h, note, pct, select } from "./dom.js";
 
 function countsOf(row) {
@@ -28,7 +28,7 @@ function distBar(row) {
 function sortValue(state, key, name, row, flags, order) {
   switch (key) {
     case "name": return name;
-    case "construct": return itemMeta(name)?.construct || "";
+    case "codebook": return itemMeta(name)?.construct || ""; // the codebook construct
     case "flags": return -(flags[name]?.length || 0);
     case "order": return order;
     default: {
@@ -40,16 +40,37 @@ function sortValue(state, key, name, row, flags, order) {
   }
 }
 
+// The highest correlation of an item with the rest of another subscale, and that subscale's name.
+function closestOther(row) {
+  let best = null;
+  for (const [group, r] of Object.entries(row?.r_other || {})) if (r != null && (best == null || r > best[1])) best = [group, r];
+  return best;
+}
+
 export function render(container, state) {
   const a = state.analysis;
   const keep = new Set(allItems().filter((n) => !state.dropped.includes(n)));
-  const rows = Object.fromEntries((a?.items || []).map((r) => [r.name, r]));
+  // On a subscale the figures are that subscale's own item analysis (issue 11); otherwise the whole pool's.
+  const block = subscaleBlock(a);
+  const groups = subscaleNames(a);
+  // The descriptives (floor, ceiling, answers) stay the pool row's; the item-total figures are the subscale's.
+  const pool = Object.fromEntries((a?.items || []).map((r) => [r.name, r]));
+  const rows = block ? Object.fromEntries(block.item_table.map((r) => {
+    const other = closestOther(r);
+    return [r.name, { ...pool[r.name], ...r, r_other_max: other ? other[1] : null, r_other_group: other ? other[0] : null }];
+  })) : pool;
   const flags = flagsByItem(a);
-  const alpha = a?.reliability?.alpha;
+  const itemWarnings = warningsByItem(a);
+  const alpha = block ? block.alpha : a?.reliability?.alpha;
+  const showConstruct = !block || a?.grouping?.used === "factor"; // on a construct's own board the column says one thing
   const constructs = [...new Set((state.meta?.items || []).map((it) => it.construct).filter(Boolean))];
   const kinds = [...new Set((a?.efa?.flags || []).map((f) => f.kind))];
 
   let names = allItems().map((n, i) => ({ n, i }));
+  if (block) {
+    const members = new Set(block.items || block.item_table.map((r) => r.name));
+    names = names.filter(({ n }) => members.has(n) || (!keep.has(n) && itemMeta(n)?.construct === state.subscale));
+  }
   if (state.filter.construct) names = names.filter(({ n }) => (itemMeta(n)?.construct || "") === state.filter.construct);
   if (state.filter.flag === "any") names = names.filter(({ n }) => flags[n]?.length);
   else if (state.filter.flag === "dropped") names = names.filter(({ n }) => !keep.has(n));
@@ -74,6 +95,8 @@ export function render(container, state) {
     const r = rows[n];
     const kept = keep.has(n);
     const itemFlags = kept ? flags[n] || [] : [];
+    const itemWarns = kept ? itemWarnings[n] || [] : [];
+    const elsewhere = block && kept && r && r.r_other_max != null && r.item_rest_r != null && r.r_other_max > r.item_rest_r;
     const better = kept && r && alpha != null && r.alpha_if_deleted != null && r.alpha_if_deleted > alpha;
     const tr = h("tr", { class: `item ${kept ? "kept" : "dropped"}`, tabindex: 0, dataset: { item: n },
       "aria-label": `${n}${kept ? "" : " (dropped)"}: ${m.text || ""}` },
@@ -83,33 +106,47 @@ export function render(container, state) {
     h("th", { scope: "row", class: "name",
       title: kept && r ? `n ${r.n ?? "—"} · mean ${fmt(r.mean, 2)} · sd ${fmt(r.sd, 2)}${r.skew != null ? ` · skew ${fmt(r.skew, 2)}` : ""}` : null }, n, m.reverse || (state.reverse || []).includes(n) ? h("span", { class: "rev", title: "reverse-keyed", text: " ↺" }) : null),
     h("td", { class: "wording", text: m.text || "" }),
-    h("td", { class: "construct", text: m.construct || "—" }),
+    showConstruct ? h("td", { class: "codebook-construct", text: m.construct || "—" }) : null,
     h("td", { class: "num", text: kept && r ? fmt(r.item_rest_r, 2) : "—" }),
     h("td", { class: `num ${better ? "better" : ""}`,
-      title: kept && r ? `${better ? "Alpha would rise without this item. " : ""}Omega without it: ${fmt(r.omega_if_deleted)}` : null,
+      title: kept && r && better ? "Alpha would rise without this item." : null,
       text: kept && r ? fmt(r.alpha_if_deleted, 3) : "—" }),
+    h("td", { class: "num omega-if", text: kept && r ? fmt(r.omega_if_deleted, 3) : "—" }),
+    block ? h("td", { class: `num r-other ${elsewhere ? "elsewhere" : ""}`,
+      title: elsewhere ? `${n} correlates more with the rest of “${r.r_other_group}” than with the rest of its own subscale.` : null,
+      text: kept && r && r.r_other_max != null ? `${fmt(r.r_other_max, 2)} ${r.r_other_group}` : "—" }) : null,
     h("td", { class: "num", text: kept && r ? `${pct(r.floor)} / ${pct(r.ceiling)}` : "—" }),
     h("td", {}, kept && r ? distBar(r) : null),
     h("td", { class: "flags" }, itemFlags.map((f) => h("span", { class: `flag ${f.kind}`, tabindex: 0, role: "note",
-      "aria-label": `${flagWord(f.kind)}: ${f.message}`, dataset: { tip: f.message }, text: flagWord(f.kind) }))));
+      "aria-label": `${flagWord(f.kind)}: ${f.message}`, dataset: { tip: f.message }, text: flagWord(f.kind) })),
+    itemWarns.map((w) => h("span", { class: `flag warn ${w.code}`, tabindex: 0, role: "note",
+      "aria-label": `${w.word}: ${w.message}`, dataset: { tip: w.message, code: w.code }, text: w.word }))));
     tr.addEventListener("keydown", (e) => onKey(state, e, n, tr));
     tr.addEventListener("focus", () => { state.board.focus = n; });
     tbody.append(tr);
   }
 
   clear(container);
+  const scope = block
+    ? `Subscale “${state.subscale}” (${(block.items || []).length} active items, α ${fmt(block.alpha)}): item-rest r, α and ω if dropped are computed within this subscale; the last column is the item's highest correlation with the rest of another subscale.`
+    : `Whole-pool figures: item-rest r, α and ω if dropped treat every active item as one scale.${groups.length ? " Choose a subscale under “Figures for” for its own item analysis." : ""}`;
   container.append(h("div", { class: "board-tools" },
+    groups.length ? h("label", {}, "Figures for ", select([["", "Whole pool"], ...groups.map((g) => [g, g])], block ? state.subscale : "",
+      (v) => actions.setSubscale(v), { id: "subscale" })) : null,
     h("label", {}, "Construct ", select([["", "all"], ...constructs.map((c) => [c, c])], state.filter.construct,
       (v) => actions.filter({ construct: v }), { id: "filter-construct" })),
     h("label", {}, "Show ", select([["", "every item"], ["any", "flagged items"], ...kinds.map((k) => [k, `flag: ${flagWord(k)}`]),
       ["dropped", "dropped items"]], state.filter.flag, (v) => actions.filter({ flag: v }), { id: "filter-flag" })),
     h("span", { class: "muted keys", text: "Keys: ↑/↓ move · D or Space drops/restores · Ctrl+Z undo · Ctrl+Y redo" })));
+  container.append(h("p", { class: `board-scope ${block ? "subscale" : "pool"}`, id: "board-scope", text: scope }));
   if (!names.length) container.append(note("No item matches this filter."));
   container.append(h("div", { class: "table-wrap board-wrap" }, h("table", { class: "board", id: "item-board" },
     h("thead", {}, h("tr", {},
-      h("th", { scope: "col", text: "" }), head("Item", "name"), head("Wording", "order", "Pool order"), head("Construct", "construct"),
+      h("th", { scope: "col", text: "" }), head("Item", "name"), head("Wording", "order", "Pool order"), showConstruct ? head("Construct", "codebook") : null,
       head("Item-rest r", "item_rest_r", "Corrected item-total correlation"),
-      head("α if dropped", "alpha_if_deleted", "Alpha of the scale without this item"),
+      head("α if dropped", "alpha_if_deleted", block ? "Alpha of the subscale without this item" : "Alpha of the scale without this item"),
+      head("ω if dropped", "omega_if_deleted", block ? "Omega of the subscale without this item" : "Omega of the scale without this item"),
+      block ? head("Closest other subscale", "r_other_max", "Highest correlation with the rest of another subscale (higher than the item-rest r: it may belong there)") : null,
       head("Floor / ceiling", "ceiling", "Share of answers at the lowest / highest option"),
       h("th", { scope: "col", text: "Answers" }), head("Flags", "flags", "Heuristic flags from the factor analysis"))),
     tbody)));

@@ -24,7 +24,9 @@ export function render(container, state) {
     h("div", { class: "toolbar" }, h("label", {}, "Factors to extract ", pick),
       h("span", { class: "muted", text: `now: ${chosen ?? "—"}` })),
     table(["Rule", "Keeps", "Note"], [
-      ["Parallel analysis (Horn 1965)", par.n_factors ?? "—", `observed eigenvalues above the 95th percentile of eigenvalues from random data of the same size (${/factor/i.test(par.variant || "") ? "common-factor" : "principal-component"} eigenvalues)`],
+      ["Parallel analysis (Horn 1965)", par.n_factors ?? "—", `observed eigenvalues above the 95th percentile of eigenvalues from ${par.method === "permuted_ordinal"
+        ? "random ordinal data with the observed answer distribution of each item, correlated the same way (polychoric; Garrido, Abad & Ponsoda 2013)"
+        : "random normal data of the same size"} (${/factor/i.test(par.variant || "") ? "common-factor" : "principal-component"} eigenvalues)`],
       ["Velicer's MAP (1976)", map.n_factors ?? "—", "lowest average squared partial correlation"],
       ["Eigenvalues above 1 (Kaiser)", kaiser ?? "—", "shown for comparison only; it tends to keep too many"],
     ], { className: "grid" }),

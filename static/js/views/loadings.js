@@ -1,6 +1,6 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
 import { factorCorrelations, loadingsHeatmap } from "../charts.js";
-import { flagWord, flagsByItem, optionLabel, warningText } from "../labels.js";
+import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
 import { actions, itemMeta } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
 
@@ -23,11 +23,20 @@ export function ordered(efa) {
   return rows;
 }
 
+// A rotation whose solution degenerated is not shown: its message stands where the loadings would be.
+function degenerateBox(w) {
+  return h("div", { class: "degenerate", id: "rotation-degenerate", role: "alert" },
+    h("strong", { text: "This rotation's solution is not shown. " }), h("span", { text: w.message || "" }));
+}
+
 export function render(container, state) {
   clear(container);
   const efa = state.analysis?.efa;
+  const degenerate = findWarning(state.analysis, "rotation_degenerate");
   if (!efa || !efa.loadings || !Object.keys(efa.loadings).length) {
-    container.append(section("Loadings", note((efa?.warnings || []).map(warningText).join(" ") || "No factor solution yet.")));
+    const others = (efa?.warnings || []).filter((w) => w?.code !== "rotation_degenerate");
+    container.append(section("Loadings", degenerate ? degenerateBox(degenerate) : null,
+      others.length || !degenerate ? note(others.map(warningText).join(" ") || "No factor solution yet.") : null));
     return;
   }
   const items = Object.keys(efa.loadings);
@@ -35,12 +44,14 @@ export function render(container, state) {
   const M = asMatrix(showStructure ? efa.structure : efa.loadings, items);
   const index = Object.fromEntries(items.map((n, i) => [n, i]));
   const flags = flagsByItem(state.analysis);
+  const warned = warningsByItem(state.analysis);
   const factors = efa.factors || M[0].map((_, j) => `F${j + 1}`);
   const order = ordered(efa);
   const rows = order.map(({ name }) => ({
     name, text: itemMeta(name)?.text || "", values: M[index[name]],
-    flagged: Boolean(flags[name]?.length),
-    flagText: (flags[name] || []).map((f) => `${flagWord(f.kind)}: ${f.message}`).join(" · "),
+    flagged: Boolean(flags[name]?.length || warned[name]?.length),
+    flagText: [...(flags[name] || []).map((f) => `${flagWord(f.kind)}: ${f.message}`),
+      ...(warned[name] || []).map((w) => `${w.word}: ${w.message}`)].join(" · "),
   }));
 
   const toggle = h("div", { class: "segmented", role: "group", "aria-label": "Which loadings" },
@@ -77,6 +88,7 @@ export function render(container, state) {
 
   container.append(section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
     h("div", { class: "toolbar" }, toggle, h("span", { class: "muted", text: fitText })),
+    degenerate ? degenerateBox(degenerate) : null,
     h("p", { class: "muted", text: "Items are grouped by the factor they load on most; ⚑ marks a flagged item (hover for why). Blue is negative, orange positive. Click a row to drop that item." }),
     pickBar,
     h("div", { class: "heat-layout" }, heat, side),

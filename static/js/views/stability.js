@@ -97,7 +97,42 @@ function renderRetest(box, state) {
         it.icc?.[rec]?.value == null ? (it.icc?.[rec]?.reason || "—") : num(it.icc[rec].value), ci(it.icc?.[rec]?.ci),
         withCi(it.pearson_r), num(it.mean_difference, 2)]), { className: "grid" })));
   }
+  const per = byConstructTables(r.by_construct);
+  if (per) box.append(per);
   box.append(warningList(r.warnings));
+}
+
+// One compact table per construct of the chosen items (issue 11): the recommended ICC, its interval, SEM.
+function byConstructTables(blocks) {
+  const entries = Object.entries(blocks || {});
+  if (!entries.length) return null;
+  return h("div", { class: "by-construct", id: "retest-by-construct" }, h("h3", { text: "Per subscale" }),
+    h("div", { class: "by-construct-grid" }, entries.map(([name, b]) => {
+      if (!b || typeof b !== "object") return null;
+      const rec = b.recommended || "ICC(A,1)";
+      const icc = b.icc?.[rec];
+      const items = Array.isArray(b.items) ? b.items.length : null;
+      const rows = [[`${rec}${b.interpretation ? ` (${b.interpretation})` : ""}`, icc?.value == null ? (icc?.reason || b.reason || "undefined") : num(icc.value), ci(icc?.ci)],
+        ["Pearson r", b.pearson_r?.value == null && b.pearson_r?.reason ? b.pearson_r.reason : num(val(b.pearson_r)), ci(b.pearson_r?.ci)], ["SEM", num(val(b.sem), 2), "—"], ["Smallest detectable change (MDC95)", num(val(b.mdc95), 2), "—"]];
+      return table(["", "Value", "95% CI"], rows, { className: "grid by-construct-table",
+        caption: `${name}${items != null ? ` (${items} item${items === 1 ? "" : "s"}` : ""}${b.n != null ? `, n ${b.n})` : items != null ? ")" : ""}` });
+    })));
+}
+
+// Cohen's kappa for every pair of raters (three or more), with the mean over the pairs (Light 1971).
+function pairwiseCohenTable(pc) {
+  if (!pc || typeof pc !== "object" || !pc.kappa || !Array.isArray(pc.kappa.pairs)) return null;
+  const weighted = ["linear", "quadratic"].filter((w) => Array.isArray(pc[w]?.pairs));
+  const cell = (p) => (p == null ? "—" : p.kappa == null ? (p.reason || "undefined") : `${num(p.kappa)}${p.ci ? ` (${ci(p.ci)})` : ""}`);
+  const key = (p) => JSON.stringify(p.raters);
+  const lookup = Object.fromEntries(weighted.map((w) => [w, Object.fromEntries(pc[w].pairs.map((p) => [key(p), p]))]));
+  const rows = pc.kappa.pairs.map((p) => [`${p.raters[0]} & ${p.raters[1]}`, cell(p), ...weighted.map((w) => cell(lookup[w][key(p)])), p.n_units ?? "—"]);
+  rows.push([pc.kappa.mean_name || "Mean (Light's κ)", num(pc.kappa.mean), ...weighted.map((w) => num(pc[w].mean)), pc.kappa.n_units ?? "—"]);
+  const notes = ["linear", "quadratic"].filter((w) => pc[w] && !Array.isArray(pc[w].pairs) && pc[w].reason).map((w) => `${w} weights: ${pc[w].reason}`);
+  return h("div", { id: "pairwise-cohen" },
+    table(["Rater pair", "Cohen's κ (95% CI)", ...weighted.map((w) => `weighted κ, ${w}`), "Units"], rows,
+      { className: "grid pairwise-cohen", caption: "Cohen's κ for every pair of raters (Cohen 1960; weighted: Cohen 1968); the mean over the pairs is Light's (1971) κ." }),
+    notes.length ? note(notes.join(" ")) : null);
 }
 
 function renderAgreement(box, state) {
@@ -135,6 +170,8 @@ function renderAgreement(box, state) {
     r.krippendorff_alpha?.value != null ? (r.conventions?.alpha_labels || r.krippendorff_alpha.label_source) : null].filter(Boolean);
   box.append(table(["Coefficient", "Value", "95% CI", "Reading"], rows, { className: "grid agreement",
     caption: conventions.map((t, i) => (i === 0 && !/^κ/.test(t) ? `κ readings: ${t}` : i === 1 ? `α reading: ${t}` : t)).join(" · ") }));
+  const pairwise = pairwiseCohenTable(r.pairwise_cohen);
+  if (pairwise) box.append(pairwise);
   const t = iccTable(r.icc, r.recommended);
   if (t) box.append(t);
   box.append(warningList(r.warnings));
@@ -164,6 +201,7 @@ export function render(container, state) {
       const body = { second: pick.second, score: pick.score };
       if (pick.source === "current") Object.assign(body, { first: pick.first, items: keptItems(), reverse: state.reverse ?? undefined });
       else Object.assign(body, { snapshot: pick.source });
+      if (pick.byConstruct) body.by_construct = true;
       const other = pick.itemsSecond.split(/[,;\s]+/).map((x) => x.trim()).filter(Boolean);
       if (other.length) body.items_second = other; // parallel forms: the other form's items, in the same order
       const answer = await api.retest(body);
@@ -212,7 +250,9 @@ export function render(container, state) {
         (v) => { pick.source = v; }, { id: "retest-items" })),
         h("label", {}, "First wave ", select(datasets, pick.first, (v) => { pick.first = v; }, { id: "wave-first" })),
         h("label", {}, "Second wave ", select(datasets, pick.second, (v) => { pick.second = v; }, { id: "wave-second" })),
-        h("label", {}, "Score ", select([["sum", "sum"], ["mean", "mean"]], pick.score, (v) => { pick.score = v; })), run),
+        h("label", {}, "Score ", select([["sum", "sum"], ["mean", "mean"]], pick.score, (v) => { pick.score = v; })),
+        h("label", {}, h("input", { type: "checkbox", id: "retest-by-construct-toggle", checked: Boolean(pick.byConstruct),
+          onchange: (e) => { pick.byConstruct = e.target.checked; } }), " per subscale"), run),
       h("div", { class: "toolbar" }, h("label", {}, "Parallel forms: the second form's items, in the same order (leave empty for a retest) ",
         h("input", { id: "items-second", size: 40, value: pick.itemsSecond, placeholder: "e.g. B1, B2, B3",
           oninput: (e) => { pick.itemsSecond = e.target.value; } }))),
