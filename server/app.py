@@ -67,6 +67,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     from .api import (
         routes_agreement,
         routes_analysis,
+        routes_confirmation,
         routes_datasets,
         routes_live,
         routes_snapshots,
@@ -74,7 +75,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     )
 
     for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live,
-                   routes_workspace):
+                   routes_workspace, routes_confirmation):
         app.include_router(module.router, prefix="/api")
 
     @app.get("/api/health", response_model=HealthOut)

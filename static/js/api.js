@@ -64,6 +64,7 @@ export const api = {
   scoringKeyUrl: (sid) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/scoring-key`),
   responsesUrl: (sid, scored) => withToken(`/api/snapshots/${encodeURIComponent(sid)}/responses${scored ? "?scored=true" : ""}`),
   retest: (body) => call("POST", "/api/retest", { json: body }),
+  confirm: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/confirmation`, { json: body }),
   agreement: (body) => call("POST", "/api/agreement", { json: body }),
   agreementUpload: (form) => call("POST", "/api/agreement/upload", { form }),
   postEvent: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/events`, { json: body }),

@@ -8,6 +8,7 @@ import {
 import { clear, fmt, h } from "./views/dom.js";
 import * as alphaView from "./views/alpha.js";
 import * as boardView from "./views/board.js";
+import * as confirmationView from "./views/confirmation.js";
 import * as factorsView from "./views/factors.js";
 import * as loadingsView from "./views/loadings.js";
 import * as settingsView from "./views/settings.js";
@@ -17,9 +18,11 @@ import * as startView from "./views/start.js";
 import * as workspaceView from "./views/workspace.js";
 
 const views = { start: startView, board: boardView, loadings: loadingsView, alpha: alphaView, factors: factorsView,
-  settings: settingsView, snapshots: snapshotsView, stability: stabilityView, workspace: workspaceView };
+  settings: settingsView, snapshots: snapshotsView, stability: stabilityView, confirmation: confirmationView,
+  workspace: workspaceView };
 const LABELS = { start: "Start", board: "Items", loadings: "Loadings", alpha: "Alpha curves", factors: "How many factors",
-  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement", workspace: "Workspace & log" };
+  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement",
+  confirmation: "Hold-out confirmation", workspace: "Workspace & log" };
 const NEEDS_ANALYSIS = new Set(["board", "loadings", "alpha", "factors"]);
 
 const $ = (sel) => document.querySelector(sel);

@@ -5,7 +5,7 @@
 // Settings equal to the served default stay out of the URL.
 // The choices, defaults and thresholds come from the server (GET /api/options, in state.options).
 
-export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "workspace"];
+export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "confirmation", "workspace"];
 
 // Short URL keys of the settings that had them before the options were served; others use their name.
 const URL_KEYS = { correlation: "corr", extraction: "ext", rotation: "rot", missing: "miss", n_factors: "nf" };
@@ -51,6 +51,7 @@ export const state = {
       source: "current", snapshots: [], snapshotsFor: null, wavesFor: null, byConstruct: false },
   },
   workspace: { onlyThis: false, message: null },
+  confirmation: { answer: null, answerFor: null, asked: null, structure: "codebook", split: "0.5", busy: false }, // hold-out card
 };
 
 // ---- settings from the served options
