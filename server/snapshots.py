@@ -67,6 +67,8 @@ class Draft:
     parent: str | None = None
     retest: RetestQuery | None = None
     agreement: AgreementTable | None = None
+    scoring_method: str = "mean"
+    min_answered_share: float = 0.8  # common practice
 
 
 def _bad(code: str, message: str, **details: Any) -> InputError:
@@ -100,6 +102,13 @@ def check_draft(draft: Draft, known: Sequence[str]) -> list[dict]:
     if len(draft.items) < 2:
         raise _bad("too_few_items", f"A snapshot needs at least 2 kept items; {len(draft.items)} given.",
                    n_items=len(draft.items))
+    if draft.scoring_method not in ("mean", "sum"):
+        raise _bad("bad_scoring_method", f"The scoring method '{draft.scoring_method}' is not known; use 'mean' or "
+                   "'sum'.", scoring_method=draft.scoring_method)
+    share = draft.min_answered_share
+    if isinstance(share, bool) or not isinstance(share, (int, float)) or not 0 < share <= 1:
+        raise _bad("bad_min_answered_share", f"The minimum answered share is {share!r}; it must be above 0 and "
+                   "at most 1 (e.g. 0.8 for 80 % of a subscale's items).", min_answered_share=share)
     removed = []
     removed_seen: set[str] = set()
     for position, r in enumerate(draft.removed):
@@ -285,6 +294,7 @@ def save(engine: Engine, store: StoreBackend, dataset_id: str, draft: Draft, pay
         "software_version": __version__,
         "parent": draft.parent,
         "stability": stability(engine, store, draft, dataset_id, kept, reverse, to_json),
+        "scoring": {"method": draft.scoring_method, "min_answered_share": float(draft.min_answered_share)},
     }
     try:
         return store.add_snapshot(dataset_id, snapshot)

@@ -5,13 +5,13 @@ The routes validate and wrap; the work (checks, trail, analysis, compare) is in 
 """
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from .. import snapshots
+from .. import scoring, snapshots
 from ..errors import NotFound
 from ..exports import responses_csv, safe_filename, scoring_key_csv
 from ..report import render_report
@@ -54,6 +54,10 @@ class SnapshotIn(BaseModel):
     settings: dict[str, Any] = Field(default_factory=dict, description="The analysis settings.")
     parent: str | None = Field(default=None, description="Id of the snapshot this one revises.")
     stability: StabilityIn | None = Field(default=None, description="Stability and agreement results to include.")
+    scoring_method: Literal["mean", "sum"] = Field(default="mean", description="How the scoring rules score "
+                                                   "each subscale: the mean or the (prorated) sum of its items.")
+    min_answered_share: float = Field(default=0.8, gt=0, le=1, description="The share of a subscale's items a "
+                                      "person must answer for a score (rounded up; 0.8 is common practice).")
 
 
 def _draft(body: SnapshotIn) -> Draft:
@@ -63,7 +67,8 @@ def _draft(body: SnapshotIn) -> Draft:
                  settings={k: v for k, v in body.settings.items() if k != "items"}, parent=body.parent,
                  retest=retest_query(stab.retest) if stab is not None and stab.retest is not None else None,
                  agreement=AgreementTable(stab.agreement.ratings, stab.agreement.level)
-                 if stab is not None and stab.agreement is not None else None)
+                 if stab is not None and stab.agreement is not None else None,
+                 scoring_method=body.scoring_method, min_answered_share=body.min_answered_share)
 
 
 def analysis_payload(settings: dict[str, Any]) -> dict[str, Any]:
@@ -176,3 +181,29 @@ def snapshot_responses(snapshot_id: str, engine: EngineDep, store: StoreDep, sco
     text = responses_csv(matrix[:, columns], kept, ids=dataset.ids, id_column=dataset.id_column)
     kind = "scored-responses" if scored else "responses"
     return _csv_response(text, safe_filename(snap.get("name") or "snapshot", kind, suffix=".csv"))
+
+
+
+@router.get("/snapshots/{snapshot_id}/scoring-rules")
+def snapshot_scoring_rules(snapshot_id: str, store: StoreDep, format: Literal["json", "csv"] = "json") -> Response:
+    """How to score the scale: per subscale and for the total, the items, the reverse formula of each, the
+    method (mean or sum), the minimum answered items, the score range and the reliability it rests on
+    (``?format=csv``: one row per scale and item)."""
+    snap = snapshots.get(store, snapshot_id)
+    rules = scoring.scoring_rules(snap)
+    if format == "csv":
+        return _csv_response(scoring.scoring_rules_csv(rules),
+                             safe_filename(snap.get("name") or "snapshot", "scoring-rules", suffix=".csv"))
+    return AnswerResponse(rules)
+
+
+@router.get("/snapshots/{snapshot_id}/item-statistics")
+def snapshot_item_statistics(snapshot_id: str, store: StoreDep, format: Literal["json", "csv"] = "json") -> Response:
+    """The snapshot's item table per subscale: descriptives, item-rest r, alpha and omega if deleted, the
+    highest correlation with another subscale (``?format=csv``: one row per subscale and item)."""
+    snap = snapshots.get(store, snapshot_id)
+    stats = scoring.item_statistics(snap)
+    if format == "csv":
+        return _csv_response(scoring.item_statistics_csv(stats),
+                             safe_filename(snap.get("name") or "snapshot", "item-statistics", suffix=".csv"))
+    return AnswerResponse(stats)

@@ -319,7 +319,8 @@ def _drop_empty(matrix: _Matrix, ranges: _Ranges, roles: Roles, filename: str, n
         raise InputError(
             f"The file '{filename}' has {plural(k, 'item column')}{': ' + quote_list(items) if k else ''}; "
             f"at least 2 are needed.{hint} Columns left out: "
-            f"{', '.join(f'{c} ({w})' for c, w in left_out[:10]) or 'none'}.",
+            f"{', '.join(f'{c} ({w})' for c, w in left_out[:10]) or 'none'}"
+            f"{f' and {len(left_out) - 10} more' if len(left_out) > 10 else ''}.",
             code="too_few_items",
             details={"file": filename, "items": items, "left_out": [c for c, _ in left_out],
                      "id_column": roles.id_column})
