@@ -139,6 +139,12 @@ def few_item_notes(res: EFAResult, thresholds) -> list[Note]:
     return out
 
 
+def _coef(x: float) -> str:
+    """A coefficient as the dashboard writes it: three decimals, no leading zero (.577, -.120)."""
+    text = f"{x:.3f}"
+    return text.replace("0.", ".", 1) if abs(x) < 1 else text
+
+
 def _omega_note(oh: float | None, ot: float | None) -> str:
     if oh is None:
         return "Omega hierarchical is undefined for this solution."
@@ -149,8 +155,8 @@ def _omega_note(oh: float | None, ot: float | None) -> str:
             if oh >= 0.8 else
             "between about .50 and .80 the total score mixes the general factor with the subscales: report the "
             "subscales beside it (common practice)")
-    tot = "" if ot is None else f" (omega total {ot:.2f}: all common factors together)"
-    return (f"Omega hierarchical {oh:.2f}: about {round(100 * oh)} % of the total score's variance reflects one "
+    tot = "" if ot is None else f" (omega total {_coef(ot)}: all common factors together)"
+    return (f"Omega hierarchical {_coef(oh)}: about {round(100 * oh)} % of the total score's variance reflects one "
             f"general factor{tot}; {tail}.")
 
 

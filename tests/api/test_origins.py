@@ -1,11 +1,6 @@
 """Host and Origin checks: no answer to a rebound name, no change sent by another web site."""
 from __future__ import annotations
 
-import os
-import socket
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import httpx
@@ -15,6 +10,7 @@ from server.api.origins import host_is_allowed, is_cross_origin, split_host
 from server.app import create_app
 from server.settings import Settings
 from tests.conftest import local_client
+from tests.serverproc import free_port, lan_address, running_server
 
 ROOT = Path(__file__).resolve().parents[2]
 CSV = b"id,Q1,Q2,Q3\nr1,1,2,3\nr2,2,3,4\nr3,3,4,5\nr4,4,5,1\nr5,5,1,2\n"
@@ -161,57 +157,18 @@ def test_cross_origin_delete_and_snapshot_are_refused(client):
 
 # ---- a real server bound to every interface, reached on this machine's own non-loopback address
 
-def _lan_address() -> str | None:
-    """This machine's address on its default route (a UDP connect sends nothing), if it has one."""
-    try:
-        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
-            s.connect(("192.0.2.1", 9))  # TEST-NET-1: routing decision only, no packet leaves
-            address = s.getsockname()[0]
-    except OSError:
-        return None
-    return None if address.startswith("127.") or address == "0.0.0.0" else address
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 @pytest.fixture
 def wildcard_server(tmp_path):
     """``python -m server serve --host 0.0.0.0 --token t`` on a free port; yields the port."""
-    port = _free_port()
-    log = tmp_path / "server.log"
-    with open(log, "wb") as out:
-        proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--host", "0.0.0.0", "--port", str(port),
-                                 "--token", "t", "--data-dir", str(tmp_path / "d")], cwd=ROOT, stdout=out,
-                                stderr=subprocess.STDOUT, env={**os.environ, "PYTHONUNBUFFERED": "1"})
-    try:
-        deadline = time.time() + 30
-        while True:
-            try:
-                if httpx.get(f"http://127.0.0.1:{port}/api/health?token=t", timeout=1).status_code == 200:
-                    break
-            except httpx.HTTPError:
-                pass
-            if proc.poll() is not None or time.time() > deadline:
-                pytest.fail("The server did not start: " + log.read_text(errors="replace")[-2000:])
-            time.sleep(0.1)
+    port = free_port()
+    with running_server(tmp_path / "d", "--host", "0.0.0.0", port=port, token="t"):
         yield port
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
 
 
 @pytest.mark.slow
 def test_a_wildcard_server_answers_its_lan_address_with_the_token(wildcard_server):
     port = wildcard_server
-    lan = _lan_address()
+    lan = lan_address()
     if lan is None:
         pytest.skip("This machine has no non-loopback IPv4 address to reach the server on.")
     base = f"http://{lan}:{port}"

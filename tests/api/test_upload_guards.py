@@ -1,9 +1,6 @@
 """Uploads that cost more than they weigh (issue 9, item 2), through the route and through a real server."""
 from __future__ import annotations
 
-import socket
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -15,6 +12,7 @@ from server.app import create_app
 from server.settings import Settings
 
 from ..conftest import local_client
+from ..serverproc import peak_rss_bytes, running_server
 from ..xlsx_builders import one_cell_at_the_end, zip_bomb
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -111,41 +109,15 @@ def test_answers_no_scale_can_hold_are_named_and_never_stored(client, value):
 
 # ---------------------------------------------------------------------------------------- a real server
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 def _peak_rss_mb(pid: int) -> float:
-    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-        if line.startswith("VmHWM:"):
-            return int(line.split()[1]) / 1024
-    raise AssertionError("no VmHWM in /proc/PID/status")
+    return peak_rss_bytes(pid) / 1024 / 1024
 
 
 @pytest.mark.slow
 @pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="peak RSS is read from /proc")
 def test_a_real_server_refuses_hostile_files_quickly_and_stays_small(tmp_path):
     """The issue's check: the one-cell workbook (three ways) and 10,000 columns, measured on the server process."""
-    exe = ROOT / ".venv" / "bin" / "scalewright"
-    cmd = [str(exe)] if exe.exists() else [sys.executable, "-m", "server"]
-    port = _free_port()
-    log = tmp_path / "server.log"
-    with log.open("wb") as out:
-        proc = subprocess.Popen([*cmd, "serve", "--port", str(port), "--data-dir", str(tmp_path / "d")],
-                                cwd=ROOT, stdout=out, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.time() + 60
-        while True:
-            try:
-                if httpx.get(f"{base}/api/health", timeout=1).status_code == 200:
-                    break
-            except httpx.HTTPError:
-                pass
-            assert proc.poll() is None and time.time() < deadline, log.read_text(errors="replace")[-2000:]
-            time.sleep(0.1)
+    with running_server(tmp_path / "d", timeout=60) as (proc, base):
         # warm the reading path once (imports), so the timings below are the guard's own
         ok = _csv([["id", *ITEMS], *([i, *r] for i, r in enumerate(_answers(), 1))])
         assert httpx.post(f"{base}/api/datasets", files={"file": ("ok.csv", ok)}, timeout=60).status_code == 201
@@ -165,10 +137,3 @@ def test_a_real_server_refuses_hostile_files_quickly_and_stays_small(tmp_path):
         assert peak < 400, f"server peak RSS {peak:.0f} MB (before the hostile uploads: {before:.0f} MB)"
         assert peak - before < 50
         assert [d["filename"] for d in httpx.get(f"{base}/api/datasets").json()] == ["ok.csv"]
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()

@@ -9,10 +9,6 @@ from __future__ import annotations
 import errno
 import hashlib
 import os
-import socket
-import subprocess
-import sys
-import time
 import types
 from pathlib import Path
 
@@ -24,6 +20,7 @@ from fastapi.testclient import TestClient
 import server.api.routes_datasets as routes
 from server.app import create_app
 from server.settings import Settings
+from tests.serverproc import peak_rss_bytes, running_server
 
 ROOT = Path(__file__).resolve().parents[2]
 BOUNDARY = "scalewright-test-boundary"
@@ -159,17 +156,8 @@ def test_disk_full_while_the_upload_is_written_answers_507_and_leaves_nothing(da
 
 # ---- peak memory of a real server (VmHWM), slow
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 def _vm_hwm(pid: int) -> int:
-    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-        if line.startswith("VmHWM:"):
-            return int(line.split()[1]) * 1024
-    raise AssertionError("no VmHWM in /proc/PID/status")
+    return peak_rss_bytes(pid)
 
 
 @pytest.mark.slow
@@ -178,7 +166,7 @@ def test_a_50_mb_upload_is_held_in_memory_at_most_once(tmp_path):
     """A 50 MB file the reader refuses at once (binary data): the server's peak grows by about the file, not 2x.
 
     This isolates the upload path (multipart parsing, spooling, the one copy read for parsing) from the cost
-    of parsing a table, which the reader's own benchmark measures (bench/bench_upload.py).
+    of parsing a table, which the reader's own benchmark measures (bench/bench_intake.py).
     """
     size = 50 * 1024 * 1024
     path = tmp_path / "binary.csv"
@@ -187,21 +175,7 @@ def test_a_50_mb_upload_is_held_in_memory_at_most_once(tmp_path):
         fh.write(b"a,b\x00,c\n")
         fh.writelines(rng.integers(32, 127, size=1024 * 1024, dtype=np.uint8).tobytes() for _ in range(50))
     size = path.stat().st_size
-    port = _free_port()
-    log = open(tmp_path / "server.log", "wb")  # noqa: SIM115  (closed below)
-    proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port), "--data-dir",
-                             str(tmp_path / "data")], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.time() + 30
-        while True:
-            try:
-                if httpx.get(f"{base}/api/health", timeout=1).status_code == 200:
-                    break
-            except httpx.HTTPError:
-                pass
-            assert proc.poll() is None and time.time() < deadline, (tmp_path / "server.log").read_text()[-2000:]
-            time.sleep(0.1)
+    with running_server(tmp_path / "data") as (proc, base):
         baseline = _vm_hwm(proc.pid)
         with open(path, "rb") as fh:
             r = httpx.post(f"{base}/api/datasets", files={"file": ("binary.csv", fh, "text/csv")}, timeout=120)
@@ -209,11 +183,3 @@ def test_a_50_mb_upload_is_held_in_memory_at_most_once(tmp_path):
         grown = _vm_hwm(proc.pid) - baseline
         assert grown < 1.5 * size + 32 * 1024 * 1024, f"peak grew by {grown / size:.2f} x the file size"
         assert leftovers(tmp_path / "data") == ([], [])
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-        log.close()

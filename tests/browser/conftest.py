@@ -9,14 +9,12 @@ from __future__ import annotations
 import contextlib
 import json
 import os
-import socket
-import subprocess
-import sys
 import time
 from pathlib import Path
 
-import httpx
 import pytest
+
+from tests.serverproc import running_server
 
 from .helpers import upload
 
@@ -26,12 +24,6 @@ CHROMIUM = Path("/usr/bin/chromium")
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
                  "--disable-sync", "--no-first-run"]
 TIMINGS_FILE = ROOT / "bench" / "out" / "browser_timings.json"
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def _require_browser():
@@ -48,30 +40,8 @@ def server(tmp_path_factory):
     """The real server (``python -m server serve``) on a free port with an empty data folder."""
     _require_browser()
     data = tmp_path_factory.mktemp("browser-data")
-    port = _free_port()
-    log = open(data / "server.log", "wb")  # noqa: SIM115  (open for the server's whole life, closed below)
-    proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port),
-                             "--data-dir", str(data / "d")], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    deadline = time.time() + 30
-    while True:
-        try:
-            if httpx.get(f"{base}/api/health", timeout=1).status_code == 200:
-                break
-        except httpx.HTTPError:
-            pass
-        if proc.poll() is not None or time.time() > deadline:
-            proc.kill()
-            pytest.fail("The server did not start: " + (data / "server.log").read_text(errors="replace")[-2000:])
-        time.sleep(0.1)
-    yield base
-    proc.terminate()
-    try:
-        proc.wait(timeout=10)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        proc.wait()
-    log.close()
+    with running_server(data / "d", log=data / "server.log") as (_, base):
+        yield base
 
 
 @pytest.fixture(scope="session")

@@ -2,15 +2,15 @@
 projector mode, the access token, and timings on a 60-item pool (recorded, not asserted)."""
 from __future__ import annotations
 
-import subprocess
-import sys
 import time
 
 import httpx
 import numpy as np
 import pytest
 
-from .conftest import DEMO, ROOT, _free_port
+from tests.serverproc import running_server
+
+from .conftest import DEMO
 from .helpers import fitted_marker, js_state, open_dataset, upload, wait_js, wait_refit, wait_until_fitted
 
 pytestmark = pytest.mark.browser
@@ -150,20 +150,7 @@ def test_flag_message_shows_on_focus(page, server, demo):
 
 def test_dashboard_works_with_the_access_token(browser, tmp_path):
     """A server that needs the token: the page opened with ?token= loads, analyses and goes live."""
-    port = _free_port()
-    proc = subprocess.Popen([sys.executable, "-m", "server", "serve", "--port", str(port), "--data-dir",
-                             str(tmp_path / "d"), "--token", "s3cret"], cwd=ROOT,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.time() + 30
-        while time.time() < deadline:
-            try:
-                health = httpx.get(f"{base}/api/health", headers={"X-Scalewright-Token": "s3cret"}, timeout=1)
-                if health.status_code == 200:
-                    break
-            except httpx.HTTPError:
-                time.sleep(0.1)
+    with running_server(tmp_path / "d", token="s3cret") as (_, base):
         assert httpx.get(f"{base}/api/health").status_code == 401
         files = {"file": ("w.csv", (DEMO / "workshop_responses.csv").read_bytes(), "text/csv"),
                  "codebook": ("c.csv", (DEMO / "workshop_codebook.csv").read_bytes(), "text/csv")}
@@ -187,12 +174,6 @@ def test_dashboard_works_with_the_access_token(browser, tmp_path):
             assert resp.status == 401  # without the token nothing is served
         finally:
             context.close()
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
 
 
 def test_timings_on_a_60_item_pool(page, server, timings):
