@@ -45,7 +45,7 @@ PEARSON_NOTE = ("The settings ask for polychoric correlations: the exploration h
                 "confirmatory model is fitted to the Pearson covariance matrix (maximum likelihood for "
                 "continuous answers); an ordinal estimator may come later.")
 COVARIANCE_BASIS = ("Covariance matrix of the confirmation half's respondents who answered every item of the "
-                    "structure (listwise), divisor n; chi-square = n F_min (maximum likelihood, as lavaan).")
+                    "structure (listwise), divisor n; chi-square = n F_min (normal-theory maximum likelihood).")
 
 
 @dataclass(frozen=True)
