@@ -81,7 +81,7 @@ def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[
     empty = corrected = None
     if correlation == "polychoric":
         empty, corrected = np.zeros((k, k), dtype=bool), np.zeros((k, k), dtype=bool)
-        empty[sub], corrected[sub] = corrmod.empty_cell_pairs(X)
+        empty[sub], corrected[sub] = res.empty_pairs, res.corrected_pairs
     return FullPool(cov=full_cov, n_pair=full_n, corr=full_corr, warnings=tuple(res.warnings), empty=empty,
                     corrected=corrected, correction=float(zero_cell_correction) if correlation == "polychoric" else 0.0)
 

@@ -32,7 +32,6 @@ from .notes import Note, note
 __all__ = [
     "CorrelationResult",
     "bivariate_normal_cdf",
-    "empty_cell_pairs",
     "listwise_covariance",
     "pairwise_covariance",
     "pearson_matrix",
@@ -73,6 +72,11 @@ class CorrelationResult:
         Smallest eigenvalue of the raw (unsmoothed) estimate.
     thresholds : list of ndarray or None
         Polychoric only: each item's thresholds from its own margin (all its answers).
+    empty_pairs, corrected_pairs : ndarray (k, k) of bool, or None
+        Polychoric only: pairs with an empty cell among the two items' categories (what the
+        ``polychoric_empty_cells`` note counts), and pairs with an empty cell inside the rows and
+        columns observed in their table (the cells a zero-cell correction fills). They let a caller
+        recount those notes for a subset of items without estimating again.
     """
 
     matrix: np.ndarray
@@ -84,6 +88,8 @@ class CorrelationResult:
     smoothed: bool = False
     min_eigenvalue: float = float("nan")
     thresholds: list | None = None
+    empty_pairs: np.ndarray | None = None
+    corrected_pairs: np.ndarray | None = None
 
     def to_dict(self) -> dict:
         """JSON-ready ``{items, matrix, n_pair, method, missing, smoothed, min_eigenvalue, warnings}``."""
@@ -770,36 +776,12 @@ def polychoric_matrix(X: ArrayLike, *, missing: str = "pairwise", max_categories
     if perfect is not None:
         warnings.append(perfect)
     R, smoothed, lam = _maybe_smooth(R, smooth, "polychoric", names, warnings)
+    empty_pairs, corrected_pairs = np.zeros((k, k), dtype=bool), np.zeros((k, k), dtype=bool)
+    empty_pairs[iu, ju], corrected_pairs[iu, ju] = empty, had_empty
     return CorrelationResult(matrix=R, n_pair=n_pair, warnings=warnings, names=names, method="polychoric",
                              missing=missing, smoothed=smoothed, min_eigenvalue=lam,
-                             thresholds=thresholds)
-
-
-def empty_cell_pairs(X: ArrayLike, *, max_categories: int = 10) -> tuple[np.ndarray, np.ndarray]:
-    """Which item pairs have empty cells in their pairwise contingency table, as two k x k boolean matrices.
-
-    The first marks a pair with an empty cell among the two items' categories (what the
-    ``polychoric_empty_cells`` note of :func:`polychoric_matrix` counts), the second one with an empty
-    cell inside the rows and columns observed in that pair's table (the cells a zero-cell correction
-    fills). Lets a caller recount those notes for a subset of items without estimating again.
-    """
-    arr, names = _as_matrix(X, None)
-    codes, levels = _codes(arr, names, int(max_categories))
-    k = arr.shape[1]
-    ncat = np.array([len(v) for v in levels])
-    m = int(ncat.max())
-    tables = _all_tables(codes, m)
-    iu, ju = np.triu_indices(k, 1)
-    pair_tables = tables[iu, ju]
-    ci, cj = ncat[iu], ncat[ju]
-    valid = (np.arange(m)[None, :, None] < ci[:, None, None]) & (np.arange(m)[None, None, :] < cj[:, None, None])
-    empty = ((pair_tables == 0) & valid).any(axis=(1, 2))
-    _, inside = _correct_zero_cells(pair_tables, 0.0)
-    out = np.zeros((2, k, k), dtype=bool)
-    for a, flags in enumerate((empty, inside)):
-        out[a, iu, ju] = flags
-        out[a, ju, iu] = flags
-    return out[0], out[1]
+                             thresholds=thresholds, empty_pairs=empty_pairs | empty_pairs.T,
+                             corrected_pairs=corrected_pairs | corrected_pairs.T)
 
 
 def _pair_items(idx, iu, ju, names) -> list[str]:

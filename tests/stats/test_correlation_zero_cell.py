@@ -77,3 +77,22 @@ def test_reverse_keying_stays_exact_with_the_correction():
 def test_bad_correction(bad):
     with pytest.raises(InputError):
         polychoric_matrix(_data(TABLE), zero_cell_correction=bad)
+
+
+def test_empty_and_corrected_pair_masks_match_each_pairs_crosstab():
+    # the masks the analysis recounts notes from, against pandas' crosstab of every pair (independent count)
+    import pandas as pd
+
+    rng = np.random.default_rng(11)
+    X = rng.integers(1, 5, size=(60, 5)).astype(float)
+    X[:, 3] = np.where(X[:, 0] >= 3, 4.0, 1.0)  # item 3 follows item 0: empty cells in that pair
+    X[X[:, 1] == 4, 4] = 1.0                     # item 4 is never 2-4 where item 1 is 4
+    res = polychoric_matrix(X, zero_cell_correction=0.5)
+    levels = [np.unique(X[:, j]) for j in range(5)]
+    for i in range(5):
+        for j in range(i + 1, 5):
+            tab = pd.crosstab(X[:, i], X[:, j]).reindex(index=levels[i], columns=levels[j], fill_value=0)
+            observed = tab.loc[tab.sum(axis=1) > 0, tab.sum(axis=0) > 0]
+            assert res.empty_pairs[i, j] == res.empty_pairs[j, i] == bool((tab.values == 0).any())
+            assert res.corrected_pairs[i, j] == bool((observed.values == 0).any())
+    assert res.empty_pairs[0, 3] and res.empty_pairs[1, 4]
