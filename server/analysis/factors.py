@@ -220,12 +220,12 @@ def _retention(inputs: AnalysisInputs, settings: AnalysisSettings, fi: FactorInp
     if settings.correlation != "polychoric":
         return retention_summary(fi.R, fi.n, iterations=settings.pa_iterations, seed=settings.seed,
                                  variant=settings.pa_variant)
-    X = inputs.responses[:, inputs.columns(names)]
     key = ("pa_polychoric", tuple(names), settings.missing, settings.pa_variant, settings.pa_iterations_polychoric,
            settings.seed, settings.zero_cell_correction)
-    pa = inputs.memo(key, lambda: parallel_analysis_polychoric(
-        X, R=fi.R, iterations=settings.pa_iterations_polychoric, variant=settings.pa_variant, seed=settings.seed,
-        missing=settings.missing, zero_cell_correction=settings.zero_cell_correction))
+    pa = inputs.memo(key, lambda: parallel_analysis_polychoric(  # the responses are read only when not cached
+        inputs.responses[:, inputs.columns(names)], R=fi.R, iterations=settings.pa_iterations_polychoric,
+        variant=settings.pa_variant, seed=settings.seed, missing=settings.missing,
+        zero_cell_correction=settings.zero_cell_correction))
     return retention_summary(fi.R, fi.n, seed=settings.seed, variant=settings.pa_variant, parallel=pa)
 
 
