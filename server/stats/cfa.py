@@ -47,6 +47,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import optimize, special, stats
 
+from .efa import rmsea_interval
 from .errors import InputError
 from .notes import Note, note
 
@@ -225,22 +226,6 @@ def _info_diag(W, U, V) -> np.ndarray:
     vwu = np.sum(V * WU, axis=0)
     return 2.0 * (vwu ** 2 + np.sum(V * WV, axis=0) * np.sum(U * WU, axis=0))
 
-
-def _rmsea_ci(chisq: float, df: float, n_used: int, level: float = 0.90) -> list[float]:
-    """Steiger's (1990) interval: invert the noncentral chi-square at (1 + level)/2 and (1 - level)/2."""
-    def bound(target: float) -> float:
-        if stats.chi2.cdf(chisq, df) <= target:
-            return 0.0
-        hi = max(chisq, 1.0)
-        while stats.ncx2.cdf(chisq, df, hi) > target:
-            hi *= 2.0
-        return float(optimize.brentq(lambda lam: stats.ncx2.cdf(chisq, df, lam) - target, 0.0, hi,
-                                     xtol=1e-10))
-    lo, hi = bound((1 + level) / 2), bound((1 - level) / 2)
-    return [float(np.sqrt(lo / (df * n_used))), float(np.sqrt(hi / (df * n_used)))]
-
-
-# --------------------------------------------------------------------------- input checks
 
 def _check_inputs(S, structure, n, names) -> tuple[np.ndarray, list[str], dict[str, list[int]]]:
     S = np.asarray(S, dtype=float)
@@ -579,7 +564,7 @@ def confirmatory_factor_analysis(S: ArrayLike, structure: Mapping[str, Sequence[
         fit["p"] = float(stats.chi2.sf(chisq, df))
         fit["tli"] = float((chisq0 / df0 - chisq / df) / (chisq0 / df0 - 1.0)) if chisq0 > df0 else None
         fit["rmsea"] = float(np.sqrt(max(chisq - df, 0.0) / (df * n_used)))
-        fit["rmsea_ci"] = _rmsea_ci(chisq, df, n_used)
+        fit["rmsea_ci"] = rmsea_interval(chisq, df, n_used)
 
     # residual correlations
     rhat = Sig / np.sqrt(np.outer(sig_d, sig_d))

@@ -395,6 +395,24 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
     return Extraction(L, h2, 1.0 - h2, converged, it, heywood, warnings, method, objective)
 
 
+def rmsea_interval(chisq: float, df: float, n_used: float, level: float = 0.90) -> list[float]:
+    """Steiger's (1990) interval for the RMSEA: the noncentrality parameters at which the observed
+    chi-square is the (1 + level)/2 and (1 - level)/2 quantile of the noncentral chi-square, each
+    divided by ``df * n_used`` under a square root (0 when even the central chi-square is below).
+    """
+    def bound(target: float) -> float:
+        if stats.chi2.cdf(chisq, df) <= target:
+            return 0.0
+        hi = max(chisq, 1.0)
+        while stats.ncx2.cdf(chisq, df, hi) > target:
+            hi *= 2.0
+        return float(optimize.brentq(lambda lam: stats.ncx2.cdf(chisq, df, lam) - target, 0.0, hi,
+                                     xtol=1e-10))
+
+    lo, hi = bound((1 + level) / 2), bound((1 - level) / 2)
+    return [float(np.sqrt(lo / (df * n_used))), float(np.sqrt(hi / (df * n_used)))]
+
+
 def fit_indices(R: np.ndarray, loadings: np.ndarray, uniquenesses: np.ndarray, n: int | None, method: str) -> dict:
     """Fit of a factor solution to the correlation matrix.
 
@@ -443,19 +461,7 @@ def fit_indices(R: np.ndarray, loadings: np.ndarray, uniquenesses: np.ndarray, n
         return out
     out["p"] = float(stats.chi2.sf(chi2, df))
     out["rmsea"] = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n - 1))))
-
-    def nc_bound(target: float) -> float:
-        # noncentrality lam with P(X <= chi2 | df, lam) = target; 0 if even lam = 0 gives less
-        if stats.chi2.cdf(chi2, df) <= target:
-            return 0.0
-        hi = max(chi2, 1.0)
-        while stats.ncx2.cdf(chi2, df, hi) > target:
-            hi *= 2.0
-        return float(optimize.brentq(lambda lam: stats.ncx2.cdf(chi2, df, lam) - target, 0.0, hi,
-                                     xtol=1e-10))
-
-    lo, hi = nc_bound(0.95), nc_bound(0.05)
-    out["rmsea_ci"] = [float(np.sqrt(lo / (df * (n - 1)))), float(np.sqrt(hi / (df * (n - 1))))]
+    out["rmsea_ci"] = rmsea_interval(chi2, df, n - 1)
     s_r, ld_r = np.linalg.slogdet(R)
     chi0 = (n - 1 - (2 * k + 5) / 6.0) * (-ld_r) if s_r > 0 else float("nan")
     df0 = k * (k - 1) / 2.0
