@@ -60,7 +60,9 @@ __all__ = [
     "extract",
     "factor_analysis",
     "fit_indices",
+    "largest_residuals",
     "max_factors",
+    "residual_correlations",
 ]
 
 METHODS = ("minres", "ml", "paf")
@@ -757,3 +759,75 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
                      fit=fit, converged=bool(ex.converged and rot.converged), warnings=warnings,
                      flags=flag_list, rotation=rotation, method=method, match=match, extraction=ex,
                      rotation_result=rot, thresholds=th)
+
+
+# --------------------------------------------------------------------------- residual correlations
+
+#: residuals at least this large (in absolute value) are listed as large
+RESIDUAL_THRESHOLD = 0.10  # common practice
+
+
+def residual_correlations(R: ArrayLike, loadings: ArrayLike, phi: ArrayLike | None = None) -> np.ndarray:
+    """Residual correlations of a factor model: the off-diagonal part of ``R - L Phi L'``.
+
+    Parameters
+    ----------
+    R : array_like (k x k)
+        The correlation matrix the model was fitted to.
+    loadings : array_like (k x m)
+        Pattern loadings (rotated or not).
+    phi : array_like (m x m), optional
+        Factor correlations (default: identity, an orthogonal or unrotated solution).
+
+    Returns
+    -------
+    ndarray (k x k)
+        ``R - L Phi L'`` with the diagonal set to 0 (the diagonal is the uniqueness, not a residual).
+
+    Notes
+    -----
+    ``L Phi L'`` is the correlation matrix the common factors reproduce; it is the same for every
+    rotation of one extraction (``P Phi P' = A A'`` for unrotated loadings ``A``), so the residuals are
+    too. Their root mean square is the ``rmsr`` of :func:`fit_indices`.
+
+    References
+    ----------
+    Harman, H. H. (1976). Modern Factor Analysis (3rd ed.), ch. 2. University of Chicago Press.
+    """
+    R = np.asarray(R, dtype=float)
+    L = np.asarray(loadings, dtype=float)
+    if R.ndim != 2 or R.shape[0] != R.shape[1]:
+        raise InputError(f"The correlation matrix must be square; got shape {R.shape}.", code="bad_matrix",
+                         details={"shape": list(R.shape)})
+    if L.ndim != 2 or L.shape[0] != R.shape[0]:
+        raise InputError(f"The loadings must have one row per item ({R.shape[0]}); got shape {L.shape}.",
+                         code="bad_loadings", details={"shape": list(L.shape), "items": R.shape[0]})
+    m = L.shape[1]
+    P = np.eye(m) if phi is None else np.asarray(phi, dtype=float)
+    if P.shape != (m, m):
+        raise InputError(f"The factor correlations must be {m} x {m}; got shape {P.shape}.", code="bad_phi",
+                         details={"shape": list(P.shape), "factors": m})
+    resid = R - L @ P @ L.T
+    np.fill_diagonal(resid, 0.0)
+    return resid
+
+
+def largest_residuals(residuals: ArrayLike, names: Sequence[str], *, R: ArrayLike | None = None,
+                      threshold: float = RESIDUAL_THRESHOLD) -> list[dict]:
+    """The item pairs whose absolute residual correlation is at least ``threshold``, largest first.
+
+    Returns a list of ``{"items": [a, b], "residual": float, "r": float | None}`` (``r`` from ``R`` when
+    given), ``a`` before ``b`` in the order of ``names``; ties keep that order.
+    """
+    E = np.asarray(residuals, dtype=float)
+    k = E.shape[0] if E.ndim == 2 else -1
+    if E.ndim != 2 or E.shape[1] != k or len(names) != k:
+        raise InputError(f"The residual matrix ({E.shape}) and the {len(names)} item names do not match.",
+                         code="bad_matrix", details={"shape": list(E.shape), "names": len(names)})
+    Rm = None if R is None else np.asarray(R, dtype=float)
+    iu, ju = np.triu_indices(k, 1)
+    vals = E[iu, ju]
+    keep = np.flatnonzero(np.abs(vals) >= threshold)
+    keep = keep[np.argsort(-np.abs(vals[keep]), kind="stable")]
+    return [{"items": [names[iu[t]], names[ju[t]]], "residual": float(vals[t]),
+             "r": None if Rm is None else float(Rm[iu[t], ju[t]])} for t in keep]
