@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import hmac
+from contextlib import asynccontextmanager
 from pathlib import Path
 
 import plotly
@@ -24,6 +25,19 @@ CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline';
        "form-action 'self'")
 
 
+def _stop_runs_with(app: FastAPI) -> None:
+    """Cancel the resampling runs (and terminate their worker processes) when the app stops."""
+    previous = app.router.lifespan_context
+
+    @asynccontextmanager
+    async def lifespan(a):
+        async with previous(a) as state:
+            yield state
+        a.state.runs.shutdown()
+
+    app.router.lifespan_context = lifespan
+
+
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
     # Store() checks the data folder (creates it; refuses a read-only or damaged one with StartupError).
@@ -37,6 +51,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app.state.store = Store(settings.data_dir)
     app.state.engine = Engine(app.state.store, cache_bytes=settings.cache_bytes)
+    from .runs import RunService
+    app.state.runs = RunService(app.state.engine, settings.data_dir, workers=settings.run_workers)
+    app.state.runs.warm()
+    _stop_runs_with(app)
     install_error_handlers(app)
 
     @app.middleware("http")
@@ -70,12 +88,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         routes_confirmation,
         routes_datasets,
         routes_live,
+        routes_runs,
         routes_snapshots,
         routes_workspace,
     )
 
     for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live,
-                   routes_workspace, routes_confirmation):
+                   routes_workspace, routes_confirmation, routes_runs):
         app.include_router(module.router, prefix="/api")
 
     @app.get("/api/health", response_model=HealthOut)

@@ -161,7 +161,8 @@ def _omega_note(oh: float | None, ot: float | None) -> str:
 
 
 def omega_family(fi: FactorInput, settings: AnalysisSettings, inputs: AnalysisInputs, names: Sequence[str],
-                 result: EFAResult | None, m: int | None, uni: float | None) -> tuple[OmegaFamily, list[Note]]:
+                 result: EFAResult | None, m: int | None, uni: float | None, *,
+                 random_starts: int = 5) -> tuple[OmegaFamily, list[Note]]:
     """The pool's omega family from the retained model: a Schmid-Leiman transformation of the oblique solution
     (an orthogonal or withheld one is replaced by quartimin on the same extraction), or the one-factor omega.
 
@@ -191,7 +192,7 @@ def omega_family(fi: FactorInput, settings: AnalysisSettings, inputs: AnalysisIn
         try:
             src = factor_analysis(fi.R, m, n=fi.n, names=list(names), method=settings.extraction, rotation="oblimin",
                                   gamma=0.0, constructs=_constructs(inputs, names), previous=result,
-                                  thresholds=settings.thresholds, seed=settings.seed)
+                                  thresholds=settings.thresholds, seed=settings.seed, random_starts=random_starts)
         except InputError as exc:
             return unavailable(f"The quartimin solution for the Schmid-Leiman transformation failed ({exc.message}).")
         if degenerate_reason(src) is not None:
@@ -230,13 +231,14 @@ def _retention(inputs: AnalysisInputs, settings: AnalysisSettings, fi: FactorInp
 
 
 def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Sequence[ItemRow],
-                    uni: float | None = None) -> tuple[FactorSections, list[Note]]:
+                    uni: float | None = None, *, random_starts: int = 5) -> tuple[FactorSections, list[Note]]:
     """Correlations, factorability, retention and the rotated solution of the active items.
 
     Returns the sections and the warnings they add to the answer's list (in the order they arose). Data
     that cannot carry a factor model (too few respondents or items, a failed extraction) leave the
     factor solution empty with a warning saying why; a degenerate rotated solution is withheld
     (``rotation_degenerate``). ``uni`` is the pool's one-factor omega, the omega family's fallback.
+    ``random_starts``: starts of an oblimin/geomin rotation (a resample uses 1, the identity start).
     """
     names = list(settings.items)
     fi = factor_input(inputs, settings, names)
@@ -264,7 +266,7 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
         result = factor_analysis(fi.R, m, n=fi.n, names=names, method=settings.extraction, rotation=settings.rotation,
                                  gamma=settings.gamma, constructs=_constructs(inputs, names), previous=previous,
                                  thresholds=settings.thresholds, item_rest_r=[r.item_rest_r for r in rows],
-                                 reverse=[r.reverse for r in rows], seed=settings.seed)
+                                 reverse=[r.reverse for r in rows], seed=settings.seed, random_starts=random_starts)
         efa_warnings = list(result.warnings)
         why = degenerate_reason(result)
         if why is not None:
@@ -284,6 +286,6 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     warnings.extend(efa_warnings)
     flags = all_flags(result.flags if result is not None else [], fi.R, rows, settings.thresholds)
     efa = EfaSection(result=result, flags=flags, warnings=tuple(efa_warnings), withheld=withheld)
-    omega, more = omega_family(fi, settings, inputs, names, result, m, uni)
+    omega, more = omega_family(fi, settings, inputs, names, result, m, uni, random_starts=random_starts)
     warnings.extend(more)
     return FactorSections(correlations, factorability, retention, efa, omega), warnings

@@ -323,6 +323,25 @@ def _random_reference(n, k, iterations, variant, seed, percentile):
     return threshold, mean
 
 
+def random_reference(n: int, k: int, *, iterations: int = 500, variant: str = "components", seed: int = 0,
+                     percentile: float = 95) -> tuple[np.ndarray, np.ndarray]:
+    """The random-data thresholds and means :func:`parallel_analysis` compares with (memoised, integer seeds)."""
+    return _random_reference(int(n), int(k), int(iterations), variant, seed, float(percentile))
+
+
+def install_random_reference(n: int, k: int, *, iterations: int, variant: str, seed: int, percentile: float,
+                             threshold: ArrayLike, mean: ArrayLike) -> None:
+    """Put thresholds made elsewhere (:func:`random_reference` in another process) into this process' memo.
+
+    They depend only on (n, k, iterations, variant, seed, percentile), never on the data: a resampling run
+    computes them once and hands them to each worker process.
+    """
+    if len(_REFERENCE_CACHE) >= _REFERENCE_CACHE_SIZE:
+        _REFERENCE_CACHE.pop(next(iter(_REFERENCE_CACHE)))
+    _REFERENCE_CACHE[(int(n), int(k), int(iterations), variant, seed, float(percentile))] = (
+        np.array(threshold, dtype=float), np.array(mean, dtype=float))
+
+
 def parallel_analysis(n: int, k: int, *, observed_eigenvalues: ArrayLike | None = None,
                       R: ArrayLike | None = None, iterations: int = 500,
                       percentile: float = 95, variant: str = "components", seed: int | None = None

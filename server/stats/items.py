@@ -156,7 +156,7 @@ def item_table(cov: ArrayLike, *, names: Sequence[str] | None, start: ArrayLike 
 
 
 def pruning_path(cov: ArrayLike, *, names: Sequence[str] | None, min_items: int = 3,
-                 start: ArrayLike | None = None) -> list[dict]:
+                 start: ArrayLike | None = None, with_omega: bool = True) -> list[dict]:
     """Greedy backward elimination by alpha: the curve the dashboard draws.
 
     Parameters
@@ -169,6 +169,8 @@ def pruning_path(cov: ArrayLike, *, names: Sequence[str] | None, min_items: int 
         Stop when this many items are left (at least 2).
     start : array_like, optional
         Standardized one-factor loadings of the full set, to warm-start the omega fits.
+    with_omega : bool
+        False leaves ``omega_total`` None on every step (only the order and alpha are wanted: resampling).
 
     Returns
     -------
@@ -224,6 +226,7 @@ def pruning_path(cov: ArrayLike, *, names: Sequence[str] | None, min_items: int 
     for s_, j in enumerate([r for r in removed if r is not None], start=1):  # removed[0] is None
         step_of[j] = s_
     masks = np.arange(len(removed))[:, None] < step_of[None, :]
-    omegas = _omega_subsets(S, masks, start) if k >= 3 else np.full(len(masks), np.nan)
+    omegas = (_omega_subsets(S, masks, start) if k >= 3 and with_omega
+              else np.full(len(masks), np.nan))
     return [{"removed": None if r is None else names[r], "n_items": int(mk.sum()), "alpha": _num(a),
              "omega_total": _num(o)} for r, mk, a, o in zip(removed, masks, alphas, omegas)]

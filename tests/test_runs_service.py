@@ -1,0 +1,88 @@
+"""The run service (server/runs.py): progress messages, checks, persistence, shutdown."""
+from __future__ import annotations
+
+import io
+import threading
+import time
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from server.engine import Engine
+from server.errors import NotFound
+from server.intake import read_responses
+from server.runs import RunService, default_workers
+from server.stats.errors import InputError
+from server.store import Store
+
+
+@pytest.fixture
+def service(tmp_path):
+    rng = np.random.default_rng(0)  # simulated population: one factor, six items
+    z = rng.standard_normal((200, 1)) * 0.7 + rng.standard_normal((200, 6)) * 0.7
+    frame = pd.DataFrame(np.clip(np.round(z + 3), 1, 5).astype(int), columns=[f"q{j}" for j in range(6)])
+    raw = frame.to_csv(index=False).encode()
+    store = Store(tmp_path)
+    parsed = read_responses(io.BytesIO(raw).getvalue(), "d.csv", scale_min=1, scale_max=5)
+    rec = store.add_dataset(name="d", raw=raw, filename="d.csv", codebook_raw=None, codebook_filename=None,
+                            options={"scale_min": 1, "scale_max": 5}, meta={"n_rows": parsed.n_rows})
+    svc = RunService(Engine(store), tmp_path, workers=1)
+    svc.dataset_id = rec["id"]
+    yield svc
+    svc.shutdown()
+
+
+def _wait(svc, run_id, timeout=120):
+    end = time.monotonic() + timeout
+    while svc.get(run_id).state in ("queued", "running") and time.monotonic() < end:
+        time.sleep(0.05)
+    return svc.get(run_id)
+
+
+def test_progress_messages_and_result(service):
+    messages, done = [], threading.Event()
+
+    def publish(ds, msg):
+        messages.append((ds, msg))
+        if msg["state"] == "done":
+            done.set()
+
+    run = service.start(service.dataset_id, {}, n_resamples=8, publish=publish)
+    assert done.wait(120)
+    assert all(ds == service.dataset_id and m["action"] == "resampling" and m["run_id"] == run.run_id
+               for ds, m in messages)
+    counts = [m["done"] for _, m in messages]
+    assert counts == sorted(counts) and counts[-1] == 8 and messages[-1][1]["total"] == 8
+    assert messages[0][1]["state"] == "running"
+    final = service.get(run.run_id)
+    assert final.result["n_resamples"] == 8
+    assert (service.folder / f"{run.run_id}.json").exists()
+
+
+@pytest.mark.parametrize("n", [1, 2001, True, 3.0])
+def test_bad_n_resamples(service, n):
+    with pytest.raises(InputError):
+        service.start(service.dataset_id, {}, n_resamples=n)
+
+
+def test_bad_request_and_unknown_dataset_fail_at_once(service):
+    with pytest.raises(InputError):
+        service.start(service.dataset_id, {"items": ["nope"]}, n_resamples=5)
+    with pytest.raises(NotFound):
+        service.start("missing", {}, n_resamples=5)
+    with pytest.raises(NotFound):
+        service.get("missing")
+
+
+def test_shutdown_cancels_active_runs(service):
+    run = service.start(service.dataset_id, {}, n_resamples=2000)
+    service.shutdown()
+    assert _wait(service, run.run_id, timeout=30).state == "cancelled"
+    with pytest.raises(InputError):
+        service.start(service.dataset_id, {}, n_resamples=5)
+
+
+def test_default_workers_leaves_a_core():
+    import os
+    assert default_workers() == max(1, (os.cpu_count() or 2) - 1)
