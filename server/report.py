@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import html
 import math
+import re
 from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 
@@ -49,28 +50,60 @@ h3 { font-size: 14px; margin: 16px 0 6px; }
 p { margin: 6px 0; }
 .muted { color: var(--muted); }
 .mono { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace; word-break: break-all; }
-table { border-collapse: collapse; margin: 6px 0 10px; }
-th, td { border-bottom: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top; }
+table { border-collapse: collapse; margin: 6px 0 10px; max-width: 100%; }
+th, td { border-bottom: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top;
+         overflow-wrap: break-word; }
+thead { display: table-header-group; }
+table.wrap { width: 100%; }
+table.wrap td:first-child { overflow-wrap: anywhere; min-width: 3.5em; }
+table.wrap th.num { white-space: normal; overflow-wrap: normal; hyphens: manual; }
 th { background: #f1f3f6; font-weight: 600; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 table.kv th { width: 16em; background: none; font-weight: 500; color: var(--muted); }
-.flag { display: inline-block; border: 1px solid #c0392b; color: #c0392b; border-radius: 3px;
-        padding: 0 4px; margin: 1px 2px 1px 0; font-size: 11px; white-space: nowrap; }
+.flag { display: inline-block; border: 1px solid #a93226; color: #a93226; border-radius: 3px;
+        padding: 0 4px; margin: 1px 2px 1px 0; font-size: 12px; overflow-wrap: anywhere; }
 .heat td.num { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
-.heat td.primary { font-weight: 700; }
+.heat td.salient { font-weight: 700; }
+.heat td.primary { text-decoration: underline; }
+.heat .mark { margin-right: 2px; }
 .caution { border-left: 4px solid #c0392b; background: #fbf1f0; padding: 8px 12px; margin: 8px 0;
            -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 .caution li { margin: 4px 0; }
 .note { white-space: pre-wrap; }
-span.text { display: inline-block; min-width: 16em; }
-svg text { font: 11px system-ui, Arial, sans-serif; fill: var(--ink); }
-footer { margin-top: 32px; border-top: 1px solid var(--line); padding-top: 8px; color: var(--muted); }
-@page { margin: 14mm; }
-@media print { body { padding: 0; max-width: none; } h2 { break-after: avoid; } tr, svg { break-inside: avoid; } }
+span.text { overflow-wrap: anywhere; }
+table.items td:nth-child(2) { min-width: 12em; }
+svg { max-width: 100%; height: auto; }
+svg text { font: 12px system-ui, Arial, sans-serif; fill: var(--ink); }
+footer.page-foot { margin-top: 32px; border-top: 1px solid var(--line); padding-top: 8px; color: var(--muted); }
+footer.page-foot > span { display: inline-block; margin-right: 1.5em; }
+@page { size: auto; margin: 12mm 12mm 24mm; }
+@media print {
+  body { padding: 0; max-width: none; font-size: 12px; }
+  th, td { padding: 2px 4px; }
+  table.items td:nth-child(2) { min-width: 9em; }
+  h2, h3 { break-after: avoid; }
+  tr, svg, .keep, .caution, table.kv { break-inside: avoid; }
+}
 """
 
 
 # ---------------------------------------------------------------------------------------------- formatting
+def _css_string(value) -> str:
+    """A CSS string literal of any text: every character outside [A-Za-z0-9 .,:_-] as a CSS hex escape."""
+    return '"' + "".join(c if c.isascii() and (c.isalnum() or c in " .,:_-") else f"\\{ord(c):x} "
+                         for c in str(value)) + '"'
+
+
+def _page_footer_css(snapshot_id, sha, version) -> str:
+    """The printed footer on every page: @page margin boxes (drawn in the bottom margin, so they never cover
+    the text; Chromium 131 and later). The snapshot id and the data set's SHA-256 on the left, the page
+    number on the right."""
+    left = _css_string(f"Snapshot {snapshot_id} \u00b7 data set SHA-256 {sha} \u00b7 Scalewright {version}")
+    box = "font: 12px ui-monospace, Menlo, Consolas, monospace; color: #1d232b; vertical-align: top;"
+    return ("@page { @bottom-left { content: " + left + "; " + box + " width: 80%; }"
+            " @bottom-right { content: \"page \" counter(page) \" of \" counter(pages); " + box + " } }")
+
+
 def _esc(value) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
@@ -79,8 +112,14 @@ def _is_number(value) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
-def _num(value, digits: int = 3) -> str:
-    """A number for a table cell; missing or NaN as an en dash."""
+def _num(value, digits: int = 3, bounded: bool = False) -> str:
+    """A number for a table cell; missing or NaN as an en dash.
+
+    One number style with the dashboard (``fmt`` in static/js/views/dom.js): ``bounded=True`` for values
+    that cannot exceed 1 in size (correlations, loadings, communalities, alpha, omega, lambda, ECV, H,
+    kappas, ICCs, shares, RMSR, RMSEA, p) drops the leading zero (.849, −.35). Counts, means, SDs,
+    skew, kurtosis, the SEM, sums of squared loadings, chi-square, TLI and BIC keep their leading digit.
+    """
     if value is None:
         return "&ndash;"
     if isinstance(value, bool):
@@ -92,28 +131,36 @@ def _num(value, digits: int = 3) -> str:
             return "&ndash;"
         if math.isinf(value):
             return "&infin;" if value > 0 else "&minus;&infin;"
-        return f"{value:.{digits}f}".replace("-", "&minus;")
+        text = f"{value:.{digits}f}"
+        if bounded:
+            text = re.sub(r"^(-?)0\.", r"\1.", text)
+        return text.replace("-", "&minus;")
     if isinstance(value, (list, tuple)) and all(_is_number(v) or v is None for v in value):
-        return "[" + ", ".join(_num(v, digits) for v in value) + "]"
-    return _value(value)
+        return "[" + ", ".join(_num(v, digits, bounded) for v in value) + "]"
+    return _value(value, digits, bounded)
 
 
-def _value(value, digits: int = 3) -> str:
-    """Any JSON value as escaped, readable HTML."""
+def _r(value, digits: int = 3) -> str:
+    """A coefficient bounded by 1 in the dashboard's style (.849); see ``_num``."""
+    return _num(value, digits, bounded=True)
+
+
+def _value(value, digits: int = 3, bounded: bool = False) -> str:
+    """Any JSON value as escaped, readable HTML (``bounded`` as in ``_num``)."""
     if value is None or _is_number(value) or isinstance(value, bool):
-        return _num(value, digits)
+        return _num(value, digits, bounded)
     if isinstance(value, str):
         return _esc(value) if value else "&ndash;"
     if isinstance(value, Mapping):
         if not value:
             return "&ndash;"
-        return "; ".join(f"{_esc(_label(k))}: {_value(v, digits)}" for k, v in value.items())
+        return "; ".join(f"{_esc(_label(k))}: {_value(v, digits, bounded)}" for k, v in value.items())
     if isinstance(value, (list, tuple)):
         if not value:
             return "&ndash;"
         if all(_is_number(v) or v is None for v in value):
-            return _num(value, digits)
-        return ", ".join(_value(v, digits) for v in value)
+            return _num(value, digits, bounded)
+        return ", ".join(_value(v, digits, bounded) for v in value)
     return _esc(value)
 
 
@@ -155,6 +202,16 @@ _LABELS = {
     "tli": "TLI",
     "bic": "BIC",
 }
+
+
+#: Keys whose values are not bounded by 1 in size: printed with their leading digit (see ``_num``).
+_UNBOUNDED = {"scale_mean", "scale_sd", "sem", "n_items", "n_complete", "n_complete_rows", "items_for_80",
+              "items_for_90", "min_pairwise_n", "min_pair_n", "chi2", "df", "chi2_correction", "tli", "bic",
+              "n", "k", "mean", "sd", "skew", "kurtosis", "ss_loadings", "missing"}
+
+
+def _bounded(key) -> bool:
+    return str(key) not in _UNBOUNDED
 
 
 def _label(key) -> str:
@@ -208,13 +265,13 @@ def _reliability_pairs(block: Mapping) -> list[tuple[str, str]]:
         if key in shown or key.endswith("_ci") and key[:-3] in block:
             continue
         shown.add(key)
-        text = _value(block[key])
+        text = _value(block[key], bounded=_bounded(key))
         ci = block.get(f"{key}_ci")
         if ci is not None:
             lo, hi = (ci.get("lower"), ci.get("upper")) if isinstance(ci, Mapping) else (tuple(ci) + (None, None))[:2]
             level = block.get("ci_level", 0.95) if key == "alpha" else 0.95
             level = f"{level * 100:.0f}%" if _is_number(level) else "95%"
-            text += f" <span class=\"muted\">({level} CI {_num(lo)} to {_num(hi)})</span>"
+            text += f" <span class=\"muted\">({level} CI {_num(lo, bounded=True)} to {_num(hi, bounded=True)})</span>"
         label = "Omega (unidimensional)" if key == "omega_total" and "omega_basis" not in block else _label(key)
         pairs.append((_esc(label), text))
     return pairs
@@ -235,17 +292,17 @@ def _omega_section(rel: Mapping) -> str:
                 "one factor fitted to every kept item (unidimensional). On items written for several subscales it "
                 "can read low even when each subscale is reliable.</p>")
     basis = rel.get("omega_basis")
-    pairs = [("Omega total", f"{_num(rel.get('omega_total'))} <span class=\"muted\">("
+    pairs = [("Omega total", f"{_r(rel.get('omega_total'))} <span class=\"muted\">("
               f"{_esc(_OMEGA_BASIS.get(basis, basis))})</span>"),
-             ("Omega hierarchical", _num(rel.get("omega_hierarchical"))),
-             ("Explained common variance (ECV)", _num(rel.get("ecv"))),
-             ("Construct replicability H (general factor; Hancock &amp; Mueller 2001)", _num(rel.get("h"))),
-             ("Omega (unidimensional: one factor for every item)", _num(rel.get("omega_unidimensional")))]
+             ("Omega hierarchical", _r(rel.get("omega_hierarchical"))),
+             ("Explained common variance (ECV)", _r(rel.get("ecv"))),
+             ("Construct replicability H (general factor; Hancock &amp; Mueller 2001)", _r(rel.get("h"))),
+             ("Omega (unidimensional: one factor for every item)", _r(rel.get("omega_unidimensional")))]
     sub = rel.get("omega_subscale")
     if isinstance(sub, Mapping):
-        pairs += [(f"Omega subscale, {_esc(k)}", _num(v)) for k, v in sub.items()]
+        pairs += [(f"Omega subscale, {_esc(k)}", _r(v)) for k, v in sub.items()]
     if rel.get("alpha_ordinal") is not None or rel.get("omega_ordinal") is not None:
-        pairs += [("Ordinal alpha", _num(rel.get("alpha_ordinal"))), ("Ordinal omega", _num(rel.get("omega_ordinal")))]
+        pairs += [("Ordinal alpha", _r(rel.get("alpha_ordinal"))), ("Ordinal omega", _r(rel.get("omega_ordinal")))]
     out = ["<h3>Omega and the total score</h3>", _kv_table(pairs)]
     if rel.get("omega_note"):
         out.append(f"<p class=\"omega-note\">{_esc(rel['omega_note'])}</p>")
@@ -265,49 +322,62 @@ def _residual_sentence(fit) -> str:
         return ""
     x, y = (str(i) for i in lr["items"][:2])
     verb = "share more than the single factor explains" if lr["r"] >= 0 else "share less than the single factor implies"
-    return f"Items {_esc(x)} and {_esc(y)} {verb} (residual r = {_num(lr['r'], 2)})."
+    return f"Items {_esc(x)} and {_esc(y)} {verb} (residual r = {_r(lr['r'], 2)})."
 
 
 def _subscales_section(constructs, meta: Mapping[str, Mapping]) -> str:
-    """Each subscale's own item analysis and the fit of its one-factor model (issue 11)."""
+    """One section per codebook subscale: its coefficients, one-factor fit and its own item table (issue 11)."""
     if not isinstance(constructs, Mapping):
         return ""
     parts = []
     for name, block in constructs.items():
         if not isinstance(block, Mapping) or not isinstance(block.get("item_table"), list):
             continue
-        parts.append(f"<h3>Subscale: {_esc(name)}</h3>")
+        ci = block.get("alpha_ci")
+        lo, hi = (ci.get("lower"), ci.get("upper")) if isinstance(ci, Mapping) else (
+            (tuple(ci) + (None, None))[:2] if isinstance(ci, (list, tuple)) else (None, None))
+        level = block.get("ci_level", 0.95)
+        level = f"{level * 100:.0f}%" if _is_number(level) else "95%"
+        alpha = _r(block.get("alpha"))
+        if ci is not None:
+            alpha += f" <span class=\"muted\">({level} interval {_r(lo)} to {_r(hi)})</span>"
         fit = block.get("one_factor_fit")
-        line = (f"<p>{_num(block.get('n_items'))} items; alpha {_num(block.get('alpha'))}, omega (one factor) "
-                f"{_num(block.get('omega_unidimensional', block.get('omega_total')))}")
+        pairs = [("Items", _num(block.get("n_items", len(block.get("items") or []) or None))),
+                 ("Cronbach's alpha", alpha),
+                 ("Omega (one factor)", _r(block.get("omega_unidimensional", block.get("omega_total"))))]
         if block.get("alpha_ordinal") is not None:
-            line += (f"; ordinal alpha {_num(block.get('alpha_ordinal'))}, "
-                     f"ordinal omega {_num(block.get('omega_ordinal'))}")
+            pairs += [("Ordinal alpha", _r(block.get("alpha_ordinal"))),
+                      ("Ordinal omega", _r(block.get("omega_ordinal")))]
         if isinstance(fit, Mapping) and fit.get("rmsr") is not None:
-            line += f"; one-factor RMSR {_num(fit.get('rmsr'))}"
-        parts.append(line + ".</p>")
-        sentence = _residual_sentence(fit)
-        if sentence:
-            parts.append(f"<p>{sentence}</p>")
+            pairs.append(("One-factor RMSR", _r(fit.get("rmsr"))))
         rows = []
         for r in block["item_table"]:
             if not isinstance(r, Mapping):
                 continue
             others = {k: v for k, v in (r.get("r_other") or {}).items() if _is_number(v)}
             best = max(others.items(), key=lambda kv: kv[1]) if others else None
-            text = (meta.get(str(r.get("name"))) or {}).get("text") or ""
-            rows.append([_esc(r.get("name")), f"<span class=\"text\">{_esc(text)}</span>",
-                         _num(r.get("item_rest_r"), 2), _num(r.get("alpha_if_deleted")),
-                         _num(r.get("omega_if_deleted")),
-                         f"{_num(best[1], 2)} ({_esc(best[0])})" if best else "&ndash;"])
-        if rows:
-            parts.append(_table(["Item", "Text", "Item-rest r (within)", "Alpha if deleted", "Omega if deleted",
-                                 "Highest r with another subscale"], rows, num_cols={2, 3, 4, 5}))
+            m = meta.get(str(r.get("name"))) or {}
+            wording = f"<span class=\"text\">{_esc(m.get('text') or '')}</span>"
+            if m.get("reverse"):
+                wording += " <span class=\"muted\">(reverse-keyed)</span>"
+            rows.append([_esc(r.get("name")), wording,
+                         _r(r.get("item_rest_r"), 2), _r(r.get("alpha_if_deleted")),
+                         _r(r.get("omega_if_deleted")),
+                         f"{_r(best[1], 2)} ({_esc(best[0])})" if best else "&ndash;"])
+        sentence = _residual_sentence(fit)
+        parts.append("<section class=\"subscale\">"
+                     f"<h3>Subscale: {_esc(name)}</h3><div class=\"keep\">{_kv_table(pairs)}"
+                     + (f"<p>{sentence}</p>" if sentence else "") + "</div>"
+                     + (_table(["Item", "Wording", "Item-rest r (within)", "Alpha if deleted", "Omega if deleted",
+                                "Highest r with another subscale"], rows, num_cols={2, 3, 4, 5}, cls="wrap")
+                        if rows else "")
+                     + "</section>")
     if not parts:
         return ""
     return ("<section><h2>Subscales</h2><p class=\"muted\">Each subscale's own item analysis: item-rest r against "
-            "the rest of that subscale, and each item's highest correlation with the rest of another subscale "
-            "(higher than its own item-rest r: it may belong there).</p>" + "".join(parts) + "</section>")
+            "the rest of that subscale, alpha and omega of the subscale without the item, and each item's highest "
+            "correlation with the rest of another subscale (higher than its own item-rest r: it may belong "
+            "there).</p>" + "".join(parts) + "</section>")
 
 
 def _trail(snapshot: Mapping) -> list[dict]:
@@ -353,7 +423,7 @@ def _trail_svg(steps: Sequence[Mapping]) -> str:
         yy = y(t)
         parts.append(f"<line x1=\"{left}\" x2=\"{width - right}\" y1=\"{yy:.1f}\" y2=\"{yy:.1f}\" "
                      f"stroke=\"#e3e6ea\"/>")
-        parts.append(f"<text x=\"{left - 6}\" y=\"{yy + 4:.1f}\" text-anchor=\"end\">{t:.2f}</text>")
+        parts.append(f"<text x=\"{left - 6}\" y=\"{yy + 4:.1f}\" text-anchor=\"end\">{_r(t, 2)}</text>")
         t += tick
     parts.append(f"<line x1=\"{left}\" x2=\"{left}\" y1=\"{top}\" y2=\"{height - bottom}\" stroke=\"#555\"/>")
     parts.append(f"<line x1=\"{left}\" x2=\"{width - right}\" y1=\"{height - bottom}\" "
@@ -388,12 +458,41 @@ def _trail_svg(steps: Sequence[Mapping]) -> str:
     return "".join(parts)
 
 
+#: The dashboard's loading scale (``DIVERGING`` in static/js/charts.js): blue negative, white at zero, brown positive.
+HEAT_SCALE = ((-1.0, (0x1b, 0x4f, 0x72)), (-0.5, (0x6c, 0x9e, 0xc2)), (0.0, (0xf7, 0xf5, 0xf0)),
+              (0.5, (0xe7, 0xa3, 0x5f)), (1.0, (0x8f, 0x3f, 0x0c)))
+
+#: A loading at least this large in size is printed bold (.30, common practice; the heatmap's default cut-off).
+SALIENT_LOADING = 0.30
+
+
+def _luminance(rgb: Sequence[int]) -> float:
+    def lin(c: float) -> float:
+        c = c / 255
+        return c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4
+    r, g, b = (lin(c) for c in rgb)
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+def heat_colour(value: float) -> tuple[tuple[int, int, int], str]:
+    """The cell colour of a loading on the dashboard's scale and the text colour (black or white) with
+    the higher contrast on it (WCAG 2.1 relative luminance)."""
+    v = max(-1.0, min(1.0, float(value)))
+    for (x0, c0), (x1, c1) in zip(HEAT_SCALE, HEAT_SCALE[1:]):
+        if v <= x1:
+            t = (v - x0) / (x1 - x0)
+            rgb = tuple(round(a + (b - a) * t) for a, b in zip(c0, c1))
+            break
+    lum = _luminance(rgb)
+    ink = "#000" if (lum + 0.05) / 0.05 >= 1.05 / (lum + 0.05) else "#fff"
+    return rgb, ink  # type: ignore[return-value]
+
+
 def _heat_style(value) -> str:
     if not _is_number(value) or not math.isfinite(value):
         return ""
-    strength = min(1.0, abs(value))
-    rgb = "42,93,159" if value >= 0 else "192,57,43"
-    return f" style=\"background: rgba({rgb},{strength * 0.75:.2f});{' color:#fff;' if strength > 0.55 else ''}\""
+    (r, g, b), ink = heat_colour(value)
+    return f" style=\"background: rgb({r},{g},{b}); color: {ink};\""
 
 
 def _per_item(value, items: Sequence[str]) -> dict:
@@ -413,6 +512,11 @@ def _factor_labels(efa: Mapping, n: int) -> list[str]:
             lab = lab.get("label") or lab.get("name") or lab.get("construct")
         out.append(str(lab) if lab not in (None, "") else f"F{i + 1}")
     return out
+
+
+#: The variance table's columns, in our own words (keys as ``stats.efa`` stores them).
+_VARIANCE_WORDS = (("ss_loadings", "Sum of squared loadings"), ("proportion", "Share of the items' variance"),
+                   ("cumulative", "Cumulative share"))
 
 
 def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
@@ -440,10 +544,16 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
         primary = max(finite) if finite else None
         cells = [f"<td>{_esc(item)}</td>"]
         for v in vals:
-            cls = "num primary" if primary is not None and _is_number(v) and abs(v) == primary else "num"
-            cells.append(f"<td class=\"{cls}\"{_heat_style(v)}>{_num(v, 2)}</td>")
+            cls = "num"
+            mark = ""
+            if _is_number(v) and math.isfinite(v) and abs(v) >= SALIENT_LOADING:
+                cls += " salient"
+            if primary is not None and _is_number(v) and abs(v) == primary:
+                cls += " primary"
+                mark = "<span class=\"mark\" title=\"largest loading of the item\">\u25b8</span>"
+            cells.append(f"<td class=\"{cls}\"{_heat_style(v)}>{mark}{_r(v, 2)}</td>")
         cells += ["<td class=\"num\"></td>"] * (n_factors - len(vals))
-        cells.append(f"<td class=\"num\">{_num(communalities.get(item), 2)}</td>")
+        cells.append(f"<td class=\"num\">{_r(communalities.get(item), 2)}</td>")
         tags = "".join(f"<span class=\"flag\" title=\"{_esc(f.get('message'))}\">{_esc(f.get('kind'))}</span>"
                        for f in flags.get(item, []))
         cells.append(f"<td>{tags}</td>")
@@ -452,8 +562,10 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
     head_html = "".join(f"<th class=\"num\">{h}</th>" if i in num_idx else f"<th>{h}</th>"
                         for i, h in enumerate(head))
     out = [f"<table class=\"heat\"><thead><tr>{head_html}</tr></thead><tbody>{''.join(body)}</tbody></table>",
-           ("<p class=\"muted\">Pattern loadings; shading grows with the size of the loading (blue positive, red "
-           "negative); the largest loading of each item is bold. h\u00b2 is the communality.</p>")]
+           ("<p class=\"muted\">Pattern loadings, coloured as in the dashboard's heatmap: brown for positive, "
+            "blue for negative, deeper with the size of the loading. Each number is printed in its cell; loadings "
+            "of .30 or more in size are bold (common practice) and the largest loading of each item is marked "
+            "\u25b8. h\u00b2 is the communality.</p>")]
     all_flags = [f for item in order for f in flags.get(item, [])]
     all_flags += [f for k, fl in flags.items() if k not in rows for f in fl]
     if all_flags:
@@ -466,7 +578,7 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
     out.append("<h3>Factor correlations</h3>")
     if isinstance(phi, list) and phi and all(isinstance(r, list) for r in phi):
         out.append(_table([""] + [_esc(lab) for lab in labels[:len(phi)]],
-                          [[_esc(labels[i] if i < len(labels) else f"F{i + 1}")] + [_num(v, 2) for v in row]
+                          [[_esc(labels[i] if i < len(labels) else f"F{i + 1}")] + [_r(v, 2) for v in row]
                            for i, row in enumerate(phi)],
                           num_cols=set(range(1, len(phi) + 1))))
     else:
@@ -475,17 +587,19 @@ def _loadings_section(efa: Mapping, items: Sequence[str]) -> str:
     fit = efa.get("fit")
     pairs = []
     if isinstance(variance, Mapping):
-        rows = [[_esc(_label(k))] + [_num(x, 3) for x in v] for k, v in variance.items()
-                if isinstance(v, list) and len(v) == n_factors]
-        if rows:
-            out.append("<h3>Variance explained</h3>")
-            out.append(_table([""] + [_esc(lab) for lab in labels], rows, num_cols=set(range(1, n_factors + 1))))
+        cols = [(key, word) for key, word in _VARIANCE_WORDS
+                if isinstance(variance.get(key), list) and len(variance[key]) == n_factors]
+        rows = [[_esc(lab)] + [_num(variance[key][i], 3, bounded=_bounded(key)) for key, _ in cols]
+                for i, lab in enumerate(labels)]
+        if cols:
+            out.append("<h3>What each factor explains</h3>")
+            out.append(_table(["Factor"] + [word for _, word in cols], rows, num_cols=set(range(1, len(cols) + 1))))
         if variance.get("basis"):
             out.append(f"<p class=\"muted\">{_esc(variance['basis'])}</p>")
     elif variance is not None:
         pairs.append(("Variance explained", _value(variance)))
     if isinstance(fit, Mapping):
-        pairs += [(_esc(_label(k)), _value(v)) for k, v in fit.items()]
+        pairs += [(_esc(_label(k)), _value(v, bounded=_bounded(k))) for k, v in fit.items()]
     if "converged" in efa:
         pairs.append(("Converged", _value(efa.get("converged"))))
     if pairs:
@@ -498,21 +612,26 @@ _ITEM_COLUMNS = (("n", "n", 0), ("mean", "Mean", 2), ("sd", "SD", 2), ("skew", "
                  ("kurtosis", "Kurtosis", 2), ("floor", "Floor", 2), ("ceiling", "Ceiling", 2),
                  ("item_rest_r", "Item-rest r", 2), ("alpha_if_deleted", "Alpha if deleted", 3),
                  ("omega_if_deleted", "Omega if deleted", 3))
+_ITEM_FIXED = ("Item", "Wording")
 
 
 def _items_section(rows: Sequence[Mapping], meta: Mapping[str, Mapping]) -> str:
     if not rows:
         return "<p class=\"muted\">No item statistics were stored with this snapshot.</p>"
     cols = [c for c in _ITEM_COLUMNS if any(c[0] in r for r in rows)]
-    header = ["Item", "Text", "Construct", "Reverse"] + [label for _, label, _ in cols]
+    header = list(_ITEM_FIXED) + [label for _, label, _ in cols]
     body = []
     for r in rows:
         name = r.get("name", r.get("item"))
         m = meta.get(str(name)) or r
-        body.append([_esc(name), f"<span class=\"text\">{_esc(m.get('text') or '')}</span>",
-                     _esc(m.get("construct") or ""), "yes" if m.get("reverse") else ""]
-                    + [_num(r.get(key), digits) if digits else _num(r.get(key)) for key, _, digits in cols])
-    return _table(header, body, num_cols=set(range(4, 4 + len(cols))))
+        about = [f"subscale {_esc(m['construct'])}"] if m.get("construct") else []
+        about += ["reverse-keyed"] if m.get("reverse") else []
+        wording = f"<span class=\"text\">{_esc(m.get('text') or '')}</span>"
+        if about:
+            wording += f" <span class=\"muted about\">({', '.join(about)})</span>"
+        body.append([_esc(name), wording]
+                    + [_num(r.get(key), digits if digits else 3, bounded=_bounded(key)) for key, _, digits in cols])
+    return _table(header, body, num_cols=set(range(len(_ITEM_FIXED), len(_ITEM_FIXED) + len(cols))), cls="wrap items")
 
 
 def _removed_section(snapshot: Mapping) -> str:
@@ -524,7 +643,7 @@ def _removed_section(snapshot: Mapping) -> str:
     start = steps[0] if steps and not steps[0].get("removed") else None
     if start:
         parts.append(f"<p>Starting from {_num(start.get('n_items'))} items (the kept items plus every removed "
-                     f"one): alpha {_num(start.get('alpha'))}, omega {_num(start.get('omega_total'))}.</p>")
+                     f"one): alpha {_r(start.get('alpha'))}, omega {_r(start.get('omega_total'))}.</p>")
     svg = _trail_svg(steps)
     if svg:
         parts.append(svg)
@@ -532,7 +651,7 @@ def _removed_section(snapshot: Mapping) -> str:
     for i, r in enumerate(removed, start=1):
         rows.append([str(i), _esc(r.get("item")), _esc(r.get("code") or ""),
                      f"<span class=\"note\">{_esc(r.get('reason'))}</span>",
-                     _num(r.get("n_items_after")), _num(r.get("alpha_after")), _num(r.get("omega_after"))])
+                     _num(r.get("n_items_after")), _r(r.get("alpha_after")), _r(r.get("omega_after"))])
     parts.append(_table(["Step", "Removed item", "Code", "Reason", "Items left", "Alpha after", "Omega after"],
                         rows, num_cols={0, 4, 5, 6}))
     return "".join(parts)
@@ -556,53 +675,99 @@ def _constructs_section(constructs) -> str:
         ci = rel.get("alpha_ci")
         fit = rel.get("one_factor_fit") if isinstance(rel.get("one_factor_fit"), Mapping) else {}
         rows.append([_esc(name), _num(rel.get("n_items", len(block.get("items") or []) or None)),
-                     _num(rel.get("alpha")), _num(ci, 3) if ci is not None else "&ndash;",
-                     _num(rel.get("omega_unidimensional", rel.get("omega_total")))]
-                    + ([_num(fit.get("rmsr"))] if any_fit else []))
+                     _r(rel.get("alpha")), _r(ci, 3) if ci is not None else "&ndash;",
+                     _r(rel.get("omega_unidimensional", rel.get("omega_total")))]
+                    + ([_r(fit.get("rmsr"))] if any_fit else []))
     if not rows:
         return ""
     header = ["Construct", "Items", "Alpha", "95% CI", "Omega (one factor)"] + (["One-factor RMSR"] if any_fit else [])
     return "<h3>By construct</h3>" + _table(header, rows, num_cols=set(range(1, len(header))))
 
 
-_SETTING_WORDS = {"minres": "minimum residual (minres)", "ml": "maximum likelihood", "paf": "principal axis",
+_SETTING_WORDS = {"construct": "by codebook subscale",
+                  "minres": "minimum residual (minres)", "ml": "maximum likelihood", "paf": "principal axis",
                   "pearson": "Pearson", "polychoric": "polychoric", "pairwise": "pairwise deletion",
                   "listwise": "listwise deletion", "components": "components (Horn 1965)",
                   "factors": "reduced-matrix factors"}
 
 
-def _settings_pairs(settings: Mapping) -> list[tuple[str, str]]:
-    out = []
+def _settings_pairs(settings: Mapping, efa: Mapping | None = None, retention: Mapping | None = None
+                    ) -> list[tuple[str, str]]:
+    """The analysis settings as a labelled list in plain words."""
+    efa = efa or {}
+    out: list[tuple[str, str]] = []
+    done = {"items"}
+
+    def word(v) -> str:
+        return _esc(_SETTING_WORDS.get(v, v)) if isinstance(v, str) else _value(v)
+
+    if "correlation" in settings:
+        out.append(("Correlations", word(settings["correlation"])))
+    if "missing" in settings:
+        out.append(("Missing answers", word(settings["missing"])))
+    if "n_factors" in settings or efa.get("n_factors") is not None:
+        chosen, fitted = settings.get("n_factors"), efa.get("n_factors")
+        suggested = (retention or {}).get("suggested")
+        notes = ["set by the team"] if chosen is not None else ["as parallel analysis suggests"]
+        if suggested is not None:
+            notes = (notes if chosen is not None else []) + [f"parallel analysis suggested {_num(suggested)}"]
+        text = f"{_num(fitted if fitted is not None else chosen)} ({'; '.join(notes)})"
+        out.append(("Factors extracted", text))
+    if "extraction" in settings:
+        out.append(("Extraction", word(settings["extraction"])))
+    if "rotation" in settings:
+        rot = settings["rotation"]
+        text = "none (unrotated)" if rot == "none" else word(rot)
+        if rot == "oblimin" and _is_number(settings.get("gamma")):
+            text += f" (gamma {settings['gamma']:g})"
+        out.append(("Rotation", text))
+    if "pa_iterations" in settings or "pa_variant" in settings:
+        pa = []
+        if settings.get("pa_iterations") is not None:
+            pa.append(f"{_num(settings['pa_iterations'])} random data sets")
+        if settings.get("pa_variant"):
+            pa.append(f"eigenvalues of {word(settings['pa_variant'])}")
+        out.append(("Parallel analysis", ", ".join(pa) or "&ndash;"))
+    if "reverse" in settings:
+        rev = settings["reverse"]
+        out.append(("Reverse-keyed items (scored min + max \u2212 answer)",
+                    _esc(", ".join(map(str, rev))) if rev else "none"))
+    if "excluded" in settings:
+        exc = settings["excluded"]
+        out.append(("Items left out (no variance)", _esc(", ".join(map(str, exc))) if exc else "none"))
+    if "thresholds" in settings:
+        th = settings["thresholds"]
+        out.append(("Flag thresholds", _value(th, bounded=True) if th else "the defaults"))
+    done |= {"correlation", "missing", "n_factors", "extraction", "rotation", "gamma", "pa_iterations", "pa_variant",
+             "reverse", "excluded", "thresholds"}
     for k, v in settings.items():
-        if k == "items":
+        if k in done:
             continue
-        if k == "rotation" and isinstance(v, str):
-            v = "none (unrotated)" if v == "none" else v
-        if isinstance(v, str):
-            v = _SETTING_WORDS.get(v, v)
-        out.append((_esc(_label(k)), _value(v) if v not in (None, [], {}) else "&ndash;"))
+        out.append((_esc(_label(k)), word(v) if v not in (None, [], {}) else "&ndash;"))
     return out
 
 
 def _when(stamp) -> str:
-    """An ISO time stamp as '2026-12-02 02:50 UTC' (the stored value keeps its full precision)."""
+    """An ISO time stamp written once, in UTC, with its zone once: '2026-12-02 02:50:07 UTC'."""
     try:
         t = datetime.fromisoformat(str(stamp))
     except ValueError:
         return _esc(stamp)
-    return t.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
+    if t.tzinfo is None:
+        t = t.replace(tzinfo=UTC)
+    return t.astimezone(UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def _coef(v) -> str:
     """A coefficient block {value, ci, reason} as 'value (lo to hi)' or the reason it is undefined."""
     if not isinstance(v, Mapping):
-        return _num(v)
+        return _r(v)
     if v.get("value") is None:
         return _esc(v.get("reason") or "undefined")
     ci = v.get("ci")
-    ci_txt = f" (95% CI {_num(ci[0])} to {_num(ci[1])})" if isinstance(ci, (list, tuple)) and len(ci) == 2 else ""
+    ci_txt = f" (95% CI {_r(ci[0])} to {_r(ci[1])})" if isinstance(ci, (list, tuple)) and len(ci) == 2 else ""
     label = f" &middot; {_esc(v['label'])}" if v.get("label") else ""
-    return f"{_num(v['value'])}{ci_txt}{label}"
+    return f"{_r(v['value'])}{ci_txt}{label}"
 
 
 def _icc_rows(icc: Mapping, recommended) -> list[list[str]]:
@@ -665,6 +830,91 @@ def _stability_section(stability) -> str:
     return "".join(parts)
 
 
+#: Short words for the flag kinds in the resampling section (the dashboard's labels.js uses the same words).
+_FLAG_WORDS = {"cross_loading": "cross-loads", "weak_loading": "weak", "misplaced": "elsewhere", "heywood": "Heywood",
+               "reverse_suspect": "reverse?", "near_duplicate": "duplicate?", "floor_ceiling": "floor/ceiling"}
+#: Items are listed in the resampling section when one of their flags comes back at least this often.
+_RESAMPLING_LIST_RATE = 0.10  # our own cut for a short report; common practice has none
+
+
+def _share(value) -> str:
+    """A share of resamples as a whole percent ('41 %')."""
+    return f"{round(value * 100)}&nbsp;%" if _is_number(value) else "&ndash;"
+
+
+def _interval(c) -> str:
+    """A resampled coefficient {estimate, percentile, bca} as 'estimate (low to high)' plus BCa when given."""
+    if not isinstance(c, Mapping):
+        return "&ndash;"
+    p = c.get("percentile") or {}
+    text = f"{_r(c.get('estimate'))} (percentile {_r(p.get('low'))} to {_r(p.get('high'))}"
+    b = c.get("bca") or {}
+    if isinstance(b, Mapping) and b.get("low") is not None:
+        text += f"; BCa {_r(b.get('low'))} to {_r(b.get('high'))}"
+    return text + ")"
+
+
+def _resampling_section(res) -> str:
+    """The resampling run kept with the snapshot (issue 13): flag rates, coefficient intervals, factor counts."""
+    if not isinstance(res, Mapping) or not res:
+        return ""
+    s = res.get("settings") or {}
+    parts = ["<section><h2>Resampling stability</h2>",
+             f"<p>The respondents were drawn again with replacement {_num(res.get('n_resamples'), 0)} times "
+             f"(seed {_num(res.get('seed'), 0)}) and the whole analysis was repeated on each draw with the same "
+             "settings; factors were matched to those of all respondents before counting. A flag that comes back in "
+             "most draws is a firm reason to act; one that comes and goes sits near its threshold.</p>"]
+    if not res.get("same_items", True):
+        parts.append(f"<p class=\"muted\">The run was made for an earlier item set ({len(res.get('run_items') or [])} "
+                     "items), not exactly the kept items of this snapshot.</p>")
+    parts.append(_kv_table([
+        ("Resamples", _num(res.get("n_resamples"), 0)),
+        ("Seed", _num(res.get("seed"), 0)),
+        ("Resamples that could not be analysed", _num(res.get("n_failed"), 0)),
+        ("Settings", _esc(", ".join(f"{k}: {v}" for k, v in s.items() if v is not None and k != "seed"))),
+        ("Finished", _when(res.get("finished_at"))),
+    ]))
+    rows = []
+    for row in res.get("items") or []:
+        flags = row.get("flags") or {}
+        if not flags or max(flags.values()) < _RESAMPLING_LIST_RATE:
+            continue
+        words = "; ".join(f"{_esc(_FLAG_WORDS.get(k, k))} in {_share(v)}"
+                          for k, v in sorted(flags.items(), key=lambda kv: -kv[1]))
+        full = ", ".join(_esc(_FLAG_WORDS.get(k, k)) for k in row.get("flags_full_sample") or []) or "none"
+        rows.append([_esc(row.get("name")), full, words, _share(row.get("early_removal"))])
+    parts.append(f"<h3>Flags that come back in at least {_share(_RESAMPLING_LIST_RATE)} of resamples</h3>")
+    parts.append(_table(["Item", "Flags on all respondents", "Share of resamples with each flag",
+                         "Among the first quarter removed"], rows, num_cols={3}) if rows
+                 else "<p class=\"muted\">No flag came back that often.</p>")
+    level = res.get("level")
+    coef = res.get("coefficients") or {}
+    crow = [[name, _interval(coef.get(key))] for key, name in
+            (("alpha", "Alpha"), ("omega_total", "Omega total"), ("omega_hierarchical", "Omega hierarchical"))]
+    for sub in res.get("subscales") or []:
+        crow += [[f"{_esc(sub.get('name'))}: alpha", _interval(sub.get("alpha"))],
+                 [f"{_esc(sub.get('name'))}: omega", _interval(sub.get("omega"))]]
+    parts.append(f"<h3>Intervals of the coefficients ({_share(level) if _is_number(level) else '95&nbsp;%'})</h3>")
+    parts.append(_table(["Coefficient", "All respondents (interval over the resamples)"], crow))
+    if res.get("bca_note"):
+        parts.append(f"<p class=\"muted\">{_esc(res.get('bca_note'))}</p>")
+    ret = res.get("retention") or {}
+    full = ret.get("full_sample") or {}
+    counts = sorted({d.get("n_factors") for key in ("parallel", "map") for d in ret.get(key) or []
+                     if _is_number(d.get("n_factors"))})
+
+    def rate(key, m):
+        return next((d.get("rate") for d in ret.get(key) or [] if d.get("n_factors") == m), 0)
+
+    parts.append("<h3>Number of factors suggested across resamples</h3>")
+    parts.append(_table(["Factors", f"Parallel analysis (all respondents: {_num(full.get('parallel'), 0)})",
+                         f"MAP (all respondents: {_num(full.get('map'), 0)})"],
+                        [[str(m), _share(rate("parallel", m)), _share(rate("map", m))] for m in counts],
+                        num_cols={0, 1, 2}))
+    parts.append("</section>")
+    return "".join(parts)
+
+
 # -------------------------------------------------------------------------------------------------- report
 def render_report(snapshot: dict, dataset: dict) -> str:
     """Render a snapshot as one self-contained, printable HTML page.
@@ -701,7 +951,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         sha_note = (" <strong>The data set now on the server has a different SHA-256 "
                     f"({_esc(dataset['sha256'])}).</strong>")
     n_rows = dataset.get("n_rows") or (analysis.get("dataset") or {}).get("n_rows")
-    generated = datetime.now(UTC).replace(microsecond=0).isoformat()
+    generated = _when(datetime.now(UTC).replace(microsecond=0).isoformat())
     version = snapshot.get("software_version") or __version__
 
     parts = [
@@ -709,7 +959,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "<html lang=\"en\"><head><meta charset=\"utf-8\">",
         "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
         f"<title>{_esc(title)}</title>",
-        f"<style>{_CSS}</style></head><body>",
+        f"<style>{_CSS}{_page_footer_css(snapshot.get('id') or '', sha or '', version)}</style></head><body>",
         f"<header><h1>{_esc(title)}</h1>",
         f"<p class=\"muted\">Saved {_when(snapshot.get('created_at') or '')}"
         + (f" by {_esc(snapshot.get('author'))}" if snapshot.get("author") else "")
@@ -722,8 +972,7 @@ def render_report(snapshot: dict, dataset: dict) -> str:
             ("Parent snapshot", f"<span class=\"mono\">{_esc(snapshot.get('parent'))}</span>"
              if snapshot.get("parent") else "&ndash;"),
             ("Author", _esc(snapshot.get("author")) if snapshot.get("author") else "&ndash;"),
-            ("Saved", (f"{_when(snapshot.get('created_at'))} <span class=\"mono muted\">"
-                      f"({_esc(snapshot.get('created_at'))})</span>")),
+            ("Saved", _when(snapshot.get("created_at"))),
             ("Note", f"<span class=\"note\">{_esc(snapshot.get('note'))}</span>"
              if snapshot.get("note") else "&ndash;"),
             ("Data set", _esc(ds_name)),
@@ -734,7 +983,8 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         ]),
         "</section>",
         "<section><h2>Analysis settings</h2>",
-        _kv_table(_settings_pairs(settings)) if settings else "<p class=\"muted\">Defaults.</p>",
+        _kv_table(_settings_pairs(settings, efa, analysis.get("retention")))
+        if settings else "<p class=\"muted\">Defaults.</p>",
         "</section>",
         "<section><h2>Reliability of the kept items</h2>",
         _kv_table(_reliability_pairs(reliability)) if reliability
@@ -753,11 +1003,12 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "</section>",
         _subscales_section(analysis.get("constructs"), meta),
         "<section><h2>Factor loadings</h2>",
-        (f"<p>{_num(efa.get('n_factors'))} factor(s), extraction {_esc(settings.get('extraction', ''))}, "
-         f"rotation {_esc(settings.get('rotation', ''))}.</p>" if efa else ""),
+        ("<p class=\"muted\">How the factors were extracted and rotated is listed under Analysis settings.</p>"
+         if efa else ""),
         _loadings_section(efa, items) if efa else "<p class=\"muted\">No factor solution was stored.</p>",
         "</section>",
         _stability_section(snapshot.get("stability")),
+        _resampling_section(snapshot.get("resampling")),
     ]
     warnings = [warning_text(w) for w in (analysis.get("warnings") or []) if w]  # coded objects or old sentences
     if warnings:
@@ -767,8 +1018,9 @@ def render_report(snapshot: dict, dataset: dict) -> str:
         "<section><h2>Cautions</h2><div class=\"caution\"><ul>",
         "".join(f"<li>{_esc(c)}</li>" for c in CAUTIONS),
         "</ul></div></section>",
-        (f"<footer>Scalewright {_esc(version)} &middot; report generated {_esc(generated)} UTC &middot; "
-        f"data set SHA-256 <span class=\"mono\">{_esc(sha)}</span></footer>"),
+        (f"<footer class=\"page-foot\"><span>Snapshot <span class=\"mono\">{_esc(snapshot.get('id'))}</span></span> "
+         f"<span>Data set SHA-256 <span class=\"mono\">{_esc(sha)}</span></span> "
+         f"<span>Scalewright {_esc(version)}, report generated {generated}</span></footer>"),
         "</body></html>",
     ]
     return "\n".join(p for p in parts if p)

@@ -19,6 +19,7 @@ from .analysis.settings import OPTIONS
 from .engine import Engine
 from .errors import NotFound
 from .retest import RetestQuery, compute_retest
+from .scoring import WHOLE_POOL, item_statistics, scoring_rules
 from .stats.agreement import agreement_summary
 from .stats.errors import InputError
 from .stats.notes import Note, note
@@ -67,6 +68,8 @@ class Draft:
     parent: str | None = None
     retest: RetestQuery | None = None
     agreement: AgreementTable | None = None
+    resampling_run_id: str | None = None          # a finished resampling run to keep a summary of
+    resampling_run: Mapping[str, Any] | None = None  # that run as ``GET /api/runs/{id}`` gives it (None: not found)
     scoring_method: str = "mean"
     min_answered_share: float = 0.8  # common practice
 
@@ -234,6 +237,40 @@ def stability(engine: Engine, store: StoreBackend, draft: Draft, dataset_id: str
     return out
 
 
+def resampling_summary(draft: Draft, dataset_id: str, kept: list[str]) -> dict | None:
+    """A compact copy of the draft's resampling run (per-item rates, factor counts, coefficient intervals).
+
+    Refuses (422) an unknown run, a run of another data set and a run that has not finished. The loading
+    intervals are left out: the copy keeps what the report shows, and it outlives the run (runs can be deleted).
+    """
+    if draft.resampling_run_id is None:
+        return None
+    run_id = draft.resampling_run_id
+    run = draft.resampling_run
+    if run is None:
+        raise _bad("unknown_run", f"There is no resampling run with id '{run_id}'.", resampling_run_id=run_id)
+    if run.get("dataset_id") != dataset_id:
+        raise _bad("run_other_dataset", f"The resampling run '{run_id}' belongs to another data set.",
+                   resampling_run_id=run_id, run_dataset_id=run.get("dataset_id"))
+    if run.get("state") != "done" or not run.get("result"):
+        raise _bad("run_not_done", f"The resampling run '{run_id}' is {run.get('state')}, not done; only a "
+                   "finished run can be kept with a snapshot.", resampling_run_id=run_id, state=run.get("state"))
+    result = run["result"]
+    settings = run.get("settings") or {}
+    run_items = list(settings.get("items") or [r["name"] for r in result.get("items", [])])
+    keep = ("n_resamples", "n_failed", "seed", "level", "n_factors", "factors", "retention", "coefficients",
+            "subscales", "quarter", "bca_note", "errors")
+    return {
+        "run_id": run_id, "finished_at": run.get("finished_at"),
+        "settings": {k: settings.get(k) for k in ("correlation", "extraction", "rotation", "missing", "n_factors",
+                                                  "seed")},
+        "run_items": run_items, "same_items": sorted(run_items) == sorted(kept),
+        **{k: result.get(k) for k in keep},
+        "items": [{k: row.get(k) for k in ("name", "flags", "flags_full_sample", "primary", "primary_none",
+                                           "early_removal")} for row in result.get("items", [])],
+    }
+
+
 def trail(engine: Engine, dataset_id: str, payload: Mapping[str, Any], kept: list[str], removed: list[dict],
           analysis: Mapping[str, Any], to_json: ToJson) -> list[dict]:
     """Alpha and omega from kept + every removed item, taking the removed items out one at a time in order.
@@ -273,6 +310,7 @@ def save(engine: Engine, store: StoreBackend, dataset_id: str, draft: Draft, pay
                        parent=draft.parent, parent_dataset_id=parent.get("dataset_id"))
     settings = dict(draft.settings or {})
     kept = list(draft.items)
+    resampling = resampling_summary(draft, dataset_id, kept)  # checked before the long part of the work
     # The full analysis of the kept items, exactly as POST /api/datasets/{id}/analysis would answer it.
     analysis = to_json(engine.analyse(dataset_id, {**payload, "items": kept}))
     steps = trail(engine, dataset_id, payload, kept, removed, analysis, to_json)
@@ -294,6 +332,7 @@ def save(engine: Engine, store: StoreBackend, dataset_id: str, draft: Draft, pay
         "software_version": __version__,
         "parent": draft.parent,
         "stability": stability(engine, store, draft, dataset_id, kept, reverse, to_json),
+        "resampling": resampling,
         "scoring": {"method": draft.scoring_method, "min_answered_share": float(draft.min_answered_share)},
     }
     try:
@@ -386,3 +425,105 @@ def compare(sa: Mapping[str, Any], sb: Mapping[str, Any]) -> dict:
         "settings_changed": settings_changed,
         "warnings": warnings,
     }
+
+
+CURRENT = "current"
+
+
+def current_view(engine: Engine, store: StoreBackend, dataset_id: str, payload: Mapping[str, Any],
+                 to_json: ToJson) -> dict:
+    """The current view as a snapshot-shaped record (id ``"current"``), computed by the engine exactly as
+    ``POST /api/datasets/{id}/analysis`` answers ``payload``; nothing is stored."""
+    dataset = engine.dataset(dataset_id)  # 404 if unknown
+    analysis = to_json(engine.analyse(dataset_id, dict(payload)))
+    items = [str(i) for i in (analysis.get("settings") or {}).get("items") or [m.name for m in dataset.items]]
+    record = store.get_dataset(dataset_id) or {}
+    return {"id": CURRENT, "name": "Current view", "created_at": None, "dataset_id": dataset_id,
+            "dataset_name": record.get("name"), "items": items, "analysis": analysis,
+            "settings": {k: v for k, v in payload.items() if k != "items"},
+            "item_meta": item_meta(dataset, items, effective_reverse(analysis, payload), to_json)}
+
+
+def _form_subscales(snap: Mapping[str, Any]) -> dict[str, dict]:
+    """Per subscale of one form: its items (wording, reverse, primary factor and loading, item-rest r) and its
+    coefficients, read with the scoring readers (``scoring.item_statistics``, ``scoring.scoring_rules``)."""
+    analysis = snap.get("analysis") or {}
+    loadings, labels = _loadings_by_item(analysis)
+    rules = scoring_rules(snap)
+    coef = {s["name"]: s["reliability"] for s in rules["subscales"]}
+    out: dict[str, dict] = {}
+    for group in item_statistics(snap)["subscales"]:
+        rows = []
+        for r in group["items"]:
+            primary = _primary(loadings[r["item"]]) if loadings.get(r["item"]) else None
+            factor = None
+            if primary is not None:
+                i = primary["factor"]
+                factor = str(labels[i]) if i < len(labels) else f"F{i + 1}"
+            rows.append({"name": r["item"], "text": r["text"], "reverse": r["reverse"], "primary_factor": factor,
+                         "loading": primary["loading"] if primary else None, "item_rest_r": r["item_rest_r"]})
+        # a form without codebook constructs is one scale: its coefficients are the whole pool's
+        rel = coef.get(group["name"]) or (rules["total"]["reliability"] if group["name"] == WHOLE_POOL
+                                           and not coef else {})
+        out[group["name"]] = {"items": rows, "alpha": rel.get("alpha"),
+                              "alpha_ci": rel.get("alpha_ci") or [None, None],
+                              "omega_total": rel.get("omega_total"),
+                              "omega_hierarchical": rel.get("omega_hierarchical"), "k": len(rows)}
+    return out
+
+
+def _total(snap: Mapping[str, Any]) -> dict:
+    rel = scoring_rules(snap)["total"]["reliability"]
+    return {**rel, "k": len(snap.get("items") or [])}
+
+
+def _head(snap: Mapping[str, Any]) -> dict:
+    return {"id": snap.get("id"), "name": snap.get("name"), "saved_at": snap.get("created_at"),
+            "dataset_id": snap.get("dataset_id"), "n_items": len(snap.get("items") or [])}
+
+
+def _three(x: Any) -> str:
+    return "–" if x is None else f"{x:.3f}".replace("0.", ".", 1)
+
+
+def _names(items: Sequence[str]) -> str:
+    return ", ".join(items[:8]) + (f" and {len(items) - 8} more" if len(items) > 8 else "")
+
+
+def side_by_side(left: Mapping[str, Any], right: Mapping[str, Any]) -> dict:
+    """Two forms (stored snapshots, or one of them the :func:`current_view`) subscale by subscale: each form's
+    items with wording, loading and item-rest r, each subscale's coefficients, and what differs in words.
+    Items are matched by name, so forms of different data sets can be set beside each other (said so)."""
+    subs_l, subs_r = _form_subscales(left), _form_subscales(right)
+    empty = {"items": [], "alpha": None, "alpha_ci": [None, None], "omega_total": None,
+             "omega_hierarchical": None, "k": 0}
+    names = list(subs_l) + [n for n in subs_r if n not in subs_l]
+    subscales, differences = [], []
+    if left.get("dataset_id") != right.get("dataset_id"):
+        differences.append("The two forms come from different data sets: items are matched by name and their "
+                           "numbers are not directly comparable.")
+    for name in names:
+        a, b = subs_l.get(name, empty), subs_r.get(name, empty)
+        in_a, in_b = [r["name"] for r in a["items"]], [r["name"] for r in b["items"]]
+        only_l = [i for i in in_a if i not in in_b]
+        only_r = [i for i in in_b if i not in in_a]
+        both = [i for i in in_a if i in in_b]
+        subscales.append({"name": name, "left": a, "right": b, "only_left": only_l, "only_right": only_r,
+                          "both": both})
+        if only_l:
+            differences.append(f"{name}: only in “{left.get('name')}”: {_names(only_l)}.")
+        if only_r:
+            differences.append(f"{name}: only in “{right.get('name')}”: {_names(only_r)}.")
+        if a["k"] and b["k"] and a["alpha"] is not None and b["alpha"] is not None \
+                and round(a["alpha"], 3) != round(b["alpha"], 3):
+            differences.append(f"{name}: alpha {_three(a['alpha'])} ({a['k']} items) beside "
+                               f"{_three(b['alpha'])} ({b['k']} items).")
+    total = {"left": _total(left), "right": _total(right)}
+    if not any(s["only_left"] or s["only_right"] for s in subscales):
+        differences.append("Both forms keep the same items.")
+    for key, label in (("omega_hierarchical", "omega hierarchical"), ("alpha", "total alpha")):
+        va, vb = total["left"].get(key), total["right"].get(key)
+        if va is not None and vb is not None and round(va, 3) != round(vb, 3):
+            differences.append(f"Whole form: {label} {_three(va)} beside {_three(vb)}.")
+    return {"left": _head(left), "right": _head(right), "subscales": subscales, "total": total,
+            "differences": differences}

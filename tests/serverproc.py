@@ -38,7 +38,7 @@ def peak_rss_bytes(pid: int) -> int:
 @contextmanager
 def running_server(data_dir: Path, *args: str, port: int | None = None, address: str = "127.0.0.1",
                    token: str | None = None, log: Path | None = None,
-                   timeout: float = 30.0) -> Iterator[tuple[subprocess.Popen, str]]:
+                   timeout: float = 90.0) -> Iterator[tuple[subprocess.Popen, str]]:
     """Start ``python -m server serve --port P --data-dir DATA_DIR [ARGS...]``; yield (process, base URL).
 
     ``address`` is where the test reaches it (the LAN address of a server bound to 0.0.0.0, say); with a

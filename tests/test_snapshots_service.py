@@ -134,3 +134,27 @@ def test_light_restore_and_missing_snapshot(demo):
     with pytest.raises(NotFound) as e:
         snapshots.get(store, "nope")
     assert (e.value.kind, e.value.ident) == ("snapshot", "nope")
+
+
+def _bare(sid: str, dataset: str, items: list[str], alpha: float) -> dict:
+    """A record without codebook constructs or factor model (hand-built, as an old or plain upload has it)."""
+    return {"id": sid, "name": sid, "dataset_id": dataset, "created_at": "2026-01-01T00:00:00Z", "items": items,
+            "analysis": {"reliability": {"alpha": alpha, "alpha_ci": [alpha - 0.05, alpha + 0.05]},
+                         "items": [{"name": i, "text": f"<{i}>", "item_rest_r": 0.5} for i in items]},
+            "item_meta": [{"name": i, "text": f"<{i}>", "reverse": i == "Q2", "min": 1, "max": 5} for i in items]}
+
+
+def test_side_by_side_of_forms_without_constructs_and_of_two_data_sets():
+    left = _bare("first", "ds1", ["Q1", "Q2", "Q3"], 0.7)
+    right = _bare("second", "ds2", ["Q2", "Q3", "Q4"], 0.75)
+    got = snapshots.side_by_side(left, right)
+    [pool] = got["subscales"]  # no constructs: the whole pool is the one scale, with the total's numbers
+    assert pool["only_left"] == ["Q1"] and pool["only_right"] == ["Q4"] and pool["both"] == ["Q2", "Q3"]
+    assert pool["left"]["alpha"] == 0.7 and pool["right"]["alpha"] == 0.75 and pool["left"]["k"] == 3
+    assert [r["reverse"] for r in pool["left"]["items"]] == [False, True, False]
+    assert pool["left"]["items"][0]["text"] == "<Q1>" and pool["left"]["items"][0]["loading"] is None
+    assert got["total"]["right"]["alpha"] == 0.75 and got["total"]["right"]["k"] == 3
+    assert any("different data sets" in d for d in got["differences"])
+    assert any("Q1" in d and "first" in d for d in got["differences"])
+    same = snapshots.side_by_side(left, dict(left, id="again"))
+    assert same["differences"] == ["Both forms keep the same items."]

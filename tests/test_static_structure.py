@@ -42,7 +42,7 @@ def hard_coded_defaults(source: str, options: dict) -> list[str]:
     """Served defaults written next to their name in ``source`` (``primary_min: 0.40``,
     ``["primary_min", 0.4``, ``rotation: "oblimin"``), and quoted string defaults anywhere."""
     found = []
-    for entry in [*options["settings"], *options["thresholds"]]:
+    for entry in [*options["settings"], *options["thresholds"], *options.get("display", [])]:
         name, default = entry["name"], entry.get("default")
         if default is None or isinstance(default, bool):
             continue

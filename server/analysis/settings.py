@@ -17,7 +17,7 @@ from typing import Any
 from ..stats.errors import InputError
 from ..stats.flags import THRESHOLDS, resolve_thresholds
 
-__all__ = ["OPTIONS", "AnalysisSettings", "Option"]
+__all__ = ["DISPLAY", "OPTIONS", "AnalysisSettings", "Option"]
 
 
 @dataclass(frozen=True)
@@ -104,6 +104,13 @@ OPTIONS: tuple[Option, ...] = (
            min=0, max=2 ** 32 - 1),
 )
 _BY_NAME = {o.name: o for o in OPTIONS}
+
+#: Options of how the dashboard shows an answer (never part of a request), served under ``display``.
+DISPLAY: tuple[Option, ...] = (
+    Option("loading_cutoff", "number", 0.30, "Hide loadings below",  # common practice
+           "Loadings whose size is below this value are left blank in the heatmap (the value stays in its "
+           "hover text and in the keyboard read-out). 0 shows every loading.", min=0.0, max=1.0),
+)
 _LISTS = ("items", "reverse", "thresholds")  # request fields that are not options of the settings page
 
 
@@ -239,10 +246,11 @@ class AnalysisSettings:
 
     @staticmethod
     def describe() -> dict:
-        """``GET /api/options``: every setting and flag threshold with its default, range and help text."""
+        """``GET /api/options``: every setting, flag threshold and display option with its default, range and help."""
         return {"settings": [o.describe() for o in OPTIONS],
                 "thresholds": [{"name": t.name, "default": t.default, "min": t.min, "max": t.max, "label": t.label,
-                                "source": t.source, "help": t.help} for t in THRESHOLDS]}
+                                "source": t.source, "help": t.help} for t in THRESHOLDS],
+                "display": [o.describe() for o in DISPLAY]}
 
     @staticmethod
     def option(name: str) -> Option:

@@ -1,7 +1,7 @@
 """Live collaboration: several browsers on one dataset see each other's drops and restores.
 
 ``GET /api/datasets/{id}/events`` is a server-sent-events stream (``text/event-stream``);
-``POST /api/datasets/{id}/events`` with JSON ``{who, action, state, sender?}`` relays the message
+``POST /api/datasets/{id}/events`` with JSON ``{who, action, state, sender?, browser?}`` relays the message
 to every *other* listener of that dataset. Nothing is stored: the hub lives in memory on
 ``app.state.live`` and forgets everything at restart.
 
@@ -17,12 +17,14 @@ Stream format (one SSE event per message)::
     id: 7
     event: change
     data: {"seq": 7, "dataset": "...", "sender": "<listener id>", "who": "Ana", "action": "drop",
-           "state": {...}, "at": "2026-12-02T01:40:00Z"}
+           "state": {...}, "browser": "<browser id or null>", "at": "2026-12-02T01:40:00Z"}
 
 A page sends its own listener id as ``sender`` so the server skips it (and the page can
-ignore any echo). ``presence`` says how many pages are open whenever one joins or leaves; ``hello``
-carries the last change relayed for the dataset so a page that joins late can offer to follow the
-team. Comment lines (``: ping``) keep idle connections open.
+ignore any echo), and its browser's stable id as ``browser`` (kept with the last change, so a page
+opened later in the same browser does not offer to follow its own earlier change). ``presence`` says
+how many pages are open whenever one joins or leaves; ``hello`` carries the last change relayed for
+the dataset so a page that joins late can offer to follow the team. Comment lines (``: ping``) keep
+idle connections open.
 
 Streams end when the client disconnects (Starlette cancels the generator), and when the
 server is asked to stop: uvicorn waits for open responses before it shuts down, so the hub
@@ -234,6 +236,9 @@ class LiveMessage(BaseModel):
     state: dict[str, Any] = Field(default_factory=dict,
                                   description="The sender's state after the change (kept items, settings).")
     sender: str | None = Field(None, max_length=64, description="The sender's own listener id (from 'hello').")
+    browser: str | None = Field(None, max_length=64, pattern=r"^[A-Za-z0-9_-]+$",
+                                description="A stable random id of the sending browser (kept across its tabs), so "
+                                            "a page can tell its own browser's last change from a teammate's.")
     detail: str = Field("", max_length=300, description="Optional short human-readable description.")
 
 
@@ -247,6 +252,25 @@ async def post_event(dataset_id: str, message: LiveMessage, request: Request) ->
                        {"bytes": size, "limit": MAX_STATE_BYTES})
     hub = hub_of(request)
     seq, delivered = hub.publish(dataset_id, {"who": message.who, "action": message.action,
-                                              "state": message.state, "detail": message.detail},
+                                              "state": message.state, "detail": message.detail,
+                                              "browser": message.browser},
                                  message.sender)
     return {"seq": seq, "delivered": delivered, "listeners": hub.count(dataset_id)}
+
+
+def publish_threadsafe(hub: LiveHub, loop: asyncio.AbstractEventLoop, dataset: str, message: dict[str, Any]) -> None:
+    """Publish ``message`` on ``dataset``'s channel from another thread (a resampling run's progress).
+
+    The hub lives on the event loop, so the call is handed to it; the dataset's last change (replayed to
+    pages that join later) is kept as it was, since a progress message is not a change of the shared state.
+    """
+    def send() -> None:
+        last = hub._last.get(dataset)
+        hub.publish(dataset, message, None)
+        if last is None:
+            hub._last.pop(dataset, None)
+        else:
+            hub._last[dataset] = last
+
+    with contextlib.suppress(RuntimeError):  # the loop is closed: the server is stopping
+        loop.call_soon_threadsafe(send)

@@ -5,6 +5,7 @@ The routes validate and wrap; the work (checks, trail, analysis, compare) is in 
 """
 from __future__ import annotations
 
+import contextlib
 from typing import Any, Literal
 
 from fastapi import APIRouter, Request
@@ -54,13 +55,15 @@ class SnapshotIn(BaseModel):
     settings: dict[str, Any] = Field(default_factory=dict, description="The analysis settings.")
     parent: str | None = Field(default=None, description="Id of the snapshot this one revises.")
     stability: StabilityIn | None = Field(default=None, description="Stability and agreement results to include.")
+    resampling_run_id: str | None = Field(default=None, description="A finished resampling run of this data set "
+                                          "(POST /api/datasets/{id}/resampling) whose summary the snapshot keeps.")
     scoring_method: Literal["mean", "sum"] = Field(default="mean", description="How the scoring rules score "
                                                    "each subscale: the mean or the (prorated) sum of its items.")
     min_answered_share: float = Field(default=0.8, gt=0, le=1, description="The share of a subscale's items a "
                                       "person must answer for a score (rounded up; 0.8 is common practice).")
 
 
-def _draft(body: SnapshotIn) -> Draft:
+def _draft(body: SnapshotIn, run: dict[str, Any] | None = None) -> Draft:
     stab = body.stability
     return Draft(name=body.name, items=list(body.items), author=body.author, note=body.note,
                  removed=[Removal(item=r.item, reason=r.reason, code=r.code) for r in body.removed],
@@ -68,6 +71,7 @@ def _draft(body: SnapshotIn) -> Draft:
                  retest=retest_query(stab.retest) if stab is not None and stab.retest is not None else None,
                  agreement=AgreementTable(stab.agreement.ratings, stab.agreement.level)
                  if stab is not None and stab.agreement is not None else None,
+                 resampling_run_id=body.resampling_run_id, resampling_run=run,
                  scoring_method=body.scoring_method, min_answered_share=body.min_answered_share)
 
 
@@ -93,7 +97,11 @@ def analysis_payload(settings: dict[str, Any]) -> dict[str, Any]:
 def save_snapshot(dataset_id: str, body: SnapshotIn, request: Request, engine: EngineDep,
                   store: StoreDep) -> AnswerResponse:
     """Save a snapshot: recompute the trail and the full analysis of the kept items, then store it."""
-    stored = snapshots.save(engine, store, dataset_id, _draft(body), analysis_payload(body.settings), to_jsonable)
+    run = None
+    if body.resampling_run_id is not None:
+        with contextlib.suppress(NotFound):  # an unknown run is refused by the service (422, not 404)
+            run = request.app.state.runs.get(body.resampling_run_id).to_dict()
+    stored = snapshots.save(engine, store, dataset_id, _draft(body, run), analysis_payload(body.settings), to_jsonable)
     audit_snapshot(request, "snapshot", stored, who=body.author)
     return AnswerResponse(stored, status_code=201)
 
@@ -117,6 +125,24 @@ def get_snapshot(snapshot_id: str, store: StoreDep) -> dict[str, Any]:
 def compare_snapshots(a: str, b: str, store: StoreDep) -> AnswerResponse:
     """What changed from snapshot ``a`` to snapshot ``b``: items, coefficients, loadings."""
     return AnswerResponse(snapshots.compare(snapshots.get(store, a), snapshots.get(store, b)))
+
+
+@router.get("/snapshots/{a}/side-by-side/{b}")
+def side_by_side_snapshots(a: str, b: str, store: StoreDep) -> AnswerResponse:
+    """Two snapshots subscale by subscale: each form's items (wording, loading, item-rest r), each subscale's
+    alpha with its interval and omega, the total, and what differs in a few sentences."""
+    return AnswerResponse(snapshots.side_by_side(snapshots.get(store, a), snapshots.get(store, b)))
+
+
+@router.post("/snapshots/{a}/side-by-side")
+def side_by_side_current(a: str, body: AnalysisRequest, engine: EngineDep,  # type: ignore[valid-type]
+                         store: StoreDep) -> AnswerResponse:
+    """A snapshot beside the current view: the body is the analysis request of the current view (as for
+    ``POST /api/datasets/{id}/analysis``), computed on the snapshot's data set."""
+    snap = snapshots.get(store, a)
+    current = snapshots.current_view(engine, store, snap["dataset_id"], body.model_dump(),  # type: ignore[attr-defined]
+                                     to_jsonable)
+    return AnswerResponse(snapshots.side_by_side(snap, current))
 
 
 @router.get("/snapshots/{snapshot_id}/restore", response_model=None)

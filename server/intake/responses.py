@@ -352,8 +352,9 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
     n_missing = np.isnan(responses).sum(axis=0)
     sparse = [f"'{items[j]}' ({int(n_missing[j])} of {n_rows})" for j in np.flatnonzero(n_missing > n_rows / 2)]
     if sparse:
+        more = f" and {len(sparse) - 10} more" if len(sparse) > 10 else ""
         notes.append(f"{plural(len(sparse), 'item')} {'is' if len(sparse) == 1 else 'are'} missing for more than "
-                     f"half of the respondents: {', '.join(sparse[:10])}{' and more' if len(sparse) > 10 else ''}. "
+                     f"half of the respondents: {', '.join(sparse[:10])}{more}. "
                      "Check that the column holds this item's answers (a branch of the survey, a renamed "
                      "question); its statistics rest on the few who answered.")
 

@@ -2,11 +2,12 @@
 /* global Plotly */
 
 const INK = "#1d2a33";
-const MUTED = "#6b7780";
+const MUTED = "#56626b";  // the page's --muted grey (5.9:1 on the paper colour)
 const GRID = "#e3e0d8";
 export const ACCENT = "#23607a";   // deep blue-teal
 export const WARM = "#b8621b";     // burnt orange
 const OMEGA = "#6a4c93";           // plum
+const WARM_TEXT = "#9a4f12";        // burnt orange dark enough for text on white (5.9:1, WCAG 2.1 SC 1.4.3)
 // Diverging, colour-blind-safe (blue <-> orange through a warm paper white), centred on 0.
 const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
 
@@ -75,7 +76,6 @@ export function purgeWithin(el) {
   for (const g of el.querySelectorAll(".js-plotly-plot")) Plotly.purge(g);
 }
 
-// rows: [{name, text, values: [...], flagged: bool, flagText}]; factors: labels
 // Calls onPick(itemName) when a cell or a row is clicked (plotly_click); one handler per element.
 function onPoint(el, handler) {
   if (!handler || typeof el.on !== "function") return; // not drawn (left the page before plotly was ready)
@@ -88,34 +88,62 @@ function onPoint(el, handler) {
   });
 }
 
-export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick }) {
-  const y = rows.map((r) => esc(r.flagged ? `⚑ ${r.name}` : r.name));
+// rows: [{name, label?, text, values, cells?, flagged, flagText}]: `label` is the y tick (name and construct),
+// `cells` the text shown in each cell ("" hides a small loading; the hover always gives the full value).
+// onPick(name) on a click, onHover(name) when the pointer is over a row.
+export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick, onHover, selected = null }) {
+  const y = rows.map((r) => esc(`${r.flagged ? "⚑ " : ""}${r.label ?? r.name}`));
   const z = rows.map((r) => r.values);
   const custom = rows.map((r) => factors.map(() => [wrapText(r.text), wrapText(r.flagText)]));
+  const hasCells = rows.every((r) => Array.isArray(r.cells));
   const trace = {
     type: "heatmap", x: factors.map(esc), y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
     colorscale: DIVERGING, xgap: 2, ygap: 2,
-    texttemplate: "%{z:.2f}", textfont: { size: fontSize() - 1 },
+    ...(hasCells ? { text: rows.map((r) => r.cells), texttemplate: "%{text}" } : { texttemplate: "%{z:.2f}" }),
+    textfont: { size: fontSize() - 1 },
     hovertemplate: "<b>%{y}</b> on %{x}: %{z:.3f}<br>%{customdata[0]}<br><i>%{customdata[1]}</i><extra></extra>",
     colorbar: { title: { text: "loading", side: "right" }, thickness: 10, len: 0.6, tickvals: [-1, -0.5, 0, 0.5, 1] },
   };
   const rowPx = document.body.classList.contains("projector") ? 30 : 22;
   const longest = Math.max(4, ...y.map((s) => s.length));
-  // a rule between the groups of items that share a primary factor
+  // a rule between the groups of items that share a primary factor (or a construct, in pool order)
   const shapes = [];
   for (let i = 1; i < groups.length; i += 1) {
     if (groups[i] !== groups[i - 1]) shapes.push({ type: "line", xref: "paper", x0: -0.02, x1: 1, y0: i - 0.5, y1: i - 0.5, line: { color: INK, width: 2 } });
   }
+  el._scalewrightShapes = shapes;
   const layout = base({
     title: { text: title, x: 0, y: 0.995, yanchor: "top", font: { size: fontSize() + 2 } },
-    height: Math.max(260, rows.length * rowPx + 110), shapes,
+    height: Math.max(260, rows.length * rowPx + 110), shapes: [...shapes, ...rowMark(selected)],
     margin: { l: 16 + longest * fontSize() * 0.62, r: 20, t: 70, b: 20 },
     xaxis: { side: "top", tickfont: { size: fontSize() } },
     yaxis: { autorange: "reversed", tickfont: { size: fontSize() } },
   });
   return draw(el, [trace], layout).then(() => {
-    if (window.Plotly) onPoint(el, onPick && ((pt) => onPick(rows[pt.pointIndex?.[0] ?? pt.pointNumber?.[0] ?? 0]?.name)));
+    if (!window.Plotly) return;
+    const nameAt = (pt) => rows[pt.pointIndex?.[0] ?? pt.pointNumber?.[0] ?? 0]?.name;
+    onPoint(el, onPick && ((pt) => onPick(nameAt(pt))));
+    if (onHover && typeof el.on === "function") {
+      el._scalewrightHover = (pt) => onHover(nameAt(pt));
+      if (!el._scalewrightHoverBound) {
+        el._scalewrightHoverBound = true;
+        el.on("plotly_hover", (ev) => { const pt = ev?.points?.[0]; if (pt && el._scalewrightHover) el._scalewrightHover(pt); });
+      }
+    }
   });
+}
+
+// A thick dashed frame around row `index` of the loadings heatmap (the keyboard selection; not colour alone).
+function rowMark(index) {
+  if (index == null || index < 0) return [];
+  return [{ type: "rect", xref: "paper", x0: -0.01, x1: 1.005, y0: index - 0.5, y1: index + 0.5,
+    line: { color: INK, width: 3, dash: "dash" }, fillcolor: "rgba(0,0,0,0)" }];
+}
+
+/** Move the selection frame of a drawn loadings heatmap to row `index` (null: none). */
+export function markHeatRow(el, index) {
+  if (!window.Plotly || !el || !el._fullLayout) return Promise.resolve();
+  return Plotly.relayout(el, { shapes: [...(el._scalewrightShapes || []), ...rowMark(index)] });
 }
 
 export function factorCorrelations(el, { factors: labels, matrix }) {
@@ -125,7 +153,9 @@ export function factorCorrelations(el, { factors: labels, matrix }) {
   const cell = Math.max(56, longest * fs * 0.62 + 12);
   const trace = {
     type: "heatmap", x: factors, y: factors, z: matrix, zmin: -1, zmax: 1, zmid: 0, colorscale: DIVERGING,
-    texttemplate: "%{z:.2f}", showscale: false, xgap: 2, ygap: 2,
+    // the dashboard's number style (.33, not 0.33)
+    text: matrix.map((row) => row.map((v) => (v == null ? "" : v.toFixed(2).replace(/^(-?)0\./, "$1.")))),
+    texttemplate: "%{text}", showscale: false, xgap: 2, ygap: 2,
     hovertemplate: "%{y} with %{x}: %{z:.3f}<extra></extra>",
   };
   const left = 16 + longest * fs * 0.62;
@@ -142,17 +172,23 @@ export function factorCorrelations(el, { factors: labels, matrix }) {
 export function alphaIfDeleted(el, { items, alpha, onPick, title }) {
   const better = items.map((it) => it.alpha_if_deleted != null && alpha != null && it.alpha_if_deleted > alpha);
   const trace = {
-    type: "scatter", mode: "markers", x: items.map((it) => esc(it.name)), y: items.map((it) => it.alpha_if_deleted),
-    customdata: items.map((it) => wrapText(it.text)),
+    type: "scatter", mode: "markers+text", x: items.map((it) => esc(it.name)), y: items.map((it) => it.alpha_if_deleted),
+    customdata: items.map((it, i) => [wrapText(it.text), better[i] ? "rises without it" : "falls or holds without it"]),
+    // Not by colour alone: a rising item is also an upward triangle with the word "rises" above it.
+    text: better.map((b) => (b ? "rises" : "")), textposition: "top center", cliponaxis: false,
+    textfont: { size: fontSize(), color: WARM_TEXT },
     marker: { size: 11, color: better.map((b) => (b ? WARM : ACCENT)), symbol: better.map((b) => (b ? "triangle-up" : "circle")),
       line: { width: 1, color: "#fff" } },
-    hovertemplate: "<b>%{x}</b>: alpha without it %{y:.3f}<br>%{customdata}<extra></extra>",
+    hovertemplate: "<b>%{x}</b>: alpha without it %{y:.3f} (%{customdata[1]})<br>%{customdata[0]}<extra></extra>",
     name: "alpha if this item is dropped",
   };
   const shapes = alpha == null ? [] : [{ type: "line", xref: "paper", x0: 0, x1: 1, y0: alpha, y1: alpha,
     line: { color: INK, width: 2, dash: "dash" } }];
   const annotations = alpha == null ? [] : [{ xref: "paper", x: 1, y: alpha, yanchor: "bottom", xanchor: "right",
     text: `current alpha ${alpha.toFixed(3).replace(/^0\./, ".")}`, showarrow: false, font: { color: INK } }];
+  // The key to the two marker shapes, in words (the chart has no legend of its own).
+  annotations.push({ xref: "paper", yref: "paper", x: 0, y: 1, yanchor: "bottom", xanchor: "left", showarrow: false,
+    text: "▲ alpha rises without the item   ● alpha falls or holds", font: { color: INK, size: fontSize() }, name: "alpha-key" });
   const ys = items.map((it) => it.alpha_if_deleted).filter((v) => v != null).concat(alpha == null ? [] : [alpha]);
   const lo = Math.min(...ys);
   const hi = Math.max(...ys);
@@ -160,7 +196,7 @@ export function alphaIfDeleted(el, { items, alpha, onPick, title }) {
   const layout = base({
     title: { text: esc(title || "Alpha if each item is dropped (above the line: the scale is better without it)"), x: 0,
       font: { size: fontSize() + 1 } },
-    height: 320, shapes, annotations, showlegend: false,
+    height: 340, shapes, annotations, showlegend: false, margin: { l: 60, r: 20, t: 40 + fontSize() * 2.6, b: 48 },
     xaxis: { tickangle: -45, gridcolor: GRID },
     yaxis: { title: { text: "alpha without the item" }, gridcolor: GRID, tickformat: ".3f", range: ys.length ? [lo - pad, hi + pad] : undefined },
   });
@@ -175,7 +211,7 @@ export function pruningPath(el, { path, title }) {
   const label = path.map((p) => (p.removed ? `after dropping ${esc(p.removed)}` : "current set"));
   const alpha = { type: "scatter", mode: "lines+markers+text", name: "alpha", x, y: path.map((p) => p.alpha),
     text: path.map((p) => (p.removed ? `−${esc(p.removed)}` : "")), textposition: "top center",
-    textfont: { size: fontSize() - 2, color: MUTED }, cliponaxis: false,
+    textfont: { size: fontSize(), color: MUTED }, cliponaxis: false,
     customdata: label, line: { color: ACCENT, width: 3 }, marker: { size: 7 },
     hovertemplate: "%{x} items (%{customdata}): alpha %{y:.3f}<extra></extra>" };
   const omega = { type: "scatter", mode: "lines+markers", name: "omega (one factor)", x, y: path.map((p) => p.omega_total),

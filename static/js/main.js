@@ -9,21 +9,23 @@ import { clear, fmt, h } from "./views/dom.js";
 import * as alphaView from "./views/alpha.js";
 import * as boardView from "./views/board.js";
 import * as confirmationView from "./views/confirmation.js";
+import * as correlationsView from "./views/correlations.js";
 import * as factorsView from "./views/factors.js";
 import * as loadingsView from "./views/loadings.js";
+import * as robustnessView from "./views/robustness.js";
 import * as settingsView from "./views/settings.js";
 import * as snapshotsView from "./views/snapshots.js";
 import * as stabilityView from "./views/stability.js";
 import * as startView from "./views/start.js";
 import * as workspaceView from "./views/workspace.js";
 
-const views = { start: startView, board: boardView, loadings: loadingsView, alpha: alphaView, factors: factorsView,
-  settings: settingsView, snapshots: snapshotsView, stability: stabilityView, confirmation: confirmationView,
+const views = { start: startView, board: boardView, loadings: loadingsView, correlations: correlationsView, alpha: alphaView, factors: factorsView,
+  robustness: robustnessView, settings: settingsView, snapshots: snapshotsView, stability: stabilityView, confirmation: confirmationView,
   workspace: workspaceView };
-const LABELS = { start: "Start", board: "Items", loadings: "Loadings", alpha: "Alpha curves", factors: "How many factors",
-  settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement",
+const LABELS = { start: "Start", board: "Items", loadings: "Loadings", correlations: "Correlations", alpha: "Alpha curves", factors: "How many factors",
+  robustness: "Robustness", settings: "Settings", snapshots: "Snapshots", stability: "Stability & agreement",
   confirmation: "Hold-out confirmation", workspace: "Workspace & log" };
-const NEEDS_ANALYSIS = new Set(["board", "loadings", "alpha", "factors"]);
+const NEEDS_ANALYSIS = new Set(["board", "loadings", "correlations", "alpha", "factors"]);
 
 const $ = (sel) => document.querySelector(sel);
 const main = () => $("#view");
@@ -152,7 +154,7 @@ async function runRefit() {
       const alpha = answer?.reliability?.alpha;
       for (const it of answer?.items || []) {
         state.lastFlags[it.name] = flags.filter((f) => f.item === it.name);
-        state.lastRows[it.name] = { ...it, alpha }; // also keeps a dropped row in its place on a sorted board
+        state.lastRows[it.name] = { ...it, alpha, ...boardView.loadingColumns(answer, it.name, it.construct) }; // also keeps a dropped row in its place on a sorted board
       }
     }
   } catch (e) {
@@ -210,6 +212,19 @@ Object.assign(actions, {
     await refreshDatasets();
     return record;
   },
+  async deleteDataset(id) { // the start page's Delete; an open dataset that goes closes: back to the start view
+    await api.deleteDataset(id);
+    await refreshDatasets();
+    if (state.dataset === id) {
+      if (source) source.close();
+      source = null; sourceFor = null; $("#follow").hidden = true;
+      Object.assign(state, { dataset: null, meta: null, analysis: null, previous: null, error: null, pending: false,
+        dropped: [], reverse: null, view: "start" });
+      clearHistory();
+      writeUrl(true);
+    }
+    renderAll();
+  },
   toggle(name) {
     remember();
     const i = state.dropped.indexOf(name);
@@ -220,12 +235,13 @@ Object.assign(actions, {
   undo() { if (undo()) changed("undo", "undid the last change"); },
   redo() { if (redo()) changed("redo", "redid a change"); },
   sortBy(key) {
-    state.sort = state.sort.key === key ? { key, dir: -state.sort.dir } : { key, dir: key === "item_rest_r" ? 1 : ["alpha_if_deleted", "omega_if_deleted", "r_other_max"].includes(key) ? -1 : 1 };
+    state.sort = state.sort.key === key ? { key, dir: -state.sort.dir } : { key, dir: key === "item_rest_r" ? 1 : ["alpha_if_deleted", "omega_if_deleted", "r_other_max", "primary_loading", "own_loading"].includes(key) ? -1 : 1 };
     renderView();
   },
   filter(part) { Object.assign(state.filter, part); renderView(); },
   setSubscale(name) { state.subscale = name || ""; writeUrl(); renderView(); },
   setStructure(on) { state.structure = on; renderView(); },
+  setHeatmap(part) { Object.assign(state.heat, part); writeUrl(); renderView(); },
   setSetting(key, value) { remember(); state.settings[key] = value; changed("settings", settingText(key, value)); },
   setThreshold(key, value) {
     remember();
@@ -321,6 +337,7 @@ function connectLive() {
   });
   source.addEventListener("change", (e) => {
     const msg = JSON.parse(e.data);
+    if (msg.action === "resampling") { runProgress(msg); return; } // a run's progress: not a teammate's change
     if (msg.sender && msg.sender === state.live.listener) return; // our own echo
     const s = msg.state || {};
     if (["drop", "restore", "undo", "redo", "settings", "restore-snapshot"].includes(msg.action) && s.dropped) {
@@ -341,6 +358,95 @@ function connectLive() {
   });
   source.onerror = () => { document.body.dataset.live = "off"; renderLive(); };
 }
+
+// ---------------------------------------------------------------- resampling runs (the robustness view)
+const ACTIVE_RUN = ["queued", "running"];
+let runPoll = null;    // the fallback poll of the active run
+let runHeardAt = 0;    // when the run last reported (live channel or poll)
+
+function renderRobustness({ board = false } = {}) {
+  if (state.view === "robustness" || (board && state.view === "board")) renderView();
+}
+
+// A progress message from the live channel ({run_id, done, total, state}); other pages' runs are ignored.
+function runProgress(msg) {
+  const r = state.robustness;
+  if (!r.run || msg.run_id !== r.run.run_id) return;
+  runHeardAt = Date.now();
+  if (r.run.state === "cancelled" && msg.state !== "cancelled") return; // a late message of a cancelled run
+  r.run = { ...r.run, state: msg.state, progress: { done: msg.done, total: msg.total } };
+  if (!ACTIVE_RUN.includes(msg.state)) fetchRun(msg.run_id);
+  else renderRobustness();
+}
+
+// Reads the run; when it has ended, keeps its result (done) or its error (failed) and stops polling.
+async function fetchRun(runId) {
+  const r = state.robustness;
+  try {
+    const got = await api.getRun(runId);
+    if (!r.run || r.run.run_id !== runId) return;
+    runHeardAt = Date.now();
+    const { result, ...run } = got;
+    r.run = run;
+    if (run.state === "done" && result) r.result = result;
+    if (run.state === "failed") r.error = run.error?.message || "The run failed.";
+  } catch (e) {
+    if (r.run && r.run.run_id === runId) r.error = e.message;
+  }
+  if (!r.run || !ACTIVE_RUN.includes(r.run.state)) stopRunPoll();
+  renderRobustness({ board: true });
+}
+
+function stopRunPoll() { clearInterval(runPoll); runPoll = null; }
+
+// Every second while the run is active, ask the server if the live channel is off or has been quiet.
+function startRunPoll() {
+  stopRunPoll();
+  runPoll = setInterval(() => {
+    const run = state.robustness.run;
+    if (!run || !ACTIVE_RUN.includes(run.state)) { stopRunPoll(); return; }
+    if (document.body.dataset.live !== "on" || Date.now() - runHeardAt > 2500) fetchRun(run.run_id);
+  }, 1000);
+}
+
+Object.assign(actions, {
+  async startRun() {
+    const r = state.robustness;
+    if (!state.dataset || r.busy) return;
+    r.busy = true; r.error = null;
+    renderRobustness();
+    const items = keptItems();
+    try {
+      const { result, ...run } = await api.startRun(state.dataset, { ...analysisRequest(), n_resamples: r.n });
+      Object.assign(r, { run, result: null, forDataset: state.dataset, forItems: items });
+      runHeardAt = Date.now();
+      if (result) r.result = result;
+      startRunPoll();
+    } catch (e) {
+      r.error = e.message;
+    }
+    r.busy = false;
+    renderRobustness();
+  },
+  async cancelRun() {
+    const r = state.robustness;
+    if (!r.run || !ACTIVE_RUN.includes(r.run.state)) return;
+    r.busy = true;
+    renderRobustness();
+    try {
+      const got = await api.cancelRun(r.run.run_id);
+      if (got) { const { result, ...run } = got; r.run = run; } else { // 204: it had just ended, and is now forgotten
+        r.run = { ...r.run, state: "cancelled" };
+        r.error = "The run had already ended when Cancel arrived; the server has forgotten it.";
+      }
+    } catch (e) {
+      r.error = e.message;
+    }
+    stopRunPoll();
+    r.busy = false;
+    renderRobustness();
+  },
+});
 
 // "Ana dropped O8", "Ben set correlation to polychoric": what teammates read in the toast and the feed.
 function settingText(key, value) {
@@ -365,11 +471,29 @@ function normalise(s) {
     settings: { ...settingDefaults(), ...(s.settings || {}) }, thresholds: s.thresholds || {} };
 }
 
+// A stable random id for this browser, shared by its tabs (localStorage), sent with every change: a page
+// does not offer to follow a change made in another tab of the same browser.
+let pageBrowserId = null;
+function browserId() {
+  const ok = (v) => typeof v === "string" && /^[A-Za-z0-9_-]{8,64}$/.test(v);
+  try {
+    const kept = localStorage.getItem("scalewright.browser");
+    if (ok(kept)) return kept;
+  } catch { /* storage refused: an id for this page only */ }
+  if (!pageBrowserId) {
+    const bytes = crypto.getRandomValues(new Uint8Array(12));
+    pageBrowserId = `b${[...bytes].map((b) => b.toString(16).padStart(2, "0")).join("")}`;
+  }
+  try { localStorage.setItem("scalewright.browser", pageBrowserId); } catch { /* as above */ }
+  return pageBrowserId;
+}
+
 // A page that joins late hears the team's last change; if its own state differs, it may follow.
 function offerToFollow(last) {
   const bar = clear($("#follow"));
   bar.hidden = true;
   offered = null;
+  if (last && last.browser && last.browser === browserId()) return; // our own change, from another tab
   if (!last || !last.state || !Array.isArray(last.state.dropped) || sameShared(last.state, shared())) return;
   offered = last.state;
   const n = last.state.dropped.length;
@@ -391,7 +515,7 @@ function offerToFollow(last) {
 function broadcast(action, detail) {
   if (!state.dataset) return;
   api.postEvent(state.dataset, { who: state.who || "", action, detail: String(detail || ""), sender: state.live.listener,
-    state: shared() }).catch(() => {});
+    browser: browserId(), state: shared() }).catch(() => {});
 }
 
 function renderLive() {

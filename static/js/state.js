@@ -1,11 +1,12 @@
 // The one state object of the dashboard, and its sync with the page URL.
 // URL keys: d (dataset id), drop (removed items, in the order they were removed), rev (reverse-keyed
 // override), corr, ext, rot, miss, nf (number of factors), any other served setting under its own name,
-// th (flag thresholds k:v,...), v (view), sub (the subscale the board and the alpha curves show).
+// th (flag thresholds k:v,...), v (view), sub (the subscale the board and the alpha curves show),
+// cut (heatmap loading cut-off, when not the served default), hord (heatmap row order: pool).
 // Settings equal to the served default stay out of the URL.
 // The choices, defaults and thresholds come from the server (GET /api/options, in state.options).
 
-export const VIEWS = ["start", "board", "loadings", "alpha", "factors", "settings", "snapshots", "stability", "confirmation", "workspace"];
+export const VIEWS = ["start", "board", "loadings", "correlations", "alpha", "factors", "robustness", "settings", "snapshots", "stability", "confirmation", "workspace"];
 
 // Short URL keys of the settings that had them before the options were served; others use their name.
 const URL_KEYS = { correlation: "corr", extraction: "ext", rotation: "rot", missing: "miss", n_factors: "nf" };
@@ -30,6 +31,7 @@ export const state = {
   lastFlags: {},          // item -> flags seen the last time it was active (for snapshot reasons)
   lastRows: {},           // item -> its board row (+ the alpha of the set) the last time it was active
   structure: false,       // loadings heatmap shows structure instead of pattern
+  heat: { cutoff: null, poolOrder: false, row: null }, // heatmap: hide |loading| below (null = served default; URL cut), pool order (URL hord), keyboard row
   sort: { key: "order", dir: 1 },
   filter: { construct: "", flag: "" },
   datasets: [],
@@ -51,7 +53,11 @@ export const state = {
       source: "current", snapshots: [], snapshotsFor: null, wavesFor: null, byConstruct: false },
   },
   workspace: { onlyThis: false, message: null },
+  corr: { mode: "r", cursor: [0, 0], pair: null, residuals: null, busy: null, renders: 0 }, // correlation view: r or residuals, the cursor cell, the open pair, the last residual answer {key, answer|error}, charts drawn
   confirmation: { answer: null, answerFor: null, asked: null, structure: "codebook", split: "0.5", busy: false }, // hold-out card
+  // resampling run of the robustness view: the run record (no result), its result when done, the resamples asked,
+  // a start or cancel in flight, the last error; dataset and items the run was started for
+  robustness: { run: null, result: null, n: 200, busy: false, error: null, forDataset: null, forItems: null, sort: "order" },
 };
 
 // ---- settings from the served options
@@ -61,6 +67,16 @@ export function settingDefaults() {
 }
 
 /** The served default of every flag threshold, by name. */
+/** The served default of every display option (GET /api/options `display`), by name. */
+export function displayDefaults() {
+  return Object.fromEntries((state.options?.display || []).map((o) => [o.name, o.default ?? null]));
+}
+
+/** The heatmap's loading cut-off: the page's choice, else the served default, else 0 (show all). */
+export function loadingCutoff() {
+  return state.heat.cutoff ?? displayDefaults().loading_cutoff ?? 0;
+}
+
 export function thresholdDefaults() {
   return Object.fromEntries((state.options?.thresholds || []).map((t) => [t.name, t.default]));
 }
@@ -74,6 +90,15 @@ export function lastStability() {
     retest: retestOk ? st.retestAsked : null, retestSummary: retestOk ? st.retestSummary : "",
     agreement: agreementOk ? st.agreementAsked : null, agreementSummary: agreementOk ? st.agreementSummary : "",
   };
+}
+
+/** The finished resampling result and whether it is for the current dataset and items (null when there is none). */
+export function robustnessResult() {
+  const r = state.robustness;
+  if (!r.result || r.forDataset !== state.dataset) return null;
+  const now = keptItems();
+  const current = Array.isArray(r.forItems) && r.forItems.length === now.length && r.forItems.every((n, i) => n === now[i]);
+  return { result: r.result, current };
 }
 
 // ---- undo / redo over the shared part of the state
@@ -181,6 +206,9 @@ export function readUrl() {
     if (k && v !== undefined && !Number.isNaN(Number(v))) state.thresholds[k] = Number(v);
   }
   state.subscale = q.get("sub") || "";
+  const cut = q.get("cut");
+  state.heat.cutoff = cut != null && cut !== "" && !Number.isNaN(Number(cut)) ? Number(cut) : null;
+  state.heat.poolOrder = q.get("hord") === "pool";
   const v = q.get("v");
   state.view = VIEWS.includes(v) ? v : state.dataset ? "board" : "start";
 }
@@ -200,6 +228,8 @@ export function writeUrl(push = false) {
   if (th.length) q.set("th", th.join(","));
   if (state.view !== "start" || state.dataset) q.set("v", state.view);
   if (state.subscale) q.set("sub", state.subscale);
+  if (state.heat.cutoff != null && state.heat.cutoff !== displayDefaults().loading_cutoff) q.set("cut", String(state.heat.cutoff));
+  if (state.heat.poolOrder) q.set("hord", "pool");
   const url = `${location.pathname}?${q.toString().replace(/%2C/g, ",").replace(/%3A/g, ":")}`;
   if (url !== location.pathname + location.search) {
     if (push) history.pushState(null, "", url); else history.replaceState(null, "", url);

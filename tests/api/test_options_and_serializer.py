@@ -70,3 +70,13 @@ def test_dataclasses_by_fields_or_their_to_dict():
 def test_warning_text_reads_objects_their_json_and_old_sentences():
     n = Note("smoothed", "The matrix was smoothed.")
     assert warning_text(n) == warning_text(to_jsonable(n)) == warning_text("The matrix was smoothed.")
+
+
+def test_options_serve_the_heatmap_display_option(client):
+    display = {o["name"]: o for o in client.get("/api/options").json()["display"]}
+    cut = display["loading_cutoff"]
+    # .30: the usual cut for a salient loading (common practice)
+    assert (cut["type"], cut["default"], cut["min"], cut["max"]) == ("number", 0.3, 0.0, 1.0)
+    assert cut["label"] and cut["help"]
+    # a display option changes only what the page shows: an analysis request refuses it
+    assert "loading_cutoff" not in {o["name"] for o in client.get("/api/options").json()["settings"]}

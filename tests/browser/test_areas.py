@@ -218,7 +218,7 @@ def test_click_a_heatmap_row_to_drop_that_item(page, server, demo):
     page.wait_for_selector("#heatmap[data-rendered]")
     first_row = page.evaluate("[...document.querySelectorAll('#heatmap .ytick text')]"
                               ".sort((a, b) => a.getBoundingClientRect().top - b.getBoundingClientRect().top)[0]"
-                              ".textContent").replace("⚑", "").strip()
+                              ".textContent").replace("⚑", "").split(" · ")[0].strip()  # tick: "name · construct"
     n_rows = page.locator("#heatmap .ytick").count()
     box = page.locator("#heatmap .nsewdrag").first.bounding_box()
     page.mouse.click(box["x"] + box["width"] / 6, box["y"] + box["height"] / n_rows / 2)  # top row, first factor

@@ -47,3 +47,17 @@ def test_the_upload_answers_422_with_the_count(app):
     assert r.status_code == 422, r.text
     assert r.json()["error"]["code"] == "too_few_items"
     assert "and 4 more." in r.json()["error"]["message"]
+
+
+def test_more_than_ten_sparse_items_say_how_many_more():
+    """The note on items missing for most respondents names ten and counts the rest."""
+    rng = np.random.default_rng(3)
+    cols = [f"S{i}" for i in range(1, 15)] + ["F1", "F2"]
+    rows = [",".join(cols)]
+    for r in range(12):
+        sparse = ["" if r >= 2 else str(v) for v in rng.integers(1, 6, 14)]  # answered by 2 of 12
+        rows.append(",".join([*sparse, *(str(v) for v in rng.integers(1, 6, 2))]))
+    got = read_responses("\n".join(rows).encode(), "pool.csv")
+    note = next(w for w in got.warnings if "missing for more than half" in w)
+    assert "14 items are missing" in note and "'S10' (10 of 12) and 4 more." in note
+    assert "'S11'" not in note

@@ -1,7 +1,14 @@
 // The item board: one row per item, keep/drop toggle, the numbers that argue for or against it.
 import { flagWord, flagsByItem, warningsByItem } from "../labels.js";
-import { actions, allItems, itemMeta, subscaleBlock, subscaleNames } from "../state.js";
+import { actions, allItems, itemMeta, robustnessResult, subscaleBlock, subscaleNames } from "../state.js";
 import { clear, fmt, h, note, pct, select } from "./dom.js";
+
+// The share of resamples with this flag (a whole percent), when a finished run for the current items exists; else null.
+function flagRate(name, kind) {
+  const run = robustnessResult();
+  const row = run?.current ? run.result.items.find((x) => x.name === name) : null;
+  return row ? Math.round((row.flags?.[kind] ?? 0) * 100) : null;
+}
 
 function countsOf(row) {
   const c = row?.counts;
@@ -47,6 +54,35 @@ function closestOther(row) {
   return best;
 }
 
+/** The loading columns of one item in an analysis answer: its primary factor (largest absolute pattern
+ * loading, signed), its loading on the factor labelled with its own codebook construct, and its highest
+ * correlation with the rest of another subscale (from the subscale block that holds it). */
+export function loadingColumns(answer, name, construct) {
+  const out = { primary_factor: null, primary_loading: null, own_loading: null, mismatch: false,
+    r_other_max: null, r_other_group: null, own_rest_r: null };
+  const efa = answer?.efa;
+  const v = efa?.loadings && !Array.isArray(efa.loadings) ? efa.loadings[name] : null;
+  if (Array.isArray(v) && v.length) {
+    let best = 0;
+    v.forEach((x, j) => { if (Math.abs(x ?? 0) > Math.abs(v[best] ?? 0)) best = j; });
+    const labels = efa.factors || v.map((_, j) => `Factor ${j + 1}`);
+    out.primary_factor = labels[best] ?? `Factor ${best + 1}`;
+    out.primary_loading = v[best] ?? null;
+    const own = construct ? labels.indexOf(construct) : -1;
+    out.own_loading = own >= 0 ? v[own] ?? null : null;
+    out.mismatch = Boolean(construct) && out.primary_factor !== construct;
+  }
+  // the item's own subscale block (by its construct when grouped so, else whichever group holds it)
+  const blocks = answer?.constructs || {};
+  const holds = (b) => Array.isArray(b?.item_table) && b.item_table.some((r) => r.name === name);
+  const block = holds(blocks[construct]) ? blocks[construct] : Object.values(blocks).find(holds);
+  const row = block ? block.item_table.find((r) => r.name === name) : null;
+  const other = closestOther(row);
+  if (other) [out.r_other_group, out.r_other_max] = other;
+  out.own_rest_r = row?.item_rest_r ?? null;
+  return out;
+}
+
 export function render(container, state) {
   const a = state.analysis;
   const keep = new Set(allItems().filter((n) => !state.dropped.includes(n)));
@@ -55,10 +91,13 @@ export function render(container, state) {
   const groups = subscaleNames(a);
   // The descriptives (floor, ceiling, answers) stay the pool row's; the item-total figures are the subscale's.
   const pool = Object.fromEntries((a?.items || []).map((r) => [r.name, r]));
+  const cols = (n) => loadingColumns(a, n, itemMeta(n)?.construct || pool[n]?.construct);
   const rows = block ? Object.fromEntries(block.item_table.map((r) => {
     const other = closestOther(r);
-    return [r.name, { ...pool[r.name], ...r, r_other_max: other ? other[1] : null, r_other_group: other ? other[0] : null }];
-  })) : pool;
+    return [r.name, { ...pool[r.name], ...r, ...cols(r.name), r_other_max: other ? other[1] : null, r_other_group: other ? other[0] : null,
+      own_rest_r: r.item_rest_r }];
+  })) : Object.fromEntries(Object.entries(pool).map(([n, r]) => [n, { ...r, ...cols(n) }]));
+  const showOther = Boolean(block) || groups.length > 0;
   const flags = flagsByItem(a);
   const itemWarnings = warningsByItem(a);
   const alpha = block ? block.alpha : a?.reliability?.alpha;
@@ -96,29 +135,44 @@ export function render(container, state) {
     const kept = keep.has(n);
     const itemFlags = kept ? flags[n] || [] : [];
     const itemWarns = kept ? itemWarnings[n] || [] : [];
-    const elsewhere = block && kept && r && r.r_other_max != null && r.item_rest_r != null && r.r_other_max > r.item_rest_r;
+    const elsewhere = kept && r && r.r_other_max != null && r.own_rest_r != null && r.r_other_max > r.own_rest_r;
+    const negative = kept && r && r.item_rest_r != null && r.item_rest_r < 0;
+    const own = m.construct || r?.construct || "";
     const better = kept && r && alpha != null && r.alpha_if_deleted != null && r.alpha_if_deleted > alpha;
     const tr = h("tr", { class: `item ${kept ? "kept" : "dropped"}`, tabindex: 0, dataset: { item: n },
       "aria-label": `${n}${kept ? "" : " (dropped)"}: ${m.text || ""}` },
-    h("td", {}, h("button", { class: `toggle ${kept ? "on" : "off"}`, role: "switch", "aria-checked": String(kept),
-      title: kept ? `Drop ${n} (D)` : `Restore ${n} (D)`, text: kept ? "keep" : "dropped",
+    // The button says what a click does; the row's state is the word beside the name ("dropped") and its pattern.
+    h("td", {}, h("button", { class: `toggle ${kept ? "on" : "off"}`, "aria-label": kept ? `Drop ${n}` : `Restore ${n}`,
+      title: kept ? `Drop ${n} (D)` : `Restore ${n} (D)`, text: kept ? "Drop" : "Restore",
       onclick: (e) => { e.stopPropagation(); state.board.focus = n; actions.toggle(n); } })),
     h("th", { scope: "row", class: "name",
-      title: kept && r ? `n ${r.n ?? "—"} · mean ${fmt(r.mean, 2)} · sd ${fmt(r.sd, 2)}${r.skew != null ? ` · skew ${fmt(r.skew, 2)}` : ""}` : null }, n, m.reverse || (state.reverse || []).includes(n) ? h("span", { class: "rev", title: "reverse-keyed", text: " ↺" }) : null),
+      title: kept && r ? `n ${r.n ?? "—"} · mean ${fmt(r.mean, 2)} · sd ${fmt(r.sd, 2)}${r.skew != null ? ` · skew ${fmt(r.skew, 2)}` : ""}` : null }, n, m.reverse || (state.reverse || []).includes(n) ? h("span", { class: "rev", title: "reverse-keyed", text: " ↺" }) : null,
+    kept ? null : h("span", { class: "state-word", text: " dropped" })),
     h("td", { class: "wording", text: m.text || "" }),
     showConstruct ? h("td", { class: "codebook-construct", text: m.construct || "—" }) : null,
-    h("td", { class: "num", text: kept && r ? fmt(r.item_rest_r, 2) : "—" }),
+    h("td", { class: `num item-rest ${negative ? "negative" : ""}`,
+      title: negative ? "negative: the item runs against the rest (check its wording and reverse key)" : null,
+      "aria-label": negative ? `${fmt(r.item_rest_r, 2)}, negative: the item runs against the rest` : null },
+    negative ? h("span", { class: "neg-mark", "aria-hidden": "true", text: "▼ " }) : null, kept && r ? fmt(r.item_rest_r, 2) : "—"),
     h("td", { class: `num ${better ? "better" : ""}`,
       title: kept && r && better ? "Alpha would rise without this item." : null,
       text: kept && r ? fmt(r.alpha_if_deleted, 3) : "—" }),
     h("td", { class: "num omega-if", text: kept && r ? fmt(r.omega_if_deleted, 3) : "—" }),
-    block ? h("td", { class: `num r-other ${elsewhere ? "elsewhere" : ""}`,
-      title: elsewhere ? `${n} correlates more with the rest of “${r.r_other_group}” than with the rest of its own subscale.` : null,
-      text: kept && r && r.r_other_max != null ? `${fmt(r.r_other_max, 2)} ${r.r_other_group}` : "—" }) : null,
+    h("td", { class: `num primary-factor ${kept && r?.mismatch ? "mismatch" : ""}`,
+      title: kept && r?.mismatch ? `${n} loads most on “${r.primary_factor}”, not on its own construct “${own}”.` : null },
+    kept && r?.mismatch ? h("span", { class: "mismatch-mark", role: "img", "aria-label": `not its own construct (${own})`, text: "≠ " }) : null,
+    kept && r && r.primary_loading != null ? `${fmt(r.primary_loading, 2)} ${r.primary_factor}` : "—"),
+    h("td", { class: "num own-loading", title: kept && r && own && r.own_loading == null ? `No factor carries the label “${own}”.` : null,
+      text: kept && r && r.own_loading != null ? fmt(r.own_loading, 2) : "—" }),
+    showOther ? h("td", { class: `num r-other ${elsewhere ? "elsewhere" : ""}`,
+      title: elsewhere ? `${n} correlates more with the rest of “${r.r_other_group}” than with the rest of its own subscale.` : null },
+    elsewhere ? h("span", { class: "elsewhere-mark", role: "img", "aria-label": "higher than with its own subscale", text: "↗ " }) : null,
+    kept && r && r.r_other_max != null ? `${fmt(r.r_other_max, 2)} ${r.r_other_group}` : "—") : null,
     h("td", { class: "num", text: kept && r ? `${pct(r.floor)} / ${pct(r.ceiling)}` : "—" }),
     h("td", {}, kept && r ? distBar(r) : null),
     h("td", { class: "flags" }, itemFlags.map((f) => h("span", { class: `flag ${f.kind}`, tabindex: 0, role: "note",
-      "aria-label": `${flagWord(f.kind)}: ${f.message}`, dataset: { tip: f.message }, text: flagWord(f.kind) })),
+      "aria-label": `${flagWord(f.kind)}${flagRate(n, f.kind) == null ? "" : ` in ${flagRate(n, f.kind)} % of resamples`}: ${f.message}`,
+      dataset: { tip: f.message }, text: `${flagWord(f.kind)}${flagRate(n, f.kind) == null ? "" : ` · ${flagRate(n, f.kind)} %`}` })),
     itemWarns.map((w) => h("span", { class: `flag warn ${w.code}`, tabindex: 0, role: "note",
       "aria-label": `${w.word}: ${w.message}`, dataset: { tip: w.message, code: w.code }, text: w.word }))));
     tr.addEventListener("keydown", (e) => onKey(state, e, n, tr));
@@ -146,7 +200,9 @@ export function render(container, state) {
       head("Item-rest r", "item_rest_r", "Corrected item-total correlation"),
       head("α if dropped", "alpha_if_deleted", block ? "Alpha of the subscale without this item" : "Alpha of the scale without this item"),
       head("ω if dropped", "omega_if_deleted", block ? "Omega of the subscale without this item" : "Omega of the scale without this item"),
-      block ? head("Closest other subscale", "r_other_max", "Highest correlation with the rest of another subscale (higher than the item-rest r: it may belong there)") : null,
+      head("Primary factor", "primary_loading", "The factor the item loads on most (pattern loading, signed); ≠ marks a factor other than the item's own construct"),
+      head("Own-construct loading", "own_loading", "Pattern loading on the factor labelled with the item's codebook construct (— when no factor carries that label)"),
+      showOther ? head("Closest other subscale", "r_other_max", "Highest correlation with the rest of another subscale (higher than the item-rest r within its own subscale: it may belong there)") : null,
       head("Floor / ceiling", "ceiling", "Share of answers at the lowest / highest option"),
       h("th", { scope: "col", text: "Answers" }), head("Flags", "flags", "Heuristic flags from the factor analysis"))),
     tbody)));

@@ -1,7 +1,7 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
-import { factorCorrelations, loadingsHeatmap } from "../charts.js";
+import { factorCorrelations, loadingsHeatmap, markHeatRow } from "../charts.js";
 import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
-import { actions, itemMeta } from "../state.js";
+import { actions, allItems, itemMeta, loadingCutoff } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
 
 function asMatrix(obj, items) {
@@ -46,13 +46,32 @@ export function render(container, state) {
   const flags = flagsByItem(state.analysis);
   const warned = warningsByItem(state.analysis);
   const factors = efa.factors || M[0].map((_, j) => `F${j + 1}`);
-  const order = ordered(efa);
-  const rows = order.map(({ name }) => ({
-    name, text: itemMeta(name)?.text || "", values: M[index[name]],
-    flagged: Boolean(flags[name]?.length || warned[name]?.length),
-    flagText: [...(flags[name] || []).map((f) => `${flagWord(f.kind)}: ${f.message}`),
-      ...(warned[name] || []).map((w) => `${w.word}: ${w.message}`)].join(" · "),
-  }));
+  const byFactor = ordered(efa);
+  const pool = Object.fromEntries(allItems().map((n, i) => [n, i]));
+  const order = state.heat.poolOrder
+    ? [...byFactor].sort((x, y) => (pool[x.name] ?? x.i) - (pool[y.name] ?? y.i) || x.i - y.i) : byFactor;
+  const cut = loadingCutoff();
+  const rows = order.map(({ name, primary }) => {
+    const construct = itemMeta(name)?.construct || "";
+    const mismatch = Boolean(construct) && factors[primary] !== construct;
+    const values = M[index[name]];
+    return {
+      name, construct, primary, mismatch, text: itemMeta(name)?.text || "", values,
+      label: construct ? `${name} · ${construct}${mismatch ? " ≠" : ""}` : name,
+      cells: values.map((v) => (v == null || Math.abs(v) < cut ? "" : fmt(v, 2))),
+      flagged: Boolean(flags[name]?.length || warned[name]?.length),
+      flagText: [...(flags[name] || []).map((f) => `${flagWord(f.kind)}: ${f.message}`),
+        ...(warned[name] || []).map((w) => `${w.word}: ${w.message}`)].join(" · "),
+    };
+  });
+  const names = rows.map((r) => r.name);
+  if (state.heat.row && !names.includes(state.heat.row)) state.heat.row = null;
+  const readOut = (name) => {
+    const r = rows[names.indexOf(name)];
+    if (!r) return "";
+    const own = r.construct ? ` (${r.construct}${r.mismatch ? `; loads most on ${factors[r.primary]}` : ""})` : "";
+    return `${name}${own}: “${r.text}” Loadings: ${factors.map((f, j) => `${f} ${fmt(r.values[j], 2)}`).join(", ")}.`;
+  };
 
   const toggle = h("div", { class: "segmented", role: "group", "aria-label": "Which loadings" },
     h("button", { class: showStructure ? "" : "on", "aria-pressed": String(!showStructure), id: "show-pattern", text: "Pattern",
@@ -60,17 +79,64 @@ export function render(container, state) {
     h("button", { class: showStructure ? "on" : "", "aria-pressed": String(Boolean(showStructure)), id: "show-structure", text: "Structure",
       disabled: !efa.structure, onclick: () => actions.setStructure(true) }));
   const heat = h("div", { class: "chart", id: "heatmap" });
+  // The selected (keyboard) or pointed-at row in words: name, construct, wording and every loading, unrounded by the cut-off.
+  const rowLine = h("p", { class: "heat-hover", id: "heat-row", "aria-live": "polite",
+    text: state.heat.row ? readOut(state.heat.row) : "Point at a row, or focus the heatmap and use ↑/↓ (Enter opens the row)." });
   const pickBar = h("div", { class: "pick-bar", id: "pick-bar", "aria-live": "polite" });
   const showPick = (name) => {
     clear(pickBar);
     if (!name) return;
     const m = itemMeta(name) || {};
     const f = flags[name] || [];
-    pickBar.append(...[h("strong", { text: name }), " ", h("span", { text: m.text || "" }),
+    const r = rows[names.indexOf(name)];
+    pickBar.append(...[h("strong", { text: name }), m.construct ? h("span", { class: "muted", text: ` (${m.construct})` }) : null,
+      " ", h("span", { class: "pick-wording", text: m.text || "" }),
+      r ? h("span", { class: "muted", text: ` · ${factors.map((x, j) => `${x} ${fmt(r.values[j], 2)}`).join(", ")}` }) : null,
       f.length ? h("span", { class: "muted", text: ` · ${f.map((x) => x.message).join(" ")}` }) : null, " ",
-      h("button", { class: "primary", id: "pick-drop", text: `Drop ${name}`, onclick: () => { clear(pickBar); actions.toggle(name); } }),
-      " ", h("button", { text: "Close", onclick: () => clear(pickBar) })].filter(Boolean));
+      h("button", { class: "primary", id: "pick-drop", text: `Drop ${name}`, onclick: () => {
+        clear(pickBar); document.getElementById("heat-keys")?.focus({ preventScroll: true }); actions.toggle(name);
+      } }),
+      " ", h("button", { id: "pick-close", text: "Close", onclick: () => { clear(pickBar); document.getElementById("heat-keys")?.focus({ preventScroll: true }); } }),
+    ].filter(Boolean));
   };
+  const selectRow = (name) => {
+    state.heat.row = name;
+    rowLine.textContent = readOut(name);
+    markHeatRow(heat, names.indexOf(name));
+  };
+  const keys = h("div", { class: "heat-keys", id: "heat-keys", tabindex: 0, role: "group",
+    "aria-label": "Loadings heatmap. Up and down arrows select a row, Enter opens it (with its Drop button), Escape closes it.",
+    "aria-describedby": "heat-row" }, heat);
+  keys.addEventListener("keydown", (e) => {
+    if (e.target !== keys) return;
+    if (e.key === "ArrowDown" || e.key === "ArrowUp") {
+      e.preventDefault();
+      if (!names.length) return;
+      const i = names.indexOf(state.heat.row);
+      const next = i < 0 ? (e.key === "ArrowDown" ? 0 : names.length - 1) : Math.max(0, Math.min(names.length - 1, i + (e.key === "ArrowDown" ? 1 : -1)));
+      selectRow(names[next]);
+    } else if (e.key === "Enter" && state.heat.row) {
+      e.preventDefault();
+      showPick(state.heat.row);
+      document.getElementById("pick-drop")?.focus({ preventScroll: true });
+    } else if (e.key === "Escape") clear(pickBar);
+  });
+  const cutOption = (state.options?.display || []).find((o) => o.name === "loading_cutoff");
+  const cutInput = h("input", { type: "number", id: "loading-cutoff", step: "0.05", min: cutOption?.min ?? 0, max: cutOption?.max ?? 1,
+    value: String(cut), title: cutOption?.help || null,
+    onchange: (e) => {
+      const v = Number(e.target.value);
+      const lo = cutOption?.min ?? 0;
+      const hi = cutOption?.max ?? 1;
+      if (e.target.value === "" || Number.isNaN(v)) { e.target.value = String(cut); return; }
+      const next = Math.min(hi, Math.max(lo, v));
+      if (next !== loadingCutoff()) actions.setHeatmap({ cutoff: next }); // a blur after the redraw changes nothing
+    } });
+  const orderToggle = h("div", { class: "segmented", role: "group", "aria-label": "Row order" },
+    h("button", { class: state.heat.poolOrder ? "" : "on", "aria-pressed": String(!state.heat.poolOrder), id: "heat-order-factor",
+      text: "By factor", onclick: () => actions.setHeatmap({ poolOrder: false }) }),
+    h("button", { class: state.heat.poolOrder ? "on" : "", "aria-pressed": String(state.heat.poolOrder), id: "heat-order-pool",
+      text: "Pool order", onclick: () => actions.setHeatmap({ poolOrder: true }) }));
   const phi = h("div", { class: "chart small", id: "phi" });
   const side = h("div", { class: "side" }, phi);
   if (efa.communalities) {
@@ -87,13 +153,18 @@ export function render(container, state) {
     fit.tli != null ? `TLI ${fmt(fit.tli, 3)}` : null, efa.converged === false ? "did not converge" : null].filter(Boolean).join(" · ");
 
   container.append(section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
-    h("div", { class: "toolbar" }, toggle, h("span", { class: "muted", text: fitText })),
+    h("div", { class: "toolbar heat-options" }, toggle,
+      h("label", { for: "loading-cutoff" }, `${cutOption?.label || "Hide loadings below"} `), cutInput,
+      orderToggle, h("span", { class: "muted", text: fitText })),
     degenerate ? degenerateBox(degenerate) : null,
-    h("p", { class: "muted", text: "Items are grouped by the factor they load on most; ⚑ marks a flagged item (hover for why). Blue is negative, orange positive. Click a row to drop that item." }),
-    pickBar,
-    h("div", { class: "heat-layout" }, heat, side),
+    h("p", { class: "muted", text: `${state.heat.poolOrder ? "Items in pool order, a rule between codebook constructs" : "Items are grouped by the factor they load on most"}; beside each item its codebook construct, ≠ when it loads most on another factor; ⚑ marks a flagged item (hover for why). Loadings smaller than ${fmt(cut, 2)} are left blank (the hover still gives them). Blue is negative, orange positive. Click a row to drop that item.` }),
+    pickBar, rowLine,
+    h("div", { class: "heat-layout" }, keys, side),
     warningList(efa.warnings, "About this solution")));
-  loadingsHeatmap(heat, { rows, factors, groups: order.map((r) => r.primary), onPick: showPick, title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
+  loadingsHeatmap(heat, { rows, factors, groups: state.heat.poolOrder ? rows.map((r) => r.construct) : order.map((r) => r.primary),
+    onPick: (name) => { selectRow(name); showPick(name); }, onHover: (name) => { rowLine.textContent = readOut(name); },
+    selected: state.heat.row ? names.indexOf(state.heat.row) : null,
+    title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
   if (efa.factor_correlations && efa.factor_correlations.length > 1) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });

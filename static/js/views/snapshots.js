@@ -1,6 +1,6 @@
 // Save-snapshot dialog, the snapshot list, compare, restore and the downloads.
 import { api } from "../api.js";
-import { actions, analysisRequest, itemMeta, keptItems, lastStability } from "../state.js";
+import { actions, analysisRequest, itemMeta, keptItems, lastStability, robustnessResult } from "../state.js";
 import { clear, fmt, h, note, section, table, warningList } from "./dom.js";
 
 export const CODES = [["", "—"], ["cross-loading", "cross-loading"], ["weak", "weak"], ["belongs-elsewhere", "belongs elsewhere"],
@@ -72,6 +72,15 @@ export async function openDialog(state) {
     ` Include the test-retest result (${st.retestSummary}); it is recomputed for the kept items.`));
   if (st.agreement) body.append(h("label", { class: "include" }, h("input", { type: "checkbox", id: "snap-include-agreement", checked: true }),
     ` Include the rater agreement (${st.agreementSummary}).`));
+  const run = robustnessResult();
+  if (run?.current && state.robustness.run?.state === "done") body.append(h("label", { class: "include" },
+    h("input", { type: "checkbox", id: "snap-include-resampling", checked: true }),
+    ` Include the resampling run (${run.result.n_resamples} resamples, seed ${run.result.seed}).`));
+  // A fresh snapshot starts blank: a second one must not inherit the first one's name and note.
+  dlg.querySelector("#snap-name").value = "";
+  dlg.querySelector("#snap-note").value = "";
+  dlg.querySelector("#snap-method").value = "mean";
+  dlg.querySelector("#snap-min-share").value = "80";
   dlg.querySelector("#snap-author").value = state.who || "";
   dlg.querySelector(".dialog-error").textContent = "";
   dlg.showModal();
@@ -90,12 +99,19 @@ export async function submitDialog(state) {
   });
   const missing = removed.filter((r) => !r.reason).map((r) => r.item);
   if (missing.length) { err.textContent = `Give a reason for: ${missing.join(", ")}.`; return false; }
+  const share = Number(dlg.querySelector("#snap-min-share").value);
+  if (!Number.isFinite(share) || share <= 0 || share > 100) {
+    err.textContent = `The minimum answered share must be above 0 and at most 100 %; it reads “${dlg.querySelector("#snap-min-share").value}”.`;
+    return false;
+  }
   const body = {
     name: dlg.querySelector("#snap-name").value.trim() || `Trim of ${new Date().toLocaleString()}`,
     author: dlg.querySelector("#snap-author").value.trim(),
     note: dlg.querySelector("#snap-note").value.trim(),
     items: keptItems(), removed,
     parent: state.parentSnapshot ? state.parentSnapshot.id : null,
+    scoring_method: dlg.querySelector("#snap-method").value === "sum" ? "sum" : "mean",
+    min_answered_share: share / 100,
     settings: { ...state.settings, reverse: state.reverse, thresholds: Object.keys(state.thresholds).length ? state.thresholds : null },
   };
   const st = lastStability();
@@ -106,6 +122,8 @@ export async function submitDialog(state) {
   }
   if (st.agreement && dlg.querySelector("#snap-include-agreement")?.checked) stability.agreement = st.agreement;
   if (Object.keys(stability).length) body.stability = stability;
+  const run = robustnessResult();
+  if (run?.current && dlg.querySelector("#snap-include-resampling")?.checked) body.resampling_run_id = state.robustness.run.run_id;
   try {
     const saved = await api.saveSnapshot(state.dataset, body);
     state.parentSnapshot = { id: saved.id, name: saved.name || body.name };
@@ -153,13 +171,15 @@ export async function render(container, state) {
   });
   container.append(section("Snapshots",
     message ? h("p", { class: "ok", role: "status", text: message }) : null,
-    h("div", { class: "toolbar" }, h("button", { class: "primary", id: "open-snapshot", text: "Save a snapshot…", onclick: () => openDialog() }),
+    h("div", { class: "toolbar" }, h("button", { class: "primary", id: "open-snapshot", text: "Save a snapshot…", onclick: () => openDialog(state) }),
       h("span", { class: "muted", text: "A snapshot is permanent: the kept items, every removal with its reason, the settings and the numbers at that moment." })),
     rows.length ? h("div", { class: "table-scroll" }, table(["Name", "By", "Saved (UTC)", "Items", "α", "ω", "Note", ""], rows,
       { className: "grid snapshots", caption: "Newest first" }))
       : note("No snapshots yet."),
     compareWith ? note("Pick a second snapshot to compare with.") : null,
-    comparison ? renderComparison(comparison) : null));
+    comparison ? renderComparison(comparison) : null,
+    snapshots.length ? sideBySidePicker(container, state) : null,
+    state.snapshots.sideBySide ? renderSideBySide(state.snapshots.sideBySide) : null));
   state.snapshots.message = null;
 }
 
@@ -231,3 +251,92 @@ function renderComparison(c) {
   return h("div", { class: "comparison", id: "comparison" }, h("h3", { text: `Comparing “${nameA}” (older) with “${nameB}”` }), parts);
 }
 
+
+// ---------------------------------------------------------------- two forms side by side (issue 12)
+const CURRENT = "current";
+
+function sideBySidePicker(container, state) {
+  const page = state.snapshots;
+  const list = page.list;
+  if (page.sbsLeft == null || !list.some((s) => s.id === page.sbsLeft)) page.sbsLeft = (list[1] || list[0]).id;
+  if (page.sbsRight == null || (page.sbsRight !== CURRENT && !list.some((s) => s.id === page.sbsRight))) {
+    page.sbsRight = list.length > 1 ? list[0].id : CURRENT;
+  }
+  const options = list.map((s) => h("option", { value: s.id, text: `${s.name || s.id} (${(s.items || []).length} items)` }));
+  const left = h("select", { id: "sbs-left", onchange: (e) => { page.sbsLeft = e.target.value; } }, options);
+  const right = h("select", { id: "sbs-right", onchange: (e) => { page.sbsRight = e.target.value; } },
+    list.map((s) => h("option", { value: s.id, text: `${s.name || s.id} (${(s.items || []).length} items)` })),
+    h("option", { value: CURRENT, text: "The current view (not saved)" }));
+  left.value = page.sbsLeft;
+  right.value = page.sbsRight;
+  const show = async () => {
+    if (page.sbsLeft === page.sbsRight) { page.sideBySide = { error: "Pick two different forms." }; render(container, state); return; }
+    try {
+      page.sideBySide = page.sbsRight === CURRENT
+        ? await api.sideBySideCurrent(page.sbsLeft, analysisRequest())
+        : await api.sideBySide(page.sbsLeft, page.sbsRight);
+    } catch (e) { page.sideBySide = { error: e.message }; }
+    await render(container, state);
+    document.getElementById("side-by-side")?.scrollIntoView({ block: "start" });
+  };
+  return h("div", { class: "toolbar sbs-picker", id: "sbs-picker" },
+    h("strong", { text: "Two forms side by side:" }),
+    h("label", {}, "Left ", left), h("label", {}, "Right ", right),
+    h("button", { id: "sbs-show", text: "Show side by side", onclick: show }));
+}
+
+function coefficientLine(form) {
+  if (!form.k) return h("p", { class: "sbs-coef muted", text: "No item of this subscale in this form." });
+  const ci = form.alpha_ci || [];
+  const interval = ci[0] != null && ci[1] != null ? ` (interval ${fmt(ci[0])} to ${fmt(ci[1])})` : "";
+  return h("p", { class: "sbs-coef" },
+    h("span", { text: `${form.k} items · α ${fmt(form.alpha)}${interval}` }),
+    h("span", { text: ` · ω total ${fmt(form.omega_total)}` }),
+    // a subscale has no ω hierarchical of its own (its group factor is the only one): say nothing rather than "not computed"
+    form.omega_hierarchical == null ? null : h("span", { text: ` · ω hierarchical ${fmt(form.omega_hierarchical)}` }));
+}
+
+function formColumn(form, name, only) {
+  const onlySet = new Set(only);
+  const rows = form.items.map((it) => {
+    const here = onlySet.has(it.name);
+    return h("tr", { class: here ? "sbs-only-row" : null },
+      h("th", { scope: "row" }, h("span", { text: it.name }),
+        it.reverse ? h("span", { class: "sbs-rev", text: " (reversed)" }) : null,
+        here ? h("span", { class: "sbs-only", text: " ◆ only here" }) : null),
+      h("td", { class: "sbs-text", text: it.text || "—" }),
+      h("td", { class: "num", text: it.loading == null ? "—" : `${fmt(it.loading, 2)} ${it.primary_factor ?? ""}`.trim() }),
+      h("td", { class: "num", text: fmt(it.item_rest_r, 2) }));
+  });
+  return h("div", { class: "sbs-col" },
+    h("h5", { text: name }),
+    form.items.length
+      ? h("table", { class: "grid sbs-items" },
+        h("thead", {}, h("tr", {}, ["Item", "Wording", "Main loading (factor)", "Item-rest r"].map((c) => h("th", { scope: "col", text: c })))),
+        h("tbody", {}, rows))
+      : null,
+    coefficientLine(form));
+}
+
+function renderSideBySide(d) {
+  if (d.error) return h("div", { id: "side-by-side-error" }, note(d.error, "error"));
+  const nameL = d.left?.name || "left";
+  const nameR = d.right?.name || "right";
+  const when = (f) => (f.id === CURRENT ? "not saved" : `saved ${(f.saved_at || "").replace("T", " ").slice(0, 16)} UTC`);
+  const total = (f, name) => {
+    const ci = f.alpha_ci || [];
+    return [name, String(f.k ?? "—"), `${fmt(f.alpha)}${ci[0] != null && ci[1] != null ? ` (${fmt(ci[0])} to ${fmt(ci[1])})` : ""}`,
+      fmt(f.omega_total), f.omega_hierarchical == null ? "not computed" : fmt(f.omega_hierarchical)];
+  };
+  return h("div", { class: "side-by-side", id: "side-by-side" },
+    h("div", { class: "sbs-head" },
+      h("h3", { text: `“${nameL}” beside “${nameR}”` }),
+      h("button", { class: "sbs-print", id: "sbs-print", text: "Print", onclick: () => window.print() })),
+    h("p", { class: "muted", text: `Left: ${nameL}, ${d.left.n_items} items, ${when(d.left)}. Right: ${nameR}, ${d.right.n_items} items, ${when(d.right)}. An item in one form only is marked “◆ only here”.` }),
+    d.differences?.length ? h("ul", { class: "sbs-differences" }, d.differences.map((t) => h("li", { text: t }))) : null,
+    d.subscales.map((s) => h("section", { class: "sbs-subscale", dataset: { subscale: s.name } },
+      h("h4", { text: `${s.name}: ${s.both.length} items in both, ${s.only_left.length} only left, ${s.only_right.length} only right` }),
+      h("div", { class: "sbs-pair" }, formColumn(s.left, nameL, s.only_left), formColumn(s.right, nameR, s.only_right)))),
+    table(["Whole form", "Items", "α (interval)", "ω total", "ω hierarchical"], [total(d.total.left, nameL), total(d.total.right, nameR)],
+      { className: "grid sbs-total" }));
+}

@@ -1,5 +1,6 @@
 // Start: upload a response file (+ optional codebook), see intake warnings and the detected items,
 // or open an existing dataset (the demo among them).
+import { api } from "../api.js";
 import { actions } from "../state.js";
 import { clear, h, note, section, table, warningList } from "./dom.js";
 
@@ -18,6 +19,7 @@ export function render(container, state) {
   const responsesInput = h("input", { type: "file", id: "file-responses", name: "file",
     accept: ".csv,.tsv,.txt,.xlsx,text/csv,text/tab-separated-values" });
   const codebookInput = h("input", { type: "file", id: "file-codebook", name: "codebook", accept: ".csv,.xlsx,text/csv" });
+  const nameInput = h("input", { type: "text", id: "upload-name", placeholder: "the file name", size: 24, maxlength: 200 });
   const missing = h("input", { type: "text", id: "missing-codes", placeholder: "e.g. -9, 99", size: 10 });
   const idColumn = h("input", { type: "text", id: "id-column", placeholder: "e.g. respondent", size: 14 });
   const smin = h("input", { type: "number", id: "scale-min", placeholder: "from data", step: "any", size: 6 });
@@ -25,12 +27,13 @@ export function render(container, state) {
   const chosen = h("p", { class: "chosen", text: "No file chosen yet." });
   restoreFile(responsesInput, kept.responses);
   restoreFile(codebookInput, kept.codebook);
+  nameInput.value = kept.name || "";
   missing.value = kept.missing; idColumn.value = kept.idColumn; smin.value = kept.smin; smax.value = kept.smax;
   const remember = () => {
     kept.responses = responsesInput.files[0] || null; kept.codebook = codebookInput.files[0] || null;
-    kept.missing = missing.value; kept.idColumn = idColumn.value; kept.smin = smin.value; kept.smax = smax.value;
+    kept.name = nameInput.value; kept.missing = missing.value; kept.idColumn = idColumn.value; kept.smin = smin.value; kept.smax = smax.value;
   };
-  for (const el of [missing, idColumn, smin, smax]) el.addEventListener("input", remember);
+  for (const el of [nameInput, missing, idColumn, smin, smax]) el.addEventListener("input", remember);
 
   const showChosen = () => {
     const f = responsesInput.files[0];
@@ -43,7 +46,7 @@ export function render(container, state) {
   codebookInput.addEventListener("change", showChosen);
 
   const drop = h("div", { class: "dropzone", tabindex: 0, role: "button",
-    "aria-label": "Drop a response file here, or press Enter to choose one" },
+    title: "Drop a response file here, or press Enter to choose one" },
   h("strong", { text: "Drop a response file here" }),
   h("span", { text: " (CSV, TSV or XLSX: one row per respondent, one column per item). A second file named like *codebook* is taken as the codebook." }));
   drop.addEventListener("click", () => responsesInput.click());
@@ -70,6 +73,7 @@ export function render(container, state) {
     const fd = new FormData();
     fd.append("file", f, f.name);
     if (codebookInput.files[0]) fd.append("codebook", codebookInput.files[0], codebookInput.files[0].name);
+    if (nameInput.value.trim()) fd.append("name", nameInput.value.trim());
     if (missing.value.trim()) fd.append("missing_codes", missing.value.trim());
     if (idColumn.value.trim()) fd.append("id_column", idColumn.value.trim());
     if (smin.value !== "") fd.append("scale_min", smin.value);
@@ -78,7 +82,7 @@ export function render(container, state) {
     status.textContent = "Reading…";
     try {
       state.start.upload = { record: await actions.upload(fd) };
-      Object.assign(kept, { responses: null, codebook: null, missing: "", idColumn: "", smin: "", smax: "" });
+      Object.assign(kept, { responses: null, codebook: null, name: "", missing: "", idColumn: "", smin: "", smax: "" });
     } catch (err) {
       state.start.upload = { error: err };
     } finally {
@@ -90,6 +94,7 @@ export function render(container, state) {
   h("div", { class: "fields" },
     h("label", {}, "Responses ", responsesInput),
     h("label", {}, "Codebook (optional: item, text, construct, reverse, min, max) ", codebookInput),
+    h("label", {}, "Name (optional; default: the file name) ", nameInput),
     h("label", {}, "Missing-value codes ", missing),
     h("label", {}, "ID column ", idColumn),
     h("label", {}, "Lowest answer ", smin),
@@ -107,13 +112,56 @@ export function render(container, state) {
     d.n_rows ?? d.meta?.n_rows ?? "—",
     (d.items || d.meta?.items || []).length || d.n_items || "—",
     (d.created_at || "").replace("T", " ").slice(0, 16),
+    h("button", { class: "delete-dataset", id: `delete-${d.id}`, text: "Delete…", "aria-label": `Delete ${d.name || d.id}…`,
+      onclick: () => askDelete(container, state, d) }),
   ]);
   const demoButton = h("button", { id: "open-demo", text: "Open the invented demo (community workshop pool)",
     onclick: () => actions.openDemo() });
   container.append(section("Open a dataset",
-    rows.length ? table(["Dataset", "Respondents", "Items", "Added (UTC)"], rows, { className: "grid datasets" })
+    deleteConfirm(container, state),
+    rows.length ? table(["Dataset", "Respondents", "Items", "Added (UTC)", ""], rows, { className: "grid datasets" })
       : note("No datasets yet. Upload one above, or open the demo: an invented pool of 24 statements with a few planted problems."),
     h("div", { class: "toolbar" }, demoButton)));
+}
+
+// Deleting a dataset: an in-page confirmation (state.start.deleting) that names the dataset and says what
+// goes with it. The server removes the response file and codebook; saved snapshots stay (immutable).
+async function askDelete(container, state, d) {
+  state.start.deleting = { id: d.id, name: d.name || d.id, snapshots: null, error: null };
+  render(container, state);
+  document.getElementById("delete-keep")?.focus();
+  try {
+    const snaps = await api.listSnapshots(d.id);
+    if (state.start.deleting?.id === d.id) { state.start.deleting.snapshots = snaps.length; render(container, state); }
+  } catch { /* the count is a courtesy: the sentence without it is still true */ }
+}
+
+function deleteConfirm(container, state) {
+  const del = state.start.deleting;
+  if (!del || !state.datasets.some((d) => d.id === del.id)) return null;
+  const n = del.snapshots;
+  const snaps = n == null ? "Its saved snapshots are kept"
+    : n === 0 ? "It has no saved snapshots" : `Its ${n} saved snapshot${n === 1 ? " is" : "s are"} kept`;
+  const cancel = () => { state.start.deleting = null; render(container, state); };
+  const confirm = h("button", { class: "danger", id: "delete-confirm", text: `Delete “${del.name}”`, onclick: async () => {
+    confirm.disabled = true;
+    try {
+      if (state.start.upload?.record?.id === del.id) state.start.upload = null;
+      state.start.deleting = null;
+      await actions.deleteDataset(del.id); // re-renders the page
+    } catch (err) {
+      state.start.deleting = { ...del, error: err.message };
+      render(container, state);
+    }
+  } });
+  return h("div", { class: "delete-confirm", id: "delete-dialog", role: "alertdialog", "aria-labelledby": "delete-title",
+    "aria-describedby": "delete-what", onkeydown: (e) => { if (e.key === "Escape") cancel(); } },
+  h("p", { id: "delete-title", class: "delete-title", text: `Delete the dataset “${del.name}”?` }),
+  h("p", { id: "delete-what", text: `Its response file and codebook are removed from this machine's data folder and it leaves this list; `
+    + `if it is open, the page goes back here. ${snaps}${n === 0 ? "." : ": their record, report and scoring key still open, "
+    + "but their responses can no longer be exported."} The deletion is written to the workspace log. It cannot be undone.` }),
+  del.error ? h("p", { class: "error", role: "alert", text: `Not deleted: ${del.error}` }) : null,
+  h("div", { class: "toolbar" }, confirm, h("button", { id: "delete-keep", text: "Keep it", onclick: cancel })));
 }
 
 function uploadResult(state, { record, error }) {
