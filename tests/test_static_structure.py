@@ -102,3 +102,11 @@ def test_no_served_default_is_copied_into_static_js(served_options):
         if found:
             copies[str(path.relative_to(JS))] = found
     assert copies == {}, f"defaults copied from GET /api/options into static/js: {copies}"
+
+
+def test_every_module_is_preloaded_by_the_page():
+    """index.html preloads each ES module, so the browser fetches them at once, not in import waves."""
+    html = (JS.parent / "index.html").read_text(encoding="utf-8")
+    preloaded = set(re.findall(r'<link rel="modulepreload" href="/static/(js/[^"]+)">', html))
+    modules = {str(p.relative_to(JS.parent)) for p in JS.rglob("*.js") if p.name != "main.js"}
+    assert preloaded == modules

@@ -45,13 +45,36 @@ async function call(method, url, { json, form, signal } = {}) {
   return data;
 }
 
+// A form upload through XMLHttpRequest (fetch reports no upload progress). onProgress({phase, loaded, total}):
+// phase "sending" while the bytes travel, then "reading" once they are all sent and the server reads the file.
+function sendForm(url, form, onProgress) {
+  return new Promise((resolve, reject) => {
+    const xhr = new XMLHttpRequest();
+    xhr.open("POST", url);
+    xhr.withCredentials = true;
+    if (pageToken) xhr.setRequestHeader("X-Scalewright-Token", pageToken);
+    const who = whoName();
+    if (who) xhr.setRequestHeader("X-Scalewright-Who", encodeURIComponent(who));
+    xhr.upload.onprogress = (e) => onProgress({ phase: "sending", loaded: e.loaded, total: e.lengthComputable ? e.total : null });
+    xhr.upload.onload = () => onProgress({ phase: "reading", loaded: null, total: null });
+    xhr.onload = () => {
+      let data = null;
+      try { data = xhr.responseText ? JSON.parse(xhr.responseText) : null; } catch { data = { error: { message: xhr.responseText.slice(0, 300) } }; }
+      if (xhr.status >= 200 && xhr.status < 300) resolve(data); else reject(new ApiProblem(xhr.status, data));
+    };
+    xhr.onerror = () => reject(new Error("The file did not reach the server (the connection failed). Is Scalewright still running?"));
+    xhr.onabort = () => reject(new Error("The upload was cancelled."));
+    xhr.send(form);
+  });
+}
+
 export const api = {
   health: () => call("GET", "/api/health"),
   options: () => call("GET", "/api/options"),
   listDatasets: () => call("GET", "/api/datasets"),
   getDataset: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}`),
   deleteDataset: (id) => call("DELETE", `/api/datasets/${encodeURIComponent(id)}`),
-  upload: (form) => call("POST", "/api/datasets", { form }),
+  upload: (form, onProgress) => (onProgress ? sendForm("/api/datasets", form, onProgress) : call("POST", "/api/datasets", { form })),
   openDemo: () => call("POST", "/api/demo"),
   demoRatings: async () => (await fetch(withToken("/api/demo/ratings"), { credentials: "same-origin" })).text(),
   analyse: (id, body, signal) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`, { json: body, signal }),

@@ -85,7 +85,7 @@ function renderSummary() {
     stat("stat-factors", "factors", a?.efa?.n_factors != null ? String(a.efa.n_factors) : "—"),
     stat("stat-kmo", "KMO", fmt(a?.factorability?.kmo, 2)),
   ].filter(Boolean));
-  if (state.pending) box.append(h("span", { class: "spinner", role: "status", text: "refitting…" }));
+  if (state.pending) box.append(h("span", { class: "spinner", id: "refitting", role: "status", text: refittingText() }));
   if (state.error) box.append(h("span", { class: "error", role: "alert", text: state.error.message }));
   const warnings = a?.warnings || [];
   const w = clear($("#analysis-warnings"));
@@ -104,7 +104,9 @@ function renderView() {
   const keepFocus = active && active.id && el.contains(active) ? active.id : null;
   el.setAttribute("aria-labelledby", `tab-${state.view}`);
   if (NEEDS_ANALYSIS.has(state.view) && !state.analysis) {
-    clear(el).append(h("p", { class: "note", text: state.error ? state.error.message : "Computing…" }));
+    clear(el).append(state.error ? h("p", { class: "note", text: state.error.message })
+      : h("p", { class: "note computing", id: "computing", role: "status" }, computingText(), " ",
+        h("span", { id: "computing-elapsed", class: "muted", text: elapsedText() })));
     return;
   }
   view.render(el, state);
@@ -121,16 +123,37 @@ function renderAll() {
 }
 
 // ---------------------------------------------------------------- refit queue (latest state wins)
+// A click starts its request at once (no debounce); clicks made while one is in flight coalesce: when it
+// ends, runRefit asks again for the state as it is then, so the latest state wins.
 let inFlight = false;
-let debounce = null;
 let generation = 0;
 
-function refit({ immediate = false } = {}) {
+// While an analysis is pending, the page says what it computes and counts the seconds (nothing looks frozen).
+let pendingSince = null;
+let ticker = null;
+const elapsedSeconds = () => (pendingSince == null ? 0 : Math.floor((performance.now() - pendingSince) / 1000));
+const elapsedText = () => { const s = elapsedSeconds(); return s >= 1 ? `${s} s` : ""; };
+const refittingText = () => `refitting…${elapsedSeconds() >= 1 ? ` ${elapsedSeconds()} s` : ""}`;
+function computingText() {
+  const n = state.meta?.n_rows;
+  const k = state.meta ? keptItems().length : null;
+  const size = k != null && n != null ? ` (${k.toLocaleString("en")} items × ${n.toLocaleString("en")} respondents)` : "";
+  return `Computing correlations, factor analysis, parallel analysis…${size}`;
+}
+function tick() {
+  if (!state.pending) { clearInterval(ticker); ticker = null; pendingSince = null; return; }
+  const elapsed = document.getElementById("computing-elapsed");
+  if (elapsed) elapsed.textContent = elapsedText();
+  const spinner = document.getElementById("refitting");
+  if (spinner) spinner.textContent = refittingText();
+}
+
+function refit() {
   if (!state.dataset || (!state.meta && state.dropped.length)) return;
   state.pending = true;
+  if (!ticker) { pendingSince = performance.now(); ticker = setInterval(tick, 1000); }
   renderSummary();
-  clearTimeout(debounce);
-  debounce = setTimeout(runRefit, immediate ? 0 : 40);
+  runRefit();
 }
 
 async function runRefit() {
@@ -164,6 +187,7 @@ async function runRefit() {
   }
   if (!applied && current() !== key) { runRefit(); return; }
   state.pending = false;
+  tick(); // stops the seconds
   renderAll();
   const ms = performance.now() - started;
   timings.lastRefitMs = ms;
@@ -207,8 +231,8 @@ Object.assign(actions, {
     await refreshDatasets();
     await actions.openDataset(record.id);
   },
-  async upload(form) {
-    const record = await api.upload(form);
+  async upload(form, onProgress) {
+    const record = await api.upload(form, onProgress);
     await refreshDatasets();
     return record;
   },

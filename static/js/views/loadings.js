@@ -1,5 +1,5 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
-import { factorCorrelations, loadingsHeatmap, markHeatRow } from "../charts.js";
+import { factorCorrelations, loadingsHeatmap, markHeatRow, purge } from "../charts.js";
 import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
 import { actions, allItems, itemMeta, loadingCutoff } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
@@ -30,6 +30,13 @@ function degenerateBox(w) {
 }
 
 export function render(container, state) {
+  // The drawn heatmap and factor-correlation chart are kept across re-renders (a refit): Plotly.react then
+  // updates them in place instead of drawing new charts from nothing.
+  const kept = {};
+  for (const id of ["heatmap", "phi"]) {
+    const el = container.querySelector(`#${id}.js-plotly-plot`);
+    if (el) { el.remove(); kept[id] = el; }
+  }
   clear(container);
   const efa = state.analysis?.efa;
   const degenerate = findWarning(state.analysis, "rotation_degenerate");
@@ -78,7 +85,7 @@ export function render(container, state) {
       onclick: () => actions.setStructure(false) }),
     h("button", { class: showStructure ? "on" : "", "aria-pressed": String(Boolean(showStructure)), id: "show-structure", text: "Structure",
       disabled: !efa.structure, onclick: () => actions.setStructure(true) }));
-  const heat = h("div", { class: "chart", id: "heatmap" });
+  const heat = kept.heatmap || h("div", { class: "chart", id: "heatmap" });
   // The selected (keyboard) or pointed-at row in words: name, construct, wording and every loading, unrounded by the cut-off.
   const rowLine = h("p", { class: "heat-hover", id: "heat-row", "aria-live": "polite",
     text: state.heat.row ? readOut(state.heat.row) : "Point at a row, or focus the heatmap and use ↑/↓ (Enter opens the row)." });
@@ -137,7 +144,9 @@ export function render(container, state) {
       text: "By factor", onclick: () => actions.setHeatmap({ poolOrder: false }) }),
     h("button", { class: state.heat.poolOrder ? "on" : "", "aria-pressed": String(state.heat.poolOrder), id: "heat-order-pool",
       text: "Pool order", onclick: () => actions.setHeatmap({ poolOrder: true }) }));
-  const phi = h("div", { class: "chart small", id: "phi" });
+  const drawPhi = Boolean(efa.factor_correlations && efa.factor_correlations.length > 1);
+  if (kept.phi && !drawPhi) purge(kept.phi);
+  const phi = (drawPhi && kept.phi) || h("div", { class: "chart small", id: "phi" });
   const side = h("div", { class: "side" }, phi);
   if (efa.communalities) {
     const comm = asMatrix(efa.communalities, items);
@@ -166,7 +175,7 @@ export function render(container, state) {
     selected: state.heat.row ? names.indexOf(state.heat.row) : null,
     title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
-  if (efa.factor_correlations && efa.factor_correlations.length > 1) {
+  if (drawPhi) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
   } else {
     phi.append(note(efa.n_factors > 1 ? "Orthogonal rotation: the factors are uncorrelated by construction." : "One factor: no factor correlations."));

@@ -79,13 +79,14 @@ export function render(container, state) {
     if (smin.value !== "") fd.append("scale_min", smin.value);
     if (smax.value !== "") fd.append("scale_max", smax.value);
     submit.disabled = true;
-    status.textContent = "Reading…";
+    const progress = uploadProgress(status);
     try {
-      state.start.upload = { record: await actions.upload(fd) };
+      state.start.upload = { record: await actions.upload(fd, progress.update) };
       Object.assign(kept, { responses: null, codebook: null, name: "", missing: "", idColumn: "", smin: "", smax: "" });
     } catch (err) {
       state.start.upload = { error: err };
     } finally {
+      progress.stop();
       submit.disabled = false;
     }
     render(container, state);
@@ -122,6 +123,42 @@ export function render(container, state) {
     rows.length ? table(["Dataset", "Respondents", "Items", "Added (UTC)", ""], rows, { className: "grid datasets" })
       : note("No datasets yet. Upload one above, or open the demo: an invented pool of 24 statements with a few planted problems."),
     h("div", { class: "toolbar" }, demoButton)));
+}
+
+// The upload's progress in `status`: a bar and the megabytes while the file travels, then "reading the file"
+// with the seconds counted while the server reads it (a large file takes a while; nothing looks frozen).
+function uploadProgress(status) {
+  const bar = h("progress", { id: "upload-progress", max: 100, value: 0, "aria-label": "Upload progress" });
+  const words = h("span", { id: "upload-progress-text", text: "Sending the file…" });
+  clear(status).append(bar, " ", words);
+  const mb = (b) => (b / 1e6).toFixed(1);
+  let readingSince = null;
+  let timer = null;
+  const reading = () => {
+    const s = Math.floor((performance.now() - readingSince) / 1000);
+    words.textContent = `Sent. Reading the file on the server…${s >= 1 ? ` ${s} s` : ""}`;
+  };
+  return {
+    update({ phase, loaded, total }) {
+      if (phase === "sending" && readingSince == null) {
+        if (total) {
+          const pct = Math.min(100, Math.round((loaded / total) * 100));
+          bar.value = pct;
+          words.textContent = `Sending the file… ${pct} % (${mb(loaded)} of ${mb(total)} MB)`;
+        } else {
+          bar.removeAttribute("value");
+          words.textContent = `Sending the file… ${mb(loaded)} MB`;
+        }
+      } else if (phase === "reading" && readingSince == null) {
+        bar.value = 100;
+        status.dataset.phase = "reading";
+        readingSince = performance.now();
+        reading();
+        timer = setInterval(reading, 1000);
+      }
+    },
+    stop() { clearInterval(timer); },
+  };
 }
 
 // Deleting a dataset: an in-page confirmation (state.start.deleting) that names the dataset and says what
