@@ -10,7 +10,7 @@ import numpy as np
 from ..stats.descriptives import ItemDescriptives, item_descriptives
 from ..stats.errors import InputError
 from ..stats.notes import Note
-from .matrices import FullPool, PoolUnavailable, constant_notes, full_pool
+from .matrices import AnswerPatterns, FullPool, PoolUnavailable, constant_notes, full_pool
 
 __all__ = ["AnalysisInputs", "ItemInfo", "Memo", "no_memo"]
 
@@ -41,7 +41,8 @@ class AnalysisInputs:
     ``responses`` are raw (reverse-keyed items not reverse-scored), one column per entry of ``items``.
     ``descriptives`` are every item's, after reverse-scoring with the settings' ``reverse``. ``pools``
     holds the full-pool pairwise matrices by correlation type (only the ones the settings need).
-    ``memo`` caches the full-pool reference factor solutions across analyses.
+    ``memo`` caches the full-pool reference factor solutions across analyses. ``patterns``, when given
+    (the engine's, formed once per dataset), answers :meth:`answered` without reading the responses.
     """
 
     dataset_id: str
@@ -53,6 +54,7 @@ class AnalysisInputs:
     descriptives: Sequence[ItemDescriptives]
     pools: Mapping[str, FullPool | PoolUnavailable]
     memo: Memo = no_memo
+    patterns: AnswerPatterns | None = None
 
     @property
     def names(self) -> list[str]:
@@ -67,6 +69,13 @@ class AnalysisInputs:
         """Column indices of ``names`` in ``responses``."""
         index = {n: j for j, n in enumerate(self.names)}
         return np.array([index[n] for n in names], dtype=int)
+
+    def answered(self, idx: np.ndarray) -> tuple[int, int]:
+        """Respondents who answered at least one, and every one, of the items at columns ``idx``."""
+        if self.patterns is not None:
+            return self.patterns.answered_any(idx), self.patterns.answered_all(idx)
+        missing = np.isnan(self.responses[:, idx])
+        return int((~missing.all(axis=1)).sum()), int((~missing.any(axis=1)).sum())
 
     @classmethod
     def from_responses(cls, responses: np.ndarray, items: Sequence[ItemInfo], reverse: Sequence[str], *,

@@ -19,8 +19,8 @@ from ..stats import correlation as corrmod
 from ..stats.errors import InputError
 from ..stats.notes import Note, note
 
-__all__ = ["ActiveMatrices", "FullPool", "PoolUnavailable", "active_matrices", "full_pool", "listwise_covariance",
-           "min_pair_n", "pool_warnings_for"]
+__all__ = ["ActiveMatrices", "AnswerPatterns", "FullPool", "PoolUnavailable", "active_matrices", "full_pool",
+           "listwise_covariance", "min_pair_n", "pool_warnings_for"]
 
 
 @dataclass(frozen=True)
@@ -58,6 +58,50 @@ class ActiveMatrices:
     correction: float = 0.0
 
 
+@dataclass(frozen=True)
+class AnswerPatterns:
+    """Which items each respondent answered, as the distinct patterns and how many respondents share each.
+
+    Formed once per dataset (:meth:`of`), it answers "how many respondents answered at least one / every
+    item of this set" in O(patterns x items / 8), so a drop never goes back to the responses. Data without
+    missing answers have a single pattern.
+    """
+
+    packed: np.ndarray  # patterns x ceil(k / 8) uint8, np.packbits of "answered" along the items
+    counts: np.ndarray  # respondents with each pattern (int64)
+    k: int
+
+    @classmethod
+    def of(cls, responses: np.ndarray, *, chunk: int = 65536) -> AnswerPatterns:
+        """The distinct answer patterns of ``responses`` (NaN = not answered), read in row chunks."""
+        n, k = responses.shape
+        width = max(1, -(-k // 8))
+        packed = np.empty((n, width), dtype=np.uint8)
+        for s in range(0, n, chunk):
+            packed[s:s + chunk] = np.packbits(~np.isnan(responses[s:s + chunk]), axis=1) if k else 0
+        if n == 0:
+            return cls(packed, np.zeros(0, dtype=np.int64), k)
+        rows = np.ascontiguousarray(packed).view(np.dtype((np.void, width))).ravel()
+        uniq, counts = np.unique(rows, return_counts=True)
+        return cls(uniq.view(np.uint8).reshape(-1, width).copy(), counts.astype(np.int64), k)
+
+    def _mask(self, idx: np.ndarray) -> np.ndarray:
+        flags = np.zeros(self.k, dtype=bool)
+        flags[np.asarray(idx, dtype=int)] = True
+        return np.packbits(flags) if self.k else np.zeros(1, dtype=np.uint8)
+
+    def answered_any(self, idx: np.ndarray) -> int:
+        """Respondents who answered at least one of the items at positions ``idx``."""
+        hit = (self.packed & self._mask(idx)).any(axis=1)
+        return int(self.counts[hit].sum())
+
+    def answered_all(self, idx: np.ndarray) -> int:
+        """Respondents who answered every item at positions ``idx``."""
+        m = self._mask(idx)
+        hit = ((self.packed & m) == m).all(axis=1)
+        return int(self.counts[hit].sum())
+
+
 def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[str], correlation: str, *,
               zero_cell_correction: float = 0.0) -> FullPool:
     """The pairwise matrices of every item with some variance, on the raw responses.
@@ -68,7 +112,7 @@ def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[
     Raises :class:`InputError` when the pool cannot form a matrix (two items never answered together...).
     """
     ok = np.array([n not in constant for n in names])
-    X = responses[:, ok]
+    X = responses if ok.all() else responses[:, ok]  # no copy of a large pool without constant items
     kept = [n for n in names if n not in constant]
     cov, n_pair = corrmod.pairwise_covariance(X)
     make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix

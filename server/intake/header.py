@@ -11,6 +11,20 @@ from .common import MAX_LISTED, plural
 from .values import numeric_mask
 
 
+def _mostly_text(s: pd.Series, nonnull: np.ndarray) -> bool:
+    """True when the first filled cells of a text column already hold more than a tenth of its filled cells
+    that are not numbers (the column cannot reach the 90 % of numbers below), without reading the rest."""
+    if pd.api.types.is_numeric_dtype(s.dtype):
+        return False
+    total = int(nonnull.sum())
+    need = total // 10 + 1  # more than 10 % of the filled cells
+    if need >= total:
+        return False
+    upto = int(np.flatnonzero(nonnull)[need - 1]) + 1  # the first ``need`` filled cells
+    head = s.iloc[:upto]
+    return int((~numeric_mask(head) & nonnull[:upto]).sum()) >= need
+
+
 def skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: str, notes: list[str],
                            unnamed: AbstractSet[str] = frozenset()
                            ) -> tuple[pd.DataFrame, np.ndarray, dict[str, str]]:
@@ -32,7 +46,7 @@ def skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: 
     for c in df.columns:
         s = below[c]
         nonnull = s.notna().to_numpy()
-        if nonnull.sum() >= 3 and numeric_mask(s)[nonnull].mean() >= 0.9:
+        if nonnull.sum() >= 3 and not _mostly_text(s, nonnull) and numeric_mask(s)[nonnull].mean() >= 0.9:
             numeric_cols.append(c)
     if len(numeric_cols) < 2:
         return df, row_numbers, {}

@@ -64,7 +64,8 @@ class ItemMeta:
 class ParsedDataset:
     """A response file read into a matrix: rows are respondents, columns are items.
 
-    ``responses`` holds RAW values (reverse-keyed items are NOT reverse-scored), NaN = missing.
+    ``responses`` holds RAW values (reverse-keyed items are NOT reverse-scored), NaN = missing; C-ordered, or
+    column-major when a large all-number file was read in chunks straight into it (no second copy).
     ``ids`` are the respondent IDs (as text) when an ID column was used, else ``None``.
     """
 
@@ -105,6 +106,7 @@ class _Table:
     header_text: dict[str, str]  # question text per column, from extra header rows
     unnamed: set[str]
     formula_columns: set[str]
+    block: np.ndarray | None = None  # a matrix the frame's number columns are views of (large numeric CSV)
 
     @property
     def columns(self) -> list[str]:
@@ -223,7 +225,7 @@ def _table(raw: bytes, filename: str, limits: IntakeLimits, notes: list[str]) ->
     notes.extend(read_notes)
     unnamed = set(info.get("unnamed", ()))
     df, row_numbers, header_text = skip_extra_header_rows(df, row_numbers, filename, notes, unnamed)
-    return _Table(df, row_numbers, header_text, unnamed, set(info.get("formula_columns", ())))
+    return _Table(df, row_numbers, header_text, unnamed, set(info.get("formula_columns", ())), info.get("matrix"))
 
 
 def _accept_roles(roles: Roles, table: _Table, named_id: str | None, filename: str, limits: IntakeLimits,
@@ -258,13 +260,28 @@ def _matrix(table: _Table, roles: Roles, raw: bytes, filename: str, limits: Inta
             notes: list[str]) -> _Matrix:
     """The item columns as one matrix (their arrays are moved in, not copied twice); then values checked."""
     n, k = len(table.frame), len(roles.items)
-    responses = np.empty((n, k), dtype=np.float64)
-    for j, c in enumerate(roles.items):
-        responses[:, j] = roles.values.pop(c)
+    if _is_block(table.block, roles, n):  # the items are the whole matrix the file was read into: no copy
+        responses = table.block
+        roles.values.clear()
+    else:
+        responses = np.empty((n, k), dtype=np.float64)
+        for j, c in enumerate(roles.items):
+            responses[:, j] = roles.values.pop(c)
     ids = table.frame[roles.id_column] if roles.id_column is not None else None
     refuse_non_finite(responses, roles.items, table.row_numbers, raw, filename, limits)
     apply_missing_codes(responses, codes, notes)
     return _Matrix(responses, list(roles.items), table.row_numbers, ids)
+
+
+def _is_block(block: np.ndarray | None, roles: Roles, n: int) -> bool:
+    """Whether the item columns, in order, are exactly the columns of ``block`` (their values are views of it)."""
+    if block is None or block.shape != (n, len(roles.items)) or not block.flags.f_contiguous:
+        return False
+    for j, c in enumerate(roles.items):
+        v, col = roles.values[c], block[:, j]
+        if v.shape != col.shape or v.strides != col.strides or v.ctypes.data != col.ctypes.data:
+            return False
+    return True
 
 
 def _ranges(matrix: _Matrix, matched: dict[str, CodebookEntry], form: _Form, raw: bytes, filename: str,
@@ -379,7 +396,7 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
 
     ids = None
     if matrix.ids is not None:
-        ids = [id_text(v) for v in matrix.ids.tolist()]
+        ids = _id_texts(matrix.ids)
         dup = len(ids) - len(set(ids))
         if dup:
             counts = pd.Series(ids).value_counts()
@@ -391,8 +408,17 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
                          "waves only on unique IDs.")
 
     name = PurePath(filename).stem or filename
-    return ParsedDataset(name=name, items=metas, responses=np.ascontiguousarray(responses), ids=ids,
+    if not responses.flags.f_contiguous:  # a large file's matrix stays column-major: no second copy
+        responses = np.ascontiguousarray(responses)
+    return ParsedDataset(name=name, items=metas, responses=responses, ids=ids,
                          id_column=id_column, n_rows=n_rows, warnings=notes)
+
+
+def _id_texts(ids: pd.Series) -> list[str]:
+    """:func:`id_text` of every cell; a column of text (pandas' string type) stripped in one step."""
+    if isinstance(ids.dtype, pd.StringDtype) and ids.dtype.na_value is np.nan:  # missing: NaN, as id_text reads
+        return ids.str.strip().fillna("").tolist()
+    return [id_text(v) for v in ids.tolist()]
 
 
 def id_text(v: Any) -> str:

@@ -166,6 +166,8 @@ def scan_records(raw: bytes, encoding: str, delim: str, filename: str) -> tuple[
     Row numbers are 1-based lines of the file (the header is row 1); blank lines are skipped, as the
     parser skips them. One Python step per line, never per cell.
     """
+    if b'"' not in raw and len(raw) >= FAST_MIN_BYTES:
+        return _scan_unquoted(raw, encoding, delim, filename)
     if b'"' not in raw:
         lines = raw.split(b"\n")
         del raw
@@ -256,7 +258,8 @@ def read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limit
     try:
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore")
-            df = pd.read_csv(io.BytesIO(raw), **opts)
+            fast = None if as_strings else _read_numeric(raw, opts, len(row_numbers))
+            df, matrix = (pd.read_csv(io.BytesIO(raw), **opts), None) if fast is None else fast
     except pd.errors.EmptyDataError as exc:
         raise InputError(f"The file '{filename}' is empty.", code="empty_file",
                          details={"file": filename}) from exc
@@ -267,7 +270,127 @@ def read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limit
         row_numbers = np.arange(2, len(df) + 2, dtype=np.int64)
     info = {"format": "delimited", "delimiter": delim, "encoding": encoding, "decimal_comma": decimal_comma,
             "unnamed": [names[j] for j in unnamed(header)]}
+    if matrix is not None:
+        info["matrix"] = matrix  # the frame's number columns are views of it (see _read_numeric)
     return df, row_numbers, notes, info
+
+
+def _scan_unquoted(raw: bytes, encoding: str, delim: str, filename: str, *, block: int = 1 << 20
+                   ) -> tuple[list[str], np.ndarray]:
+    """:func:`scan_records` of a file without quotes, counted with numpy on blocks of whole lines."""
+    buf = np.frombuffer(raw, dtype=np.uint8)
+    dbyte = ord(delim)
+    header: list[str] | None = None
+    expected = 0
+    rows: list[np.ndarray] = []
+    line_no = 0  # lines before the block
+    start = 0
+    while start < len(buf):
+        stop = raw.find(b"\n", min(start + block, len(buf)) - 1)
+        stop = len(buf) if stop < 0 else stop + 1  # the block ends after a line end (or at the end of the file)
+        part = buf[start:stop]
+        ends = np.flatnonzero(part == 10)
+        if not len(ends) or ends[-1] != len(part) - 1:
+            ends = np.append(ends, len(part))  # a last line without its line end
+        starts = np.concatenate(([0], ends[:-1] + 1))
+        cr = np.zeros(len(ends), dtype=bool)
+        has = ends > starts
+        cr[has] = part[ends[has] - 1] == 13
+        length = ends - starts - cr
+        counts = np.add.reduceat(part == dbyte, starts, dtype=np.int64)  # starts rise strictly
+        numbers = line_no + 1 + np.arange(len(ends))
+        keep = length > 0
+        if header is None and keep.any():
+            h = int(np.flatnonzero(keep)[0])
+            line = bytes(part[starts[h]:starts[h] + length[h]])
+            header = next(csv.reader([line.decode(encoding, errors="replace")], delimiter=delim))
+            expected = line.count(delim.encode()) + 1
+            keep[h] = False
+        found = counts + 1
+        bad = np.flatnonzero(keep & (found != expected))
+        if len(bad):
+            raise_ragged(filename, int(numbers[bad[0]]), expected, int(found[bad[0]]), delim)
+        rows.append(numbers[keep])
+        line_no += len(ends)
+        start = stop
+    if header is None:
+        raise InputError(f"The file '{filename}' is empty.", code="empty_file", details={"file": filename})
+    return header, (np.concatenate(rows) if rows else np.zeros(0, dtype=np.int64)).astype(np.int64)
+
+
+FAST_MIN_BYTES = 8 * 1024 * 1024  # smaller files are read in one piece: memory is not a concern there
+FAST_SAMPLE_ROWS = 2000
+FAST_CHUNK_ROWS = 65536  # at most; fewer for a smaller file, so a chunk stays small beside its matrix
+_EXACT = 1e15  # whole numbers below this are exact as float64 and print the same (IDs stay the same text)
+
+
+def _same_type(parts: list[pd.Series]) -> bool:
+    """Whether an ID-like column read in chunks has the type (and cells) the whole-file reading gives it:
+    numbers in every chunk, or text in every chunk with no cell that reads as a number (else pandas could
+    have read some of its cells as numbers: '007' as 7)."""
+    numeric = [pd.api.types.is_numeric_dtype(p.dtype) and not pd.api.types.is_bool_dtype(p.dtype) for p in parts]
+    if all(numeric):
+        return True
+    if any(numeric) or any(pd.api.types.is_bool_dtype(p.dtype) for p in parts):
+        return False
+    return not any(pd.to_numeric(p, errors="coerce").notna().any() for p in parts)
+
+
+def _read_numeric(raw: bytes, opts: dict[str, Any], n_rows: int) -> tuple[pd.DataFrame, np.ndarray] | None:
+    """A large all-number file read in row chunks straight into one float64 matrix, or None to read it whole.
+
+    Taken when the first rows hold only numbers (columns named like an ID keep pandas' own types): the
+    frame's number columns are then views of one column-major respondents x columns matrix (returned beside
+    it), so the reading holds about one copy of the numbers instead of pandas' three (its chunks,
+    their concatenation, the consolidated block). Any surprise further down (a text cell, a row count that
+    does not match the scan) gives None, and the file is read whole as before: same frame, same errors.
+    """
+    if len(raw) < FAST_MIN_BYTES or n_rows <= FAST_SAMPLE_ROWS:
+        return None
+    try:
+        sample = pd.read_csv(io.BytesIO(raw), nrows=FAST_SAMPLE_ROWS, **opts)
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError):
+        return None
+    names = [str(c) for c in sample.columns]
+    if len(set(names)) != len(names):
+        return None
+    from .columns import named_like_id  # here: columns imports the codebook reader, which imports this module
+
+    keep_types = {c for c in names if named_like_id(c)}
+    for c in names:
+        if c in keep_types:
+            continue
+        values = sample[c]
+        if values.dtype.kind not in "if" or not bool((values.abs().fillna(0) < _EXACT).all()):
+            return None
+    numeric = [c for c in names if c not in keep_types]
+    if not numeric:
+        return None
+    matrix = np.empty((n_rows, len(numeric)), dtype=np.float64, order="F")  # columns contiguous, as pandas
+    others: dict[str, list[pd.Series]] = {c: [] for c in keep_types}
+    start = 0
+    try:
+        rows = min(FAST_CHUNK_ROWS, max(FAST_CHUNK_ROWS // 4, n_rows // 8))
+        reader = pd.read_csv(io.BytesIO(raw), dtype={c: np.float64 for c in numeric}, chunksize=rows, **opts)
+        with reader:
+            for chunk in reader:
+                stop = start + len(chunk)
+                if stop > n_rows:
+                    return None
+                for j, c in enumerate(numeric):  # column by column: no intermediate chunk matrix
+                    matrix[start:stop, j] = chunk[c].to_numpy(dtype=np.float64)
+                for c in keep_types:
+                    others[c].append(chunk[c])
+                start = stop
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError, OverflowError):
+        return None
+    if start != n_rows or not all(_same_type(parts) for parts in others.values()):
+        return None
+    df = pd.DataFrame(matrix, columns=numeric, copy=False)
+    for pos, c in enumerate(names):
+        if c in keep_types:
+            df.insert(pos, c, pd.concat(others.pop(c), ignore_index=True))
+    return df, matrix
 
 
 def header_width(raw: bytes, delim: str) -> int:
