@@ -12,11 +12,15 @@ What is cached, and by what it depends on (CONVENTIONS 7):
   number of factors, through the memo the engine hands to the analysis;
 * whole answers, per canonical settings (a repeated identical request is served from memory).
 
+After each answer the parallel-analysis thresholds of one item fewer (the likely next drop) are drawn on
+a background thread (memoised in ``stats.dimensionality``), so a drop seldom waits for them.
+
 One analysis goes down the layers only: :meth:`Engine.analyse` gathers the cached inputs and calls
 :func:`server.analysis.run`, which calls the stats; nothing below calls the engine again.
 """
 from __future__ import annotations
 
+import concurrent.futures
 import itertools
 import logging
 import sys
@@ -28,9 +32,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from .analysis import AnalysisAnswer, AnalysisInputs, AnalysisSettings, run
-from .analysis.matrices import FullPool, PoolUnavailable, constant_notes, full_pool
+from .analysis.matrices import AnswerPatterns, FullPool, PoolUnavailable, constant_notes, full_pool
 from .errors import NotFound
 from .stats.descriptives import ItemDescriptives, item_descriptives
+from .stats.dimensionality import has_random_reference, random_reference
 from .stats.errors import InputError
 from .stats.notes import Note
 
@@ -144,6 +149,9 @@ class Engine:
         self._answers: _LRU = _LRU(128, cache_bytes // 4)
         self._references: _LRU = _LRU(64, cache_bytes // 16)
         self._key_locks: dict = {}
+        # parallel-analysis thresholds of the next likely drop, drawn after each answer (_prefetch_next)
+        self._prefetch = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="pa-prefetch")
+        self._prefetch_job: concurrent.futures.Future | None = None
 
     # ------------------------------------------------------------------ datasets
     def dataset(self, dataset_id: str) -> ParsedDataset:
@@ -316,14 +324,44 @@ class Engine:
             dataset_id=dataset_id, name=ds.name, n_rows=ds.n_rows, items=ds.items, responses=ds.responses,
             constant=self.constant_items(dataset_id),
             descriptives=self.descriptives(dataset_id, np.array([n in rev for n in names])), pools=pools,
-            memo=lambda key, make: self._locked((dataset_id, key), self._references, make))
+            memo=lambda key, make: self._locked((dataset_id, key), self._references, make),
+            patterns=self._locked((dataset_id, "patterns"), self._descriptives,  # formed once per dataset
+                                  lambda: AnswerPatterns.of(ds.responses)))
 
     def analyse(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None
                 ) -> AnalysisAnswer:
         """The whole analysis (cached per canonical settings); a mapping is checked by :meth:`settings` first."""
         s = self._settings(dataset_id, settings)
-        return self._locked((dataset_id, s.key()), self._answers,
-                            lambda: run(self.inputs(dataset_id, s), s))
+        answer = self._locked((dataset_id, s.key()), self._answers,
+                              lambda: run(self.inputs(dataset_id, s), s))
+        self._prefetch_next(s, answer)
+        return answer
+
+    def _prefetch_next(self, s: AnalysisSettings, answer: AnalysisAnswer) -> None:
+        """Draw the parallel-analysis thresholds of the likely next drop (one item fewer) in the background.
+
+        They depend only on (n, k, iterations, variant, seed), never on the data. One job at a time on
+        one worker thread; a job not yet started when a newer one arrives is cancelled (stale).
+        """
+        if answer.factors is None or answer.factors.retention is None or s.correlation == "polychoric":
+            return
+        n, k = int(answer.reliability.min_pairwise_n), len(s.items) - 1
+        if k < 3 or n - 1 <= k:
+            return
+        args = {"iterations": s.pa_iterations, "variant": s.pa_variant, "seed": s.seed}
+        if has_random_reference(n, k, **args):
+            return
+        with self._lock:
+            if self._prefetch_job is not None:
+                self._prefetch_job.cancel()  # a no-op once it runs
+            self._prefetch_job = self._prefetch.submit(random_reference, n, k, **args)
+
+    def prefetch_idle(self, timeout: float | None = None) -> None:
+        """Wait until the background threshold job, if any, has finished (for tests and the bench)."""
+        with self._lock:
+            job = self._prefetch_job
+        if job is not None:
+            concurrent.futures.wait([job], timeout=timeout)
 
     def reliability(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None
                     ) -> AnalysisAnswer:

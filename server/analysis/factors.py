@@ -89,17 +89,27 @@ def reference_solution(inputs: AnalysisInputs, settings: AnalysisSettings, n_fac
         check_factor_model(fi.n, len(pool))
         res = factor_analysis(fi.R, n_factors, n=fi.n, names=pool, method=settings.extraction,
                               rotation=settings.rotation, gamma=settings.gamma, constructs=_constructs(inputs, pool),
-                              thresholds=settings.thresholds, seed=settings.seed)
+                              thresholds=settings.thresholds, seed=settings.seed, random_starts=REFERENCE_STARTS)
     except InputError:
         return None
+    return _reference_of(res)
+
+
+REFERENCE_STARTS = 5  # rotation starts of the reference solution (factor_analysis's default)
+
+
+def _reference_of(res: EFAResult) -> dict:
     out = res.to_dict()
     return {"loadings": out["loadings"], "factors": out["factors"]}
 
 
+def _reference_key(settings: AnalysisSettings, n_factors: int) -> tuple:
+    return ("reference", settings.correlation, settings.missing, settings.extraction, settings.rotation,
+            settings.gamma, settings.seed, settings.reverse, n_factors)
+
+
 def _reference(inputs: AnalysisInputs, settings: AnalysisSettings, n_factors: int) -> dict | None:
-    key = ("reference", settings.correlation, settings.missing, settings.extraction, settings.rotation,
-           settings.gamma, settings.seed, settings.reverse, n_factors)
-    return inputs.memo(key, lambda: reference_solution(inputs, settings, n_factors))
+    return inputs.memo(_reference_key(settings, n_factors), lambda: reference_solution(inputs, settings, n_factors))
 
 
 def degenerate_reason(res: EFAResult) -> str | None:
@@ -231,7 +241,8 @@ def _retention(inputs: AnalysisInputs, settings: AnalysisSettings, fi: FactorInp
 
 
 def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Sequence[ItemRow],
-                    uni: float | None = None, *, random_starts: int = 5) -> tuple[FactorSections, list[Note]]:
+                    uni: float | None = None, *, random_starts: int = 5,
+                    start_psi: np.ndarray | None = None) -> tuple[FactorSections, list[Note]]:
     """Correlations, factorability, retention and the rotated solution of the active items.
 
     Returns the sections and the warnings they add to the answer's list (in the order they arose). Data
@@ -239,6 +250,7 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     factor solution empty with a warning saying why; a degenerate rotated solution is withheld
     (``rotation_degenerate``). ``uni`` is the pool's one-factor omega, the omega family's fallback.
     ``random_starts``: starts of an oblimin/geomin rotation (a resample uses 1, the identity start).
+    ``start_psi``: starting uniquenesses of the extraction (a resample starts from the full sample's).
     """
     names = list(settings.items)
     fi = factor_input(inputs, settings, names)
@@ -266,7 +278,12 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
         result = factor_analysis(fi.R, m, n=fi.n, names=names, method=settings.extraction, rotation=settings.rotation,
                                  gamma=settings.gamma, constructs=_constructs(inputs, names), previous=previous,
                                  thresholds=settings.thresholds, item_rest_r=[r.item_rest_r for r in rows],
-                                 reverse=[r.reverse for r in rows], seed=settings.seed, random_starts=random_starts)
+                                 reverse=[r.reverse for r in rows], seed=settings.seed, random_starts=random_starts,
+                                 start_psi=start_psi)
+        if names == list(inputs.pool_items) and fi.pool_used and random_starts == REFERENCE_STARTS:
+            # the whole pool's own solution is the reference the drops line up with: keep it, not refit it
+            ref = _reference_of(result)
+            inputs.memo(_reference_key(settings, m), lambda: ref)
         efa_warnings = list(result.warnings)
         why = degenerate_reason(result)
         if why is not None:

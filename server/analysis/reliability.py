@@ -41,10 +41,10 @@ def scale_covariance(inputs: AnalysisInputs, settings: AnalysisSettings) -> Scal
     names = list(settings.items)
     idx = inputs.columns(names)
     sign = inputs.signs(names, settings.reverse)
-    X = inputs.responses[:, idx]
-    complete = ~np.isnan(X).any(axis=1)
     notes: list[Note] = []
     if settings.missing == "listwise":
+        X = inputs.responses[:, idx]
+        complete = ~np.isnan(X).any(axis=1)
         cov, n_pair, n_complete = listwise_covariance(inputs.responses, idx, names)
         n = n_complete
         if n_complete < len(names) + 1:
@@ -61,8 +61,7 @@ def scale_covariance(inputs: AnalysisInputs, settings: AnalysisSettings) -> Scal
         cov, n_pair = mats.cov, mats.n_pair
         if mats.note is not None:
             notes.append(mats.note)
-        n = int((~np.isnan(X).all(axis=1)).sum())
-        n_complete = int(complete.sum())
+        n, n_complete = inputs.answered(idx)  # from the cached answer patterns: no pass over the responses
         desc = {d.name: d for d in inputs.descriptives}
         means = np.array([np.nan if desc[n_].mean is None else desc[n_].mean for n_ in names], dtype=float)
     return ScaleCovariance(cov=cov * np.outer(sign, sign), n_pair=n_pair, n=n, n_complete=n_complete, means=means,
@@ -175,7 +174,7 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
     """
     names = list(settings.items)
     by_construct = _by_construct(inputs, names) if groups is None else {g: list(js) for g, js in groups.items()}
-    X = inputs.responses[:, inputs.columns(names)]
+    idx = inputs.columns(names)
     out = {}
     for c, js in by_construct.items():
         items = tuple(names[j] for j in js)
@@ -189,8 +188,7 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
         if settings.missing == "listwise":
             n_c = n_cc = sc.n_complete
         else:
-            Xc = X[:, js]
-            n_c, n_cc = int((~np.isnan(Xc).all(axis=1)).sum()), int((~np.isnan(Xc).any(axis=1)).sum())
+            n_c, n_cc = inputs.answered(idx[js])
         S = sc.cov[sub]
         rel = reliability_from_cov(S, n=n_c, n_complete=n_cc, means=sc.means[js],
                                    min_pair_n=min_pair_n(sc.n_pair[sub]), names=list(items), missing=settings.missing)

@@ -5,6 +5,7 @@ needs the raw responses, so the engine can work from its cached full-pool matrix
 """
 from __future__ import annotations
 
+import threading
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -21,6 +22,7 @@ __all__ = [
     "ParallelResult",
     "bartlett_sphericity",
     "factorability_summary",
+    "has_random_reference",
     "kaiser_count",
     "kmo",
     "parallel_analysis",
@@ -304,23 +306,52 @@ def random_correlation_eigenvalues(n: int, k: int, *, iterations: int = 500, var
 
 _REFERENCE_CACHE: dict = {}
 _REFERENCE_CACHE_SIZE = 64
+_REFERENCE_LOCK = threading.Lock()
+_REFERENCE_INFLIGHT: dict = {}
+
+
+def _remember(key, threshold, mean) -> None:
+    with _REFERENCE_LOCK:
+        while len(_REFERENCE_CACHE) >= _REFERENCE_CACHE_SIZE:
+            _REFERENCE_CACHE.pop(next(iter(_REFERENCE_CACHE)))
+        _REFERENCE_CACHE[key] = (threshold, mean)
 
 
 def _random_reference(n, k, iterations, variant, seed, percentile):
-    """Percentile and mean of the random eigenvalues; memoised for integer seeds (same draws)."""
+    """Percentile and mean of the random eigenvalues; memoised for integer seeds (same draws).
+
+    Thread-safe: a key being drawn in another thread (e.g. a background prefetch) is waited for, not
+    drawn twice.
+    """
     key = (n, k, iterations, variant, seed, percentile)
     seeded = isinstance(seed, (int, np.integer)) and not isinstance(seed, bool)
-    if seeded and key in _REFERENCE_CACHE:
-        threshold, mean = _REFERENCE_CACHE[key]
-        return threshold.copy(), mean.copy()
-    rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
-    threshold = np.percentile(rand, percentile, axis=0)
-    mean = rand.mean(axis=0)
-    if seeded:
-        if len(_REFERENCE_CACHE) >= _REFERENCE_CACHE_SIZE:
-            _REFERENCE_CACHE.pop(next(iter(_REFERENCE_CACHE)))
-        _REFERENCE_CACHE[key] = (threshold.copy(), mean.copy())
-    return threshold, mean
+    if not seeded:
+        rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
+        return np.percentile(rand, percentile, axis=0), rand.mean(axis=0)
+    with _REFERENCE_LOCK:
+        hit = _REFERENCE_CACHE.get(key)
+        lock = None if hit is not None else _REFERENCE_INFLIGHT.setdefault(key, threading.Lock())
+    if lock is not None:
+        with lock:  # one drawing per key; a second caller waits for it
+            with _REFERENCE_LOCK:
+                hit = _REFERENCE_CACHE.get(key)
+            if hit is None:
+                try:
+                    rand = random_correlation_eigenvalues(n, k, iterations=iterations, variant=variant, seed=seed)
+                    hit = (np.percentile(rand, percentile, axis=0), rand.mean(axis=0))
+                    _remember(key, *hit)
+                finally:
+                    with _REFERENCE_LOCK:
+                        _REFERENCE_INFLIGHT.pop(key, None)
+    threshold, mean = hit  # type: ignore[misc]  # set by the drawing above or by another thread
+    return threshold.copy(), mean.copy()
+
+
+def has_random_reference(n: int, k: int, *, iterations: int = 500, variant: str = "components", seed: int = 0,
+                         percentile: float = 95) -> bool:
+    """Whether :func:`random_reference` of these arguments is memoised (answered without drawing)."""
+    with _REFERENCE_LOCK:
+        return (int(n), int(k), int(iterations), variant, seed, float(percentile)) in _REFERENCE_CACHE
 
 
 def random_reference(n: int, k: int, *, iterations: int = 500, variant: str = "components", seed: int = 0,
@@ -336,10 +367,8 @@ def install_random_reference(n: int, k: int, *, iterations: int, variant: str, s
     They depend only on (n, k, iterations, variant, seed, percentile), never on the data: a resampling run
     computes them once and hands them to each worker process.
     """
-    if len(_REFERENCE_CACHE) >= _REFERENCE_CACHE_SIZE:
-        _REFERENCE_CACHE.pop(next(iter(_REFERENCE_CACHE)))
-    _REFERENCE_CACHE[(int(n), int(k), int(iterations), variant, seed, float(percentile))] = (
-        np.array(threshold, dtype=float), np.array(mean, dtype=float))
+    _remember((int(n), int(k), int(iterations), variant, seed, float(percentile)),
+              np.array(threshold, dtype=float), np.array(mean, dtype=float))
 
 
 def parallel_analysis(n: int, k: int, *, observed_eigenvalues: ArrayLike | None = None,
