@@ -36,6 +36,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="memory for parsed datasets kept between requests, in MB (default 2048)")
     s.add_argument("--max-import-mb", type=float, default=2048.0,
                    help="largest workspace backup the dashboard imports, in MB (default 2048)")
+    s.add_argument("--run-workers", type=int, default=None,
+                   help="worker processes of each resampling run (default: one per core but one, at least one)")
     b = sub.add_parser("backup", help="write the whole data folder into one zip (safe while a server runs)")
     b.add_argument("--data-dir", type=Path, default=Path("data"), help="the data folder (default ./data)")
     b.add_argument("--out", type=Path, required=True, help="the zip file to write")
@@ -97,7 +99,7 @@ def main(argv: list[str] | None = None) -> int:
                             max_upload_mb=args.max_upload_mb, token=args.token,
                             allowed_hosts=args.allowed_hosts, max_items=args.max_items,
                             max_xlsx_cells=args.max_xlsx_cells, max_unpacked_mb=args.max_unpacked_mb,
-                            cache_mb=args.cache_mb, max_import_mb=args.max_import_mb)
+                            cache_mb=args.cache_mb, max_import_mb=args.max_import_mb, run_workers=args.run_workers)
         from .store import StartupError, StorageError, lock_data_dir, sweep_upload_leftovers
 
         lock = None

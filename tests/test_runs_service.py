@@ -86,3 +86,10 @@ def test_shutdown_cancels_active_runs(service):
 def test_default_workers_leaves_a_core():
     import os
     assert default_workers() == max(1, (os.cpu_count() or 2) - 1)
+
+
+def test_serve_takes_the_number_of_run_workers():
+    from server.__main__ import build_parser
+
+    assert build_parser().parse_args(["serve", "--run-workers", "3"]).run_workers == 3
+    assert build_parser().parse_args(["serve"]).run_workers is None  # one per core but one

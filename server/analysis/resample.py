@@ -7,9 +7,11 @@ factors and loadings (the alignment target), the subscales, and parallel analysi
 (they depend on n, k and the seed only). :func:`resample_values` computes one resample with the same
 section functions as :func:`server.analysis.pipeline.run`, leaving out what the summary does not read
 (the descriptives' display fields are kept, the item table's alpha/omega-if-deleted and the pruning
-path's omegas are skipped) and with the number of factors fixed to the full sample's (parallel analysis
-and MAP are still computed per resample for their distribution). :func:`summarize` turns the values into
-rates and intervals.
+path's omegas are skipped, alpha and omega come from :func:`alpha_omega`, the scale's one-factor omega only
+where it is the answer) and with the number of factors fixed to the full sample's (parallel analysis and MAP
+are still computed per resample for their distribution). The extraction and the subscales' one-factor fits
+start from the full sample's solution (the same optimum, fewer iterations). :func:`summarize` turns the
+values into rates and intervals.
 
 References
 ----------
@@ -22,7 +24,7 @@ from __future__ import annotations
 import math
 from collections import Counter
 from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
@@ -31,13 +33,13 @@ from ..stats.descriptives import ItemDescriptives
 from ..stats.dimensionality import install_random_reference, random_reference
 from ..stats.errors import InputError
 from ..stats.items import item_rest_correlations, pruning_path
-from ..stats.reliability import reliability_from_cov
+from ..stats.reliability import alpha_omega
 from ..stats.resampling import Interval, align_factors, bca_interval, percentile_interval
 from .answer import AnalysisAnswer, ItemRow
 from .factors import factor_sections
 from .inputs import AnalysisInputs
-from .matrices import FullPool, constant_notes
-from .reliability import scale_covariance, scale_reliability
+from .matrices import AnswerPatterns, FullPool, constant_notes
+from .reliability import scale_covariance
 from .settings import AnalysisSettings
 
 __all__ = ["ResamplePlan", "install_plan", "jackknife_alpha", "make_plan", "resample_values", "summarize"]
@@ -64,6 +66,10 @@ class ResamplePlan:
     groups: Mapping[str, tuple[str, ...]]  # subscale -> items (the full sample's subscales)
     pa: Mapping[str, Any] | None     # the parallel-analysis reference key and values (random normal data)
     min_items: int
+    # warm starts (the optimum is the same, reached in fewer iterations): the full sample's uniquenesses of
+    # the extraction, and its one-factor loadings of the scale ("") and of each subscale
+    psi: np.ndarray | None = None
+    one_factor: Mapping[str, tuple[float, ...]] = field(default_factory=dict)
 
 
 def make_plan(inputs: AnalysisInputs, settings: AnalysisSettings, answer: AnalysisAnswer) -> ResamplePlan:
@@ -86,10 +92,13 @@ def make_plan(inputs: AnalysisInputs, settings: AnalysisSettings, answer: Analys
         thr, mean = random_reference(n, k, iterations=settings.pa_iterations, variant=settings.pa_variant,
                                      seed=settings.seed, percentile=95.0)
         pa = {**key, "threshold": thr, "mean": mean}
+    one_factor = {g: tuple(b.result.loadings) for g, b in answer.constructs.items() if b.result is not None}
+    one_factor[""] = tuple(answer.reliability.result.loadings)
     return ResamplePlan(responses=np.ascontiguousarray(X), items=tuple(meta[n] for n in names), names=names,
                         request=request, n_factors=m, factor_labels=tuple(efa.factors) if efa is not None else (),
                         reference=None if efa is None else np.asarray(efa.pattern, dtype=float), groups=groups,
-                        pa=pa, min_items=min(3, len(names)))
+                        pa=pa, min_items=min(3, len(names)),
+                        psi=None if efa is None else np.asarray(efa.uniquenesses, dtype=float), one_factor=one_factor)
 
 
 def install_plan(plan: ResamplePlan) -> None:
@@ -117,20 +126,23 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
     out: dict[str, Any] = {"alpha": None, "omega_total": None, "omega_hierarchical": None, "subscales": {},
                            "loadings": None, "primary": [-1] * k, "flags": {}, "early": [], "pa": None,
                            "map": None, "error": None}
-    inputs = _inputs(plan, X)
+    inputs = _inputs(plan, X, rows_idx)
     try:
         settings = AnalysisSettings.build({**plan.request, "items": list(plan.names), "n_factors": m},
                                           names=list(plan.names), constant=list(inputs.constant))
         sc = scale_covariance(inputs, settings)
-        rel = scale_reliability(sc, settings)
+        # alpha and omega as scale_reliability's reliability_from_cov gives them (nothing else of it is read);
+        # the one-factor omega only where it is the answer (no factor model, one factor), else only if the
+        # omega family falls back on it (below)
+        uni_wanted = m is None or m < 2
+        out["alpha"], out["omega_total"] = alpha_omega(sc.cov, n=sc.n, names=list(settings.items),
+                                                       start=plan.one_factor.get(""), omega=uni_wanted)
     except InputError as exc:
         out["error"] = exc.message
+        out["alpha"] = out["omega_total"] = None
         return out
     names = list(settings.items)
-    out["alpha"] = _num(rel.result.alpha)
-    out["omega_total"] = _num(rel.result.omega_total)
-    steps = pruning_path(sc.cov, names=names, min_items=min(3, len(names)), start=rel.result.loadings,
-                         with_omega=False)
+    steps = pruning_path(sc.cov, names=names, min_items=min(3, len(names)), with_omega=False)
     removed = [s["removed"] for s in steps[1:]]
     quarter = math.ceil((k - plan.min_items) / 4) if k > plan.min_items else 0
     out["early"] = removed[:quarter]
@@ -142,9 +154,8 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
             continue
         sub = sc.cov[np.ix_(js, js)]
         try:
-            r = reliability_from_cov(sub, n=sc.n, n_complete=sc.n_complete, means=sc.means[js],
-                                     names=[names[j] for j in js], missing=settings.missing)
-            out["subscales"][g] = {"alpha": _num(r.alpha), "omega": _num(r.omega_total)}
+            a, o = alpha_omega(sub, n=sc.n, names=[names[j] for j in js], start=plan.one_factor.get(g))
+            out["subscales"][g] = {"alpha": a, "omega": o}
         except InputError:
             out["subscales"][g] = {"alpha": None, "omega": None}
     if m is None:
@@ -158,13 +169,19 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
                          stats={"item_rest_r": _num(r_rest[j])}) for j, n in enumerate(names))
     # One rotation start (the identity) instead of the full sample's five: the resample is lined up with the
     # full-sample solution anyway, and tests/analysis/test_resample.py checks it reaches the pipeline's solution.
-    factors, _ = factor_sections(inputs, settings, rows, rel.result.omega_total, random_starts=RESAMPLE_STARTS)
+    psi = plan.psi if plan.psi is not None and len(names) == k else None  # the same items: warm start
+    factors, _ = factor_sections(inputs, settings, rows, out["omega_total"], random_starts=RESAMPLE_STARTS,
+                                 start_psi=psi)
     if factors.retention is not None:
         out["pa"] = int(factors.retention["parallel"]["n_factors"])
         out["map"] = int(factors.retention["map"]["n_factors"])
     if factors.omega is not None:
         out["omega_total"] = _num(factors.omega.omega_total)
         out["omega_hierarchical"] = _num(factors.omega.omega_hierarchical)
+        if factors.omega.basis != "schmid_leiman" and not uni_wanted:  # the fallback: the one-factor omega
+            uni = alpha_omega(sc.cov, n=sc.n, names=names, start=plan.one_factor.get(""))[1]
+            out["omega_total"] = uni
+            out["omega_hierarchical"] = uni if factors.omega.basis == "one_factor" else None
     flags: dict[str, list[str]] = {}
     for f in factors.efa.flags:
         flags.setdefault(f["item"], []).append(f["kind"])
@@ -183,10 +200,30 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
     return out
 
 
-def _inputs(plan: ResamplePlan, X: np.ndarray) -> AnalysisInputs:
-    """The analysis inputs of one resample. Complete answers with Pearson correlations take a shortcut: the
-    pairwise pool of complete data is the ordinary covariance matrix (one product instead of the pairwise
-    moments, computed twice); otherwise :meth:`AnalysisInputs.from_responses` as the pipeline would."""
+_SHARES: list[Any] = [None, None]  # [plan, (floor, ceiling) indicators of its reverse-scored answers]
+
+
+def _share_indicators(plan: ResamplePlan) -> tuple[np.ndarray, np.ndarray]:
+    """Floor and ceiling indicators (n x k, 0/1) of the plan's reverse-scored answers, formed once per plan."""
+    if _SHARES[0] is not plan:
+        X = plan.responses
+        rev = set(plan.request.get("reverse", ()))
+        lo = np.array([it.min for it in plan.items], dtype=float)
+        hi = np.array([it.max for it in plan.items], dtype=float)
+        flip = np.array([nm in rev for nm in plan.names])
+        scored = X.copy()
+        scored[:, flip] = (lo + hi)[flip] - scored[:, flip]
+        _SHARES[:] = [plan, ((scored == lo).astype(float), (scored == hi).astype(float))]
+    return _SHARES[1]
+
+
+def _inputs(plan: ResamplePlan, X: np.ndarray, rows_idx: np.ndarray | None = None) -> AnalysisInputs:
+    """The analysis inputs of one resample (``X``: the answers of the respondents ``rows_idx``). Complete
+    answers with Pearson correlations take a shortcut: the pairwise pool of complete data is the ordinary
+    covariance matrix (one product instead of the pairwise moments, computed twice), the floor and ceiling
+    shares are counts weighted by how often each respondent was drawn (exact integer sums), and every
+    respondent answered every item (one answer pattern); otherwise :meth:`AnalysisInputs.from_responses` as
+    the pipeline would."""
     req = plan.request
     complete = req.get("correlation") == "pearson" and req.get("missing") == "pairwise" and not np.isnan(X).any()
     if not complete:
@@ -200,7 +237,10 @@ def _inputs(plan: ResamplePlan, X: np.ndarray) -> AnalysisInputs:
     n, k = X.shape
     cov = np.full((k, k), np.nan)
     corr = np.full((k, k), np.nan)
-    c = np.cov(X[:, ok], rowvar=False, ddof=1)
+    Xo = X if ok.all() else X[:, ok]  # no copy without constant items
+    mu = Xo.mean(axis=0)
+    Xc = Xo - mu
+    c = Xc.T @ Xc / (n - 1)  # np.cov(Xo, rowvar=False), without its copies
     d = np.sqrt(np.diag(c))
     cov[np.ix_(ok, ok)] = c
     r = c / np.outer(d, d)
@@ -213,15 +253,23 @@ def _inputs(plan: ResamplePlan, X: np.ndarray) -> AnalysisInputs:
     lo = np.array([it.min for it in plan.items], dtype=float)
     hi = np.array([it.max for it in plan.items], dtype=float)
     flip = np.array([nm in rev for nm in names])
-    scored = X.copy()
-    scored[:, flip] = (lo + hi)[flip] - scored[:, flip]
     # only the mean (scale_covariance) and the floor/ceiling shares (flags) are read: the rest is left None
-    mean, floor, ceiling = scored.mean(axis=0), (scored == lo).mean(axis=0), (scored == hi).mean(axis=0)
+    mean = np.empty(k)
+    mean[ok] = mu
+    if not ok.all():
+        mean[~ok] = X[:, ~ok].mean(axis=0)
+    if flip.any():  # reverse-scored means
+        mean[flip] = ((lo + hi)[flip] - X[:, flip]).mean(axis=0)
+    is_lo, is_hi = _share_indicators(plan)
+    draws = (np.ones(n) if rows_idx is None else
+             np.bincount(rows_idx, minlength=plan.responses.shape[0]).astype(float))
+    floor, ceiling = (draws @ is_lo) / n, (draws @ is_hi) / n
     desc = [ItemDescriptives(name=nm, n=n, n_missing=0, mean=float(mean[j]), sd=None, skew=None, kurtosis=None,
                              min=float(lo[j]), max=float(hi[j]), floor=float(floor[j]), ceiling=float(ceiling[j]))
             for j, nm in enumerate(names)]
+    one = AnswerPatterns(np.packbits(np.ones(k, dtype=bool))[None, :], np.array([n], dtype=np.int64), k)
     return AnalysisInputs(dataset_id="resample", name="resample", n_rows=n, items=plan.items, responses=X,
-                          constant=constant, descriptives=desc, pools={"pearson": pool})
+                          constant=constant, descriptives=desc, pools={"pearson": pool}, patterns=one)
 
 
 def jackknife_alpha(X: np.ndarray) -> np.ndarray:

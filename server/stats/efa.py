@@ -268,7 +268,8 @@ def _ml_discrepancy(R: np.ndarray, L: np.ndarray, psi: np.ndarray) -> float:
 # --------------------------------------------------------------------------- extraction
 
 def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | None = None,
-            max_iter: int = 1000, tol: float | None = None, names: Sequence[str] | None = None) -> Extraction:
+            max_iter: int = 1000, tol: float | None = None, names: Sequence[str] | None = None,
+            start_psi: ArrayLike | None = None) -> Extraction:
     """Extract ``n_factors`` unrotated factors from a correlation matrix.
 
     Parameters
@@ -287,6 +288,9 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
         between principal-axis iterations (paf; default 1e-6).
     names : sequence of str, optional
         Item names, used in warnings.
+    start_psi : array_like, shape (k,), optional
+        Starting uniquenesses of minres and ML (warm start, e.g. a solution of similar data); default
+        ``1 - SMC``. The optimum is the same; ignored by paf and when not k finite values.
 
     Returns
     -------
@@ -337,10 +341,12 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
         warnings.append(note("ml_not_identified", f"With {k} items, {m} factors leave negative degrees of "
                              f"freedom; the ML solution is not identified. Extract fewer factors."))
 
-    smc = _smc(R)
+    warm = None if start_psi is None else np.asarray(start_psi, dtype=float).reshape(-1)
+    if warm is not None and not (warm.size == k and np.isfinite(warm).all()):
+        warm = None  # uniquenesses of another item set: start from the SMCs
     heywood: list[int] = []
     if method == "paf":
-        h2 = smc.copy()
+        h2 = _smc(R)
         converged = False
         it = 0
         for it in range(1, max_iter + 1):  # noqa: B007  (the count is read after the loop)
@@ -366,7 +372,7 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
             fun, args = _ml_fun, (R, m, float(np.linalg.slogdet(R)[1]))
         else:
             fun, args = _uls_fun, (R, m)
-        start = np.clip(1.0 - smc, PSI_LOWER, 1.0)
+        start = np.clip(1.0 - _smc(R) if warm is None else warm, PSI_LOWER, 1.0)
         res = optimize.minimize(fun, start, args=args, jac=True, method="L-BFGS-B",
                                 bounds=[(PSI_LOWER, 1.0)] * k,
                                 options={"maxiter": max_iter, "ftol": 1e-14,
@@ -634,7 +640,7 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
                     thresholds: Mapping[str, float] | None = None,
                     item_rest_r: Sequence[float | None] | np.ndarray | None = None,
                     reverse: Sequence[bool] | None = None, seed: int = 0, random_starts: int = 5,
-                    max_iter: int = 1000) -> EFAResult:
+                    max_iter: int = 1000, start_psi: ArrayLike | None = None) -> EFAResult:
     """Extract, rotate, order, reflect, label and flag: the whole ``efa`` section of issue 3.
 
     Parameters
@@ -661,6 +667,8 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
         Declared reverse-keyed items.
     seed, random_starts : int
         Random starts of oblimin/geomin (seeded; the identity is always the first start).
+    start_psi : array_like, optional
+        Starting uniquenesses of the extraction (see :func:`extract`).
 
     Returns
     -------
@@ -694,7 +702,7 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
         raise InputError(f"{len(constructs)} constructs were given for {k} items.", code="bad_constructs",
                          details={"constructs": len(constructs), "items": k})
     th = _flags.resolve_thresholds(thresholds)
-    ex = extract(R, n_factors, method=method, n=n, max_iter=max_iter, names=nm)
+    ex = extract(R, n_factors, method=method, n=n, max_iter=max_iter, names=nm, start_psi=start_psi)
     warnings = list(ex.warnings)
     rot = _rotation.rotate(ex.loadings, rotation, gamma=gamma, random_starts=random_starts, seed=seed)
     warnings += rot.warnings

@@ -19,7 +19,8 @@ from server.analysis.inputs import AnalysisInputs
 from server.analysis.pipeline import run
 from server.analysis.resample import install_plan, jackknife_alpha, make_plan, resample_values, summarize
 from server.analysis.settings import AnalysisSettings
-from server.stats.efa import factor_analysis
+from server.stats.efa import extract, factor_analysis
+from server.stats.errors import InputError
 from server.stats.reliability import _alpha, cronbach_alpha
 from server.stats.resampling import align_factors, bootstrap_indices, percentile_interval
 
@@ -206,3 +207,119 @@ def test_one_rotation_start_reaches_the_pipelines_solution_on_the_demo_pool():
         np.testing.assert_allclose(got["loadings"], ref["loadings"], atol=1e-5)
         assert got["omega_hierarchical"] == pytest.approx(ref["omega_hierarchical"], abs=1e-5)
         assert {(i, k) for i, ks in got["flags"].items() for k in ks} == ref["flags"]
+
+
+def _demo():
+    raw = pd.read_csv("demo_data/workshop_responses.csv")
+    book = pd.read_csv("demo_data/workshop_codebook.csv")
+    names = [n for n in book["item"] if n in raw.columns]
+    items = [Item(r.item, r.text, r.construct, 1, 5) for r in book.itertuples() if r.item in names]
+    rev = [r.item for r in book.itertuples() if str(r.reverse).strip().lower() in ("1", "true", "yes", "r")]
+    return raw[names].to_numpy(dtype=float), items, rev
+
+
+def _three_factor_pool(n=600, seed=31):
+    """A simulated 18-item, three-factor pool (# simulated population), q3 and q9 worded the other way."""
+    L = np.zeros((18, 3))
+    for f in range(3):
+        L[6 * f:6 * f + 6, f] = np.linspace(0.45, 0.8, 6)
+    L[4, 1] = 0.3  # a cross-loader
+    X = _population(L, n, seed=seed)
+    X[:, [2, 8]] = 6 - X[:, [2, 8]]
+    items = [Item(f"q{j + 1}", "", "ABC"[j // 6], 1, 5) for j in range(18)]
+    return X, items, ["q3", "q9"]
+
+
+@pytest.mark.parametrize("data", ["demo", "simulated"])
+def test_light_coefficients_and_warm_starts_equal_the_full_computation(data):
+    """The resample's shortcuts against the functions the pipeline calls: alpha_omega (warm-started from the
+    full sample's one-factor loadings) is reliability_from_cov's alpha and omega; the extraction warm-started
+    from the full sample's uniquenesses reaches the default start's solution; the resample inputs' floor and
+    ceiling shares and answered counts are AnalysisInputs.from_responses'."""
+    from server.analysis.factors import factor_input
+    from server.analysis.resample import _inputs
+    from server.stats.reliability import alpha_omega, reliability_from_cov
+
+    X, items, rev = _demo() if data == "demo" else _three_factor_pool()
+    inputs, s, full = _setup(X, items, {"reverse": rev})
+    plan = make_plan(inputs, s, full)
+    assert plan.psi is not None and set(plan.one_factor) == {"", *plan.groups}
+    sign = np.array([-1.0 if n in set(rev) else 1.0 for n in plan.names])
+    for idx in bootstrap_indices(len(X), 3, seed=5):
+        Y = X[idx]
+        C = np.cov(Y, rowvar=False) * np.outer(sign, sign)
+        blocks = [("", list(range(len(plan.names))))] + [
+            (g, [plan.names.index(n) for n in m]) for g, m in plan.groups.items()]
+        for g, js in blocks:
+            sub = C[np.ix_(js, js)]
+            ref = reliability_from_cov(sub, n=len(Y), n_complete=len(Y))
+            a, o = alpha_omega(sub, n=len(Y), start=plan.one_factor.get(g))
+            assert a == ref.alpha  # the same arithmetic
+            assert o == pytest.approx(ref.omega_total, abs=1e-9)
+            assert alpha_omega(sub, n=len(Y)) == (ref.alpha, ref.omega_total)  # cold: bit for bit
+        ref_in = AnalysisInputs.from_responses(Y, items, rev)
+        got_in = _inputs(plan, Y, idx)
+        for d_got, d_ref in zip(got_in.descriptives, ref_in.descriptives):
+            assert (d_got.name, d_got.floor, d_got.ceiling) == (d_ref.name, d_ref.floor, d_ref.ceiling)
+            assert d_got.mean == pytest.approx(d_ref.mean, abs=1e-12)
+        cols = got_in.columns(plan.names[:5])
+        assert got_in.answered(cols) == ref_in.answered(cols) == (len(Y), len(Y))
+        R = factor_input(ref_in, s, list(plan.names)).R
+        cold, warm = extract(R, plan.n_factors), extract(R, plan.n_factors, start_psi=plan.psi)
+        np.testing.assert_allclose(warm.loadings, cold.loadings, atol=1e-6)
+        np.testing.assert_allclose(warm.uniquenesses, cold.uniquenesses, atol=1e-6)
+    with pytest.raises(InputError):
+        alpha_omega(np.eye(3), n=1)
+    assert alpha_omega(np.array([[1.0, 0.5], [0.5, 1.0]]), n=10)[1] is None  # omega needs 3 items
+
+
+def test_extract_start_psi_default_and_bad_starts_change_nothing():
+    X, items, rev = _three_factor_pool(300, seed=3)
+    R = np.corrcoef(X, rowvar=False)
+    base = extract(R, 3)
+    for start in (None, np.full(5, 0.5), np.full(18, np.nan)):  # no start, another item set, not finite
+        other = extract(R, 3, start_psi=start)
+        assert np.array_equal(other.loadings, base.loadings) and other.iterations == base.iterations
+    paf = extract(R, 3, method="paf", start_psi=np.full(18, 0.5))  # principal axes ignore it
+    assert np.array_equal(paf.loadings, extract(R, 3, method="paf").loadings)
+    ml = extract(R, 3, method="ml", start_psi=base.uniquenesses)  # ML: the same optimum from another start
+    np.testing.assert_allclose(ml.loadings, extract(R, 3, method="ml").loadings, atol=1e-6)
+
+
+def test_one_factor_omega_where_it_is_the_answer(monkeypatch):
+    """The scale's one-factor omega is fitted only where the answer shows it: with one factor (omega total =
+    omega hierarchical = it, as the pipeline), and when the omega family falls back on it (forced here)."""
+    import server.analysis.factors as factors_mod
+    from server.stats.reliability import reliability_from_cov
+
+    lam = np.array([0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.6, 0.5])
+    X = _population(lam[:, None], 400, seed=8)
+    items = [Item(f"q{j + 1}", "", None, 1, 5) for j in range(8)]
+    inputs, s, full = _setup(X, items, {})
+    plan = make_plan(inputs, s, full)
+    install_plan(plan)
+    assert plan.n_factors == 1
+    idx = bootstrap_indices(400, 2, seed=1)
+    for i in idx:
+        got = resample_values(plan, i)
+        _, _, a = _setup(X[i], items, {"n_factors": 1})
+        assert got["omega_total"] == pytest.approx(a.factors.omega.omega_total, abs=1e-9)
+        assert got["omega_hierarchical"] == pytest.approx(a.factors.omega.omega_hierarchical, abs=1e-9)
+    X2, items2, rev2 = _three_factor_pool(400, seed=9)
+    inputs2, s2, full2 = _setup(X2, items2, {"reverse": rev2})
+    plan2 = make_plan(inputs2, s2, full2)
+    install_plan(plan2)
+    assert plan2.n_factors == 3
+    real = factors_mod.omega_family
+
+    def fallback(fi, settings, inputs, names, result, m, uni, **kw):
+        fam, notes = real(fi, settings, inputs, names, None, None, uni, **kw)  # "no factor model": uni
+        assert fam.basis == "unavailable"
+        return fam, notes
+
+    monkeypatch.setattr(factors_mod, "omega_family", fallback)
+    got = resample_values(plan2, idx[0])
+    sign = np.array([-1.0 if n in set(rev2) else 1.0 for n in plan2.names])
+    ref = reliability_from_cov(np.cov(X2[idx[0]], rowvar=False) * np.outer(sign, sign), n=400, n_complete=400)
+    assert got["omega_total"] == pytest.approx(ref.omega_total, abs=1e-9)
+    assert got["omega_hierarchical"] is None
