@@ -569,6 +569,52 @@ def parallel_analysis_polychoric(X: ArrayLike, *, R: ArrayLike | None = None, it
 # ----------------------------------------------------------------------------------------------
 # MAP
 
+_MAP_BLOCK = 2_000_000  # numbers in one stack of partial covariances (MAP)
+
+
+def _map_values(A: np.ndarray, load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """MAP's mean squared and fourth-power off-diagonal partial correlations for m = 0..k-1 components.
+
+    Many m at once: within a block of m the partial covariances ``A - A_m A_m'`` are a cumulative sum of the
+    components' outer products (blocks keep the stack near 2 million numbers). From the first m with a
+    partial variance <= 1e-12 on, the values are NaN.
+    """
+    k = A.shape[0]
+    denom = k * (k - 1)
+    values = np.full(k, np.nan)
+    values4 = np.full(k, np.nan)
+    off = ~np.eye(k, dtype=bool)
+    values[0] = np.sum(np.where(off, A, 0.0) ** 2) / denom  # m = 0: R itself
+    values4[0] = np.sum(np.where(off, A, 0.0) ** 4) / denom
+    idx = np.arange(k)
+    step = max(1, _MAP_BLOCK // (k * k))
+    for m0 in range(1, k, step):
+        m1 = min(k, m0 + step)
+        # C[j] = A - load[:, :m0 + j] load[:, :m0 + j]'  (m = m0 + j)
+        comps = load[:, m0 - 1:m1 - 1].T
+        C = comps[:, :, None] * comps[:, None, :]
+        if m0 > 1:
+            C[0] += load[:, :m0 - 1] @ load[:, :m0 - 1].T
+        for j in range(1, m1 - m0):  # the cumulative sum (np.cumsum along the first axis is slower)
+            C[j] += C[j - 1]
+        np.subtract(A, C, out=C)
+        d = np.diagonal(C, axis1=1, axis2=2).copy()
+        bad = np.flatnonzero(np.any(d <= 1e-12, axis=1))
+        stop = int(bad[0]) if bad.size else m1 - m0
+        s = 1.0 / np.sqrt(d[:stop])
+        P = C[:stop]
+        P *= s[:, :, None]
+        P *= s[:, None, :]
+        P *= P
+        P[:, idx, idx] = 0.0
+        values[m0:m0 + stop] = P.sum(axis=(1, 2)) / denom
+        P *= P
+        values4[m0:m0 + stop] = P.sum(axis=(1, 2)) / denom
+        if bad.size:
+            break
+    return values, values4
+
+
 def velicer_map(R: ArrayLike) -> MAPResult:
     """Velicer's minimum average partial (MAP) test, squared and fourth-power versions.
 
@@ -599,29 +645,11 @@ def velicer_map(R: ArrayLike) -> MAPResult:
     Computers, 32(3), 396-402.
     """
     A = _corr(R)
-    k = A.shape[0]
     w, V = np.linalg.eigh(A)
     order = np.argsort(w)[::-1]
     w, V = w[order], V[:, order]
     load = V * np.sqrt(np.maximum(w, 0.0))
-    off = ~np.eye(k, dtype=bool)
-    denom = k * (k - 1)
-    values = np.empty(k)
-    values4 = np.empty(k)
-    values[0] = np.sum(np.where(off, A, 0.0) ** 2) / denom
-    values4[0] = np.sum(np.where(off, A, 0.0) ** 4) / denom
-    for m in range(1, k):
-        C = A - load[:, :m] @ load[:, :m].T
-        d = np.diag(C)
-        if np.any(d <= 1e-12):
-            values[m:] = np.nan
-            values4[m:] = np.nan
-            break
-        s = 1.0 / np.sqrt(d)
-        P = C * s[:, None] * s[None, :]
-        P2 = np.where(off, P * P, 0.0)
-        values[m] = P2.sum() / denom
-        values4[m] = np.sum(P2 * P2) / denom
+    values, values4 = _map_values(A, load)
     return MAPResult(n_factors=int(np.nanargmin(values)), values=values, values4=values4,
                      n_factors4=int(np.nanargmin(values4)))
 

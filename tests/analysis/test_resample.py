@@ -323,3 +323,30 @@ def test_one_factor_omega_where_it_is_the_answer(monkeypatch):
     ref = reliability_from_cov(np.cov(X2[idx[0]], rowvar=False) * np.outer(sign, sign), n=400, n_complete=400)
     assert got["omega_total"] == pytest.approx(ref.omega_total, abs=1e-9)
     assert got["omega_hierarchical"] is None
+
+
+def _four_factor_pool(n=800, seed=41):
+    """A simulated 20-item, four-factor pool (# simulated population), q2 worded the other way."""
+    L = np.zeros((20, 4))
+    for f in range(4):
+        L[5 * f:5 * f + 5, f] = np.linspace(0.5, 0.8, 5)
+    X = _population(L, n, seed=seed)
+    X[:, 1] = 6 - X[:, 1]
+    items = [Item(f"q{j + 1}", "", "ABCD"[j // 5], 1, 5) for j in range(20)]
+    return X, items, ["q2"]
+
+
+@pytest.mark.parametrize("data", ["demo", "three", "four"])
+def test_resample_omega_h_equals_the_pipelines_with_three_and_four_factors(data):
+    """With three and four factors (a Schmid-Leiman second-order fit) a resample gets the pipeline's omega
+    hierarchical and omega total on the same resampled data."""
+    X, items, rev = {"demo": _demo, "three": _three_factor_pool, "four": _four_factor_pool}[data]()
+    inputs, s, full = _setup(X, items, {"reverse": rev})
+    plan = make_plan(inputs, s, full)
+    install_plan(plan)
+    assert plan.n_factors == {"demo": 3, "three": 3, "four": 4}[data]
+    for idx in bootstrap_indices(len(X), 2, seed=13):
+        got = resample_values(plan, idx)
+        ref = _pipeline_values(plan, X[idx], items, {"reverse": rev}, plan.n_factors)
+        assert got["omega_hierarchical"] == pytest.approx(ref["omega_hierarchical"], abs=1e-6)
+        assert got["omega_total"] == pytest.approx(ref["omega_total"], abs=1e-6)

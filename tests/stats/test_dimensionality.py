@@ -230,6 +230,80 @@ def test_map_partial_correlations_match_regression_residuals():
     assert res.values[m] == pytest.approx(np.mean(P[~np.eye(12, dtype=bool)] ** 2))
 
 
+def _map_reference(R):
+    """The loop velicer_map used before it computed all m at once (kept here as the reference)."""
+    A = np.asarray(R, dtype=float)
+    k = A.shape[0]
+    w, V = np.linalg.eigh(A)
+    order = np.argsort(w)[::-1]
+    w, V = w[order], V[:, order]
+    load = V * np.sqrt(np.maximum(w, 0.0))
+    off = ~np.eye(k, dtype=bool)
+    denom = k * (k - 1)
+    values, values4 = np.empty(k), np.empty(k)
+    values[0] = np.sum(np.where(off, A, 0.0) ** 2) / denom
+    values4[0] = np.sum(np.where(off, A, 0.0) ** 4) / denom
+    for m in range(1, k):
+        C = A - load[:, :m] @ load[:, :m].T
+        d = np.diag(C)
+        if np.any(d <= 1e-12):
+            values[m:] = np.nan
+            values4[m:] = np.nan
+            break
+        s = 1.0 / np.sqrt(d)
+        P = C * s[:, None] * s[None, :]
+        P2 = np.where(off, P * P, 0.0)
+        values[m] = P2.sum() / denom
+        values4[m] = np.sum(P2 * P2) / denom
+    return values, values4
+
+
+def _random_corr(k, seed):
+    rng = np.random.default_rng(seed)
+    m = max(1, k // 8)
+    L = rng.uniform(0.2, 0.8, (k, m)) * (rng.random((k, m)) < 0.5)
+    X = rng.standard_normal((max(3 * k, 200), m)) @ L.T + rng.standard_normal((max(3 * k, 200), k))
+    return np.corrcoef(X, rowvar=False)
+
+
+def _demo_R():
+    import pandas as pd
+    raw = pd.read_csv("demo_data/workshop_responses.csv")
+    book = pd.read_csv("demo_data/workshop_codebook.csv")
+    names = [n for n in book["item"] if n in raw.columns]
+    return np.corrcoef(raw[names].to_numpy(dtype=float), rowvar=False)
+
+
+@pytest.mark.parametrize("case", ["hs", "demo", *[f"random{k}" for k in (5, 6, 9, 17, 30, 60, 80)]])
+def test_map_all_m_at_once_equals_the_loop(case, hs_R, monkeypatch):
+    R = hs_R if case == "hs" else _demo_R() if case == "demo" else _random_corr(int(case[6:]), int(case[6:]))
+    ref, ref4 = _map_reference(R)
+    import server.stats.dimensionality as dim
+    res = velicer_map(R)
+    monkeypatch.setattr(dim, "_MAP_BLOCK", 7 * R.shape[0] ** 2)  # the same in blocks of seven m
+    small = velicer_map(R)
+    for got in (res, small):
+        # m < k - 1 to 1e-12; at m = k - 1 the partial correlations of the rank-one rest are exactly +-1 (both
+        # values are 1) and both ways of summing leave a rounding error of 1e-11 to 1e-9 there
+        np.testing.assert_allclose(got.values[:-1], ref[:-1], rtol=0, atol=1e-12)
+        np.testing.assert_allclose(got.values4[:-1], ref4[:-1], rtol=0, atol=1e-12)
+        np.testing.assert_allclose([got.values[-1], ref[-1]], 1.0, rtol=0, atol=1e-8)
+        np.testing.assert_allclose([got.values4[-1], ref4[-1]], 1.0, rtol=0, atol=1e-8)
+        assert (got.n_factors, got.n_factors4) == (int(np.nanargmin(ref)), int(np.nanargmin(ref4)))
+
+
+def test_map_stops_at_a_vanishing_partial_variance():
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((100, 5))
+    X = np.column_stack([X, X[:, 0] + X[:, 1]])  # a singular matrix: the last partial variance vanishes
+    R = np.corrcoef(X, rowvar=False)
+    ref, ref4 = _map_reference(R)
+    res = velicer_map(R)
+    assert np.array_equal(np.isnan(res.values), np.isnan(ref)) and np.isnan(ref).any()
+    np.testing.assert_allclose(res.values, ref, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(res.values4, ref4, rtol=0, atol=1e-12)
+
+
 # ---------------------------------------------------------------------------------------------
 # summaries
 
