@@ -861,13 +861,8 @@ def reliability_from_cov(cov: ArrayLike, *, n: int, n_complete: int, means: Arra
     Cronbach (1951); Feldt (1965); Guttman (1945); McDonald (1999); Spearman (1910); Brown (1910).
     See the functions named above.
     """
-    if names is not None:
-        names = [str(s) for s in names]
-    S = _check_cov(cov, names=names)
+    names, S = _checked(cov, names, n)
     k = S.shape[0]
-    if n < 2:
-        raise InputError(f"At least 2 respondents are needed; got {n}.", code="too_few_respondents",
-                         details={"respondents": n})
     warnings: list[Note] = []
     total = float(S.sum())
     R, _sd = _cov_to_corr(S)
@@ -938,19 +933,24 @@ def reliability_from_cov(cov: ArrayLike, *, n: int, n_complete: int, means: Arra
     )
 
 
+def _checked(cov: ArrayLike, names: Sequence[str] | None, n: int) -> tuple[list[str] | None, np.ndarray]:
+    """The names as strings and the checked covariance matrix; InputError with fewer than 2 respondents."""
+    names = None if names is None else [str(s) for s in names]
+    S = _check_cov(cov, names=names)
+    if n < 2:
+        raise InputError(f"At least 2 respondents are needed; got {n}.", code="too_few_respondents",
+                         details={"respondents": n})
+    return names, S
+
+
 def alpha_omega(cov: ArrayLike, *, n: int, names: Sequence[str] | None = None,
                 start: ArrayLike | None = None, omega: bool = True) -> tuple[float | None, float | None]:
     """Alpha and omega total exactly as :func:`reliability_from_cov` computes them (same checks, same
     errors), without the rest of its result: what a bootstrap resample reads. Omega is None with 2 items
     or when ``omega`` is False (not wanted: its one-factor fit is skipped).
     """
-    if names is not None:
-        names = [str(s) for s in names]
-    S = _check_cov(cov, names=names)
+    names, S = _checked(cov, names, n)
     k = S.shape[0]
-    if n < 2:
-        raise InputError(f"At least 2 respondents are needed; got {n}.", code="too_few_respondents",
-                         details={"respondents": n})
     alpha = _alpha(S)
     if k < 3 or not omega:
         return _num(alpha), None

@@ -87,3 +87,14 @@ def timings():
                                         "units": "milliseconds, wall clock from the test driver unless "
                                                  "the name ends in _in_page_ms (performance.now in the page)",
                                         "timings": {**previous, **out}}, indent=2))
+
+
+@pytest.fixture
+def axe_page(browser):
+    """A page whose Content-Security-Policy is bypassed, only so that the test can inject axe-core inline."""
+    context = browser.new_context(viewport={"width": 1400, "height": 900}, bypass_csp=True)
+    pg = context.new_page()
+    pg.errors = []
+    pg.on("pageerror", lambda e: pg.errors.append(str(e)))
+    yield pg
+    context.close()

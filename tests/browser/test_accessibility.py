@@ -20,17 +20,6 @@ CHARTS_DRAWN = """() => {
 }"""
 
 
-@pytest.fixture
-def axe_page(browser):
-    """A page whose Content-Security-Policy is bypassed, only so that the test can inject axe-core inline."""
-    context = browser.new_context(viewport={"width": 1400, "height": 900}, bypass_csp=True)
-    pg = context.new_page()
-    pg.errors = []
-    pg.on("pageerror", lambda e: pg.errors.append(str(e)))
-    yield pg
-    context.close()
-
-
 def _open(page, server, dataset_id, view, extra=""):
     open_dataset(page, server, dataset_id, view=view, extra=extra)
     wait_js(page, CHARTS_DRAWN, timeout=30_000)

@@ -12,17 +12,6 @@ from .helpers import js_state, open_dataset, wait_js
 pytestmark = pytest.mark.browser
 
 
-@pytest.fixture
-def axe_page(browser):
-    """A page whose Content-Security-Policy is bypassed, only so that the test can inject axe-core inline."""
-    context = browser.new_context(viewport={"width": 1400, "height": 900}, bypass_csp=True)
-    pg = context.new_page()
-    pg.errors = []
-    pg.on("pageerror", lambda e: pg.errors.append(str(e)))
-    yield pg
-    context.close()
-
-
 def test_a_run_from_the_dashboard_shows_progress_rates_whiskers_and_can_be_cancelled(axe_page, server, demo):
     page = axe_page
     open_dataset(page, server, demo["id"], view="robustness")
