@@ -3,12 +3,11 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-import numpy as np
 from fastapi import APIRouter
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
+from ..analysis.residuals import residual_view
 from ..analysis.settings import OPTIONS, AnalysisSettings, Option
-from ..stats.efa import RESIDUAL_THRESHOLD, largest_residuals, residual_correlations
 from .deps import EngineDep
 from .errors import ApiError
 from .serialize import AnswerResponse
@@ -44,9 +43,6 @@ def analyse(dataset_id: str, body: AnalysisRequest, engine: EngineDep) -> Answer
     return AnswerResponse(engine.analyse(dataset_id, body.model_dump()))  # type: ignore[attr-defined]
 
 
-_CORRELATION_WORDS = {"pearson": "Pearson correlations", "polychoric": "polychoric correlations"}
-
-
 @router.post("/datasets/{dataset_id}/residuals", response_class=AnswerResponse)
 def residuals(dataset_id: str, body: AnalysisRequest, engine: EngineDep) -> AnswerResponse:  # type: ignore[valid-type]
     """Residual correlations after the factor solution of the same request (the analysis is cached)."""
@@ -61,21 +57,7 @@ def residuals(dataset_id: str, body: AnalysisRequest, engine: EngineDep) -> Answ
                        "There are no residual correlations: this analysis has no factor solution. "
                        + (why or "Keep at least three items and more respondents than items."),
                        {"dataset": dataset_id, "n_items": len(answer.items)})
-    corr = answer.factors.correlations
-    names = list(res.names)
-    E = residual_correlations(corr.matrix, res.pattern, res.phi)
-    rmsr = float(np.sqrt(np.mean(E[np.triu_indices(len(names), 1)] ** 2))) if len(names) > 1 else 0.0
-    s = answer.settings
-    rotation = s.rotation + (f" (gamma {s.gamma:g})" if s.rotation == "oblimin" and s.gamma != 0 else "")
-    words = _CORRELATION_WORDS.get(s.correlation, f"{s.correlation} correlations")
-    basis = (f"Residual correlations after the {res.n_factors}-factor {rotation} {s.extraction} solution, "
-             f"{words}{' (smoothed to positive definite)' if corr.smoothed else ''}: the observed "
-             "correlation minus the one the factors reproduce.")
-    return AnswerResponse({
-        "items": names, "matrix": E, "rmsr": rmsr, "threshold": RESIDUAL_THRESHOLD,
-        "large": largest_residuals(E, names, R=corr.matrix), "n_factors": res.n_factors,
-        "factors": list(res.factors), "basis": basis,
-    })
+    return AnswerResponse(residual_view(answer.settings, answer.factors.correlations, res))
 
 
 @router.get("/options")

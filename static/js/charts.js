@@ -1,7 +1,7 @@
 // Every plotly call of the dashboard. plotly.min.js is served by our own server (/vendor/plotly.min.js).
 /* global Plotly */
 
-const INK = "#1d2a33";
+export const INK = "#1d2a33";
 const MUTED = "#56626b";  // the page's --muted grey (5.9:1 on the paper colour)
 const GRID = "#e3e0d8";
 export const ACCENT = "#23607a";   // deep blue-teal
@@ -9,7 +9,7 @@ export const WARM = "#b8621b";     // burnt orange
 const OMEGA = "#6a4c93";           // plum
 const WARM_TEXT = "#9a4f12";        // burnt orange dark enough for text on white (5.9:1, WCAG 2.1 SC 1.4.3)
 // Diverging, colour-blind-safe (blue <-> orange through a warm paper white), centred on 0.
-const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
+export const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
 
 // plotly reads a few HTML-like tags in labels and hover text; user text must stay text.
 // It decodes &lt; &gt; &amp; back to characters when it draws, so escaping them is exact.
@@ -27,9 +27,9 @@ export function wrapText(v, width = 56) {
   return lines.map(esc).join("<br>");
 }
 
-const config = { displaylogo: false, responsive: true, displayModeBar: false };
+export const config = { displaylogo: false, responsive: true, displayModeBar: false };
 
-function fontSize() { return document.body.classList.contains("projector") ? 17 : 12; }
+export function fontSize() { return document.body.classList.contains("projector") ? 17 : 12; }
 
 function base(extra = {}) {
   return {

@@ -2,19 +2,13 @@
 // k x k heatmap grouped by codebook construct, a keyboard cursor, the largest residuals and a pair panel.
 /* global Plotly */
 import { api } from "../api.js";
-import { esc, wrapText } from "../charts.js";
+import { DIVERGING, INK, config, esc, fontSize, wrapText } from "../charts.js";
 import { optionLabel } from "../labels.js";
 import { actions, allItems, analysisRequest, itemMeta } from "../state.js";
 import { clear, fmt, h, note, section } from "./dom.js";
 
 const NO_CONSTRUCT = "no construct";
-const INK = "#1d2a33";
-// The loadings heatmap's diverging scale (blue = negative, orange = positive), centred on 0.
-const DIVERGING = [[0, "#1b4f72"], [0.25, "#6c9ec2"], [0.5, "#f7f5f0"], [0.75, "#e7a35f"], [1, "#8f3f0c"]];
 const MARK = "◆"; // a large residual, in the cell and in the list (not colour alone)
-const config = { displaylogo: false, responsive: true, displayModeBar: false };
-
-const fontSize = () => (document.body.classList.contains("projector") ? 17 : 12);
 
 /** Items in construct groups (constructs in pool order of their first item; pool order within; none last). */
 export function groupedOrder(items, constructOf, pool) {
