@@ -167,7 +167,7 @@ class RunService:
                   ) -> tuple[dict, list[dict]] | None:
         idx = bootstrap_indices(plan.responses.shape[0], run.n_resamples, seed=run.seed)
         # a few resamples per task: about chunk_seconds of work each, judged from the data's size
-        cost = plan.responses.shape[0] * len(plan.names) ** 2 / 3.6e7  # rough seconds per resample (60 x 5,000: .5)
+        cost = plan.responses.shape[0] * len(plan.names) ** 2 / 3.6e8  # rough seconds per resample (60 x 5,000: .05)
         per = int(max(1, min(25, self.chunk_seconds / max(cost, 1e-3))))
         pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=self._ctx, initializer=_init_worker,
                                    initargs=(plan,))

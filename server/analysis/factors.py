@@ -100,7 +100,7 @@ REFERENCE_STARTS = 5  # rotation starts of the reference solution (factor_analys
 
 def _reference_of(res: EFAResult) -> dict:
     out = res.to_dict()
-    return {"loadings": out["loadings"], "factors": out["factors"]}
+    return {"loadings": out["loadings"], "factors": out["factors"], "uniquenesses": out["uniquenesses"]}
 
 
 def _reference_key(settings: AnalysisSettings, n_factors: int) -> tuple:
@@ -242,7 +242,8 @@ def _retention(inputs: AnalysisInputs, settings: AnalysisSettings, fi: FactorInp
 
 def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Sequence[ItemRow],
                     uni: float | None = None, *, random_starts: int = 5,
-                    start_psi: np.ndarray | None = None) -> tuple[FactorSections, list[Note]]:
+                    start_psi: np.ndarray | None = None,
+                    with_factorability: bool = True) -> tuple[FactorSections, list[Note]]:
     """Correlations, factorability, retention and the rotated solution of the active items.
 
     Returns the sections and the warnings they add to the answer's list (in the order they arose). Data
@@ -250,7 +251,9 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     factor solution empty with a warning saying why; a degenerate rotated solution is withheld
     (``rotation_degenerate``). ``uni`` is the pool's one-factor omega, the omega family's fallback.
     ``random_starts``: starts of an oblimin/geomin rotation (a resample uses 1, the identity start).
-    ``start_psi``: starting uniquenesses of the extraction (a resample starts from the full sample's).
+    ``start_psi``: starting uniquenesses of the extraction (a resample starts from the full sample's; a drop from
+    the whole pool's reference solution, when there is one).
+    ``with_factorability=False`` leaves KMO and Bartlett's test out (None; a resample does not read them).
     """
     names = list(settings.items)
     fi = factor_input(inputs, settings, names)
@@ -265,7 +268,8 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     withheld = None
     try:
         check_factor_model(fi.n, k, min_items=0)
-        factorability = factorability_summary(fi.R, fi.n, names=names)
+        if with_factorability:
+            factorability = factorability_summary(fi.R, fi.n, names=names)
         check_factor_model(fi.n, k)
         retention = _retention(inputs, settings, fi, names)
         m = settings.n_factors if settings.n_factors is not None else max(1, int(retention["suggested"]))
@@ -275,6 +279,10 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
         previous = None
         if k != len(inputs.pool_items) and fi.pool_used:
             previous = _reference(inputs, settings, m)
+            u = (previous or {}).get("uniquenesses") or {}
+            if start_psi is None and all(u.get(n) is not None for n in names):
+                # the whole pool's uniquenesses of these items: a start a few Newton steps from this optimum
+                start_psi = np.array([u[n] for n in names], dtype=float)
         result = factor_analysis(fi.R, m, n=fi.n, names=names, method=settings.extraction, rotation=settings.rotation,
                                  gamma=settings.gamma, constructs=_constructs(inputs, names), previous=previous,
                                  thresholds=settings.thresholds, item_rest_r=[r.item_rest_r for r in rows],

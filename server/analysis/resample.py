@@ -28,6 +28,7 @@ from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
+from scipy.linalg import blas
 
 from ..stats.descriptives import ItemDescriptives
 from ..stats.dimensionality import install_random_reference, random_reference
@@ -171,7 +172,7 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
     # full-sample solution anyway, and tests/analysis/test_resample.py checks it reaches the pipeline's solution.
     psi = plan.psi if plan.psi is not None and len(names) == k else None  # the same items: warm start
     factors, _ = factor_sections(inputs, settings, rows, out["omega_total"], random_starts=RESAMPLE_STARTS,
-                                 start_psi=psi)
+                                 start_psi=psi, with_factorability=False)
     if factors.retention is not None:
         out["pa"] = int(factors.retention["parallel"]["n_factors"])
         out["map"] = int(factors.retention["map"]["n_factors"])
@@ -194,9 +195,10 @@ def resample_values(plan: ResamplePlan, rows_idx: np.ndarray | None) -> dict[str
     al = align_factors(res.pattern, plan.reference[rows_in])
     L[rows_in] = al.loadings
     out["loadings"] = L
-    for i in rows_in:
-        if np.isfinite(L[i]).any():
-            out["primary"][i] = int(np.nanargmax(np.abs(L[i])))
+    A = np.abs(L)
+    seen = np.isfinite(A).any(axis=1)
+    best = np.argmax(np.where(np.isfinite(A), A, -1.0), axis=1)  # nanargmax of each row with a loading
+    out["primary"] = [int(b) if ok else -1 for b, ok in zip(best, seen)]
     return out
 
 
@@ -240,7 +242,8 @@ def _inputs(plan: ResamplePlan, X: np.ndarray, rows_idx: np.ndarray | None = Non
     Xo = X if ok.all() else X[:, ok]  # no copy without constant items
     mu = Xo.mean(axis=0)
     Xc = Xo - mu
-    c = Xc.T @ Xc / (n - 1)  # np.cov(Xo, rowvar=False), without its copies
+    c = blas.dsyrk(1.0 / (n - 1), Xc, trans=1)  # np.cov(Xo, rowvar=False): upper triangle, no copies
+    c = np.triu(c) + np.triu(c, 1).T
     d = np.sqrt(np.diag(c))
     cov[np.ix_(ok, ok)] = c
     r = c / np.outer(d, d)

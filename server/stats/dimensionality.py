@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
+from scipy import linalg, stats
 
 from .correlation import polychoric_matrix
 from .errors import InputError
@@ -645,7 +645,9 @@ def velicer_map(R: ArrayLike) -> MAPResult:
     Computers, 32(3), 396-402.
     """
     A = _corr(R)
-    w, V = np.linalg.eigh(A)
+    # scipy's eigh: numpy's eigenvector routine slows down tenfold and more while other processes keep the
+    # cores busy (measured interleaved at 60 items: 18 ms against 1.7 ms)
+    w, V = linalg.eigh(A, check_finite=False)
     order = np.argsort(w)[::-1]
     w, V = w[order], V[:, order]
     load = V * np.sqrt(np.maximum(w, 0.0))

@@ -47,6 +47,7 @@ from scipy import linalg, optimize, stats
 from . import flags as _flags
 from . import rotation as _rotation
 from .errors import InputError
+from .minres import minres_newton
 from .notes import Note, note
 
 __all__ = [
@@ -208,6 +209,9 @@ def _top_eig(S: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
     fit of 60 items fast: the objectives below need nothing else.
     """
     k = S.shape[0]
+    if k <= 16:  # a small matrix: the whole decomposition costs less than the index-range call's overhead
+        vals, vecs = np.linalg.eigh(S)
+        return vals[:k - m - 1:-1], vecs[:, :k - m - 1:-1]
     vals, vecs = linalg.eigh(S, subset_by_index=[k - m, k - 1], driver="evr", check_finite=False)
     return vals[::-1], vecs[:, ::-1]
 
@@ -266,6 +270,22 @@ def _ml_discrepancy(R: np.ndarray, L: np.ndarray, psi: np.ndarray) -> float:
 
 
 # --------------------------------------------------------------------------- extraction
+
+def _lbfgsb(fun: Callable[..., tuple[float, np.ndarray]], start: np.ndarray, args: tuple[Any, ...], k: int,
+            max_iter: int, tol: float | None) -> tuple[np.ndarray, float, int, bool, str]:
+    """L-BFGS-B within the uniqueness bounds: ``(psi, objective, iterations, converged, message)``."""
+    res = optimize.minimize(fun, start, args=args, jac=True, method="L-BFGS-B", bounds=[(PSI_LOWER, 1.0)] * k,
+                            options={"maxiter": max_iter, "ftol": 1e-14, "gtol": 1e-8 if tol is None else tol})
+    psi = res.x
+    it = int(res.nit)
+    # L-BFGS-B can stop on a line-search failure at an optimum; accept that when the projected
+    # gradient (zero where a bound is active and the gradient points outwards) has vanished
+    g = np.asarray(res.jac, dtype=float)
+    pg = np.where(((psi <= PSI_LOWER) & (g > 0)) | ((psi >= 1.0) & (g < 0)), 0.0, g)
+    converged = bool(res.success) or (it < max_iter and float(np.max(np.abs(pg))) < 1e-6)
+    return psi, float(res.fun), it, converged, str(res.message)
+
+
 
 def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | None = None,
             max_iter: int = 1000, tol: float | None = None, names: Sequence[str] | None = None,
@@ -373,23 +393,19 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
         else:
             fun, args = _uls_fun, (R, m)
         start = np.clip(1.0 - _smc(R) if warm is None else warm, PSI_LOWER, 1.0)
-        res = optimize.minimize(fun, start, args=args, jac=True, method="L-BFGS-B",
-                                bounds=[(PSI_LOWER, 1.0)] * k,
-                                options={"maxiter": max_iter, "ftol": 1e-14,
-                                         "gtol": 1e-8 if tol is None else tol})
-        psi = res.x
-        it = int(res.nit)
-        objective = float(res.fun)
-        # L-BFGS-B can stop on a line-search failure at an optimum; accept that when the projected
-        # gradient (zero where a bound is active and the gradient points outwards) has vanished
-        g = np.asarray(res.jac, dtype=float)
-        pg = np.where(((psi <= PSI_LOWER) & (g > 0)) | ((psi >= 1.0) & (g < 0)), 0.0, g)
-        converged = bool(res.success) or (it < max_iter and float(np.max(np.abs(pg))) < 1e-6)
+        newton = None if method == "ml" else minres_newton(R, m, start, lower=PSI_LOWER,
+                                                            max_iter=min(int(max_iter), 50),
+                                                            tol=1e-2 * (1e-8 if tol is None else tol))
+        if newton is not None:
+            psi, objective, it = newton
+            converged = True
+        else:
+            psi, objective, it, converged, message = _lbfgsb(fun, start, args, k, max_iter, tol)
         L = _ml_loadings(psi, R, m) if method == "ml" else _uls_loadings(psi, R, m)
         h2 = np.sum(L * L, axis=1)
         if not converged:
             warnings.append(note("not_converged", f"The {'ML' if method == 'ml' else 'minres'} fit stopped "
-                                 f"after {it} iterations without converging ({res.message}); treat its loadings "
+                                 f"after {it} iterations without converging ({message}); treat its loadings "
                                  f"with caution."))
         heywood = [i for i in range(k) if psi[i] <= PSI_LOWER * (1 + 1e-6) or h2[i] >= 1.0 - 1e-9]
     # canonical sign: each unrotated factor's loadings sum positive

@@ -268,18 +268,22 @@ def item_level_flags(R: ArrayLike, *, names: Sequence[str], floor: Sequence[floa
     th = resolve_thresholds(thresholds)
     flags: list[dict] = []
     off = np.abs(A) - np.eye(k) * 2
+    close = off >= th["redundant_r"]
+    np.fill_diagonal(close, False)
+    shares = [(None if share is None else np.asarray(share, dtype=float), end)
+              for share, end in ((floor, "lowest"), (ceiling, "highest"))]
     for i, name in enumerate(names):
-        mates = [t for t in np.argsort(-off[i]) if t != i and off[i, t] >= th["redundant_r"]]
+        mates = [t for t in np.argsort(-off[i]) if close[i, t]] if close[i].any() else []
         if mates:
             others = ", ".join(f"'{names[t]}' (r = {A[i, t]:.2f})" for t in mates)
             flags.append({"item": name, "kind": "near_duplicate", "message": (
                 f"Item '{name}' correlates at least {th['redundant_r']:.2f} with {others}: the two may say the "
                 f"same thing twice, which raises alpha without adding information (Clark & Watson 1995). "
                 f"{_HEURISTIC}")})
-        for share, end in ((floor, "lowest"), (ceiling, "highest")):
-            if share is None:
+        for share_v, end in shares:
+            if share_v is None:
                 continue
-            v = float(np.asarray(share, dtype=float)[i])
+            v = float(share_v[i])
             if np.isfinite(v) and v >= th["extreme_share"]:
                 flags.append({"item": name, "kind": "floor_ceiling", "message": (
                     f"{v:.0%} of the answers to item '{name}' are at the {end} category (at least "

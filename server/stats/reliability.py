@@ -16,9 +16,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import optimize, special
+from scipy import linalg, optimize, special
 
 from .errors import InputError
+from .minres import minres_newton
 from .notes import Note, note
 
 __all__ = [
@@ -382,7 +383,7 @@ class OneFactorFit:
     uniquenesses: np.ndarray = field(compare=False)
     converged: bool
     n_iter: int
-    method: str  # "fixed-point", or "lbfgsb" when the fixed-point iteration did not converge
+    method: str  # "newton"; "fixed-point" where Newton declined; "lbfgsb" when that did not converge either
     heywood: tuple[int, ...] = ()
 
     def to_dict(self) -> dict:
@@ -399,7 +400,7 @@ def _off_diagonal(R: np.ndarray) -> np.ndarray:
 
 
 def _pc_start(R: np.ndarray) -> np.ndarray:
-    w, v = np.linalg.eigh(R)
+    w, v = linalg.eigh(R, check_finite=False)
     lam = v[:, -1] * math.sqrt(max(w[-1], 1e-12))
     return lam if lam.sum() >= 0 else -lam
 
@@ -565,7 +566,7 @@ def _fit_bounded(R: np.ndarray, start: np.ndarray | None = None) -> tuple[np.nda
 
     def fg(psi):
         S = R - np.diag(psi)
-        w, v = np.linalg.eigh(S)
+        w, v = linalg.eigh(S, check_finite=False)
         top = max(w[-1], 0.0)
         f = 0.5 * (float((S * S).sum()) - top * top)
         g = top * v[:, -1] ** 2 - (1.0 - psi)
@@ -583,7 +584,7 @@ def _fit_bounded(R: np.ndarray, start: np.ndarray | None = None) -> tuple[np.nda
     res = optimize.minimize(fg, psi0, jac=True, method="L-BFGS-B", bounds=[(_PSI_MIN, 1.0)] * k,
                             options={"maxiter": 2000, "ftol": 1e-14, "gtol": 1e-10})
     psi = res.x
-    w, v = np.linalg.eigh(R - np.diag(psi))
+    w, v = linalg.eigh(R - np.diag(psi), check_finite=False)
     lam = v[:, -1] * math.sqrt(max(w[-1], 0.0))
     if lam.sum() < 0:
         lam = -lam
@@ -612,10 +613,11 @@ def one_factor_loadings(corr: ArrayLike, start: ArrayLike | None = None) -> OneF
     Minres minimises the sum of squared off-diagonal residuals
     :math:`\\sum_{i<j}(r_{ij} - l_i l_j)^2` (Harman & Jones 1966).  As in ``psych::fa(fm="minres")``
     and factor_analyzer, uniquenesses are bounded below by 0.005: an item whose communality would
-    exceed 0.995 (a Heywood case) is held near that bound and listed in ``heywood``.  Solved by a
-    rescaled fixed-point iteration over the loadings (see ``_fit_batch``; typically 20-90 cheap
-    matrix-vector products); if that does not converge, the same criterion is minimised over the
-    uniquenesses with L-BFGS-B and an analytic gradient.  As with any minres fit, items that share
+    exceed 0.995 (a Heywood case) is held near that bound and listed in ``heywood``.  Solved over the
+    uniquenesses by Newton's method with the exact Hessian (:func:`server.stats.minres.minres_newton`,
+    two to five steps from a warm start); where that declines, by a rescaled fixed-point iteration over
+    the loadings (see ``_fit_batch``), and if that does not converge, by L-BFGS-B with an analytic
+    gradient.  As with any minres fit, items that share
     little variance can give the criterion several local minima; the default start (the first
     principal component) finds the usual solution whenever the items have a clear common factor.
 
@@ -635,11 +637,20 @@ def one_factor_loadings(corr: ArrayLike, start: ArrayLike | None = None) -> OneF
                          details={"start": int(l0.size), "items": k})
     if not np.all(np.isfinite(l0)) or np.abs(l0).sum() == 0:
         l0 = _pc_start(R)
-    L, conv, it = _fit_batch(_off_diagonal(R), l0[None, :], np.ones((1, k), dtype=bool))
-    lam = L[0]
+    newton = minres_newton(R, 1, np.clip(1.0 - l0 ** 2, _PSI_MIN, 1.0), lower=_PSI_MIN)
+    if newton is not None:
+        psi_n, _f, it = newton
+        S = R.copy()
+        np.fill_diagonal(S, 1.0 - psi_n)
+        w, v = linalg.eigh(S, check_finite=False)
+        lam = v[:, -1] * math.sqrt(max(w[-1], 0.0))
+        method, conv = "newton", np.array([True])
+    else:
+        L, conv, it = _fit_batch(_off_diagonal(R), l0[None, :], np.ones((1, k), dtype=bool))
+        lam = L[0]
+        method = "fixed-point"
     if lam.sum() < 0:
         lam = -lam
-    method = "fixed-point"
     if not conv[0]:
         lam, _psi, ok, it = _fit_bounded(R, None)
         method = "lbfgsb"

@@ -93,9 +93,8 @@ class RotationResult:
 # Each returns (Q, dQ/dL).  Formulas as in GPArotation (Bernaards & Jennrich 2005).
 
 def _vgq_oblimin(L: np.ndarray, gamma: float) -> tuple[float, np.ndarray]:
-    m = L.shape[1]
     L2 = L * L
-    X = L2 @ (np.ones((m, m)) - np.eye(m))
+    X = L2.sum(axis=1, keepdims=True) - L2  # L2 (11' - I): each row's sum over the other factors
     if gamma != 0:
         X = X - gamma * X.mean(axis=0, keepdims=True)
     return float(np.sum(L2 * X) / 4.0), L * X
