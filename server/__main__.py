@@ -1,4 +1,5 @@
-"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--demo]``,
+"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--database URL] [--demo]``,
+``scalewright migrate [--database URL]``,
 ``scalewright backup --data-dir DIR --out FILE.zip``, ``scalewright restore --data-dir DIR FILE.zip [--merge]``
 and ``scalewright analyse FILE [--codebook FILE] [--json]`` (``server.script``)."""
 from __future__ import annotations
@@ -21,6 +22,9 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--port", type=int, default=8765, help="port (default 8765)")
     s.add_argument("--data-dir", type=Path, default=Path("data"),
                    help="folder for datasets, snapshots and the database (default ./data)")
+    s.add_argument("--database", default=None, metavar="URL",
+                   help="keep datasets, snapshots and the audit log in this database: postgresql://USER@HOST:PORT/DB "
+                        "or sqlite:///PATH (default: the SQLite database and files in --data-dir)")
     s.add_argument("--demo", action="store_true", help="load the built-in demo data on first start")
     s.add_argument("--max-upload-mb", type=float, default=100.0, help="largest upload in MB (default 100)")
     s.add_argument("--token", default=None,
@@ -48,6 +52,11 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--merge", action="store_true",
                    help="add the backup's new datasets and snapshots to a folder already in use")
     r.add_argument("--who", default=None, help="your name, for the audit log")
+    m = sub.add_parser("migrate", help="bring the database's schema up to date (the server also does it at start)")
+    m.add_argument("--database", default=None, metavar="URL",
+                   help="the database: postgresql://USER@HOST:PORT/DB or sqlite:///PATH (default: the data folder's)")
+    m.add_argument("--data-dir", type=Path, default=Path("data"),
+                   help="the data folder, when no --database is given (default ./data)")
     a = sub.add_parser("analyse", help="analyse a response file and print a summary (or --json, the API's answer)")
     add_analyse_arguments(a)
     return p
@@ -88,6 +97,48 @@ def _workspace_command(args) -> int:
     return 1
 
 
+def _migrate_command(args) -> int:
+    """``migrate``: run the schema migrations alone; one line of result, or one line of error and exit 1."""
+    from .store import StartupError, StorageError
+
+    try:
+        if args.database:
+            from .sqlstore import make_engine, normalise_url, upgrade
+
+            engine = make_engine(args.database)
+            try:
+                found, now = upgrade(engine)
+            finally:
+                engine.dispose()
+            where = normalise_url(args.database).render_as_string(hide_password=True)
+        else:
+            import sqlite3
+
+            from .store import DB_NAME, SCHEMA_VERSION, Store, schema_version
+
+            db = Path(args.data_dir) / DB_NAME
+            found = None
+            if db.exists():
+                con = sqlite3.connect(db)
+                try:
+                    found = schema_version(con)
+                finally:
+                    con.close()
+            Store(args.data_dir)  # migrates at start
+            now, where = SCHEMA_VERSION, str(db.resolve())
+        if found == now:
+            print(f"The database {where} is up to date (schema {now}).", flush=True)
+        else:
+            print(f"Migrated the database {where} from schema {found or 'none'} to {now}.", flush=True)
+        return 0
+    except (StartupError, StorageError) as exc:
+        message = getattr(exc, "message", None) or str(exc)
+    except Exception as exc:  # a driver error (cannot connect, refused): one line, no traceback
+        message = f"{type(exc).__name__}: {getattr(exc, 'orig', None) or exc}"
+    print(f"scalewright migrate: {' '.join(str(message).split())}", file=sys.stderr, flush=True)
+    return 1
+
+
 def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     if args.command == "serve":
@@ -96,6 +147,7 @@ def main(argv: list[str] | None = None) -> int:
         from .app import create_app
 
         settings = Settings(host=args.host, port=args.port, data_dir=args.data_dir, demo=args.demo,
+                            database_url=args.database,
                             max_upload_mb=args.max_upload_mb, token=args.token,
                             allowed_hosts=args.allowed_hosts, max_items=args.max_items,
                             max_xlsx_cells=args.max_xlsx_cells, max_unpacked_mb=args.max_unpacked_mb,
@@ -118,7 +170,9 @@ def main(argv: list[str] | None = None) -> int:
             url += f"?token={settings.token}"
             print(f"Sharing beyond this machine: every request must carry the access token {settings.token}",
                   flush=True)
-        print(f"Scalewright is running at {url}  (data folder: {settings.data_dir.resolve()})", flush=True)
+        where = (f"database: {app.state.store.url.render_as_string(hide_password=True)}" if settings.database_url
+                 else f"data folder: {settings.data_dir.resolve()}")
+        print(f"Scalewright is running at {url}  ({where})", flush=True)
         try:
             uvicorn.run(app, host=settings.host, port=settings.port, log_level="warning")
         finally:
@@ -126,6 +180,8 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     if args.command in ("backup", "restore"):
         return _workspace_command(args)
+    if args.command == "migrate":
+        return _migrate_command(args)
     if args.command == "analyse":
         return analyse_command(args)
     return 2

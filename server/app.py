@@ -79,7 +79,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     from .engine import Engine
     from .store import Store
 
-    app.state.store = Store(settings.data_dir)
+    if settings.database_url:  # a database named by URL (PostgreSQL or one SQLite file), migrated at start
+        from .sqlstore import SqlStore
+        from .store import _ensure_writable_folder
+
+        _ensure_writable_folder(settings.data_dir)  # uploads in flight and resampling runs stay in the folder
+        app.state.store = SqlStore(settings.database_url)
+    else:
+        app.state.store = Store(settings.data_dir)
     app.state.engine = Engine(app.state.store, cache_bytes=settings.cache_bytes)
     from .runs import RunService
     app.state.runs = RunService(app.state.engine, settings.data_dir, workers=settings.run_workers)

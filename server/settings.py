@@ -21,6 +21,10 @@ class Settings:
     data_dir: Path = _help(  # noqa: RUF009  (a plain Path default, built once like the others)
         "Folder holding datasets, snapshots and the SQLite database; everything that must survive a restart.",
         Path("data"))
+    database_url: str | None = _help(
+        "Database holding datasets, snapshots and the audit log, as a URL: postgresql://USER@HOST:PORT/DB for a "
+        "shared PostgreSQL server, or sqlite:///PATH for one SQLite file (uploads kept inside it). Empty: the "
+        "SQLite database and raw files in the data folder.", None)
     max_upload_mb: float = _help("Largest upload accepted, in megabytes (larger files get 413).", 100.0)
     token: str | None = _help("Access token every request must carry when the server is shared "
                               "beyond this machine. Generated at start when needed.", None)

@@ -1,0 +1,450 @@
+"""Datasets, snapshots and the audit log in one SQL database (SQLite or PostgreSQL), via SQLAlchemy Core.
+
+``SqlStore(url)`` is the :class:`~server.store.StoreBackend` for a database named by a URL:
+``sqlite:///path/scalewright.db`` or ``postgresql+psycopg://USER@HOST:PORT/DB`` (``postgresql://`` means
+the same, through psycopg 3). Everything lives in the database, so several processes or machines can share
+it without a shared folder:
+
+- ``datasets``: one row per dataset, the same fields as :class:`~server.store.SQLiteStore` records;
+- ``dataset_files``: the uploaded response file and codebook byte for byte, in parts of at most 1 MB
+  (an upload is streamed in and never held whole in memory), with their SHA-256 in ``datasets``;
+- ``snapshots``: the immutable records; triggers refuse UPDATE and DELETE (and TRUNCATE on PostgreSQL);
+- ``audit``: the append-only log, protected the same way.
+
+The schema is made and upgraded by the Alembic revisions in ``server/migrations/`` (:func:`upgrade`, run by
+``SqlStore()`` and by ``scalewright migrate``), in one transaction that holds a lock, so two processes
+starting together migrate once. Records are the same dicts as :class:`~server.store.SQLiteStore` returns.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from collections.abc import Iterator
+from contextlib import contextmanager, suppress
+from pathlib import Path
+
+import sqlalchemy as sa
+from sqlalchemy import event
+from sqlalchemy.engine import URL, Connection, Engine, make_url
+from sqlalchemy.pool import StaticPool
+
+from .store import (
+    SchemaVersionError,
+    StartupError,
+    StorageError,
+    _dumps,
+    new_id,
+    storage_error,
+    utc_now,
+)
+
+__all__ = ["CHUNK_BYTES", "MIGRATIONS_DIR", "SqlStore", "current_revision", "head_revision", "normalise_url",
+           "upgrade"]
+
+MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
+CHUNK_BYTES = 1 << 20  # one row of dataset_files holds at most this many bytes of an upload
+_PG_MIGRATION_LOCK = 0x5C41_E0A1  # pg_advisory_xact_lock key held while migrating
+
+_meta = sa.MetaData()
+datasets = sa.Table(
+    "datasets", _meta,
+    sa.Column("seq", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
+    sa.Column("id", sa.String(64)), sa.Column("name", sa.Text), sa.Column("filename", sa.Text),
+    sa.Column("codebook_filename", sa.Text), sa.Column("sha256", sa.String(64)),
+    sa.Column("codebook_sha256", sa.String(64)), sa.Column("size_bytes", sa.BigInteger),
+    sa.Column("options", sa.Text), sa.Column("meta", sa.Text), sa.Column("created_at", sa.String(32)),
+)
+dataset_files = sa.Table(
+    "dataset_files", _meta,
+    sa.Column("dataset_id", sa.String(64), primary_key=True), sa.Column("kind", sa.String(16), primary_key=True),
+    sa.Column("part", sa.Integer, primary_key=True), sa.Column("data", sa.LargeBinary),
+)
+snapshots = sa.Table(
+    "snapshots", _meta,
+    sa.Column("seq", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
+    sa.Column("id", sa.String(64)), sa.Column("dataset_id", sa.String(64)),
+    sa.Column("created_at", sa.String(32)), sa.Column("record", sa.Text),
+)
+audit_log = sa.Table(
+    "audit", _meta,
+    sa.Column("seq", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
+    sa.Column("at", sa.String(32)), sa.Column("who", sa.Text), sa.Column("action", sa.Text),
+    sa.Column("dataset_id", sa.String(64)), sa.Column("snapshot_id", sa.String(64)), sa.Column("details", sa.Text),
+)
+_DATASET_KEYS = ("id", "name", "filename", "codebook_filename", "sha256", "codebook_sha256", "size_bytes",
+                 "options", "meta", "created_at")
+_AUDIT_KEYS = ("seq", "at", "who", "action", "dataset_id", "snapshot_id", "details")
+
+
+def normalise_url(url: str | URL) -> URL:
+    """The SQLAlchemy URL for ``url``: ``postgresql://`` and ``postgres://`` go through psycopg 3.
+
+    Raises :class:`StartupError` for anything but SQLite or PostgreSQL.
+    """
+    try:
+        parsed = make_url(url)
+    except sa.exc.ArgumentError:
+        raise StartupError(f"The database URL {str(url)!r} cannot be read; give e.g. "
+                           "postgresql://USER@HOST:PORT/DB or sqlite:///path/scalewright.db.") from None
+    backend = parsed.get_backend_name()
+    if backend in ("postgres", "postgresql"):
+        return parsed.set(drivername="postgresql+psycopg")
+    if backend != "sqlite":
+        raise StartupError(f"The database {parsed.render_as_string(hide_password=True)} is neither SQLite nor "
+                           "PostgreSQL; Scalewright stores its data in one of those two.")
+    return parsed
+
+
+def _shown(url: URL) -> str:
+    return url.render_as_string(hide_password=True)
+
+
+def make_engine(url: str | URL) -> Engine:
+    """An engine for ``url``. SQLite: WAL, ``synchronous=FULL``, a 30 s busy timeout, and write transactions
+    opened with ``BEGIN IMMEDIATE`` (execution option ``sqlite_begin``) so writers queue instead of failing."""
+    url = normalise_url(url)
+    if url.get_backend_name() != "sqlite":
+        return sa.create_engine(url, pool_pre_ping=True)
+    memory = url.database in (None, "", ":memory:")
+    if not memory:
+        Path(url.database).expanduser().resolve().parent.mkdir(parents=True, exist_ok=True)
+    engine = sa.create_engine(url, connect_args={"check_same_thread": False, "timeout": 30.0},
+                              **({"poolclass": StaticPool} if memory else {}))
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_con, _record):
+        dbapi_con.isolation_level = None  # the driver never begins by itself: _on_begin does
+        for pragma in ("journal_mode=WAL", "busy_timeout=30000", "synchronous=FULL"):
+            dbapi_con.execute(f"PRAGMA {pragma}")
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn):
+        conn.exec_driver_sql(f"BEGIN {conn.get_execution_options().get('sqlite_begin', 'DEFERRED')}")
+
+    return engine
+
+
+def _alembic_config(connection: Connection):
+    from alembic.config import Config
+
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    cfg.attributes["connection"] = connection
+    return cfg
+
+
+def head_revision() -> str:
+    """The newest revision this code knows (``server/migrations/versions``)."""
+    from alembic.script import ScriptDirectory
+
+    return ScriptDirectory(str(MIGRATIONS_DIR)).get_current_head()
+
+
+def current_revision(connection: Connection) -> str | None:
+    """The revision recorded in the database (Alembic's ``alembic_version``), or None for a new database."""
+    from alembic.migration import MigrationContext
+
+    return MigrationContext.configure(connection).get_current_revision()
+
+
+def upgrade(engine: Engine, revision: str = "head") -> tuple[str | None, str]:
+    """Run the revisions ``engine``'s database lacks up to ``revision``, in one locked transaction.
+
+    Returns (found, now). A database written by a newer Scalewright (a revision this code does not know) is
+    refused with :class:`SchemaVersionError` before anything is written. An upgrade of a database that had
+    a revision is written to the audit log (when the log exists by then), as the SQLite folder store does.
+    """
+    from alembic import command
+    from alembic.script import ScriptDirectory
+
+    script = ScriptDirectory(str(MIGRATIONS_DIR))
+    with engine.connect().execution_options(sqlite_begin="IMMEDIATE") as conn, conn.begin():
+        if conn.dialect.name == "postgresql":  # two processes starting together: one migrates, one waits
+            conn.execute(sa.text("SELECT pg_advisory_xact_lock(:key)"), {"key": _PG_MIGRATION_LOCK})
+        found = current_revision(conn)
+        if found is not None:
+            try:
+                script.get_revision(found)
+            except Exception:
+                raise SchemaVersionError(
+                    f"The database {_shown(engine.url)} was written by a newer Scalewright (schema revision "
+                    f"{found}; this version knows up to {script.get_current_head()}). Upgrade Scalewright to "
+                    "open it.") from None
+        command.upgrade(_alembic_config(conn), revision)
+        now = current_revision(conn)
+        if found is not None and now != found and sa.inspect(conn).has_table("audit"):
+            _append_audit(conn, "schema_upgrade", details={"from": found, "to": now})
+    return found, now
+
+
+def _append_audit(conn: Connection, action: str, *, who: str | None = None, dataset_id: str | None = None,
+                  snapshot_id: str | None = None, details: dict | None = None) -> dict:
+    entry = {"at": utc_now(), "who": _text((str(who).strip()[:80] or None) if who is not None else None),
+             "action": _text(str(action)), "dataset_id": _text(dataset_id), "snapshot_id": _text(snapshot_id),
+             "details": json.loads(_dumps(details or {}))}
+    result = conn.execute(audit_log.insert().values(**{**entry, "details": _dumps(entry["details"])}))
+    return {"seq": result.inserted_primary_key[0], **entry}
+
+
+def _is_id(value) -> bool:
+    """Whether ``value`` can name a row: a string without NUL (PostgreSQL text cannot hold one)."""
+    return isinstance(value, str) and "\x00" not in value
+
+
+def _text(value: str | None) -> str | None:
+    """Text for a column: NUL (which PostgreSQL text cannot hold) becomes U+FFFD, on both backends alike."""
+    return None if value is None else str(value).replace("\x00", "\ufffd")
+
+
+def _pg_storage_error(exc: BaseException) -> StorageError | None:
+    state = getattr(exc, "sqlstate", None) or ""
+    if state.startswith("53"):  # insufficient resources: disk full, out of memory, too many connections
+        return StorageError(507 if state == "53100" else 503,
+                            "storage_full" if state == "53100" else "storage_unavailable",
+                            "The database server is full, so nothing was saved. Ask its administrator to "
+                            "free some space, and try again." if state == "53100" else
+                            "The database server cannot take the request now (it is out of resources), "
+                            "so nothing was saved. Try again shortly.")
+    if state.startswith("08") or state.startswith("57P") or state in ("25006", "42501"):
+        return StorageError(503, "storage_unavailable", "The database server cannot be reached or does not "
+                            "accept writes now, so nothing was saved. Try again shortly.")
+    return None
+
+
+class SqlStore:
+    """Datasets, snapshots and the audit log in the database at ``url`` (SQLite or PostgreSQL).
+
+    Safe to share between threads (a connection pool; each call takes one connection for one transaction).
+    Runs the migrations at start. Raises :class:`StartupError` when the database cannot be reached.
+    """
+
+    def __init__(self, url: str | URL):
+        self.url = normalise_url(url)
+        self.engine = make_engine(self.url)
+        self._writer = self.engine.execution_options(sqlite_begin="IMMEDIATE")
+        self._folder = (Path(self.url.database).expanduser().resolve().parent
+                        if self.backend == "sqlite" and self.url.database not in (None, "", ":memory:") else None)
+        try:
+            self.revision = upgrade(self.engine)[1]
+        except (SchemaVersionError, StartupError):
+            self.engine.dispose()
+            raise
+        except sa.exc.DBAPIError as exc:
+            self.engine.dispose()
+            reason = " ".join(str(exc.orig).split())[:200]
+            raise StartupError(f"The database {_shown(self.url)} cannot be opened ({reason}). Check that the "
+                               "server is running and the URL, user and database are right.") from None
+
+    @property
+    def backend(self) -> str:
+        """``"sqlite"`` or ``"postgresql"``."""
+        return self.url.get_backend_name()
+
+    def close(self) -> None:
+        """Close the pooled connections."""
+        self.engine.dispose()
+
+    # ---- transactions and faults
+    def _storage_error(self, exc: BaseException) -> StorageError | None:
+        cause = exc.orig if isinstance(exc, sa.exc.DBAPIError) else exc
+        if self.backend == "postgresql":
+            return _pg_storage_error(cause) if not isinstance(cause, OSError) else storage_error(cause)
+        return storage_error(cause, self._folder)
+
+    @contextmanager
+    def _write(self) -> Iterator[Connection]:
+        """One write transaction, rolled back on any error; storage faults raised as StorageError."""
+        try:
+            with self._writer.begin() as conn:
+                yield conn
+        except (OSError, sa.exc.DBAPIError) as exc:
+            err = self._storage_error(exc)
+            if err is not None:
+                raise err from exc
+            raise
+
+    @contextmanager
+    def _read(self) -> Iterator[Connection]:
+        """One connection for reading; a database that cannot be reached is raised as StorageError (503)."""
+        try:
+            with self.engine.connect() as conn:
+                yield conn
+        except sa.exc.DBAPIError as exc:
+            err = self._storage_error(exc)
+            if err is not None:
+                raise err from exc
+            raise
+
+    # ---- datasets
+    def add_dataset(self, *, name: str, raw: bytes | None = None, filename: str,
+                    codebook_raw: bytes | None = None, codebook_filename: str | None = None,
+                    options: dict | None = None, meta: dict | None = None,
+                    raw_path: str | os.PathLike | None = None) -> dict:
+        """Keep the raw file(s) byte for byte in the database and record the dataset; returns the record.
+
+        Give the response file as ``raw`` (bytes) or ``raw_path`` (an upload on disk, streamed in 1 MB parts
+        and removed after a success). All or nothing: one transaction; storage faults raise StorageError.
+        """
+        if (raw is None) == (raw_path is None):
+            raise TypeError("add_dataset takes raw or raw_path, not both or neither")
+        dataset_id = new_id()
+        record = {"id": dataset_id, "name": _text(name), "filename": _text(filename),
+                  "codebook_filename": _text(codebook_filename) if codebook_raw is not None else None,
+                  "sha256": None, "codebook_sha256": None, "size_bytes": 0,
+                  "options": dict(options or {}), "meta": dict(meta or {}), "created_at": utc_now()}
+        try:
+            with self._write() as conn:
+                conn.execute(datasets.insert().values(
+                    id=dataset_id, name=record["name"], filename=record["filename"],
+                    codebook_filename=record["codebook_filename"], sha256="", codebook_sha256=None,
+                    size_bytes=0, options=_dumps(record["options"]), meta=_dumps(record["meta"]),
+                    created_at=record["created_at"]))
+                if raw_path is not None:
+                    with open(raw_path, "rb") as fh:
+                        record["sha256"], record["size_bytes"] = self._put_file(
+                            conn, dataset_id, "raw", iter(lambda: fh.read(CHUNK_BYTES), b""))
+                else:
+                    record["sha256"], record["size_bytes"] = self._put_file(
+                        conn, dataset_id, "raw", (raw[i:i + CHUNK_BYTES] for i in range(0, len(raw), CHUNK_BYTES)))
+                if codebook_raw is not None:
+                    record["codebook_sha256"], _ = self._put_file(
+                        conn, dataset_id, "codebook",
+                        (codebook_raw[i:i + CHUNK_BYTES] for i in range(0, len(codebook_raw), CHUNK_BYTES)))
+                conn.execute(datasets.update().where(datasets.c.id == dataset_id).values(
+                    sha256=record["sha256"], codebook_sha256=record["codebook_sha256"],
+                    size_bytes=record["size_bytes"]))
+        except OSError as exc:  # reading raw_path
+            err = storage_error(exc)
+            if err is not None:
+                raise err from exc
+            raise
+        if raw_path is not None:
+            with suppress(OSError):
+                os.unlink(raw_path)
+        return json.loads(_dumps(record))
+
+    @staticmethod
+    def _put_file(conn: Connection, dataset_id: str, kind: str, chunks) -> tuple[str, int]:
+        digest, size, part = hashlib.sha256(), 0, 0
+        for chunk in chunks:
+            digest.update(chunk)
+            size += len(chunk)
+            conn.execute(dataset_files.insert().values(dataset_id=dataset_id, kind=kind, part=part, data=chunk))
+            part += 1
+        if part == 0:  # an empty file is one empty part, so "present" and "empty" stay apart
+            conn.execute(dataset_files.insert().values(dataset_id=dataset_id, kind=kind, part=0, data=b""))
+        return digest.hexdigest(), size
+
+    @staticmethod
+    def _dataset_row(row) -> dict:
+        rec = dict(zip(_DATASET_KEYS, row))
+        rec["options"] = json.loads(rec["options"])
+        rec["meta"] = json.loads(rec["meta"])
+        return rec
+
+    def _dataset_query(self):
+        return sa.select(*(datasets.c[k] for k in _DATASET_KEYS))
+
+    def get_dataset(self, dataset_id: str) -> dict | None:
+        if not _is_id(dataset_id):
+            return None
+        with self._read() as conn:
+            row = conn.execute(self._dataset_query().where(datasets.c.id == dataset_id)).first()
+        return self._dataset_row(row) if row else None
+
+    def list_datasets(self) -> list[dict]:
+        """All datasets, newest first."""
+        with self._read() as conn:
+            rows = conn.execute(self._dataset_query().order_by(datasets.c.seq.desc())).all()
+        return [self._dataset_row(r) for r in rows]
+
+    def delete_dataset(self, dataset_id: str) -> bool:
+        """Forget a dataset and its uploaded bytes. Its snapshots stay (they are immutable)."""
+        if not _is_id(dataset_id):
+            return False
+        with self._write() as conn:
+            conn.execute(dataset_files.delete().where(dataset_files.c.dataset_id == dataset_id))
+            return conn.execute(datasets.delete().where(datasets.c.id == dataset_id)).rowcount > 0
+
+    def _read_file(self, dataset_id: str, kind: str) -> bytes | None:
+        if not _is_id(dataset_id):
+            raise KeyError(dataset_id)
+        with self._read() as conn:
+            if conn.execute(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id)).first() is None:
+                raise KeyError(dataset_id)
+            rows = conn.execute(sa.select(dataset_files.c.data).where(
+                dataset_files.c.dataset_id == dataset_id, dataset_files.c.kind == kind)
+                .order_by(dataset_files.c.part)).all()
+        return b"".join(bytes(r[0]) for r in rows) if rows else None
+
+    def read_raw(self, dataset_id: str) -> bytes:
+        """The uploaded response file, byte for byte. KeyError if the dataset is unknown."""
+        data = self._read_file(dataset_id, "raw")
+        if data is None:
+            raise KeyError(dataset_id)
+        return data
+
+    def read_codebook(self, dataset_id: str) -> bytes | None:
+        """The uploaded codebook, byte for byte, or None. KeyError if the dataset is unknown."""
+        return self._read_file(dataset_id, "codebook")
+
+    # ---- snapshots
+    def add_snapshot(self, dataset_id: str, record: dict) -> dict:
+        """Save an immutable snapshot in one transaction; returns the stored record (with id, created_at).
+
+        Raises KeyError if the dataset is unknown.
+        """
+        if not _is_id(dataset_id):
+            raise KeyError(dataset_id)
+        stored = dict(record)
+        stored["id"] = new_id()
+        stored["dataset_id"] = dataset_id
+        stored["created_at"] = utc_now()
+        text = _dumps(stored)
+        with self._write() as conn:
+            # FOR SHARE on PostgreSQL: a delete of the dataset waits until this snapshot is in
+            found = conn.execute(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id)
+                                 .with_for_update(read=True)).first()
+            if found is None:
+                raise KeyError(dataset_id)
+            conn.execute(snapshots.insert().values(id=stored["id"], dataset_id=dataset_id,
+                                                   created_at=stored["created_at"], record=text))
+        return json.loads(text)
+
+    def get_snapshot(self, snapshot_id: str) -> dict | None:
+        if not _is_id(snapshot_id):
+            return None
+        with self._read() as conn:
+            row = conn.execute(sa.select(snapshots.c.record).where(snapshots.c.id == snapshot_id)).first()
+        return json.loads(row[0]) if row else None
+
+    def list_snapshots(self, dataset_id: str) -> list[dict]:
+        """The dataset's snapshots, newest first (by save order)."""
+        if not _is_id(dataset_id):
+            return []
+        with self._read() as conn:
+            rows = conn.execute(sa.select(snapshots.c.record).where(snapshots.c.dataset_id == dataset_id)
+                                .order_by(snapshots.c.seq.desc())).all()
+        return [json.loads(r[0]) for r in rows]
+
+    # ---- audit log (append-only: triggers refuse UPDATE and DELETE)
+    def audit(self, action: str, *, who: str | None = None, dataset_id: str | None = None,
+              snapshot_id: str | None = None, details: dict | None = None) -> dict:
+        """Append one entry to the audit log (time, who, action, ids, details such as hashes); returns it."""
+        with self._write() as conn:
+            return _append_audit(conn, action, who=who, dataset_id=dataset_id, snapshot_id=snapshot_id,
+                                 details=details)
+
+    def list_audit(self, *, dataset_id: str | None = None, limit: int | None = None) -> list[dict]:
+        """Audit entries, newest first (by ``seq``); only those naming ``dataset_id`` when given."""
+        query = sa.select(*(audit_log.c[k] for k in _AUDIT_KEYS)).order_by(audit_log.c.seq.desc())
+        if dataset_id is not None:
+            if not _is_id(dataset_id):
+                return []
+            query = query.where(audit_log.c.dataset_id == dataset_id)
+        if limit is not None:
+            query = query.limit(int(limit))
+        with self._read() as conn:
+            rows = conn.execute(query).all()
+        return [{**dict(zip(_AUDIT_KEYS, r)), "details": json.loads(r[6])} for r in rows]
