@@ -45,6 +45,7 @@ if TYPE_CHECKING:
 log = logging.getLogger("scalewright")
 
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
+_DESC_BLOCK = 8  # items per block of the pool's descriptives (a 1,000,000-row file: 64 MB per block)
 _SAMPLE = 16  # long containers are measured on a sample of their items and scaled (answers: rows of one shape)
 
 
@@ -300,9 +301,16 @@ class Engine:
         """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
         def make():
             ds = self.dataset(dataset_id)
-            X = self.scored(dataset_id, [it.name for it, m in zip(ds.items, mask) if m])
-            return item_descriptives(X, names=[it.name for it in ds.items], mins=[it.min for it in ds.items],
-                                     maxs=[it.max for it in ds.items])
+            flips = np.asarray(mask, dtype=bool)
+            out: list[ItemDescriptives] = []
+            for s in range(0, len(ds.items), _DESC_BLOCK):  # a few items at a time: no n x k temporaries
+                items = ds.items[s:s + _DESC_BLOCK]
+                X = np.array(ds.responses[:, s:s + _DESC_BLOCK], dtype=float)
+                flip = flips[s:s + _DESC_BLOCK]
+                X[:, flip] = np.array([it.min + it.max for it in items], dtype=float)[flip] - X[:, flip]
+                out += item_descriptives(X, names=[it.name for it in items], mins=[it.min for it in items],
+                                         maxs=[it.max for it in items])
+            return out
 
         return self._locked((dataset_id, "desc", tuple(bool(m) for m in mask)), self._descriptives, make)
 

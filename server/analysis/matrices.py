@@ -7,6 +7,9 @@ correlations, the factor sections and the reliability sections rest on the same 
 pool cannot form a matrix (two items never answered together...), a problem confined to inactive items
 must not block the analysis: the active items' own matrix is used and a warning says so (the same clear
 error is raised when the problem is among them).
+
+The pool's pairwise sums are read in blocks of respondents (:func:`pool_moments`), once for the covariance
+and the Pearson matrix alike, so a million respondents cost a few blocks of memory, not copies of the matrix.
 """
 from __future__ import annotations
 
@@ -76,14 +79,24 @@ class AnswerPatterns:
         """The distinct answer patterns of ``responses`` (NaN = not answered), read in row chunks."""
         n, k = responses.shape
         width = max(1, -(-k // 8))
-        packed = np.empty((n, width), dtype=np.uint8)
-        for s in range(0, n, chunk):
-            packed[s:s + chunk] = np.packbits(~np.isnan(responses[s:s + chunk]), axis=1) if k else 0
         if n == 0:
-            return cls(packed, np.zeros(0, dtype=np.int64), k)
+            return cls(np.empty((0, width), dtype=np.uint8), np.zeros(0, dtype=np.int64), k)
+        full = np.packbits(np.ones((1, k), dtype=bool), axis=1) if k else np.zeros((1, width), dtype=np.uint8)
+        parts, n_full = [full], 0  # the complete rows are only counted; the full pattern stands for them once
+        for s in range(0, n, chunk):
+            answered = ~np.isnan(responses[s:s + chunk])
+            complete = answered.all(axis=1)
+            n_full += int(complete.sum())
+            if not complete.all():
+                parts.append(np.packbits(answered[~complete], axis=1))
+        packed = np.concatenate(parts)
         rows = np.ascontiguousarray(packed).view(np.dtype((np.void, width))).ravel()
         uniq, counts = np.unique(rows, return_counts=True)
-        return cls(uniq.view(np.uint8).reshape(-1, width).copy(), counts.astype(np.int64), k)
+        counts = counts.astype(np.int64)
+        at = int(np.flatnonzero(uniq == rows[0])[0])  # the full pattern, counted once above
+        counts[at] += n_full - 1
+        keep = counts > 0
+        return cls(uniq.view(np.uint8).reshape(-1, width)[keep].copy(), counts[keep], k)
 
     def _mask(self, idx: np.ndarray) -> np.ndarray:
         flags = np.zeros(self.k, dtype=bool)
@@ -102,6 +115,100 @@ class AnswerPatterns:
         return int(self.counts[hit].sum())
 
 
+POOL_ROWS = 16384  # respondents per block of the pool's moments: a few blocks of k columns in memory, not n x k
+
+
+@dataclass(frozen=True)
+class PoolMoments:
+    """Pairwise sums of a response matrix, centred on each item's mean (as ``stats.correlation``'s moments).
+
+    ``n[i, j]`` respondents answered both items; over them, ``sx[i, j]`` sums item i's centred answers,
+    ``sxx[i, j]`` their squares and ``sxy[i, j]`` the products of items i and j.
+    """
+
+    n: np.ndarray  # int
+    sx: np.ndarray
+    sxx: np.ndarray
+    sxy: np.ndarray
+
+    @property
+    def cxy(self) -> np.ndarray:
+        """Co-deviations of each pair over the respondents who answered both."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return self.sxy - self.sx * self.sx.T / self.n
+
+    @property
+    def ssx(self) -> np.ndarray:
+        """``ssx[i, j]``: squared deviations of item i over the respondents who answered i and j."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return self.sxx - self.sx * self.sx / self.n
+
+    @property
+    def cov(self) -> np.ndarray:
+        """Pairwise covariance (divisor n_ij - 1; NaN where fewer than 2 respondents are shared)."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cov = self.cxy / (self.n - 1)
+        cov[self.n < 2] = np.nan
+        return cov
+
+
+def pool_moments(X: np.ndarray, *, rows: int = POOL_ROWS) -> PoolMoments:
+    """:class:`PoolMoments` of ``X`` (NaN = missing), read ``rows`` respondents at a time.
+
+    The same sums as ``stats.correlation.pairwise_covariance`` forms in one pass, without its n x k
+    temporaries: a block without missing answers costs one product (its pairwise counts and sums are
+    the column totals), a block with missing answers the four products of the pairwise formula.
+    """
+    n_rows, k = X.shape
+    total, count = np.zeros(k), np.zeros(k)
+    for s in range(0, n_rows, rows):
+        block = X[s:s + rows]
+        present = ~np.isnan(block)
+        total += np.where(present, block, 0.0).sum(axis=0)
+        count += present.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        centre = np.nan_to_num(total / count)
+    n, sx, sxx, sxy = (np.zeros((k, k)) for _ in range(4))
+    for s in range(0, n_rows, rows):
+        block = np.ascontiguousarray(X[s:s + rows])
+        present = ~np.isnan(block)
+        X0 = block - centre
+        if present.all():
+            n += len(block)
+            sx += X0.sum(axis=0)[:, None]
+            sxx += (X0 * X0).sum(axis=0)[:, None]
+        else:
+            X0[~present] = 0.0
+            M = present.astype(float)
+            n += M.T @ M
+            sx += X0.T @ M
+            sxx += (X0 * X0).T @ M
+        sxy += X0.T @ X0
+    return PoolMoments(n.astype(int), sx, sxx, sxy)
+
+
+def _pearson_pool(X: np.ndarray, names: list[str], moments: PoolMoments) -> tuple[np.ndarray, list[Note]]:
+    """``stats.correlation.pearson_matrix(X, missing="pairwise", smooth=None)``'s matrix and warnings, from the
+    pool's moments. A pool it would refuse (an item without variance, a pair with too few respondents or
+    without variance) is handed to it, so the error is its own."""
+    n, cxy, ssx = moments.n, moments.cxy, moments.ssx
+    lo, hi = _column_range(X)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        R = cxy / np.sqrt(ssx * ssx.T)
+    off = ~np.eye(len(names), dtype=bool)
+    if not np.all(lo < hi) or (off & (n < 3)).any() or (off & ~np.isfinite(R)).any():
+        res = corrmod.pearson_matrix(X, missing="pairwise", smooth=None, names=names)  # raises its InputError
+        return np.asarray(res.matrix, float), list(res.warnings)
+    R = np.clip((R + R.T) / 2, -1.0, 1.0)
+    np.fill_diagonal(R, 1.0)
+    warnings: list[Note] = []
+    perfect = corrmod.perfect_pairs_note(R, names, "pearson")
+    if perfect is not None:
+        warnings.append(perfect)
+    R, _, _ = corrmod._maybe_smooth(R, None, "Pearson", names, warnings)  # the not-positive-definite note
+    return R, warnings
+
+
 def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[str], correlation: str, *,
               zero_cell_correction: float = 0.0) -> FullPool:
     """The pairwise matrices of every item with some variance, on the raw responses.
@@ -114,19 +221,23 @@ def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[
     ok = np.array([n not in constant for n in names])
     X = responses if ok.all() else responses[:, ok]  # no copy of a large pool without constant items
     kept = [n for n in names if n not in constant]
-    cov, n_pair = corrmod.pairwise_covariance(X)
-    make = corrmod.polychoric_matrix if correlation == "polychoric" else corrmod.pearson_matrix
-    kw = {"zero_cell_correction": zero_cell_correction} if correlation == "polychoric" else {}
-    res = make(X, missing="pairwise", smooth=None, names=kept, **kw)
+    moments = pool_moments(X)
+    cov, n_pair = moments.cov, moments.n
+    if correlation == "polychoric":
+        res = corrmod.polychoric_matrix(X, missing="pairwise", smooth=None, names=kept,
+                                        zero_cell_correction=zero_cell_correction)
+        R, warnings = np.asarray(res.matrix, float), list(res.warnings)
+    else:
+        R, warnings = _pearson_pool(X, kept, moments)
     k = len(names)
     full_cov, full_n, full_corr = np.full((k, k), np.nan), np.zeros((k, k)), np.full((k, k), np.nan)
     sub = np.ix_(ok, ok)
-    full_cov[sub], full_n[sub], full_corr[sub] = cov, n_pair, np.asarray(res.matrix, float)
+    full_cov[sub], full_n[sub], full_corr[sub] = cov, n_pair, R
     empty = corrected = None
     if correlation == "polychoric":
         empty, corrected = np.zeros((k, k), dtype=bool), np.zeros((k, k), dtype=bool)
         empty[sub], corrected[sub] = res.empty_pairs, res.corrected_pairs
-    return FullPool(cov=full_cov, n_pair=full_n, corr=full_corr, warnings=tuple(res.warnings), empty=empty,
+    return FullPool(cov=full_cov, n_pair=full_n, corr=full_corr, warnings=tuple(warnings), empty=empty,
                     corrected=corrected, correction=float(zero_cell_correction) if correlation == "polychoric" else 0.0)
 
 
@@ -262,11 +373,18 @@ def pool_warnings_for(warnings: Sequence[Note], R: np.ndarray, names: Sequence[s
 def constant_notes(responses: np.ndarray, names: Sequence[str]) -> Mapping[str, Note]:
     """Items with fewer than two different answers, each with a ``no_variance`` note saying why."""
     out = {}
+    lo, hi = _column_range(responses)  # fewer than two different answers <=> not (min < max)
     for j, name in enumerate(names):
-        col = responses[:, j]
-        vals = np.unique(col[~np.isnan(col)])
-        if vals.size < 2:
-            why = f"every answer is {vals[0]:g}" if vals.size == 1 else "it has no answers"
+        if not lo[j] < hi[j]:
+            why = f"every answer is {lo[j]:g}" if lo[j] == hi[j] else "it has no answers"
             out[name] = note("no_variance", f"Item '{name}' has no variance ({why}); it cannot enter the correlation "
                              f"matrix and was left out of the analysis.", [name])
     return out
+
+
+def _column_range(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each column's smallest and largest answer, NaN for a column without answers (one pass, no copy)."""
+    if X.shape[0] == 0:
+        return np.full(X.shape[1], np.nan), np.full(X.shape[1], np.nan)
+    with np.errstate(invalid="ignore"):
+        return np.fmin.reduce(X, axis=0), np.fmax.reduce(X, axis=0)

@@ -146,6 +146,8 @@ def distinct_codes_above_100(v: np.ndarray) -> bool:
     swamp every statistic.
     """
     n = len(v)
+    if n and not np.fmax.reduce(np.abs(v)) > 100:  # the cheap test first (fmax skips NaN; all NaN gives NaN)
+        return False
     return bool(n and not np.isnan(v).any() and np.all(v == np.round(v)) and np.nanmax(np.abs(v)) > 100
                 and len(np.unique(v)) == n)
 

@@ -40,6 +40,8 @@ def skip_extra_header_rows(df: pd.DataFrame, row_numbers: np.ndarray, filename: 
     """
     if len(df) < 6 or df.shape[1] < 2:
         return df, row_numbers, {}
+    if sum(not pd.api.types.is_numeric_dtype(t) for t in df.dtypes) < 2:
+        return df, row_numbers, {}  # header text sits in text-typed columns: at least 2 are needed below
     top = min(3, len(df) - 3)
     below = df.iloc[3:]
     numeric_cols = []

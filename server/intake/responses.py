@@ -417,7 +417,7 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
 def _id_texts(ids: pd.Series) -> list[str]:
     """:func:`id_text` of every cell; a column of text (pandas' string type) stripped in one step."""
     if isinstance(ids.dtype, pd.StringDtype) and ids.dtype.na_value is np.nan:  # missing: NaN, as id_text reads
-        return ids.str.strip().fillna("").tolist()
+        return [v.strip() if isinstance(v, str) else "" for v in ids.tolist()]
     return [id_text(v) for v in ids.tolist()]
 
 

@@ -45,6 +45,8 @@ def decode_bytes(raw: bytes, filename: str) -> tuple[bytes, str, list[str]]:
             raise InputError(f"The file '{filename}' starts like UTF-16 text but cannot be decoded: {exc}.",
                              code="bad_encoding", details={"file": filename}) from exc
         return raw, "utf-8", notes
+    if raw.isascii():  # ASCII is valid UTF-8: no need to decode a large file to know it
+        return raw, "utf-8", notes
     try:
         raw.decode("utf-8")  # validity check only; the text itself is not kept
         return raw, ("utf-8-sig" if raw[:3] == b"\xef\xbb\xbf" else "utf-8"), notes
@@ -250,7 +252,7 @@ def read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limit
     header, row_numbers = scan_records(raw, encoding, delim, filename)
     names = clean_header(header, filename)
     opts = {"sep": delim, "header": 0, "names": names, "engine": "c", "skip_blank_lines": True,
-            "skipinitialspace": True, "encoding": encoding, "index_col": False}
+            "skipinitialspace": starts_a_field_with_space(raw, delim), "encoding": encoding, "index_col": False}
     if as_strings:
         opts.update(dtype=str, keep_default_na=False)
     else:
@@ -275,7 +277,20 @@ def read_delimited(raw: bytes, filename: str, *, as_strings: bool = False, limit
     return df, row_numbers, notes, info
 
 
-def _scan_unquoted(raw: bytes, encoding: str, delim: str, filename: str, *, block: int = 1 << 20
+def starts_a_field_with_space(raw: bytes, delim: str) -> bool:
+    """Whether a space follows a delimiter or a line start (parsing with ``skipinitialspace`` then matters;
+    without such a space the option changes nothing and only slows the parser)."""
+    first = raw[3:4] if raw.startswith(b"\xef\xbb\xbf") else raw[:1]
+    if first == b" ":
+        return True
+    if b" " not in raw:  # a byte search; most number files have no space at all
+        return False
+    buf = np.frombuffer(raw, dtype=np.uint8)
+    before = buf[np.flatnonzero(buf[1:] == 32)]  # the byte before each space
+    return bool(((before == ord(delim)) | (before == 10)).any())
+
+
+def _scan_unquoted(raw: bytes, encoding: str, delim: str, filename: str, *, block: int = 1 << 18
                    ) -> tuple[list[str], np.ndarray]:
     """:func:`scan_records` of a file without quotes, counted with numpy on blocks of whole lines."""
     buf = np.frombuffer(raw, dtype=np.uint8)
@@ -333,7 +348,18 @@ def _same_type(parts: list[pd.Series]) -> bool:
         return True
     if any(numeric) or any(pd.api.types.is_bool_dtype(p.dtype) for p in parts):
         return False
-    return not any(pd.to_numeric(p, errors="coerce").notna().any() for p in parts)
+    candidates = (pd.Series(_could_be_numbers(p), dtype=object) for p in parts)
+    return not any(pd.to_numeric(c, errors="coerce").notna().any() for c in candidates)
+
+
+_NOT_A_NUMBER_START = np.array(list("abcdefghjklmopqrstuvwxyzABCDEFGHJKLMOPQRSTUVWXYZ"))  # not i/I, n/N (inf, nan)
+
+
+def _could_be_numbers(part: pd.Series) -> np.ndarray:
+    """The cells of a text column that could read as numbers: all but those starting with a letter that
+    begins no number ('R00017'; 'inf', 'nan' and missing cells are kept), a cheap screen before ``pd.to_numeric``."""
+    cells = part.to_numpy(dtype=object)
+    return cells[~np.isin(cells.astype("U1"), _NOT_A_NUMBER_START)]
 
 
 def _read_numeric(raw: bytes, opts: dict[str, Any], n_rows: int) -> tuple[pd.DataFrame, np.ndarray] | None:
@@ -371,14 +397,19 @@ def _read_numeric(raw: bytes, opts: dict[str, Any], n_rows: int) -> tuple[pd.Dat
     start = 0
     try:
         rows = min(FAST_CHUNK_ROWS, max(FAST_CHUNK_ROWS // 4, n_rows // 8))
-        reader = pd.read_csv(io.BytesIO(raw), dtype={c: np.float64 for c in numeric}, chunksize=rows, **opts)
+        # the parser's own types (whole numbers parse faster as integers than as floats); a chunk column of
+        # another type (text, true/false) sends the file to the whole reading
+        reader = pd.read_csv(io.BytesIO(raw), chunksize=rows, **opts)
         with reader:
             for chunk in reader:
                 stop = start + len(chunk)
                 if stop > n_rows:
                     return None
                 for j, c in enumerate(numeric):  # column by column: no intermediate chunk matrix
-                    matrix[start:stop, j] = chunk[c].to_numpy(dtype=np.float64)
+                    values = chunk[c].to_numpy()
+                    if values.dtype.kind not in "iuf":
+                        return None
+                    matrix[start:stop, j] = values
                 for c in keep_types:
                     others[c].append(chunk[c])
                 start = stop

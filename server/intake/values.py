@@ -212,7 +212,10 @@ def out_of_range_to_missing(responses: np.ndarray, items: list[str], row_numbers
     """
     if not declared.any():
         return
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore"):  # a cheap screen first: no n x k temporaries when every answer fits
+        lo, hi = np.fmin.reduce(responses, axis=0), np.fmax.reduce(responses, axis=0)
+        if not ((lo < mins) | (hi > maxs))[declared].any():
+            return
         outside = (responses < mins) | (responses > maxs)
     outside[:, ~declared] = False
     per_item = outside.sum(axis=0)
