@@ -10,8 +10,11 @@ playwright:
   installed.
 - click to updated heatmap, cold drop: on the loadings view, a click on the Drop button of a row the page
   never dropped before (the item count goes down each time; nothing is cached on the server), until the
-  heatmap is redrawn. Beside it, the analysis request's own time (server and transfer) read from the
-  page's resource timings, so the client's part shows.
+  heatmap is redrawn: in the page, from the click's pointerdown to the first animation frame after the redraw
+  (the row's number), and by the driver's clock from ``page.click`` to the redraw seen (beside it: it also
+  holds playwright's actionability checks, which wait for the button to stay still over two frames). Beside
+  them, the analysis request's own time (server and transfer) read from the page's resource timings, so the
+  client's part shows (per click: in-page time minus that click's request).
 
 No number is read from an earlier run. Without /usr/bin/chromium (or playwright) the rows say so.
 """
@@ -76,10 +79,25 @@ def _page_load(browser, url: str, full_bundle: Path | None = None) -> float:
         context.close()
 
 
-def _cold_drops(browser, base: str, dataset_id: str, count: int) -> tuple[list[float], list[float]]:
-    """Click-to-heatmap and the analysis request's own duration, per cold drop (ms)."""
+# In the page: the pointerdown of the next click, and the first animation frame after the heatmap's redraw
+# (performance.now clock). The driver's click first checks that the button is visible and stable over two
+# frames; that wait is the test driver's, not the page's, so the page's own latency is measured from the event.
+WATCH_NEXT_CLICK = """() => {
+  const w = window.__clickWatch = {};
+  document.addEventListener('pointerdown', (e) => { w.down = e.timeStamp; }, {capture: true, once: true});
+  const heat = document.querySelector('#heatmap');
+  const seen = new MutationObserver(() => {
+    seen.disconnect(); requestAnimationFrame(() => { w.frame = performance.now(); });
+  });
+  seen.observe(heat, {attributes: true, attributeFilter: ['data-rendered']});
+}"""
+
+
+def _cold_drops(browser, base: str, dataset_id: str, count: int) -> tuple[list[float], list[float], list[float]]:
+    """Per cold drop (ms): click to heatmap by the driver's clock, the same in the page (pointerdown to the
+    first frame after the redraw), and the analysis request's own duration."""
     context = browser.new_context(viewport={"width": 1400, "height": 900})
-    clicks, requests = [], []
+    clicks, in_page, requests = [], [], []
     try:
         page = context.new_page()
         page.goto(f"{base}/?d={dataset_id}&v=loadings")
@@ -92,17 +110,22 @@ def _cold_drops(browser, base: str, dataset_id: str, count: int) -> tuple[list[f
             assert item not in page.evaluate("() => window.scalewright.state.dropped")
             page.evaluate("() => performance.clearResourceTimings()")
             before = page.evaluate("() => document.querySelector('#heatmap').dataset.rendered")
+            page.evaluate(WATCH_NEXT_CLICK)
             started = time.perf_counter()
             page.click("#pick-drop")
             _rendered(page, before)
             clicks.append((time.perf_counter() - started) * 1000)
+            deadline = time.monotonic() + 10
+            while not page.evaluate("() => window.__clickWatch.frame != null") and time.monotonic() < deadline:
+                time.sleep(0.005)
+            in_page.append(page.evaluate("() => window.__clickWatch.frame - window.__clickWatch.down"))
             spent = page.evaluate("() => performance.getEntriesByType('resource')"
                                   ".filter((e) => e.name.endsWith('/analysis')).map((e) => e.duration)")
             requests.append(spent[-1] if spent else float("nan"))
             assert item in page.evaluate("() => window.scalewright.state.dropped")
     finally:
         context.close()
-    return clicks, requests
+    return clicks, in_page, requests
 
 
 def _python_plotly_bundle() -> Path | None:
@@ -157,12 +180,17 @@ def run() -> list[dict]:
                              "ratio": old / med if old else None, "goal": f"<= {GOALS['load']} ms",
                              "ok": med <= GOALS["load"]})
                 for k, count in DROPS.items():
-                    clicks, requests = _cold_drops(browser, base, pools[k], count)
-                    med = statistics.median(clicks)
+                    clicks, in_page, requests = _cold_drops(browser, base, pools[k], count)
+                    med = statistics.median(in_page)
+                    wall = statistics.median(clicks)
                     req = statistics.median(requests)
+                    # the page's part of each click (click to heatmap minus that click's own request), then the median
+                    client = statistics.median(c - r for c, r in zip(in_page, requests))
                     rows.append({"target": f"click Drop -> updated heatmap, cold drop lowering k, {k} items x 5,000 "
                                            "(browser, this run)",
-                                 "measured": f"{med:.0f} ms (median of {len(clicks)}; client part {med - req:.0f} ms)",
+                                 "measured": f"{med:.0f} ms in the page, pointerdown to the redrawn frame (median of "
+                                             f"{len(clicks)}; client part {client:.0f} ms; driver's click to seen "
+                                             f"{wall:.0f} ms)",
                                  "baseline": f"analysis request alone {req:.0f} ms (same clicks)",
                                  "ratio": GOALS[k] / med, "goal": f"<= {GOALS[k]} ms", "ok": med <= GOALS[k]})
             finally:

@@ -2,6 +2,7 @@
 /* global Plotly */
 
 export const INK = "#1d2a33";
+const FONT = "system-ui, 'Segoe UI', Roboto, 'DejaVu Sans', sans-serif";
 const MUTED = "#56626b";  // the page's --muted grey (5.9:1 on the paper colour)
 const GRID = "#e3e0d8";
 export const ACCENT = "#23607a";   // deep blue-teal
@@ -33,7 +34,7 @@ export function fontSize() { return document.body.classList.contains("projector"
 
 function base(extra = {}) {
   return {
-    font: { family: "system-ui, 'Segoe UI', Roboto, 'DejaVu Sans', sans-serif", size: fontSize(), color: INK },
+    font: { family: FONT, size: fontSize(), color: INK },
     paper_bgcolor: "rgba(0,0,0,0)", plot_bgcolor: "rgba(0,0,0,0)",
     margin: { l: 60, r: 20, t: 36, b: 48 },
     hoverlabel: { bgcolor: "#fffdf8", bordercolor: GRID, font: { color: INK } },
@@ -88,6 +89,21 @@ function onPoint(el, handler) {
   });
 }
 
+let measurer = null;
+/** The widest of `labels` (plain text) in px at `size` in the charts' font. */
+function labelWidth(labels, size) {
+  measurer = measurer || document.createElement("canvas").getContext("2d");
+  measurer.font = `${size}px ${FONT}`;
+  let widest = 0;
+  for (const l of labels) widest = Math.max(widest, measurer.measureText(l).width);
+  return Math.ceil(widest);
+}
+
+// Above this many cells the loadings heatmap prints no value in its cells (the hover and the row read-out
+// still give every value): plotly draws and measures each cell's text, 0.4 s for 250 items x 3 factors.
+export const MAX_PRINTED_CELLS = 400;
+export const cellsPrinted = (nRows, nFactors) => nRows * nFactors <= MAX_PRINTED_CELLS;
+
 // rows: [{name, label?, text, values, cells?, flagged, flagText}]: `label` is the y tick (name and construct),
 // `cells` the text shown in each cell ("" hides a small loading; the hover always gives the full value).
 // onPick(name) on a click, onHover(name) when the pointer is over a row.
@@ -96,16 +112,21 @@ export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick,
   const z = rows.map((r) => r.values);
   const custom = rows.map((r) => factors.map(() => [wrapText(r.text), wrapText(r.flagText)]));
   const hasCells = rows.every((r) => Array.isArray(r.cells));
+  const printed = cellsPrinted(rows.length, factors.length);
   const trace = {
     type: "heatmap", x: factors.map(esc), y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
     colorscale: DIVERGING, xgap: 2, ygap: 2,
-    ...(hasCells ? { text: rows.map((r) => r.cells), texttemplate: "%{text}" } : { texttemplate: "%{z:.2f}" }),
+    ...(!printed ? {} : hasCells ? { text: rows.map((r) => r.cells), texttemplate: "%{text}" } : { texttemplate: "%{z:.2f}" }),
     textfont: { size: fontSize() - 1 },
     hovertemplate: "<b>%{y}</b> on %{x}: %{z:.3f}<br>%{customdata[0]}<br><i>%{customdata[1]}</i><extra></extra>",
     colorbar: { title: { text: "loading", side: "right" }, thickness: 10, len: 0.6, tickvals: [-1, -0.5, 0, 0.5, 1] },
   };
   const rowPx = document.body.classList.contains("projector") ? 30 : 22;
   const longest = Math.max(4, ...y.map((s) => s.length));
+  // The y labels' room is measured here (a canvas measures a string without a layout pass): plotly's own
+  // automargin measures every tick label and then draws the whole chart a second time (1 s at 250 items).
+  const left = Math.max(16 + longest * fontSize() * 0.62,
+    labelWidth(rows.map((r) => `${r.flagged ? "⚑ " : ""}${r.label ?? r.name}`), fontSize()) + 14);
   // a rule between the groups of items that share a primary factor (or a construct, in pool order)
   const shapes = [];
   for (let i = 1; i < groups.length; i += 1) {
@@ -115,9 +136,9 @@ export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick,
   const layout = base({
     title: { text: title, x: 0, y: 0.995, yanchor: "top", font: { size: fontSize() + 2 } },
     height: Math.max(260, rows.length * rowPx + 110), shapes: [...shapes, ...rowMark(selected)],
-    margin: { l: 16 + longest * fontSize() * 0.62, r: 20, t: 70, b: 20 },
+    margin: { l: left, r: 20, t: 70, b: 20 },
     xaxis: { side: "top", tickfont: { size: fontSize() } },
-    yaxis: { autorange: "reversed", tickfont: { size: fontSize() } },
+    yaxis: { autorange: "reversed", tickfont: { size: fontSize() }, automargin: false },
   });
   return draw(el, [trace], layout).then(() => {
     if (!window.Plotly) return;

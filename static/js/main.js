@@ -134,10 +134,12 @@ let ticker = null;
 const elapsedSeconds = () => (pendingSince == null ? 0 : Math.floor((performance.now() - pendingSince) / 1000));
 const elapsedText = () => { const s = elapsedSeconds(); return s >= 1 ? `${s} s` : ""; };
 const refittingText = () => `refitting…${elapsedSeconds() >= 1 ? ` ${elapsedSeconds()} s` : ""}`;
+// 12,345 (what toLocaleString("en") prints for a count, without loading the locale data on the first paint)
+const thousands = (v) => String(v).replace(/\B(?=(\d{3})+(?!\d))/g, ",");
 function computingText() {
   const n = state.meta?.n_rows;
   const k = state.meta ? keptItems().length : null;
-  const size = k != null && n != null ? ` (${k.toLocaleString("en")} items × ${n.toLocaleString("en")} respondents)` : "";
+  const size = k != null && n != null ? ` (${thousands(k)} items × ${thousands(n)} respondents)` : "";
   return `Computing correlations, factor analysis, parallel analysis…${size}`;
 }
 function tick() {
@@ -148,12 +150,14 @@ function tick() {
   if (spinner) spinner.textContent = refittingText();
 }
 
+// Returns whether a refit was asked for. The request leaves first; the summary (busy mark) is drawn while it travels.
 function refit() {
-  if (!state.dataset || (!state.meta && state.dropped.length)) return;
+  if (!state.dataset || (!state.meta && state.dropped.length)) return false;
   state.pending = true;
   if (!ticker) { pendingSince = performance.now(); ticker = setInterval(tick, 1000); }
-  renderSummary();
   runRefit();
+  renderSummary();
+  return true;
 }
 
 async function runRefit() {
@@ -200,12 +204,12 @@ async function runRefit() {
 // ---------------------------------------------------------------- actions
 function changed(action, detail, { push = false } = {}) {
   writeUrl(push);
-  renderSummary();
+  // The analysis request leaves before anything is drawn (refit draws the summary once it is on its way).
+  if (!refit()) renderSummary();
   // The board shows the change at once; charts wait for the new analysis (no stale redraw). The settings
   // form already shows what was just changed: redrawing it now would pull the control from under the
   // keyboard (a Tab out of a threshold lost the focus); it is redrawn when the refit arrives.
   if (state.view === "board" || (!NEEDS_ANALYSIS.has(state.view) && state.view !== "settings")) renderView();
-  refit();
   if (action) broadcast(action, detail);
 }
 

@@ -1,5 +1,5 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
-import { factorCorrelations, loadingsHeatmap, markHeatRow, purge } from "../charts.js";
+import { cellsPrinted, factorCorrelations, loadingsHeatmap, markHeatRow, purge } from "../charts.js";
 import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
 import { actions, allItems, itemMeta, loadingCutoff } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
@@ -166,7 +166,7 @@ export function render(container, state) {
       h("label", { for: "loading-cutoff" }, `${cutOption?.label || "Hide loadings below"} `), cutInput,
       orderToggle, h("span", { class: "muted", text: fitText })),
     degenerate ? degenerateBox(degenerate) : null,
-    h("p", { class: "muted", text: `${state.heat.poolOrder ? "Items in pool order, a rule between codebook constructs" : "Items are grouped by the factor they load on most"}; beside each item its codebook construct, ≠ when it loads most on another factor; ⚑ marks a flagged item (hover for why). Loadings smaller than ${fmt(cut, 2)} are left blank (the hover still gives them). Blue is negative, orange positive. Click a row to drop that item.` }),
+    h("p", { class: "muted", text: `${state.heat.poolOrder ? "Items in pool order, a rule between codebook constructs" : "Items are grouped by the factor they load on most"}; beside each item its codebook construct, ≠ when it loads most on another factor; ⚑ marks a flagged item (hover for why). ${cellsPrinted(rows.length, factors.length) ? `Loadings smaller than ${fmt(cut, 2)} are left blank (the hover still gives them).` : "With this many items the cells carry colour only: point at a row (or use ↑/↓) for its values."} Blue is negative, orange positive. Click a row to drop that item.` }),
     pickBar, rowLine,
     h("div", { class: "heat-layout" }, keys, side),
     warningList(efa.warnings, "About this solution")));
@@ -175,7 +175,11 @@ export function render(container, state) {
     selected: state.heat.row ? names.indexOf(state.heat.row) : null,
     title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
-  if (drawPhi) {
+  if (drawPhi && kept.phi) {
+    // a refit: the heatmap first; the small chart beside it follows in the next task, after the heatmap is painted
+    const matrix = efa.factor_correlations;
+    setTimeout(() => { if (phi.isConnected) factorCorrelations(phi, { factors, matrix }); }, 0);
+  } else if (drawPhi) {
     factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
   } else {
     phi.append(note(efa.n_factors > 1 ? "Orthogonal rotation: the factors are uncorrelated by construction." : "One factor: no factor correlations."));
