@@ -36,14 +36,20 @@ ACTIVE = ("queued", "running")
 _PLAN: ResamplePlan | None = None  # the plan of this worker process (set by the initializer)
 
 
+WORKER_NICE = 10  # the workers' scheduling priority below the server's (Linux nice: 0 normal, 19 lowest)
+
+
 def default_workers() -> int:
-    """One worker per core but one (left for the server), at least one."""
-    return max(1, (os.cpu_count() or 2) - 1)
+    """One worker per core. They run at a lower priority than the server (:data:`WORKER_NICE`), so a drop
+    answered during a run takes the core it needs and the run uses every core the server leaves idle."""
+    return max(1, os.cpu_count() or 1)
 
 
 def _init_worker(plan: ResamplePlan) -> None:
     global _PLAN
     _PLAN = plan
+    with contextlib.suppress(OSError, AttributeError):  # no nice() (not POSIX): the normal priority
+        os.nice(WORKER_NICE)
     install_plan(plan)
 
 

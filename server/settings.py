@@ -42,8 +42,9 @@ class Settings:
                                    "bombs); larger workbooks get 413.", 1024.0)
     cache_mb: float = _help("Memory, in megabytes, for parsed datasets kept between requests; the least "
                             "recently used are dropped first (and re-read from disk when needed).", 2048.0)
-    run_workers: int | None = _help("Worker processes of each resampling run; empty means one per core but one "
-                                    "(at least one), so the server keeps answering during a run.", None)
+    run_workers: int | None = _help("Worker processes of each resampling run; empty means one per core. They run "
+                                    "at a lower priority than the server, so it keeps answering drops during a "
+                                    "run.", None)
     max_import_mb: float = _help("Largest workspace backup the dashboard imports, in megabytes (the zip and "
                                  "what it unpacks to; larger get 413); the command-line restore has no such limit.",
                                  2048.0)

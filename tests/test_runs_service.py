@@ -4,6 +4,7 @@ from __future__ import annotations
 import io
 import threading
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -12,7 +13,7 @@ import pytest
 from server.engine import Engine
 from server.errors import NotFound
 from server.intake import read_responses
-from server.runs import RunService, default_workers
+from server.runs import WORKER_NICE, RunService, default_workers
 from server.stats.errors import InputError
 from server.store import Store
 
@@ -83,13 +84,27 @@ def test_shutdown_cancels_active_runs(service):
         service.start(service.dataset_id, {}, n_resamples=5)
 
 
-def test_default_workers_leaves_a_core():
+def test_default_workers_one_per_core_below_the_servers_priority(service):
     import os
-    assert default_workers() == max(1, (os.cpu_count() or 2) - 1)
+
+    assert default_workers() == max(1, os.cpu_count() or 1)
+    seen: dict = {}
+
+    def publish(ds, msg):  # read each worker's nice value (field 19 of /proc/PID/stat) while the run computes
+        for pid in service.get(msg["run_id"]).pids:
+            try:
+                stat = Path(f"/proc/{pid}/stat").read_text()
+            except OSError:
+                continue
+            seen[pid] = int(stat.rsplit(")", 1)[1].split()[16])
+
+    run = service.start(service.dataset_id, {}, n_resamples=40, publish=publish)
+    assert _wait(service, run.run_id).state == "done"
+    assert seen and all(v == min(19, os.nice(0) + WORKER_NICE) for v in seen.values())
 
 
 def test_serve_takes_the_number_of_run_workers():
     from server.__main__ import build_parser
 
     assert build_parser().parse_args(["serve", "--run-workers", "3"]).run_workers == 3
-    assert build_parser().parse_args(["serve"]).run_workers is None  # one per core but one
+    assert build_parser().parse_args(["serve"]).run_workers is None  # one per core
