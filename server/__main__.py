@@ -1,5 +1,6 @@
-"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--database URL] [--demo]``,
-``scalewright migrate [--database URL]``,
+"""Command line: ``scalewright serve [--host 127.0.0.1] [--port 8765] [--data-dir PATH] [--database URL]
+[--workers N] [--demo]``,
+``scalewright migrate [--database URL]``, ``scalewright people add|list|remove ... --database URL``,
 ``scalewright backup --data-dir DIR --out FILE.zip``, ``scalewright restore --data-dir DIR FILE.zip [--merge]``
 and ``scalewright analyse FILE [--codebook FILE] [--json]`` (``server.script``)."""
 from __future__ import annotations
@@ -25,6 +26,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--database", default=None, metavar="URL",
                    help="keep datasets, snapshots and the audit log in this database: postgresql://USER@HOST:PORT/DB "
                         "or sqlite:///PATH (default: the SQLite database and files in --data-dir)")
+    s.add_argument("--workers", type=int, default=1, metavar="N",
+                   help="server processes sharing the --database (default 1; more than one needs PostgreSQL)")
     s.add_argument("--demo", action="store_true", help="load the built-in demo data on first start")
     s.add_argument("--max-upload-mb", type=float, default=100.0, help="largest upload in MB (default 100)")
     s.add_argument("--token", default=None,
@@ -41,14 +44,19 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--max-import-mb", type=float, default=2048.0,
                    help="largest workspace backup the dashboard imports, in MB (default 2048)")
     s.add_argument("--run-workers", type=int, default=None,
-                   help="worker processes of each resampling run (default: one per core but one, at least one)")
+                   help="worker processes of each resampling run (default: one per core, at a lower priority "
+                        "than the server)")
     b = sub.add_parser("backup", help="write the whole data folder into one zip (safe while a server runs)")
     b.add_argument("--data-dir", type=Path, default=Path("data"), help="the data folder (default ./data)")
     b.add_argument("--out", type=Path, required=True, help="the zip file to write")
+    b.add_argument("--database", default=None, metavar="URL",
+                   help="back up this database (postgresql://USER@HOST:PORT/DB or sqlite:///PATH), not --data-dir")
     b.add_argument("--who", default=None, help="your name, for the audit log")
     r = sub.add_parser("restore", help="restore a backup zip into an empty data folder (or --merge)")
     r.add_argument("--data-dir", type=Path, default=Path("data"), help="the data folder (default ./data)")
     r.add_argument("zip", type=Path, help="the backup zip")
+    r.add_argument("--database", default=None, metavar="URL",
+                   help="restore into this database (empty, or --merge), not --data-dir; a folder's backup will do")
     r.add_argument("--merge", action="store_true",
                    help="add the backup's new datasets and snapshots to a folder already in use")
     r.add_argument("--who", default=None, help="your name, for the audit log")
@@ -59,7 +67,66 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the data folder, when no --database is given (default ./data)")
     a = sub.add_parser("analyse", help="analyse a response file and print a summary (or --json, the API's answer)")
     add_analyse_arguments(a)
+    _add_people_parser(sub)
     return p
+
+
+def _add_people_parser(sub) -> None:
+    pe = sub.add_parser("people", help="the people of a team server (--database), their workspaces and roles")
+    acts = pe.add_subparsers(dest="people_command", required=True)
+    for name, text in (("add", "add a person to a workspace and print their access token (shown once)"),
+                       ("list", "list the people, their workspaces and roles"),
+                       ("remove", "remove a person from a workspace (their token stops working)")):
+        q = acts.add_parser(name, help=text)
+        if name != "list":
+            q.add_argument("name", help="the person's name, as shown beside their changes")
+        q.add_argument("--workspace", required=name != "list", default=None,
+                       help="the workspace (created by the first 'add' naming it)")
+        if name == "add":
+            q.add_argument("--role", required=True, choices=("owner", "analyst", "viewer"),
+                           help="owner: members and deletions; analyst: upload, drop, save, restore; viewer: read")
+        q.add_argument("--database", required=True, metavar="URL",
+                       help="the team server's database: postgresql://USER@HOST:PORT/DB or sqlite:///PATH")
+
+
+def _people_command(args) -> int:
+    """``people add|list|remove``: the result on stdout (the token once), or one line of error and exit 1."""
+    from .people import PeopleError, add_person, list_people, remove_person
+    from .sqlstore import SqlStore
+    from .store import StartupError, StorageError
+
+    store = None
+    try:
+        store = SqlStore(args.database)  # migrates first, as the server does
+        if args.people_command == "add":
+            person, token = add_person(store, args.name, workspace=args.workspace, role=args.role)
+            print(f"Added {person['name']} to the workspace {person['workspace']} as {person['role']}.")
+            print("Their personal access token (shown only now; give it to them privately):")
+            print(token, flush=True)
+        elif args.people_command == "list":
+            rows = list_people(store, workspace=args.workspace)
+            for row in rows:
+                print(f"{row['workspace']}\t{row['name']}\t{row['role']}\t{row['created_at']}")
+            if not rows:
+                print(f"Nobody in the workspace {args.workspace}." if args.workspace else
+                      "Nobody yet: the server runs in laptop mode (no sign-in).", flush=True)
+        elif not remove_person(store, args.name, workspace=args.workspace):
+            print(f"scalewright people remove: nobody called {args.name!r} in the workspace "
+                  f"{args.workspace!r}.", file=sys.stderr, flush=True)
+            return 1
+        else:
+            print(f"Removed {args.name} from the workspace {args.workspace}; their token no longer works.")
+        return 0
+    except (PeopleError, StartupError, StorageError) as exc:
+        message = getattr(exc, "message", None) or str(exc)
+    except Exception as exc:  # a driver error (cannot connect, refused): one line, no traceback
+        message = f"{type(exc).__name__}: {getattr(exc, 'orig', None) or exc}"
+    finally:
+        if store is not None:
+            store.close()
+    print(f"scalewright people {args.people_command}: {' '.join(str(message).split())}", file=sys.stderr,
+          flush=True)
+    return 1
 
 
 def _workspace_command(args) -> int:
@@ -70,10 +137,16 @@ def _workspace_command(args) -> int:
     from .store import StartupError, StorageError, data_dir_holder
 
     try:
+        from .backup import backup_database, restore_database  # the SQL store (--database): same zip
+
         if args.command == "backup":
-            out = backup(args.data_dir, args.out, who=args.who)
+            out = (backup_database(args.database, args.out, who=args.who) if args.database
+                   else backup(args.data_dir, args.out, who=args.who))
             print(f"Backed up {out['datasets']} datasets and {out['snapshots']} snapshots to {out['path']} "
                   f"({out['size']} bytes, SHA-256 {out['sha256']}).", flush=True)
+        elif args.database:
+            out = restore_database(args.database, args.zip, merge=args.merge, who=args.who)
+            out["data_dir"] = out["database"]
         else:
             holder = data_dir_holder(args.data_dir)
             if holder is not None:
@@ -81,13 +154,13 @@ def _workspace_command(args) -> int:
                                    f"{holder.get('port', 'unknown')}) is using the data folder {args.data_dir}; "
                                    "stop it first, or import the backup from its dashboard (Workspace & log).")
             out = restore(args.data_dir, args.zip, merge=args.merge, who=args.who)
-            if out["mode"] == "merge":
-                print(f"Merged into {out['data_dir']}: added {len(out['datasets_added'])} datasets and "
-                      f"{len(out['snapshots_added'])} snapshots; skipped {len(out['datasets_skipped'])} datasets "
-                      f"and {len(out['snapshots_skipped'])} snapshots already there.", flush=True)
-            else:
-                print(f"Restored {out['datasets']} datasets and {out['snapshots']} snapshots into {out['data_dir']}.",
-                      flush=True)
+        if args.command == "restore" and out["mode"] == "merge":
+            print(f"Merged into {out['data_dir']}: added {len(out['datasets_added'])} datasets and "
+                  f"{len(out['snapshots_added'])} snapshots; skipped {len(out['datasets_skipped'])} datasets "
+                  f"and {len(out['snapshots_skipped'])} snapshots already there.", flush=True)
+        elif args.command == "restore":
+            print(f"Restored {out['datasets']} datasets and {out['snapshots']} snapshots into {out['data_dir']}.",
+                  flush=True)
         return 0
     except (BackupError, StartupError, StorageError) as exc:
         message = getattr(exc, "message", None) or str(exc)
@@ -152,6 +225,14 @@ def main(argv: list[str] | None = None) -> int:
                             allowed_hosts=args.allowed_hosts, max_items=args.max_items,
                             max_xlsx_cells=args.max_xlsx_cells, max_unpacked_mb=args.max_unpacked_mb,
                             cache_mb=args.cache_mb, max_import_mb=args.max_import_mb, run_workers=args.run_workers)
+        if settings.database_url:  # processes sharing one database, each with its own folder (server/workers.py)
+            from .workers import serve_shared
+
+            return serve_shared(settings, workers=args.workers)
+        if args.workers != 1:
+            print("--workers needs --database: processes share a database, not a data folder.", file=sys.stderr,
+                  flush=True)
+            return 1
         from .store import StartupError, StorageError, lock_data_dir, sweep_upload_leftovers
 
         lock = None
@@ -182,6 +263,8 @@ def main(argv: list[str] | None = None) -> int:
         return _workspace_command(args)
     if args.command == "migrate":
         return _migrate_command(args)
+    if args.command == "people":
+        return _people_command(args)
     if args.command == "analyse":
         return analyse_command(args)
     return 2

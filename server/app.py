@@ -5,7 +5,7 @@ import hmac
 from contextlib import asynccontextmanager
 from pathlib import Path
 
-from fastapi import FastAPI, Request
+from fastapi import Depends, FastAPI, Request
 from fastapi.responses import FileResponse, JSONResponse, Response
 from fastapi.staticfiles import StaticFiles
 from starlette.middleware.gzip import GZipMiddleware
@@ -101,7 +101,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             status, code, message, details = refused
             return JSONResponse(error_body(code, message, details), status_code=status,
                                 headers={"X-Content-Type-Options": "nosniff", "Cache-Control": "no-store"})
-        if settings.token:
+        gate = await authenticate(request)  # a team server's signed-in person (server/auth.py), or 401
+        if gate is not None:
+            return gate
+        if settings.token and not request.state.team:  # laptop mode: the meeting token beyond this machine
             given = (request.headers.get("x-scalewright-token") or request.query_params.get("token")
                      or request.cookies.get("scalewright_token") or "")
             auth = request.headers.get("authorization", "")
@@ -126,13 +129,15 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         routes_datasets,
         routes_live,
         routes_runs,
+        routes_session,
         routes_snapshots,
         routes_workspace,
     )
+    from .auth import authenticate, check_access
 
     for module in (routes_datasets, routes_analysis, routes_snapshots, routes_agreement, routes_live,
-                   routes_workspace, routes_confirmation, routes_runs):
-        app.include_router(module.router, prefix="/api")
+                   routes_workspace, routes_confirmation, routes_runs, routes_session):
+        app.include_router(module.router, prefix="/api", dependencies=[Depends(check_access)])
 
     @app.get("/api/health", response_model=HealthOut)
     def health():

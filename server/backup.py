@@ -55,7 +55,8 @@ from .store import (
     utc_now,
 )
 
-__all__ = ["FORMAT", "MANIFEST", "BackupError", "RestoreConflict", "backup", "restore", "verify"]
+__all__ = ["FORMAT", "MANIFEST", "BackupError", "RestoreConflict", "backup", "backup_database", "restore",
+           "restore_database", "verify"]
 
 FORMAT = "scalewright-backup"
 FORMAT_VERSION = 1
@@ -561,3 +562,203 @@ def _merge(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) 
     finally:
         con.close()
     return {"mode": "merge", "data_dir": str(data_dir), **summary}
+
+
+# ---------------------------------------------------------------- the SQL store (serve --database URL)
+#
+# A database backup is the same zip: the database's datasets, snapshots and audit log are written into a
+# folder-format SQLite file (scalewright.sqlite3, this code's schema) and each upload, read from the database,
+# becomes datasets/<id>/raw and codebook. So a folder backup restores into a database and a database backup
+# into a folder, and ``verify`` checks both alike.
+
+def _open_sql_store(database: str):
+    from .sqlstore import SqlStore
+
+    return SqlStore(database)  # reachable and migrated, or StartupError with one line
+
+
+def backup_database(database: str, out_zip: str | os.PathLike, *, who: str | None = None,
+                    audit: bool = True) -> dict:
+    """Write the database named by ``database`` (a URL) into a backup zip at ``out_zip``; returns a summary.
+
+    Everything is read in one transaction (REPEATABLE READ, read only, on PostgreSQL; one read transaction
+    of SQLite's WAL), so the copy is one consistent state while servers save snapshots and delete datasets.
+    """
+    import sqlalchemy as sa
+
+    from .sqlstore import audit_log, dataset_files, datasets, snapshots
+
+    out_zip = Path(out_zip)
+    if not out_zip.parent.is_dir():
+        raise BackupError(f"The folder {out_zip.parent} for the backup does not exist.")
+    store = _open_sql_store(database)
+    tmp_zip = out_zip.with_name(f".{out_zip.name}.{uuid.uuid4().hex[:8]}.tmp")
+    try:
+        with tempfile.TemporaryDirectory(prefix="scalewright-backup-") as scratch:
+            copy = Path(scratch) / DB_NAME
+            dst = _connect(copy)
+            try:
+                migrate(dst)
+                files = []
+                options = {"isolation_level": "REPEATABLE READ", "postgresql_readonly": True} \
+                    if store.backend == "postgresql" else {}
+                with store.engine.connect().execution_options(**options) as conn, conn.begin(), \
+                        zipfile.ZipFile(tmp_zip, "w", compression=zipfile.ZIP_DEFLATED, compresslevel=6) as zf:
+                    rows = conn.execute(sa.select(*(datasets.c[k] for k in _DATASET_COLS))
+                                        .order_by(datasets.c.seq)).all()
+                    snaps = conn.execute(sa.select(snapshots.c.id, snapshots.c.dataset_id, snapshots.c.created_at,
+                                                   snapshots.c.record).order_by(snapshots.c.seq)).all()
+                    entries = conn.execute(sa.select(audit_log.c.at, audit_log.c.who, audit_log.c.action,
+                                                     audit_log.c.dataset_id, audit_log.c.snapshot_id,
+                                                     audit_log.c.details).order_by(audit_log.c.seq)).all()
+                    for row in rows:
+                        dataset_id, sha, cb_sha = row[0], row[4], row[5]
+                        for kind, expected in [("raw", sha)] + ([("codebook", cb_sha)] if cb_sha else []):
+                            name = f"datasets/{dataset_id}/{kind}"
+                            digest, size = hashlib.sha256(), 0
+                            with zf.open(name, "w", force_zip64=True) as out:
+                                for (part,) in conn.execute(
+                                        sa.select(dataset_files.c.data).where(
+                                            dataset_files.c.dataset_id == dataset_id, dataset_files.c.kind == kind)
+                                        .order_by(dataset_files.c.part), execution_options={"yield_per": 4}):
+                                    part = bytes(part)
+                                    digest.update(part)
+                                    size += len(part)
+                                    out.write(part)
+                            if digest.hexdigest() != expected:
+                                raise BackupError(f"The {kind} file of dataset {dataset_id} does not match its "
+                                                  "recorded SHA-256; the database is damaged.", {"dataset": dataset_id})
+                            files.append({"path": name, "size": size, "sha256": expected})
+                    dst.execute("BEGIN IMMEDIATE")
+                    dst.executemany(f"INSERT INTO datasets ({', '.join(_DATASET_COLS)}) "
+                                    f"VALUES ({', '.join('?' * len(_DATASET_COLS))})", [tuple(r) for r in rows])
+                    dst.executemany("INSERT INTO snapshots (id, dataset_id, created_at, record) VALUES (?, ?, ?, ?)",
+                                    [tuple(r) for r in snaps])
+                    dst.executemany("INSERT INTO audit (at, who, action, dataset_id, snapshot_id, details) "
+                                    "VALUES (?, ?, ?, ?, ?, ?)", [tuple(r) for r in entries])
+                    dst.execute("COMMIT")
+                    dst.execute("PRAGMA journal_mode=DELETE")  # the copy is one self-contained file
+                    version = schema_version(dst)
+                    dst.close()
+                    size, digest = _copy_into(zf, copy, DB_NAME)
+                    files.insert(0, {"path": DB_NAME, "size": size, "sha256": digest})
+                    manifest = {"format": FORMAT, "format_version": FORMAT_VERSION, "software_version": __version__,
+                                "schema_version": version, "created_at": utc_now(), "datasets": len(rows),
+                                "snapshots": len(snaps), "files": files, "source": "database"}
+                    zf.writestr(MANIFEST, json.dumps(manifest, indent=1))
+            finally:
+                dst.close()
+        with open(tmp_zip, "rb") as fh:
+            os.fsync(fh.fileno())
+            zip_sha = _sha256_of(fh)
+        os.replace(tmp_zip, out_zip)
+        _fsync_dir(out_zip.parent)
+        summary = {"path": str(out_zip), "sha256": zip_sha, "size": out_zip.stat().st_size, "datasets": len(rows),
+                   "snapshots": len(snaps), "files": len(files), "schema_version": version}
+        if audit:
+            store.audit("backup", who=who, details={"zip_sha256": zip_sha, "zip_size": summary["size"],
+                                                    "datasets": len(rows), "snapshots": len(snaps),
+                                                    "file": out_zip.name})
+            summary["audited"] = True
+        return summary
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp_zip)
+        raise
+    finally:
+        store.close()
+
+
+def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = False, *, who: str | None = None,
+                     max_bytes: int | None = None, label: str | None = None) -> dict:
+    """Restore a backup zip (of a folder or of a database) into the database named by ``database``.
+
+    Verified first (:func:`verify`). Without ``merge`` the database must hold no dataset and no snapshot;
+    the zip's datasets (files included), snapshots and audit log are added. With ``merge`` the rules of a
+    folder merge apply (new ids added, identical ones skipped, any conflict refuses everything). One
+    transaction: all or nothing. The restore is appended to the database's audit log.
+    """
+    import sqlalchemy as sa
+
+    from .sqlstore import CHUNK_BYTES, audit_log, datasets, snapshots
+
+    zip_path = Path(zip_path)
+    store = _open_sql_store(database)
+    try:
+        with tempfile.TemporaryDirectory(prefix="scalewright-restore-") as scratch:
+            checked = verify(zip_path, scratch, max_bytes=max_bytes, label=label)
+            src = sqlite3.connect(checked.db_copy)
+            try:
+                zip_datasets = src.execute(f"SELECT {', '.join(_DATASET_COLS)} FROM datasets ORDER BY seq").fetchall()
+                zip_snaps = src.execute("SELECT id, dataset_id, created_at, record FROM snapshots "
+                                        "ORDER BY seq").fetchall()
+                zip_audit = src.execute("SELECT at, who, action, dataset_id, snapshot_id, details FROM audit "
+                                        "ORDER BY seq").fetchall()
+            finally:
+                src.close()
+            with store._write() as conn, zipfile.ZipFile(zip_path) as zf:
+                if conn.dialect.name == "postgresql":  # one restore at a time; saves may go on
+                    conn.execute(sa.text("LOCK TABLE datasets IN SHARE ROW EXCLUSIVE MODE"))
+                have_ds = {r[0]: (r[1], r[2]) for r in conn.execute(
+                    sa.select(datasets.c.id, datasets.c.sha256, datasets.c.codebook_sha256))}
+                have_snap = dict(conn.execute(sa.select(snapshots.c.id, snapshots.c.record)).all())
+                if not merge and (have_ds or have_snap):
+                    raise _bad(f"The database {store.url.render_as_string(hide_password=True)} is not empty. "
+                               "Restore into an empty database, or add --merge to add the backup's datasets and "
+                               "snapshots to the ones there.")
+                add_ds, skip_ds, add_snap, skip_snap, conflicts = [], [], [], [], []
+                for row in zip_datasets:
+                    if row[0] not in have_ds:
+                        add_ds.append(row)
+                    elif have_ds[row[0]] == (row[4], row[5]):
+                        skip_ds.append(row[0])
+                    else:
+                        conflicts.append({"dataset": row[0]})
+                for row in zip_snaps:
+                    if row[0] not in have_snap:
+                        add_snap.append(row)
+                    elif have_snap[row[0]] == row[3]:
+                        skip_snap.append(row[0])
+                    else:
+                        conflicts.append({"snapshot": row[0]})
+                if conflicts:
+                    kind, ident = next(iter(conflicts[0].items()))
+                    raise RestoreConflict(
+                        f"The backup's {kind} {ident} has the same id as a different {kind} in this database "
+                        f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
+                        {"conflicts": conflicts[:50]})
+                for row in add_ds:
+                    conn.execute(datasets.insert().values(**dict(zip(_DATASET_COLS, row))))
+                    for kind, sha in (("raw", row[4]), ("codebook", row[5])):
+                        if sha is None:
+                            continue
+                        name = f"datasets/{row[0]}/{kind}"
+                        with zf.open(name) as member:
+                            digest, _ = store._put_file(conn, row[0], kind,
+                                                        iter(lambda m=member: m.read(CHUNK_BYTES), b""))
+                        if digest != sha:
+                            raise _bad(f"The member {name} changed while it was restored; nothing was restored.",
+                                       member=name)
+                for row in add_snap:
+                    conn.execute(snapshots.insert().values(id=row[0], dataset_id=row[1], created_at=row[2],
+                                                           record=row[3]))
+                if not merge:
+                    for row in zip_audit:
+                        conn.execute(audit_log.insert().values(at=row[0], who=row[1], action=row[2],
+                                                               dataset_id=row[3], snapshot_id=row[4], details=row[5]))
+                summary = {"datasets_added": [r[0] for r in add_ds], "datasets_skipped": skip_ds,
+                           "snapshots_added": [r[0] for r in add_snap], "snapshots_skipped": skip_snap}
+                details = {**_restore_details(zip_path, checked), "merge": merge,
+                           "datasets": len(add_ds), "snapshots": len(add_snap)}
+                if merge:
+                    details.update(summary, datasets_added_sha256={r[0]: r[4] for r in add_ds})
+                conn.execute(audit_log.insert().values(at=utc_now(), who=(str(who).strip()[:80] or None) if who
+                                                       else None, action="restore", dataset_id=None,
+                                                       snapshot_id=None, details=json.dumps(details)))
+        where = store.url.render_as_string(hide_password=True)
+        if merge:
+            return {"mode": "merge", "database": where, **summary}
+        return {"mode": "new", "database": where, "datasets": len(add_ds), "snapshots": len(add_snap),
+                "files": len(checked.manifest["files"])}
+    finally:
+        store.close()

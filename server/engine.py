@@ -12,6 +12,13 @@ What is cached, and by what it depends on (CONVENTIONS 7):
   number of factors, through the memo the engine hands to the analysis;
 * whole answers, per canonical settings (a repeated identical request is served from memory).
 
+On a store several processes share (the SQL store: ``serve --workers N`` or several machines), another
+process may delete a dataset, or a restore bring back another content under its id. Every cached entry
+of a dataset then belongs to the version it was made from: each access asks the store for the dataset's
+version (``store.dataset_version``: the SHA-256 of its files and its options, one indexed read), answers
+:class:`NotFound` when it is gone and drops everything cached of an older version (:meth:`Engine.forget`).
+The folder store has no such method: only this process changes it, and its routes call ``forget``.
+
 After each answer the parallel-analysis thresholds of one item fewer (the likely next drop) are drawn on
 a background thread (memoised in ``stats.dimensionality``), so a drop seldom waits for them.
 
@@ -23,6 +30,7 @@ from __future__ import annotations
 import concurrent.futures
 import itertools
 import logging
+import os
 import sys
 import threading
 from collections import OrderedDict
@@ -148,6 +156,9 @@ class Engine:
     def __init__(self, store, *, cache_bytes: int = DEFAULT_CACHE_BYTES):
         self.store = store
         self._lock = threading.RLock()
+        # Analyses computing at once: one per core. Twenty requests in twenty threads would share the cores
+        # and the interpreter lock and all finish late; bounded, they are answered in turn.
+        self._slots = threading.BoundedSemaphore(max(1, os.cpu_count() or 1))
         # Parsed datasets get the whole budget (Settings.cache_mb); the full-pool matrices and whole answers
         # a quarter of it each, the smaller caches a sixteenth each.
         self._datasets: _LRU = _LRU(None, cache_bytes)
@@ -156,6 +167,7 @@ class Engine:
         self._answers: _LRU = _LRU(128, cache_bytes // 4)
         self._references: _LRU = _LRU(64, cache_bytes // 16)
         self._key_locks: dict = {}
+        self._versions: dict[str, str] = {}  # dataset id -> the store's version the cached entries were made from
         # parallel-analysis thresholds of the next likely drop, drawn after each answer (_prefetch_next)
         self._prefetch = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="pa-prefetch")
         self._prefetch_job: concurrent.futures.Future | None = None
@@ -181,8 +193,25 @@ class Engine:
                 parsed.name = record["name"]
             return parsed
 
+        self._check_version(dataset_id)
         # one reading per dataset at a time: an evicted dataset asked for by two requests is read once
         return self._locked(dataset_id, self._datasets, make)
+
+    def _check_version(self, dataset_id: str) -> None:
+        """On a shared store: NotFound if the dataset is gone, and forget what was cached of another version."""
+        version_of = getattr(self.store, "dataset_version", None)
+        if version_of is None:
+            return
+        version = version_of(dataset_id)
+        with self._lock:
+            known = self._versions.get(dataset_id)
+            if version == known:
+                return
+            if version is None or known is not None:
+                self.forget(dataset_id)
+            if version is None:
+                raise NotFound("dataset", dataset_id)
+            self._versions[dataset_id] = version
 
     def pool_items(self, dataset_id: str) -> list[str]:
         """Every item that can enter an analysis (the full pool less items without variance)."""
@@ -225,6 +254,7 @@ class Engine:
     def forget(self, dataset_id: str) -> None:
         """Drop everything cached about a dataset (after it was deleted or replaced)."""
         with self._lock:
+            self._versions.pop(dataset_id, None)
             for cache in (self._datasets, self._pools, self._descriptives, self._answers, self._references):
                 for key in [k for k in cache if k == dataset_id or (isinstance(k, tuple) and k[0] == dataset_id)]:
                     del cache[key]
@@ -346,8 +376,11 @@ class Engine:
                 ) -> AnalysisAnswer:
         """The whole analysis (cached per canonical settings); a mapping is checked by :meth:`settings` first."""
         s = self._settings(dataset_id, settings)
-        answer = self._locked((dataset_id, s.key()), self._answers,
-                              lambda: run(self.inputs(dataset_id, s), s))
+        def make() -> AnalysisAnswer:
+            with self._slots:  # at most one analysis per core computes; more requests wait their turn
+                return run(self.inputs(dataset_id, s), s)
+
+        answer = self._locked((dataset_id, s.key()), self._answers, make)
         self._prefetch_next(s, answer)
         return answer
 

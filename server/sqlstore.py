@@ -9,7 +9,12 @@ it without a shared folder:
 - ``dataset_files``: the uploaded response file and codebook byte for byte, in parts of at most 1 MB
   (an upload is streamed in and never held whole in memory), with their SHA-256 in ``datasets``;
 - ``snapshots``: the immutable records; triggers refuse UPDATE and DELETE (and TRUNCATE on PostgreSQL);
-- ``audit``: the append-only log, protected the same way.
+- ``audit``: the append-only log, protected the same way;
+- ``workspaces``, ``people``, ``memberships`` (revision 0003; ``server/people.py``): datasets, snapshots and
+  audit entries carry a ``workspace_id``. While a request acts as a signed-in person (:data:`ACTING`, set by
+  ``server/auth.py``) every read is limited to their workspace, new rows go to it, and the audit log and a
+  snapshot's author name that person; otherwise (laptop mode, the command line) nothing is limited and new
+  rows go to the workspace ``default``.
 
 The schema is made and upgraded by the Alembic revisions in ``server/migrations/`` (:func:`upgrade`, run by
 ``SqlStore()`` and by ``scalewright migrate``), in one transaction that holds a lock, so two processes
@@ -22,6 +27,8 @@ import json
 import os
 from collections.abc import Iterator
 from contextlib import contextmanager, suppress
+from contextvars import ContextVar
+from dataclasses import dataclass
 from pathlib import Path
 
 import sqlalchemy as sa
@@ -39,8 +46,8 @@ from .store import (
     utc_now,
 )
 
-__all__ = ["CHUNK_BYTES", "MIGRATIONS_DIR", "SqlStore", "current_revision", "head_revision", "normalise_url",
-           "upgrade"]
+__all__ = ["ACTING", "CHUNK_BYTES", "DEFAULT_WORKSPACE", "MIGRATIONS_DIR", "Actor", "SqlStore", "current_revision",
+           "head_revision", "normalise_url", "upgrade"]
 
 MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
 CHUNK_BYTES = 1 << 20  # one row of dataset_files holds at most this many bytes of an upload
@@ -54,6 +61,7 @@ datasets = sa.Table(
     sa.Column("codebook_filename", sa.Text), sa.Column("sha256", sa.String(64)),
     sa.Column("codebook_sha256", sa.String(64)), sa.Column("size_bytes", sa.BigInteger),
     sa.Column("options", sa.Text), sa.Column("meta", sa.Text), sa.Column("created_at", sa.String(32)),
+    sa.Column("workspace_id", sa.String(64)),
 )
 dataset_files = sa.Table(
     "dataset_files", _meta,
@@ -64,14 +72,61 @@ snapshots = sa.Table(
     "snapshots", _meta,
     sa.Column("seq", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
     sa.Column("id", sa.String(64)), sa.Column("dataset_id", sa.String(64)),
-    sa.Column("created_at", sa.String(32)), sa.Column("record", sa.Text),
+    sa.Column("created_at", sa.String(32)), sa.Column("record", sa.Text), sa.Column("workspace_id", sa.String(64)),
 )
 audit_log = sa.Table(
     "audit", _meta,
     sa.Column("seq", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True),
     sa.Column("at", sa.String(32)), sa.Column("who", sa.Text), sa.Column("action", sa.Text),
     sa.Column("dataset_id", sa.String(64)), sa.Column("snapshot_id", sa.String(64)), sa.Column("details", sa.Text),
+    sa.Column("workspace_id", sa.String(64)),
 )
+# revision 0003: people, workspaces and memberships (server/people.py reads and writes them)
+workspaces = sa.Table(
+    "workspaces", _meta,
+    sa.Column("id", sa.String(64), primary_key=True), sa.Column("name", sa.Text),
+    sa.Column("created_at", sa.String(32)),
+)
+people = sa.Table(
+    "people", _meta,
+    sa.Column("id", sa.String(64), primary_key=True), sa.Column("name", sa.Text),
+    sa.Column("token_key", sa.String(32)), sa.Column("token_salt", sa.LargeBinary),
+    sa.Column("token_hash", sa.LargeBinary), sa.Column("created_at", sa.String(32)),
+)
+memberships = sa.Table(
+    "memberships", _meta,
+    sa.Column("person_id", sa.String(64), primary_key=True), sa.Column("workspace_id", sa.String(64)),
+    sa.Column("role", sa.String(16)),
+)
+DEFAULT_WORKSPACE = "default"  # rows written without a signed-in person (laptop mode, earlier revisions)
+
+
+@dataclass(frozen=True)
+class Actor:
+    """The signed-in person a request acts as: their id and name, their workspace and role there."""
+
+    person_id: str
+    name: str
+    workspace_id: str
+    workspace: str
+    role: str
+
+
+# The person the current request acts as (set by server.auth for its duration); None: laptop mode, the
+# command line, or a background job, which see every workspace and write to DEFAULT_WORKSPACE.
+ACTING: ContextVar[Actor | None] = ContextVar("scalewright_acting", default=None)
+
+
+def _scoped(query, table: sa.Table):
+    """``query`` restricted to the acting person's workspace (unchanged when nobody is signed in)."""
+    actor = ACTING.get()
+    return query if actor is None else query.where(table.c.workspace_id == actor.workspace_id)
+
+
+def _workspace_now() -> str:
+    actor = ACTING.get()
+    return DEFAULT_WORKSPACE if actor is None else actor.workspace_id
+
 _DATASET_KEYS = ("id", "name", "filename", "codebook_filename", "sha256", "codebook_sha256", "size_bytes",
                  "options", "meta", "created_at")
 _AUDIT_KEYS = ("seq", "at", "who", "action", "dataset_id", "snapshot_id", "details")
@@ -174,16 +229,23 @@ def upgrade(engine: Engine, revision: str = "head") -> tuple[str | None, str]:
         command.upgrade(_alembic_config(conn), revision)
         now = current_revision(conn)
         if found is not None and now != found and sa.inspect(conn).has_table("audit"):
-            _append_audit(conn, "schema_upgrade", details={"from": found, "to": now})
+            has_workspace = any(c["name"] == "workspace_id" for c in sa.inspect(conn).get_columns("audit"))
+            _append_audit(conn, "schema_upgrade", details={"from": found, "to": now}, workspace=has_workspace)
     return found, now
 
 
 def _append_audit(conn: Connection, action: str, *, who: str | None = None, dataset_id: str | None = None,
-                  snapshot_id: str | None = None, details: dict | None = None) -> dict:
+                  snapshot_id: str | None = None, details: dict | None = None, workspace: bool = True) -> dict:
+    actor = ACTING.get()
+    if actor is not None:  # a signed-in person: their name, never a typed one
+        who = actor.name
     entry = {"at": utc_now(), "who": _text((str(who).strip()[:80] or None) if who is not None else None),
              "action": _text(str(action)), "dataset_id": _text(dataset_id), "snapshot_id": _text(snapshot_id),
              "details": json.loads(_dumps(details or {}))}
-    result = conn.execute(audit_log.insert().values(**{**entry, "details": _dumps(entry["details"])}))
+    row = {**entry, "details": _dumps(entry["details"])}
+    if workspace:  # the column exists from revision 0003 on
+        row["workspace_id"] = _workspace_now()
+    result = conn.execute(audit_log.insert().values(**row))
     return {"seq": result.inserted_primary_key[0], **entry}
 
 
@@ -299,7 +361,7 @@ class SqlStore:
                     id=dataset_id, name=record["name"], filename=record["filename"],
                     codebook_filename=record["codebook_filename"], sha256="", codebook_sha256=None,
                     size_bytes=0, options=_dumps(record["options"]), meta=_dumps(record["meta"]),
-                    created_at=record["created_at"]))
+                    created_at=record["created_at"], workspace_id=_workspace_now()))
                 if raw_path is not None:
                     with open(raw_path, "rb") as fh:
                         record["sha256"], record["size_bytes"] = self._put_file(
@@ -350,13 +412,23 @@ class SqlStore:
         if not _is_id(dataset_id):
             return None
         with self._read() as conn:
-            row = conn.execute(self._dataset_query().where(datasets.c.id == dataset_id)).first()
+            row = conn.execute(_scoped(self._dataset_query().where(datasets.c.id == dataset_id), datasets)).first()
         return self._dataset_row(row) if row else None
+
+    def dataset_version(self, dataset_id: str) -> str | None:
+        """What a cached copy of the dataset depends on (the SHA-256 of its files and its options), in one
+        indexed read; None when it is not (or no longer) in the database. The engine checks it on access."""
+        if not _is_id(dataset_id):
+            return None
+        with self._read() as conn:
+            row = conn.execute(sa.select(datasets.c.sha256, datasets.c.codebook_sha256, datasets.c.options)
+                               .where(datasets.c.id == dataset_id)).first()
+        return None if row is None else f"{row[0]}:{row[1] or ''}:{hashlib.sha256(row[2].encode()).hexdigest()}"
 
     def list_datasets(self) -> list[dict]:
         """All datasets, newest first."""
         with self._read() as conn:
-            rows = conn.execute(self._dataset_query().order_by(datasets.c.seq.desc())).all()
+            rows = conn.execute(_scoped(self._dataset_query(), datasets).order_by(datasets.c.seq.desc())).all()
         return [self._dataset_row(r) for r in rows]
 
     def delete_dataset(self, dataset_id: str) -> bool:
@@ -364,6 +436,9 @@ class SqlStore:
         if not _is_id(dataset_id):
             return False
         with self._write() as conn:
+            if conn.execute(_scoped(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id), datasets)).first() \
+                    is None:
+                return False
             conn.execute(dataset_files.delete().where(dataset_files.c.dataset_id == dataset_id))
             return conn.execute(datasets.delete().where(datasets.c.id == dataset_id)).rowcount > 0
 
@@ -371,7 +446,8 @@ class SqlStore:
         if not _is_id(dataset_id):
             raise KeyError(dataset_id)
         with self._read() as conn:
-            if conn.execute(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id)).first() is None:
+            if conn.execute(_scoped(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id),
+                                    datasets)).first() is None:
                 raise KeyError(dataset_id)
             rows = conn.execute(sa.select(dataset_files.c.data).where(
                 dataset_files.c.dataset_id == dataset_id, dataset_files.c.kind == kind)
@@ -398,25 +474,30 @@ class SqlStore:
         if not _is_id(dataset_id):
             raise KeyError(dataset_id)
         stored = dict(record)
+        actor = ACTING.get()
+        if actor is not None:  # the signed-in person is the author, whatever name was typed
+            stored["author"] = actor.name
         stored["id"] = new_id()
         stored["dataset_id"] = dataset_id
         stored["created_at"] = utc_now()
         text = _dumps(stored)
         with self._write() as conn:
             # FOR SHARE on PostgreSQL: a delete of the dataset waits until this snapshot is in
-            found = conn.execute(sa.select(datasets.c.seq).where(datasets.c.id == dataset_id)
-                                 .with_for_update(read=True)).first()
+            found = conn.execute(_scoped(sa.select(datasets.c.workspace_id).where(datasets.c.id == dataset_id),
+                                         datasets).with_for_update(read=True)).first()
             if found is None:
                 raise KeyError(dataset_id)
             conn.execute(snapshots.insert().values(id=stored["id"], dataset_id=dataset_id,
-                                                   created_at=stored["created_at"], record=text))
+                                                   created_at=stored["created_at"], record=text,
+                                                   workspace_id=found[0]))
         return json.loads(text)
 
     def get_snapshot(self, snapshot_id: str) -> dict | None:
         if not _is_id(snapshot_id):
             return None
         with self._read() as conn:
-            row = conn.execute(sa.select(snapshots.c.record).where(snapshots.c.id == snapshot_id)).first()
+            row = conn.execute(_scoped(sa.select(snapshots.c.record).where(snapshots.c.id == snapshot_id),
+                                       snapshots)).first()
         return json.loads(row[0]) if row else None
 
     def list_snapshots(self, dataset_id: str) -> list[dict]:
@@ -424,8 +505,8 @@ class SqlStore:
         if not _is_id(dataset_id):
             return []
         with self._read() as conn:
-            rows = conn.execute(sa.select(snapshots.c.record).where(snapshots.c.dataset_id == dataset_id)
-                                .order_by(snapshots.c.seq.desc())).all()
+            rows = conn.execute(_scoped(sa.select(snapshots.c.record).where(snapshots.c.dataset_id == dataset_id),
+                                        snapshots).order_by(snapshots.c.seq.desc())).all()
         return [json.loads(r[0]) for r in rows]
 
     # ---- audit log (append-only: triggers refuse UPDATE and DELETE)
@@ -438,7 +519,7 @@ class SqlStore:
 
     def list_audit(self, *, dataset_id: str | None = None, limit: int | None = None) -> list[dict]:
         """Audit entries, newest first (by ``seq``); only those naming ``dataset_id`` when given."""
-        query = sa.select(*(audit_log.c[k] for k in _AUDIT_KEYS)).order_by(audit_log.c.seq.desc())
+        query = _scoped(sa.select(*(audit_log.c[k] for k in _AUDIT_KEYS)), audit_log).order_by(audit_log.c.seq.desc())
         if dataset_id is not None:
             if not _is_id(dataset_id):
                 return []

@@ -3,7 +3,10 @@
 ``GET /api/datasets/{id}/events`` is a server-sent-events stream (``text/event-stream``);
 ``POST /api/datasets/{id}/events`` with JSON ``{who, action, state, sender?, browser?}`` relays the message
 to every *other* listener of that dataset. Nothing is stored: the hub lives in memory on
-``app.state.live`` and forgets everything at restart.
+``app.state.live`` and forgets everything at restart. With the shared store on PostgreSQL, several
+processes serve the team: each hub also sends what is posted to it through PostgreSQL's NOTIFY and
+publishes what the other processes send (``server/notify.py``), so a change reaches every page whatever
+process serves it (``delivered`` and ``presence`` count this process's pages).
 
 Stream format (one SSE event per message)::
 
@@ -46,6 +49,7 @@ from fastapi import APIRouter, Request
 from fastapi.responses import StreamingResponse
 from pydantic import BaseModel, Field
 
+from ..auth import signed_in_name
 from .errors import ApiError, not_found
 from .openapi import error_responses
 
@@ -77,6 +81,7 @@ class LiveHub:
         self._seq = itertools.count(1)
         self.closing = False
         self._signals_wrapped = False
+        self.relay = None  # server.notify.PgRelay on the shared PostgreSQL store (set by hub_of)
 
     def subscribe(self, dataset: str) -> Listener:
         group = self._listeners.setdefault(dataset, {})
@@ -132,9 +137,18 @@ class LiveHub:
                 pass
         return seq, delivered
 
+    def deliver_remote(self, kind: str, dataset: str, message: dict[str, Any], sender: str | None) -> None:
+        """Publish a message another process sent (``kind`` ``change``, or ``progress`` that keeps the last change)."""
+        if kind == "progress":
+            _publish_keeping_last(self, dataset, message)
+        else:
+            self.publish(dataset, message, sender)
+
     def close_all(self) -> None:
         """End every open stream (server shutdown)."""
         self.closing = True
+        if self.relay is not None:
+            self.relay.stop()
         for group in list(self._listeners.values()):
             for listener in list(group.values()):
                 # a full queue: the stream still sees ``closing`` on its next poll
@@ -169,7 +183,11 @@ def hub_of(request: Request) -> LiveHub:
     app = request.app
     hub = getattr(app.state, "live", None)
     if hub is None:
+        from ..notify import relay_for
+
         hub = app.state.live = LiveHub()
+        # called from the async routes, on the event loop the relay hands messages to
+        hub.relay = relay_for(getattr(app.state, "store", None), asyncio.get_running_loop(), hub.deliver_remote)
     return hub
 
 
@@ -197,6 +215,9 @@ async def events(dataset_id: str, request: Request) -> StreamingResponse:
     hub.wrap_signal_handlers()
     if hub.closing:
         raise ApiError(503, "shutting_down", "The server is shutting down.")
+    if hub.relay is not None and not await asyncio.to_thread(hub.relay.wait_ready, 5.0):
+        raise ApiError(503, "live_unavailable", "The live channel cannot reach the database server now; the page "
+                       "will try again shortly.")
     listener = hub.subscribe(dataset_id)
 
     async def stream():
@@ -251,10 +272,13 @@ async def post_event(dataset_id: str, message: LiveMessage, request: Request) ->
         raise ApiError(413, "too_large", f"The shared state is {size} bytes; at most {MAX_STATE_BYTES} are relayed.",
                        {"bytes": size, "limit": MAX_STATE_BYTES})
     hub = hub_of(request)
-    seq, delivered = hub.publish(dataset_id, {"who": message.who, "action": message.action,
-                                              "state": message.state, "detail": message.detail,
-                                              "browser": message.browser},
-                                 message.sender)
+    body = {"who": signed_in_name(request, message.who), "action": message.action, "state": message.state,
+            "detail": message.detail, "browser": message.browser}
+    seq, delivered = hub.publish(dataset_id, body, message.sender)
+    if hub.relay is not None:  # the pages served by the other processes
+        from ..notify import send_quietly
+
+        await asyncio.to_thread(send_quietly, hub.relay, "change", dataset_id, body, message.sender)
     return {"seq": seq, "delivered": delivered, "listeners": hub.count(dataset_id)}
 
 
@@ -264,13 +288,18 @@ def publish_threadsafe(hub: LiveHub, loop: asyncio.AbstractEventLoop, dataset: s
     The hub lives on the event loop, so the call is handed to it; the dataset's last change (replayed to
     pages that join later) is kept as it was, since a progress message is not a change of the shared state.
     """
-    def send() -> None:
-        last = hub._last.get(dataset)
-        hub.publish(dataset, message, None)
-        if last is None:
-            hub._last.pop(dataset, None)
-        else:
-            hub._last[dataset] = last
-
     with contextlib.suppress(RuntimeError):  # the loop is closed: the server is stopping
-        loop.call_soon_threadsafe(send)
+        loop.call_soon_threadsafe(_publish_keeping_last, hub, dataset, message)
+    if hub.relay is not None:  # this thread is not the event loop: sending here blocks only the run
+        from ..notify import send_quietly
+
+        send_quietly(hub.relay, "progress", dataset, message, None)
+
+
+def _publish_keeping_last(hub: LiveHub, dataset: str, message: dict[str, Any]) -> None:
+    last = hub._last.get(dataset)
+    hub.publish(dataset, message, None)
+    if last is None:
+        hub._last.pop(dataset, None)
+    else:
+        hub._last[dataset] = last
