@@ -30,14 +30,21 @@ CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline';
 
 
 def _stop_runs_with(app: FastAPI) -> None:
-    """Cancel the resampling runs (and terminate their worker processes) when the app stops."""
+    """At start, the live relay on a shared store; at stop, cancel the resampling runs (and terminate their worker
+    processes), stop the relay and close the SQL store's connections."""
     previous = app.router.lifespan_context
 
     @asynccontextmanager
     async def lifespan(a):
+        from .notify import start_live_relay, stop_live_relay
+
+        await start_live_relay(a)  # the shared store: other processes' changes are kept from the start
         async with previous(a) as state:
             yield state
+        stop_live_relay(a)
         a.state.runs.shutdown()
+        if a.state.settings.database_url:  # the SQL store: its pooled connections
+            a.state.store.close()
 
     app.router.lifespan_context = lifespan
 

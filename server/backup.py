@@ -8,6 +8,10 @@ The zip holds::
                                    server runs and writes), in rollback-journal mode (one file)
     datasets/<id>/raw              each dataset's uploaded file, byte for byte
     datasets/<id>/codebook         its codebook, when there was one
+    team.json                      (backups of a SQL store only) workspaces, people with their token hashes,
+                                   memberships, and the workspace of every dataset, snapshot and audit entry;
+                                   a folder restore ignores it, a database restore without it puts
+                                   everything in the workspace "default"
 
 :func:`restore` checks everything before it writes anything: the manifest lists exactly the zip's
 members, every name is one of the forms above (so no ``../`` or absolute path can be written), every
@@ -63,7 +67,8 @@ FORMAT_VERSION = 1
 MANIFEST = "manifest.json"
 MAX_MANIFEST_BYTES = 16 * 1024 * 1024
 CHUNK = 1024 * 1024
-_MEMBER = re.compile(r"^(?:scalewright\.sqlite3|datasets/([A-Za-z0-9_-]{1,64})/(raw|codebook))$")
+TEAM = "team.json"
+_MEMBER = re.compile(r"^(?:scalewright\.sqlite3|team\.json|datasets/([A-Za-z0-9_-]{1,64})/(raw|codebook))$")
 _SHA = re.compile(r"^[0-9a-f]{64}$")
 
 
@@ -227,6 +232,7 @@ class _Verified:
     def __init__(self, manifest: dict, zip_sha: str, db_copy: Path, sizes: dict, label: str):
         self.manifest, self.zip_sha, self.db_copy, self.sizes = manifest, zip_sha, db_copy, sizes
         self.label = label
+        self.team: dict | None = None  # the checked team.json of a SQL store's backup, when there is one
 
 
 def _bad(message: str, **details) -> BackupError:
@@ -347,8 +353,65 @@ def verify(zip_path: str | os.PathLike, scratch: str | os.PathLike, *, max_bytes
             if digest != entry["sha256"]:
                 raise _bad(f"The member {name} of {label} does not match its SHA-256 in the manifest: the zip was "
                            "altered or damaged. Nothing was restored.", member=name)
+        team = _read_team(zf, listed[TEAM]["size"], label) if TEAM in listed else None
     _check_database(db_copy, listed, label)
-    return _Verified(manifest, zip_sha, db_copy, {n: e["size"] for n, e in listed.items()}, label)
+    checked = _Verified(manifest, zip_sha, db_copy, {n: e["size"] for n, e in listed.items()}, label)
+    checked.team = team
+    return checked
+
+
+_ROLES = ("owner", "analyst", "viewer")
+
+
+def _read_team(zf: zipfile.ZipFile, size: int, label: str) -> dict:
+    """The team.json member, checked field by field (BackupError naming the first bad entry)."""
+    if size > MAX_MANIFEST_BYTES:
+        raise _bad(f"The {TEAM} in {label} is {size} bytes, too large.")
+    try:
+        team = json.loads(zf.read(TEAM).decode("utf-8"))
+    except (ValueError, UnicodeDecodeError, zipfile.BadZipFile, zlib.error, EOFError):
+        raise _bad(f"The {TEAM} in {label} cannot be read as JSON.") from None
+
+    def bad(what, value):
+        return _bad(f"The {TEAM} in {label} has a malformed {what}: {json.dumps(value)[:200]}.", member=TEAM)
+
+    def text(v, n=200):
+        return isinstance(v, str) and 0 < len(v) <= n and "\x00" not in v
+
+    def hexbytes(v):
+        return isinstance(v, str) and len(v) <= 256 and re.fullmatch(r"(?:[0-9a-f]{2})+", v) is not None
+
+    if not isinstance(team, dict):
+        raise bad("content", team)
+    for key in ("workspaces", "people", "memberships", "audit"):
+        if not isinstance(team.get(key), list):
+            raise bad(key, team.get(key))
+    for key in ("datasets", "snapshots"):
+        if not isinstance(team.get(key), dict):
+            raise bad(key, team.get(key))
+    for w in team["workspaces"]:
+        if not (isinstance(w, dict) and text(w.get("id"), 64) and text(w.get("name"))
+                and text(w.get("created_at"), 32)):
+            raise bad("workspace", w)
+    for p in team["people"]:
+        if not (isinstance(p, dict) and text(p.get("id"), 64) and text(p.get("name")) and text(p.get("token_key"), 32)
+                and hexbytes(p.get("token_salt")) and hexbytes(p.get("token_hash")) and text(p.get("created_at"), 32)):
+            raise bad("person", {k: v for k, v in p.items() if k not in ("token_salt", "token_hash")}
+                      if isinstance(p, dict) else p)
+    known_ws = {w["id"] for w in team["workspaces"]}
+    known_people = {p["id"] for p in team["people"]}
+    for m in team["memberships"]:
+        if not (isinstance(m, dict) and m.get("person_id") in known_people and m.get("workspace_id") in known_ws
+                and m.get("role") in _ROLES):
+            raise bad("membership", m)
+    for key in ("datasets", "snapshots"):
+        for ident, ws in team[key].items():
+            if ws not in known_ws:
+                raise bad(f"workspace of {key[:-1]} {ident}", ws)
+    for ws in team["audit"]:
+        if ws not in known_ws:
+            raise bad("workspace of an audit entry", ws)
+    return team
 
 
 def _check_database(db_copy: Path, listed: dict, label: str) -> None:
@@ -377,7 +440,7 @@ def _check_database(db_copy: Path, listed: dict, label: str) -> None:
             if path not in listed or listed[path]["sha256"] != expected:
                 raise _bad(f"The dataset {dataset_id} in {label} lacks its {kind} file, or the file does not match "
                            "the SHA-256 recorded in the database.", dataset=dataset_id)
-    orphans = sorted(set(listed) - known - {DB_NAME})
+    orphans = sorted(set(listed) - known - {DB_NAME, TEAM})
     if orphans:
         raise _bad(f"{label} holds {orphans[0]}, which belongs to no dataset in its database.", member=orphans[0])
 
@@ -454,6 +517,8 @@ def _restore_fresh(data_dir: Path, zip_path: Path, checked: _Verified, who: str 
         (staging / "datasets").mkdir()
         with zipfile.ZipFile(zip_path) as zf:
             for entry in checked.manifest["files"]:
+                if entry["path"] == TEAM:  # a folder has no people or workspaces
+                    continue
                 target = staging / entry["path"]
                 target.parent.mkdir(parents=True, exist_ok=True)
                 _extract(zf, entry["path"], entry["size"], entry["sha256"], target)
@@ -568,8 +633,10 @@ def _merge(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) 
 #
 # A database backup is the same zip: the database's datasets, snapshots and audit log are written into a
 # folder-format SQLite file (scalewright.sqlite3, this code's schema) and each upload, read from the database,
-# becomes datasets/<id>/raw and codebook. So a folder backup restores into a database and a database backup
-# into a folder, and ``verify`` checks both alike.
+# becomes datasets/<id>/raw and codebook; team.json adds the workspaces, people (token hashes) and memberships,
+# and which workspace each dataset, snapshot and audit entry belongs to (a folder restore leaves it out).
+# So a folder backup restores into a database and a database backup into a folder, and ``verify`` checks
+# both alike.
 
 def _open_sql_store(database: str):
     from .sqlstore import SqlStore
@@ -611,6 +678,7 @@ def backup_database(database: str, out_zip: str | os.PathLike, *, who: str | Non
                     entries = conn.execute(sa.select(audit_log.c.at, audit_log.c.who, audit_log.c.action,
                                                      audit_log.c.dataset_id, audit_log.c.snapshot_id,
                                                      audit_log.c.details).order_by(audit_log.c.seq)).all()
+                    team = _team_of(conn)
                     for row in rows:
                         dataset_id, sha, cb_sha = row[0], row[4], row[5]
                         for kind, expected in [("raw", sha)] + ([("codebook", cb_sha)] if cb_sha else []):
@@ -642,6 +710,10 @@ def backup_database(database: str, out_zip: str | os.PathLike, *, who: str | Non
                     dst.close()
                     size, digest = _copy_into(zf, copy, DB_NAME)
                     files.insert(0, {"path": DB_NAME, "size": size, "sha256": digest})
+                    team_bytes = json.dumps(team, indent=1, sort_keys=True).encode()
+                    zf.writestr(TEAM, team_bytes)
+                    files.insert(1, {"path": TEAM, "size": len(team_bytes),
+                                     "sha256": hashlib.sha256(team_bytes).hexdigest()})
                     manifest = {"format": FORMAT, "format_version": FORMAT_VERSION, "software_version": __version__,
                                 "schema_version": version, "created_at": utc_now(), "datasets": len(rows),
                                 "snapshots": len(snaps), "files": files, "source": "database"}
@@ -669,18 +741,92 @@ def backup_database(database: str, out_zip: str | os.PathLike, *, who: str | Non
         store.close()
 
 
+def _team_of(conn) -> dict:
+    """The team.json content of a SQL store, read on ``conn`` (the backup's transaction)."""
+    import sqlalchemy as sa
+
+    from .sqlstore import audit_log, datasets, memberships, people, snapshots, workspaces
+
+    return {
+        "workspaces": [{"id": r[0], "name": r[1], "created_at": r[2]} for r in conn.execute(
+            sa.select(workspaces.c.id, workspaces.c.name, workspaces.c.created_at).order_by(workspaces.c.id))],
+        "people": [{"id": r[0], "name": r[1], "token_key": r[2], "token_salt": bytes(r[3]).hex(),
+                    "token_hash": bytes(r[4]).hex(), "created_at": r[5]} for r in conn.execute(
+            sa.select(people.c.id, people.c.name, people.c.token_key, people.c.token_salt, people.c.token_hash,
+                      people.c.created_at).order_by(people.c.id))],
+        "memberships": [{"person_id": r[0], "workspace_id": r[1], "role": r[2]} for r in conn.execute(
+            sa.select(memberships.c.person_id, memberships.c.workspace_id, memberships.c.role)
+            .order_by(memberships.c.person_id))],
+        "datasets": dict(conn.execute(sa.select(datasets.c.id, datasets.c.workspace_id)).all()),
+        "snapshots": dict(conn.execute(sa.select(snapshots.c.id, snapshots.c.workspace_id)).all()),
+        "audit": [r[0] for r in conn.execute(sa.select(audit_log.c.workspace_id).order_by(audit_log.c.seq))],
+    }
+
+
+def _restore_team(conn, team: dict, label: str) -> dict:
+    """Add the team's workspaces, people and memberships that the database lacks (same ids); a workspace,
+    person or token key that exists with other content is a conflict. Returns {workspace id: id to use}."""
+    import sqlalchemy as sa
+
+    from .sqlstore import memberships, people, workspaces
+
+    conflicts = []
+    have_ws = {r[0]: r[1] for r in conn.execute(sa.select(workspaces.c.id, workspaces.c.name))}
+    by_name = {name: ident for ident, name in have_ws.items()}
+    add_ws = []
+    for w in team["workspaces"]:
+        if w["id"] in have_ws:
+            if have_ws[w["id"]] != w["name"]:
+                conflicts.append({"workspace": w["id"]})
+        elif w["name"] in by_name:
+            conflicts.append({"workspace": w["name"]})
+        else:
+            add_ws.append(w)
+    have_people = {r[0]: (r[1], r[2]) for r in conn.execute(sa.select(people.c.id, people.c.token_key,
+                                                                      people.c.token_hash))}
+    keys = {v[0] for v in have_people.values()}
+    add_people = []
+    for p in team["people"]:
+        if p["id"] in have_people:
+            if have_people[p["id"]] != (p["token_key"], bytes.fromhex(p["token_hash"])):
+                conflicts.append({"person": p["id"]})
+        elif p["token_key"] in keys:
+            conflicts.append({"person": p["id"]})
+        else:
+            add_people.append(p)
+    if conflicts:
+        kind, ident = next(iter(conflicts[0].items()))
+        raise RestoreConflict(f"The backup's {kind} {ident} differs from the one of the same id or name in this "
+                              f"database ({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing "
+                              "was restored.", {"conflicts": conflicts[:50], "file": label})
+    for w in add_ws:
+        conn.execute(workspaces.insert().values(**w))
+    added = {p["id"] for p in add_people}
+    for p in add_people:
+        conn.execute(people.insert().values(id=p["id"], name=p["name"], token_key=p["token_key"],
+                                            token_salt=bytes.fromhex(p["token_salt"]),
+                                            token_hash=bytes.fromhex(p["token_hash"]), created_at=p["created_at"]))
+    for m in team["memberships"]:
+        if m["person_id"] in added:
+            conn.execute(memberships.insert().values(**m))
+    return {"workspaces": len(add_ws), "people": len(add_people)}
+
+
 def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = False, *, who: str | None = None,
                      max_bytes: int | None = None, label: str | None = None) -> dict:
     """Restore a backup zip (of a folder or of a database) into the database named by ``database``.
 
     Verified first (:func:`verify`). Without ``merge`` the database must hold no dataset and no snapshot;
-    the zip's datasets (files included), snapshots and audit log are added. With ``merge`` the rules of a
-    folder merge apply (new ids added, identical ones skipped, any conflict refuses everything). One
+    the zip's datasets (files included), snapshots and audit log are added, with the workspaces, people
+    (their token hashes, so their tokens still sign in) and memberships of a SQL store's backup; a backup
+    without them (a folder's, or an older one) puts everything in the workspace ``default``. With ``merge``
+    the rules of a folder merge apply (new ids added, identical ones skipped, any conflict refuses
+    everything; a workspace or person of the same id or name with other content is a conflict too). One
     transaction: all or nothing. The restore is appended to the database's audit log.
     """
     import sqlalchemy as sa
 
-    from .sqlstore import CHUNK_BYTES, audit_log, datasets, snapshots
+    from .sqlstore import CHUNK_BYTES, DEFAULT_WORKSPACE, audit_log, datasets, snapshots
 
     zip_path = Path(zip_path)
     store = _open_sql_store(database)
@@ -727,8 +873,14 @@ def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = F
                         f"The backup's {kind} {ident} has the same id as a different {kind} in this database "
                         f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
                         {"conflicts": conflicts[:50]})
+                team = checked.team
+                team_added = _restore_team(conn, team, checked.label) if team is not None else None
+                ds_ws = team["datasets"] if team is not None else {}
+                snap_ws = team["snapshots"] if team is not None else {}
+                audit_ws = team["audit"] if team is not None and len(team["audit"]) == len(zip_audit) else []
                 for row in add_ds:
-                    conn.execute(datasets.insert().values(**dict(zip(_DATASET_COLS, row))))
+                    conn.execute(datasets.insert().values(**dict(zip(_DATASET_COLS, row)),
+                                                          workspace_id=ds_ws.get(row[0], DEFAULT_WORKSPACE)))
                     for kind, sha in (("raw", row[4]), ("codebook", row[5])):
                         if sha is None:
                             continue
@@ -741,15 +893,20 @@ def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = F
                                        member=name)
                 for row in add_snap:
                     conn.execute(snapshots.insert().values(id=row[0], dataset_id=row[1], created_at=row[2],
-                                                           record=row[3]))
+                                                           record=row[3],
+                                                           workspace_id=snap_ws.get(row[0], DEFAULT_WORKSPACE)))
                 if not merge:
-                    for row in zip_audit:
+                    for i, row in enumerate(zip_audit):
                         conn.execute(audit_log.insert().values(at=row[0], who=row[1], action=row[2],
-                                                               dataset_id=row[3], snapshot_id=row[4], details=row[5]))
+                                                               dataset_id=row[3], snapshot_id=row[4], details=row[5],
+                                                               workspace_id=audit_ws[i] if audit_ws
+                                                               else DEFAULT_WORKSPACE))
                 summary = {"datasets_added": [r[0] for r in add_ds], "datasets_skipped": skip_ds,
                            "snapshots_added": [r[0] for r in add_snap], "snapshots_skipped": skip_snap}
                 details = {**_restore_details(zip_path, checked), "merge": merge,
                            "datasets": len(add_ds), "snapshots": len(add_snap)}
+                if team_added is not None:
+                    details.update(workspaces_added=team_added["workspaces"], people_added=team_added["people"])
                 if merge:
                     details.update(summary, datasets_added_sha256={r[0]: r[4] for r in add_ds})
                 conn.execute(audit_log.insert().values(at=utc_now(), who=(str(who).strip()[:80] or None) if who

@@ -161,3 +161,24 @@ def send_quietly(relay: PgRelay | None, kind: str, dataset: str, message: dict[s
     except Exception as exc:  # noqa: BLE001  (a database hiccup must not fail the local relay)
         log.warning("live channel: could not notify the other processes (%s)", exc)
 
+
+
+async def start_live_relay(app) -> None:
+    """At app start on the shared store: the live hub and its relay, so this process keeps the other
+    processes' last change per dataset before it serves any live request. Nothing on another store."""
+    store = getattr(app.state, "store", None)
+    if getattr(store, "backend", None) != "postgresql":
+        return
+    from .api.routes_live import LiveHub
+
+    hub = app.state.live = LiveHub()
+    hub.relay = PgRelay(store, asyncio.get_running_loop(), hub.deliver_remote)
+    if not await asyncio.to_thread(hub.relay.wait_ready, 10.0):
+        log.warning("live channel: not listening yet; changes of other processes arrive once it is")
+
+
+def stop_live_relay(app) -> None:
+    """Stop the relay's listener thread (app shutdown)."""
+    hub = getattr(app.state, "live", None)
+    if hub is not None and hub.relay is not None:
+        hub.relay.stop()

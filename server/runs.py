@@ -6,7 +6,10 @@ then the resamples in a ``ProcessPoolExecutor`` (``forkserver`` context: workers
 process, never from this threaded one) whose initializer receives the plan once per worker; tasks carry only
 row indices, a few resamples each, so progress arrives at least about every second. Cancelling cancels the
 queued tasks and terminates the pool's processes. Finished runs (done, cancelled, failed) are written as
-JSON files in ``DATA/runs/`` and read back after a restart.
+JSON files in ``DATA/runs/`` and read back after a restart. On the SQL store (``serve --database``) runs live
+in its ``runs`` table instead (revision 0004): the computing process writes the run at start, about every
+:data:`SYNC_SECONDS` of progress and at its end, so every process sharing the database reads it; a cancel
+through another process marks the row, and the computing process stops when its next write finds it so.
 """
 from __future__ import annotations
 
@@ -14,6 +17,7 @@ import contextlib
 import multiprocessing
 import os
 import threading
+import time
 from collections.abc import Callable, Mapping
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
@@ -32,6 +36,7 @@ __all__ = ["MAX_RESAMPLES", "MIN_RESAMPLES", "Run", "RunService", "default_worke
 
 MIN_RESAMPLES, MAX_RESAMPLES, DEFAULT_RESAMPLES = 2, 2000, 200
 ACTIVE = ("queued", "running")
+SYNC_SECONDS = 0.5  # on the SQL store: the computing process writes progress (and checks for a cancel) this often
 
 _PLAN: ResamplePlan | None = None  # the plan of this worker process (set by the initializer)
 
@@ -79,6 +84,7 @@ class Run:
     cancel_event: threading.Event = field(default_factory=threading.Event)
     pool: ProcessPoolExecutor | None = None
     pids: tuple[int, ...] = ()
+    synced: float = 0.0  # when the run was last written to the SQL store (time.monotonic)
 
     def to_dict(self) -> dict:
         out = {"run_id": self.run_id, "dataset_id": self.dataset_id, "state": self.state,
@@ -107,6 +113,7 @@ class RunService:
         self.chunk_seconds = chunk_seconds
         self._runs: dict[str, Run] = {}
         self._lock = threading.Lock()
+        self.shared = engine.store if hasattr(engine.store, "save_run") else None  # the SQL store's runs table
         self._ctx = multiprocessing.get_context("forkserver" if "forkserver" in
                                                 multiprocessing.get_all_start_methods() else "spawn")
         self.closed = False
@@ -133,11 +140,34 @@ class RunService:
                   seed=settings.seed, started_at=utc_now())
         with self._lock:
             self._runs[run.run_id] = run
+        if self.shared is not None:  # in this request (its workspace); a storage fault answers the request
+            try:
+                self._sync(run, force=True, quiet=False)
+            except BaseException:
+                with self._lock:
+                    self._runs.pop(run.run_id, None)
+                raise
         threading.Thread(target=self._compute, args=(run, dict(request), publish), name=f"run-{run.run_id}",
                          daemon=True).start()
         return run
 
+    def _sync(self, run: Run, *, force: bool = False, quiet: bool = True) -> None:
+        """On the SQL store: write the run (at most every SYNC_SECONDS unless ``force``); a run cancelled
+        through another process is cancelled here."""
+        if self.shared is None or (not force and time.monotonic() - run.synced < SYNC_SECONDS):
+            return
+        run.synced = time.monotonic()
+        try:
+            stored = self.shared.save_run(run.to_dict(), new=not quiet)
+        except Exception:  # noqa: BLE001 - the database back later: the next write catches up
+            if not quiet:
+                raise
+            return
+        if stored == "cancelled" and run.state in ACTIVE:
+            run.cancel_event.set()
+
     def _tell(self, run: Run, publish: Publish | None) -> None:
+        self._sync(run, force=run.done == 0)
         if publish is not None:
             with contextlib.suppress(Exception):  # a closed live channel never stops a run
                 publish(run.dataset_id, {"action": "resampling", "run_id": run.run_id, "done": run.done,
@@ -228,6 +258,17 @@ class RunService:
 
     # ---- looking up, cancelling, keeping
     def get(self, run_id: str) -> Run:
+        if self.shared is not None:  # the table is the truth (and limits to the acting person's workspace)
+            stored = self.shared.get_run(run_id)
+            with self._lock:
+                local = self._runs.get(run_id)
+            if stored is None:
+                raise NotFound("run", run_id)
+            if local is None:
+                return self._from_dict(stored)
+            if local.state in ACTIVE and stored["state"] == "cancelled":  # cancelled through another process
+                self._cancel_local(local)
+            return local
         with self._lock:
             run = self._runs.get(run_id)
         if run is not None:
@@ -241,23 +282,32 @@ class RunService:
         """Cancel an active run: its queued tasks are dropped and its worker processes terminated."""
         run = self.get(run_id)
         if run.state in ACTIVE:
-            run.cancel_event.set()
-            pool = run.pool
-            if pool is not None:  # stop the workers now, not when the run's thread looks again
-                for p in list((pool._processes or {}).values()):
-                    if p.is_alive():
-                        p.terminate()
-            run.state = "cancelled"
+            self._cancel_local(run)
         return run
+
+    @staticmethod
+    def _cancel_local(run: Run) -> None:
+        run.cancel_event.set()
+        pool = run.pool
+        if pool is not None:  # stop the workers now, not when the run's thread looks again
+            for p in list((pool._processes or {}).values()):
+                if p.is_alive():
+                    p.terminate()
+        run.state = "cancelled"
 
     def delete(self, run_id: str) -> bool:
         """Forget a finished run (memory and disk). Returns False when the run was active (it is cancelled)."""
         run = self.get(run_id)
         if run.state in ACTIVE:
             self.cancel(run_id)
+            if self.shared is not None:  # computed here or by another process: every process sees it cancelled
+                self.shared.cancel_run(run_id)
             return False
         with self._lock:
             self._runs.pop(run_id, None)
+        if self.shared is not None:
+            self.shared.delete_run(run_id)
+            return True
         path = self._path(run_id)
         if path is not None and path.exists():
             path.unlink()
@@ -269,7 +319,7 @@ class RunService:
         with self._lock:
             active = [r for r in self._runs.values() if r.state in ACTIVE]
         for r in active:
-            self.cancel(r.run_id)
+            self._cancel_local(r)
 
     def _path(self, run_id: str):
         if not run_id or not all(ch.isalnum() or ch in "-_" for ch in run_id):
@@ -277,6 +327,8 @@ class RunService:
         return self.folder / f"{run_id}.json"
 
     def _save(self, run: Run) -> None:
+        if self.shared is not None:
+            return self._sync(run, force=True)
         from .store import _dumps, _write_atomic
         try:
             self.folder.mkdir(parents=True, exist_ok=True)
@@ -289,11 +341,15 @@ class RunService:
         path = self._path(run_id)
         if path is None or not path.exists():
             return None
-        d = json.loads(path.read_text(encoding="utf-8"))
-        run = Run(run_id=d["run_id"], dataset_id=d["dataset_id"], settings=d["settings"],
-                  n_resamples=d["n_resamples"], seed=d["seed"], state=d["state"], done=d["progress"]["done"],
-                  started_at=d["started_at"], finished_at=d["finished_at"], result=d.get("result"),
-                  error=d.get("error"))
+        run = self._from_dict(json.loads(path.read_text(encoding="utf-8")))
         with self._lock:
             self._runs[run_id] = run
         return run
+
+    @staticmethod
+    def _from_dict(d: dict) -> Run:
+        """A run from its JSON (``Run.to_dict``), as kept on disk or in the SQL store."""
+        return Run(run_id=d["run_id"], dataset_id=d["dataset_id"], settings=d["settings"],
+                  n_resamples=d["n_resamples"], seed=d["seed"], state=d["state"], done=d["progress"]["done"],
+                  started_at=d["started_at"], finished_at=d["finished_at"], result=d.get("result"),
+                  error=d.get("error"))

@@ -98,6 +98,15 @@ memberships = sa.Table(
     sa.Column("person_id", sa.String(64), primary_key=True), sa.Column("workspace_id", sa.String(64)),
     sa.Column("role", sa.String(16)),
 )
+# revision 0004: resampling runs (server/runs.py writes them on a SQL store)
+runs_table = sa.Table(
+    "runs", _meta,
+    sa.Column("id", sa.String(64), primary_key=True), sa.Column("dataset_id", sa.String(64)),
+    sa.Column("workspace_id", sa.String(64)), sa.Column("state", sa.String(16)), sa.Column("done", sa.Integer),
+    sa.Column("total", sa.Integer), sa.Column("settings", sa.Text), sa.Column("record", sa.Text),
+    sa.Column("updated_at", sa.String(32)),
+)
+_RUN_ACTIVE = ("queued", "running")
 DEFAULT_WORKSPACE = "default"  # rows written without a signed-in person (laptop mode, earlier revisions)
 
 
@@ -529,3 +538,69 @@ class SqlStore:
         with self._read() as conn:
             rows = conn.execute(query).all()
         return [{**dict(zip(_AUDIT_KEYS, r)), "details": json.loads(r[6])} for r in rows]
+
+    # ---- resampling runs (revision 0004; written by the process computing the run, read by every process)
+    def save_run(self, record: dict, *, new: bool = False) -> str:
+        """Write a run's JSON (``RunService``'s ``Run.to_dict()``); returns the state now stored.
+
+        A run another process cancelled stays cancelled: the write is skipped (the stored state, ``cancelled``,
+        is returned, so the computing process stops) unless it says ``cancelled`` too; so does a run deleted
+        meanwhile (not written again). A ``new`` run is added, in its dataset's workspace.
+        """
+        values = {"state": record["state"], "done": int(record["progress"]["done"]),
+                  "total": int(record["progress"]["total"]), "settings": _dumps(record["settings"]),
+                  "record": _dumps(record), "updated_at": utc_now()}
+        with self._write() as conn:
+            found = conn.execute(sa.select(runs_table.c.state).where(runs_table.c.id == record["run_id"])
+                                 .with_for_update()).first()
+            if found is None:
+                if not new:
+                    return "cancelled"
+                ws = conn.execute(sa.select(datasets.c.workspace_id)
+                                  .where(datasets.c.id == record["dataset_id"])).first()
+                conn.execute(runs_table.insert().values(id=record["run_id"], dataset_id=record["dataset_id"],
+                                                        workspace_id=ws[0] if ws else _workspace_now(), **values))
+                return values["state"]
+            if found[0] not in _RUN_ACTIVE and found[0] != values["state"]:
+                return found[0]
+            conn.execute(runs_table.update().where(runs_table.c.id == record["run_id"]).values(**values))
+            return values["state"]
+
+    def get_run(self, run_id: str) -> dict | None:
+        """A run's JSON as last written, with the stored state (in the acting person's workspace), or None."""
+        if not _is_id(run_id):
+            return None
+        with self._read() as conn:
+            row = conn.execute(_scoped(sa.select(runs_table.c.record, runs_table.c.state)
+                                       .where(runs_table.c.id == run_id), runs_table)).first()
+        return None if row is None else {**json.loads(row[0]), "state": row[1]}
+
+    def run_state(self, run_id: str) -> str | None:
+        """Only the stored state of a run (the computing process's cancel check), or None."""
+        with self._read() as conn:
+            row = conn.execute(sa.select(runs_table.c.state).where(runs_table.c.id == run_id)).first()
+        return None if row is None else row[0]
+
+    def cancel_run(self, run_id: str) -> dict | None:
+        """Mark an active run ``cancelled`` (the computing process stops at its next check); returns the run's
+        JSON, or None when unknown (in the acting person's workspace)."""
+        if not _is_id(run_id):
+            return None
+        with self._write() as conn:
+            row = conn.execute(_scoped(sa.select(runs_table.c.state).where(runs_table.c.id == run_id), runs_table)
+                               .with_for_update()).first()
+            if row is None:
+                return None
+            if row[0] in _RUN_ACTIVE:
+                conn.execute(runs_table.update().where(runs_table.c.id == run_id)
+                             .values(state="cancelled", updated_at=utc_now()))
+        return self.get_run(run_id)
+
+    def delete_run(self, run_id: str) -> bool:
+        """Forget a finished run; False when unknown or still active."""
+        if not _is_id(run_id):
+            return False
+        with self._write() as conn:
+            return conn.execute(_scoped(runs_table.delete().where(runs_table.c.id == run_id,
+                                                                  runs_table.c.state.notin_(_RUN_ACTIVE)),
+                                        runs_table)).rowcount > 0

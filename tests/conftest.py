@@ -1,6 +1,19 @@
-"""Shared fixtures: a fresh app per test with a temporary data folder."""
+"""Shared fixtures: a fresh app per test with a temporary data folder.
+
+The API tests (tests/api) that take the ``settings`` fixture run twice: on the folder store and on the SQL
+store over a throwaway PostgreSQL cluster (``store_kind`` "postgresql": a fresh database per test, copied
+from a migrated template). A test about the folder layout is marked ``folder_only("reason")`` and skipped
+for the PostgreSQL run; a known SQL-store bug is marked ``postgresql_xfail("reason")``; slow tests run on the
+folder store only. Without PostgreSQL's programs the PostgreSQL
+run is skipped, unless SCALEWRIGHT_REQUIRE_POSTGRES=1, which makes that a failure.
+"""
 from __future__ import annotations
 
+import contextlib
+import os
+import queue
+import threading
+import uuid
 from pathlib import Path
 
 import pandas as pd
@@ -19,9 +32,140 @@ def local_client(app, **kwargs) -> TestClient:
     return TestClient(app, base_url=LOCAL_BASE, **kwargs)
 
 
+API_DIR = Path(__file__).resolve().parent / "api"
+STORE_KINDS = ["folder", "postgresql"]
+
+
+def pytest_generate_tests(metafunc):
+    """tests/api tests that take ``settings`` (directly or through ``app``/``client``) run on both stores."""
+    if "store_kind" in metafunc.fixturenames and API_DIR in Path(str(metafunc.definition.path)).parents:
+        metafunc.parametrize("store_kind", STORE_KINDS, indirect=True)
+
+
+def pytest_collection_modifyitems(config, items):
+    """The PostgreSQL run leaves out slow tests (they run on the folder store), skips ``folder_only`` ones and
+    expects ``postgresql_xfail`` ones to fail (strict: a fixed bug makes them fail until the marker goes)."""
+    kept, dropped = [], []
+    for item in items:
+        on_pg = getattr(item, "callspec", None) is not None and item.callspec.params.get("store_kind") == "postgresql"
+        if on_pg and item.get_closest_marker("slow"):
+            dropped.append(item)
+            continue
+        for name in ("folder_only", "postgresql_xfail"):
+            marker = item.get_closest_marker(name) if on_pg else None
+            if marker is None:
+                continue
+            reason = marker.args[0] if marker.args else marker.kwargs.get("reason", "")
+            assert reason, f"{item.nodeid}: {name} needs a reason"
+            item.add_marker(pytest.mark.skip(reason=f"folder store only: {reason}") if name == "folder_only"
+                            else pytest.mark.xfail(reason=reason, strict=True))
+        kept.append(item)
+    if dropped:
+        config.hook.pytest_deselected(items=dropped)
+        items[:] = kept
+
+
+@pytest.fixture(scope="session")
+def pg_cluster():
+    """A throwaway PostgreSQL cluster for the session (tests/store_sql/pgcluster.py)."""
+    from tests.store_sql.pgcluster import PgCluster, pg_bindir
+
+    bindir = pg_bindir()
+    if bindir is None:
+        message = ("PostgreSQL's server programs (initdb, pg_ctl) are not installed "
+                   "(Debian: apt-get install postgresql).")
+        if os.environ.get("SCALEWRIGHT_REQUIRE_POSTGRES") == "1":
+            pytest.fail(message + " SCALEWRIGHT_REQUIRE_POSTGRES=1, so this is a failure.", pytrace=False)
+        pytest.skip(message)
+    cluster = PgCluster(bindir).start()
+    yield cluster
+    cluster.stop()
+
+
+def _pg_admin(cluster, sql: str) -> None:
+    import psycopg
+
+    with psycopg.connect(host=str(cluster.root), user=cluster.role, dbname="postgres", autocommit=True) as con:
+        con.execute(sql)
+
+
+class PgCopies:
+    """Fresh databases copied from a migrated template, made (and dropped) by one thread ahead of the tests."""
+
+    AHEAD = 2  # copies kept ready
+
+    def __init__(self, cluster):
+        from server.sqlstore import SqlStore
+
+        self.cluster = cluster
+        self.template = f"sw_template_{uuid.uuid4().hex[:8]}"
+        _pg_admin(cluster, f'CREATE DATABASE "{self.template}"')
+        SqlStore(cluster.url(self.template)).close()  # runs the migrations; no connection may stay for copies
+        self.ready: queue.Queue = queue.Queue(maxsize=self.AHEAD)
+        self.jobs: queue.Queue = queue.Queue()
+        self.thread = threading.Thread(target=self._work, daemon=True, name="pg-copies")
+        self.thread.start()
+
+    def _work(self) -> None:
+        import psycopg
+
+        with psycopg.connect(host=str(self.cluster.root), user=self.cluster.role, dbname="postgres",
+                             autocommit=True) as con:
+            while True:
+                try:
+                    job = self.jobs.get(timeout=0.01) if self.ready.full() else self.jobs.get_nowait()
+                except queue.Empty:
+                    job = None
+                if job is None and not self.ready.full():
+                    name = f"sw_{uuid.uuid4().hex[:12]}"
+                    try:
+                        con.execute(f'CREATE DATABASE "{name}" TEMPLATE "{self.template}" STRATEGY FILE_COPY')
+                    except psycopg.Error as exc:
+                        name = exc
+                    self.ready.put(name)
+                elif job == "stop":
+                    return
+                elif job is not None:
+                    with contextlib.suppress(psycopg.Error):  # a copy left behind dies with the cluster
+                        con.execute(f'DROP DATABASE IF EXISTS "{job}" WITH (FORCE)')
+
+    def take(self) -> str:
+        """A fresh database's URL."""
+        name = self.ready.get(timeout=120)
+        if isinstance(name, Exception):
+            raise name
+        return self.cluster.url(name)
+
+    def drop(self, url: str) -> None:
+        self.jobs.put(url.rsplit("/", 1)[1].split("?", 1)[0])
+
+    def stop(self) -> None:
+        self.jobs.put("stop")
+        self.thread.join(timeout=60)
+
+
+@pytest.fixture(scope="session")
+def pg_copies(pg_cluster):
+    copies = PgCopies(pg_cluster)
+    yield copies
+    copies.stop()
+
+
 @pytest.fixture
-def settings(tmp_path):
-    return Settings(data_dir=tmp_path / "data")
+def store_kind(request) -> str:
+    """Which store ``settings`` names: "folder" (the default) or "postgresql" (tests/api, parametrized)."""
+    return getattr(request, "param", "folder")
+
+
+@pytest.fixture
+def settings(tmp_path, store_kind, request):
+    if store_kind == "folder":
+        yield Settings(data_dir=tmp_path / "data")
+        return
+    copies = request.getfixturevalue("pg_copies")
+    url = copies.take()
+    yield Settings(data_dir=tmp_path / "data", database_url=url)
+    copies.drop(url)
 
 
 @pytest.fixture

@@ -59,7 +59,6 @@ def get_run(run_id: str, runs: RunsDep) -> AnswerResponse:
 @router.delete("/runs/{run_id}", response_model=None, responses=error_responses(404))
 def delete_run(run_id: str, runs: RunsDep) -> Response:
     """Cancel an active run (200, the run now ``cancelled``); forget a finished one (204)."""
-    run = runs.get(run_id)
     if runs.delete(run_id):
         return Response(status_code=204)
-    return AnswerResponse(run.to_dict())
+    return AnswerResponse(runs.get(run_id).to_dict())  # now cancelled (read again: it may run elsewhere)

@@ -122,8 +122,14 @@ async def workspace_backup(request: Request) -> FileResponse:
     folder = tempfile.mkdtemp(prefix="scalewright-backup-")
     path = os.path.join(folder, f"scalewright-backup-{stamp}.zip")  # the name the audit log records
     try:
-        summary = await run_in_threadpool(backup, request.app.state.settings.data_dir, path,
-                                          who=who_of(request), audit=True)
+        settings = request.app.state.settings
+        if settings.database_url:
+            from ..backup import backup_database
+
+            summary = await run_in_threadpool(backup_database, settings.database_url, path,
+                                              who=who_of(request), audit=True)
+        else:
+            summary = await run_in_threadpool(backup, settings.data_dir, path, who=who_of(request), audit=True)
     except BackupError as exc:
         shutil.rmtree(folder, ignore_errors=True)
         raise _bad_backup(exc) from None
@@ -203,8 +209,14 @@ async def workspace_restore(request: Request) -> JSONResponse:
     limit = settings.max_import_bytes
     path, name, who = await _receive_zip(request, limit)
     try:
-        result = await run_in_threadpool(restore, settings.data_dir, path, True, who=who_of(request, who),
-                                         max_bytes=limit, label=name)
+        if settings.database_url:
+            from ..backup import restore_database
+
+            result = await run_in_threadpool(restore_database, settings.database_url, path, True,
+                                             who=who_of(request, who), max_bytes=limit, label=name)
+        else:
+            result = await run_in_threadpool(restore, settings.data_dir, path, True, who=who_of(request, who),
+                                             max_bytes=limit, label=name)
     except BackupError as exc:
         raise _bad_backup(exc) from None
     finally:

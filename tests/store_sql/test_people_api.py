@@ -289,7 +289,7 @@ def test_rows_of_the_previous_schema_go_to_the_default_workspace(sql_url, tmp_pa
                             "('2026-01-02T03:04:06.000000Z', 'Ana', 'upload', 'd00000000000old1', '{}')"))
     engine.dispose()
     store = SqlStore(sql_url)  # upgraded at start
-    assert store.revision == "0003"
+    assert store.revision == "0004"
     assert store.get_dataset("d00000000000old1")["name"] == "wave 1"  # laptop mode: everything, as before
     _, olga = add_person(store, "Olga", workspace="default", role="owner")
     _, lea = add_person(store, "Lea", workspace="lab", role="owner")

@@ -142,3 +142,78 @@ def test_backup_and_restore_commands_take_a_database(pg_cluster, tmp_path):
     run = subprocess.run([sys.executable, "-m", "server", "restore", "--database", target, str(tmp_path / "c.zip")],
                          cwd=ROOT, capture_output=True, text=True, timeout=120)
     assert run.returncode == 1 and run.stderr.count("\n") == 1 and "not empty" in run.stderr
+
+
+from tests.store_sql.test_people_api import bearer, team  # noqa: E402,F401  (the team fixture)
+
+
+def test_a_team_servers_backup_keeps_people_workspaces_and_tokens(team, other_url, tmp_path):  # noqa: F811
+    """People, two workspaces, their datasets and snapshots survive backup -> restore into an empty database:
+    the same tokens sign in and see the same datasets; another workspace's ids are still 404."""
+    from server.app import create_app
+    from server.settings import Settings
+    from tests.conftest import local_client
+
+    _, tokens, ids, url = team
+    backup_database(url, tmp_path / "t.zip")
+    with zipfile.ZipFile(tmp_path / "t.zip") as zf:
+        stored = zf.read("team.json")
+    assert tokens["Ana"].encode() not in stored and tokens["Ana"].split("_")[-1].encode() not in stored
+    out = restore_database(other_url, tmp_path / "t.zip")
+    assert out["datasets"] == 2 and out["snapshots"] == 2
+    app = create_app(Settings(data_dir=tmp_path / "data2", database_url=other_url))
+    with local_client(app) as client:
+        ana, otto, vic = bearer(tokens["Ana"]), bearer(tokens["Otto"]), bearer(tokens["Vic"])
+        assert [d["id"] for d in client.get("/api/datasets", headers=ana).json()] == [ids["lab"]]
+        assert [d["id"] for d in client.get("/api/datasets", headers=vic).json()] == [ids["lab"]]
+        assert [d["id"] for d in client.get("/api/datasets", headers=otto).json()] == [ids["other"]]
+        assert client.get(f"/api/snapshots/{ids['lab_snap']}", headers=ana).json()["author"] == "Ana"
+        assert client.get(f"/api/datasets/{ids['lab']}", headers=otto).status_code == 404
+        assert client.get(f"/api/snapshots/{ids['lab_snap']}", headers=otto).status_code == 404
+        assert client.get(f"/api/snapshots/{ids['other_snap']}", headers=ana).status_code == 404
+        assert client.get("/api/session", headers=vic).json()["role"] == "viewer"
+        assert client.get("/api/datasets", headers=bearer(tokens["Ana"][:-1] + "!")).status_code == 401
+        audit = client.get("/api/audit", headers=otto).json()
+        assert audit and {e["dataset_id"] for e in audit} == {ids["other"]}
+    # the same zip into a folder (which has no people): the datasets, and no team.json in the folder
+    restore(tmp_path / "folder", tmp_path / "t.zip")
+    assert sorted(d["id"] for d in Store(tmp_path / "folder").list_datasets()) == sorted([ids["lab"], ids["other"]])
+    assert not (tmp_path / "folder" / "team.json").exists()
+    # merging the backup again adds nothing and keeps one Ana
+    again = SqlStore(other_url)
+    try:
+        merged = restore_database(other_url, tmp_path / "t.zip", merge=True)
+        assert merged["datasets_added"] == [] and len(merged["snapshots_skipped"]) == 2
+        from server.people import list_people
+        assert sorted(p["name"] for p in list_people(again)) == ["Ana", "Olga", "Otto", "Vic"]
+    finally:
+        again.close()
+
+
+def test_a_malformed_team_member_is_refused_before_anything_is_written(sql_url, other_url, tmp_path):
+    import json
+
+    store = SqlStore(sql_url)
+    _fill(store)
+    store.close()
+    backup_database(sql_url, tmp_path / "b.zip")
+    with zipfile.ZipFile(tmp_path / "b.zip") as zf:
+        members = {n: zf.read(n) for n in zf.namelist()}
+    team_json = json.loads(members["team.json"])
+    team_json["memberships"].append({"person_id": "nobody", "workspace_id": "default", "role": "owner"})
+    members["team.json"] = json.dumps(team_json).encode()
+    manifest = json.loads(members["manifest.json"])
+    for f in manifest["files"]:
+        if f["path"] == "team.json":
+            f["size"], f["sha256"] = len(members["team.json"]), hashlib.sha256(members["team.json"]).hexdigest()
+    members["manifest.json"] = json.dumps(manifest).encode()
+    with zipfile.ZipFile(tmp_path / "bad.zip", "w") as zf:
+        for name, data in members.items():
+            zf.writestr(name, data)
+    with pytest.raises(BackupError, match="malformed membership"):
+        restore_database(other_url, tmp_path / "bad.zip")
+    again = SqlStore(other_url)
+    try:
+        assert again.list_datasets() == []
+    finally:
+        again.close()

@@ -47,14 +47,14 @@ def _first_revision_with_data(url: str) -> dict:
 def test_first_revision_database_is_upgraded_at_start_with_its_data(sql_url):
     rows = _first_revision_with_data(sql_url)
     store = SqlStore(sql_url)
-    assert store.revision == head_revision() == "0003"
+    assert store.revision == head_revision() == "0004"
     ds = store.get_dataset("d0000000000000a1")
     assert ds["name"] == "wave 1" and ds["options"] == {"id_column": "id"} and ds["meta"] == {"n_rows": 2}
     assert ds["created_at"] == rows["dataset"]["created_at"]
     assert store.read_raw(ds["id"]) == RAW and ds["sha256"] == hashlib.sha256(RAW).hexdigest()
     assert store.list_snapshots(ds["id"]) == [json.loads(rows["snapshot"]["record"])]
     (entry,) = store.list_audit()
-    assert entry["action"] == "schema_upgrade" and entry["details"] == {"from": "0001", "to": "0003"}
+    assert entry["action"] == "schema_upgrade" and entry["details"] == {"from": "0001", "to": "0004"}
     # the new revision works and keeps the old rows immutable
     store.audit("upload", who="Ana", dataset_id=ds["id"])
     with pytest.raises(sa.exc.DBAPIError, match="immutable"), store.engine.begin() as con:
@@ -81,12 +81,12 @@ def test_migrate_command_runs_the_migrations_alone(sql_url, capsys):
     _first_revision_with_data(sql_url)
     assert main(["migrate", "--database", sql_url]) == 0
     out = capsys.readouterr().out
-    assert "from schema 0001 to 0003" in out
+    assert "from schema 0001 to 0004" in out
     assert main(["migrate", "--database", sql_url]) == 0
-    assert "up to date (schema 0003)" in capsys.readouterr().out
+    assert "up to date (schema 0004)" in capsys.readouterr().out
     engine = make_engine(sql_url)
     with engine.connect() as con:
-        assert current_revision(con) == "0003"
+        assert current_revision(con) == "0004"
         assert con.execute(sa.text("SELECT count(*) FROM snapshots")).scalar() == 1
     engine.dispose()
 

@@ -210,3 +210,72 @@ def test_workers_need_a_postgresql_database(tmp_path):
                              cwd=ROOT, capture_output=True, text=True, timeout=120)
         assert run.returncode == 1 and run.stderr.count("\n") == 1, run.stderr
         assert "--workers" in run.stderr
+
+
+def _hello(base: str, dataset_id: str) -> dict:
+    """The ``hello`` a page joining the dataset's live stream on ``base`` receives."""
+    with httpx.stream("GET", f"{base}/api/datasets/{dataset_id}/events", trust_env=False, timeout=30) as r:
+        assert r.status_code == 200
+        event = None
+        for line in r.iter_lines():
+            if line.startswith("event: "):
+                event = line[7:]
+            elif line.startswith("data: ") and event == "hello":
+                return json.loads(line[6:])
+    raise AssertionError("the stream ended without a hello")
+
+
+@pytest.mark.slow  # starts two server processes
+def test_a_late_joiner_on_a_process_without_live_requests_gets_the_last_change(two_servers):
+    _, (_, a), (_, b) = two_servers
+    dataset_id = _upload(a)
+    # process B has served no live request: its relay listens from app start
+    r = httpx.post(f"{a}/api/datasets/{dataset_id}/events",
+                   json={"who": "Ana", "action": "drop", "state": {"items": KEPT}}, trust_env=False, timeout=30)
+    assert r.status_code == 202, r.text
+    deadline, last = time.monotonic() + 5, None
+    while last is None and time.monotonic() < deadline:
+        last = _hello(b, dataset_id)["last"]
+        if last is None:
+            time.sleep(0.1)
+    assert last is not None, "process B did not keep the change made through process A"
+    assert last["who"] == "Ana" and last["action"] == "drop" and last["state"] == {"items": KEPT}
+
+
+def _run_state(base: str, run_id: str, states, timeout: float = 120) -> dict:
+    end = time.monotonic() + timeout
+    while True:
+        r = httpx.get(f"{base}/api/runs/{run_id}", trust_env=False, timeout=30)
+        assert r.status_code == 200, r.text
+        if r.json()["state"] in states or time.monotonic() > end:
+            return r.json()
+        time.sleep(0.1)
+
+
+@pytest.mark.slow  # starts two server processes
+def test_a_run_started_through_one_process_is_read_and_cancelled_through_the_other(two_servers):
+    _, (_, a), (_, b) = two_servers
+    dataset_id = _upload(a)
+    r = httpx.post(f"{a}/api/datasets/{dataset_id}/resampling", json={"items": KEPT, "n_resamples": 10, "seed": 3},
+                   trust_env=False, timeout=120)
+    assert r.status_code == 202, r.text
+    run_id = r.json()["run_id"]
+    on_b = _run_state(b, run_id, ("done", "failed", "cancelled"))
+    assert on_b["state"] == "done" and on_b["result"]["n_resamples"] == 10
+    assert httpx.get(f"{a}/api/runs/{run_id}", trust_env=False, timeout=30).json() == on_b
+    assert httpx.delete(f"{b}/api/runs/{run_id}", trust_env=False, timeout=30).status_code == 204
+    assert httpx.get(f"{a}/api/runs/{run_id}", trust_env=False, timeout=30).status_code == 404
+
+    r = httpx.post(f"{a}/api/datasets/{dataset_id}/resampling",
+                   json={"items": KEPT, "n_resamples": 2000, "seed": 3}, trust_env=False, timeout=120)
+    run_id = r.json()["run_id"]
+    assert _run_state(b, run_id, ("running",))["state"] == "running"
+    d = httpx.delete(f"{b}/api/runs/{run_id}", trust_env=False, timeout=30)
+    assert d.status_code == 200 and d.json()["state"] == "cancelled"
+    end = time.monotonic() + 20  # process A notices at its next progress write and records the end
+    while time.monotonic() < end:
+        on_a = httpx.get(f"{a}/api/runs/{run_id}", trust_env=False, timeout=30).json()
+        if on_a["finished_at"] is not None:
+            break
+        time.sleep(0.1)
+    assert on_a["state"] == "cancelled" and on_a["finished_at"] is not None and on_a["progress"]["done"] < 2000

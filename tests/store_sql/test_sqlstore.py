@@ -51,7 +51,7 @@ def _same_shape(ours: dict, theirs: dict, differ=("id", "created_at", "dataset_i
 def test_implements_the_interface(store):
     assert isinstance(store, StoreBackend)
     assert store.backend in ("sqlite", "postgresql")
-    assert store.revision == "0003"
+    assert store.revision == "0004"
 
 
 def test_dataset_records_match_sqlite_store_field_by_field(store, tmp_path):
