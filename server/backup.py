@@ -474,6 +474,34 @@ def _free_bytes(path: Path) -> int | None:
         return None
 
 
+def _merge_plan(datasets: list, snapshots: list, have_ds: dict, have_snap: dict, where: str
+                ) -> tuple[list, list, list, list]:
+    """What a merge adds and skips: ``(add_ds, skip_ds, add_snap, skip_snap)``; a backup row whose id is taken
+    by different content (datasets: raw and codebook SHA-256; snapshots: the record) raises RestoreConflict."""
+    add_ds, skip_ds, add_snap, skip_snap, conflicts = [], [], [], [], []
+    for row in datasets:
+        if row[0] not in have_ds:
+            add_ds.append(row)
+        elif have_ds[row[0]] == (row[4], row[5]):
+            skip_ds.append(row[0])
+        else:
+            conflicts.append({"dataset": row[0]})
+    for row in snapshots:
+        if row[0] not in have_snap:
+            add_snap.append(row)
+        elif have_snap[row[0]] == row[3]:
+            skip_snap.append(row[0])
+        else:
+            conflicts.append({"snapshot": row[0]})
+    if conflicts:
+        kind, ident = next(iter(conflicts[0].items()))
+        raise RestoreConflict(
+            f"The backup's {kind} {ident} has the same id as a different {kind} in this {where} "
+            f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
+            {"conflicts": conflicts[:50]})
+    return add_ds, skip_ds, add_snap, skip_snap
+
+
 def restore(data_dir: str | os.PathLike, zip_path: str | os.PathLike, merge: bool = False, *,
             who: str | None = None, max_bytes: int | None = None, label: str | None = None) -> dict:
     """Restore a backup zip into ``data_dir``; returns what was added (and, merging, skipped).
@@ -567,29 +595,7 @@ def _merge(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) 
         def plan():
             have_ds = {r[0]: (r[1], r[2]) for r in con.execute("SELECT id, sha256, codebook_sha256 FROM datasets")}
             have_snap = dict(con.execute("SELECT id, record FROM snapshots"))
-            add_ds, skip_ds, add_snap, skip_snap, conflicts = [], [], [], [], []
-            for row in datasets:
-                if row[0] not in have_ds:
-                    add_ds.append(row)
-                elif have_ds[row[0]] == (row[4], row[5]):
-                    skip_ds.append(row[0])
-                else:
-                    conflicts.append({"dataset": row[0]})
-            for row in snapshots:
-                if row[0] not in have_snap:
-                    add_snap.append(row)
-                elif have_snap[row[0]] == row[3]:
-                    skip_snap.append(row[0])
-                else:
-                    conflicts.append({"snapshot": row[0]})
-            if conflicts:
-                first = conflicts[0]
-                kind, ident = next(iter(first.items()))
-                raise RestoreConflict(
-                    f"The backup's {kind} {ident} has the same id as a different {kind} in this data folder "
-                    f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
-                    {"conflicts": conflicts[:50]})
-            return add_ds, skip_ds, add_snap, skip_snap
+            return _merge_plan(datasets, snapshots, have_ds, have_snap, "data folder")
 
         add_ds, _, _, _ = plan()  # conflicts refuse the merge before anything is written
         with zipfile.ZipFile(zip_path) as zf:
@@ -852,27 +858,8 @@ def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = F
                     raise _bad(f"The database {store.url.render_as_string(hide_password=True)} is not empty. "
                                "Restore into an empty database, or add --merge to add the backup's datasets and "
                                "snapshots to the ones there.")
-                add_ds, skip_ds, add_snap, skip_snap, conflicts = [], [], [], [], []
-                for row in zip_datasets:
-                    if row[0] not in have_ds:
-                        add_ds.append(row)
-                    elif have_ds[row[0]] == (row[4], row[5]):
-                        skip_ds.append(row[0])
-                    else:
-                        conflicts.append({"dataset": row[0]})
-                for row in zip_snaps:
-                    if row[0] not in have_snap:
-                        add_snap.append(row)
-                    elif have_snap[row[0]] == row[3]:
-                        skip_snap.append(row[0])
-                    else:
-                        conflicts.append({"snapshot": row[0]})
-                if conflicts:
-                    kind, ident = next(iter(conflicts[0].items()))
-                    raise RestoreConflict(
-                        f"The backup's {kind} {ident} has the same id as a different {kind} in this database "
-                        f"({len(conflicts)} conflict{'s' if len(conflicts) != 1 else ''}); nothing was restored.",
-                        {"conflicts": conflicts[:50]})
+                add_ds, skip_ds, add_snap, skip_snap = _merge_plan(zip_datasets, zip_snaps, have_ds, have_snap,
+                                                                   "database")
                 team = checked.team
                 team_added = _restore_team(conn, team, checked.label) if team is not None else None
                 ds_ws = team["datasets"] if team is not None else {}

@@ -1,31 +1,15 @@
 """Fixtures for the SQL store: ``sql_url`` is a fresh database on each backend (SQLite file, PostgreSQL).
 
-PostgreSQL comes from a throwaway cluster started once per session (``pgcluster.py``). Without PostgreSQL's
+PostgreSQL comes from a throwaway cluster started once per session (``pgcluster.py``; the ``pg_cluster``
+fixture of tests/conftest.py, shared with the API suite's PostgreSQL run). Without PostgreSQL's
 programs the PostgreSQL cases are skipped, unless SCALEWRIGHT_REQUIRE_POSTGRES=1 (set by .ci/run), which
 makes that a failure. SCALEWRIGHT_TEST_PG_URL names an existing server's maintenance database instead.
 """
 from __future__ import annotations
 
-import os
 import uuid
 
 import pytest
-
-from .pgcluster import PgCluster, pg_bindir
-
-
-@pytest.fixture(scope="session")
-def pg_cluster():
-    bindir = pg_bindir()
-    if bindir is None:
-        message = ("PostgreSQL's server programs (initdb, pg_ctl) are not installed "
-                   "(Debian: apt-get install postgresql).")
-        if os.environ.get("SCALEWRIGHT_REQUIRE_POSTGRES") == "1":
-            pytest.fail(message + " SCALEWRIGHT_REQUIRE_POSTGRES=1, so this is a failure.", pytrace=False)
-        pytest.skip(message)
-    cluster = PgCluster(bindir).start()
-    yield cluster
-    cluster.stop()
 
 
 @pytest.fixture(params=["sqlite", "postgresql"])
