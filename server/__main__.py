@@ -245,12 +245,9 @@ def main(argv: list[str] | None = None) -> int:
                 lock.release()
             print(str(exc), file=sys.stderr, flush=True)
             return 1
-        shown_host = "127.0.0.1" if settings.host in ("0.0.0.0", "::") else settings.host
-        url = f"http://{shown_host}:{settings.port}/"
-        if settings.token:
-            url += f"?token={settings.token}"
-            print(f"Sharing beyond this machine: every request must carry the access token {settings.token}",
-                  flush=True)
+        from .workers import start_url
+
+        url = start_url(settings)
         where = (f"database: {app.state.store.url.render_as_string(hide_password=True)}" if settings.database_url
                  else f"data folder: {settings.data_dir.resolve()}")
         print(f"Scalewright is running at {url}  ({where})", flush=True)

@@ -24,11 +24,22 @@ from pathlib import Path
 from .settings import Settings
 from .store import DataDirLock, StartupError, data_dir_holder, lock_data_dir, sweep_upload_leftovers
 
-__all__ = ["SETTINGS_ENV", "WORKERS_DIR", "serve_shared", "take_worker_folder", "worker_app"]
+__all__ = ["SETTINGS_ENV", "WORKERS_DIR", "serve_shared", "start_url", "take_worker_folder", "worker_app"]
 
 SETTINGS_ENV = "SCALEWRIGHT_WORKER_SETTINGS"
 WORKERS_DIR = "workers"
 MAX_WORKER_FOLDERS = 1024
+
+
+def start_url(settings: Settings) -> str:
+    """The address to open (127.0.0.1 for a server bound to every interface; the token in it when there is
+    one, which is also printed on its own line)."""
+    shown_host = "127.0.0.1" if settings.host in ("0.0.0.0", "::") else settings.host
+    url = f"http://{shown_host}:{settings.port}/"
+    if settings.token:
+        url += f"?token={settings.token}"
+        print(f"Sharing beyond this machine: every request must carry the access token {settings.token}", flush=True)
+    return url
 
 
 def take_worker_folder(data_dir: str | os.PathLike, *, port: int | None = None) -> tuple[Path, DataDirLock]:
@@ -111,11 +122,7 @@ def serve_shared(settings: Settings, *, workers: int = 1) -> int:
     except (StartupError, StorageError, OSError) as exc:
         print(str(exc), file=sys.stderr, flush=True)
         return 1
-    shown_host = "127.0.0.1" if settings.host in ("0.0.0.0", "::") else settings.host
-    url = f"http://{shown_host}:{settings.port}/"
-    if settings.token:
-        url += f"?token={settings.token}"
-        print(f"Sharing beyond this machine: every request must carry the access token {settings.token}", flush=True)
+    url = start_url(settings)
     print(f"Scalewright is running at {url}  (database: {shown}; {workers} process{'es' if workers > 1 else ''}; "
           f"files in flight under {Path(settings.data_dir).resolve() / WORKERS_DIR})", flush=True)
     if workers == 1:
