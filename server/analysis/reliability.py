@@ -135,6 +135,25 @@ def r_other(cov: np.ndarray, i: int, groups: Mapping[str, Sequence[int]], own: s
     return out
 
 
+def _r_others(cov: np.ndarray, groups: Mapping[str, Sequence[int]]) -> list[dict[str, float | None]]:
+    """:func:`r_other` of every item at once (its own group: the one whose positions hold the item)."""
+    k = cov.shape[0]
+    names = list(groups)
+    G = np.zeros((k, len(names)))
+    own = np.full(k, -1)
+    for g, js in enumerate(groups.values()):
+        G[list(js), g] = 1.0
+        own[list(js)] = g
+    C = cov @ G  # C[i, g] = sum of S_ij over j in group g
+    V = np.array([float(cov[np.ix_(js, js)].sum()) for js in groups.values()])
+    den = np.diag(cov)[:, None] * V[None, :]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = C / np.sqrt(den)
+    ok = den > 0
+    return [{name: (float(r[i, g]) if ok[i, g] else None) for g, name in enumerate(names) if g != own[i]}
+            for i in range(k)]
+
+
 def one_factor_fit(cov: np.ndarray, loadings: Sequence[float], names: Sequence[str]) -> dict[str, Any] | None:
     """RMSR and the largest residual correlation of the one-factor model behind omega (None below 3 items).
 
@@ -175,12 +194,13 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
     names = list(settings.items)
     by_construct = _by_construct(inputs, names) if groups is None else {g: list(js) for g, js in groups.items()}
     idx = inputs.columns(names)
+    others = _r_others(sc.cov, by_construct) if by_construct else []
     out = {}
     for c, js in by_construct.items():
         items = tuple(names[j] for j in js)
         if len(js) < 2:
             row = {"name": items[0], "item_rest_r": None, "alpha_if_deleted": None, "omega_if_deleted": None,
-                   "r_other": r_other(sc.cov, js[0], by_construct, c)}
+                   "r_other": others[js[0]]}
             out[c] = ConstructBlock(items, None, (note("construct_one_item", f"Construct '{c}' has only one active "
                                                        f"item; no reliability for it.", items),), item_table=(row,))
             continue
@@ -193,7 +213,7 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
         rel = reliability_from_cov(S, n=n_c, n_complete=n_cc, means=sc.means[js],
                                    min_pair_n=min_pair_n(sc.n_pair[sub]), names=list(items), missing=settings.missing)
         start = rel.loadings if len(rel.loadings) == len(js) else None
-        table = tuple({**r, "r_other": r_other(sc.cov, j, by_construct, c)}
+        table = tuple({**r, "r_other": others[j]}
                       for r, j in zip(item_table(S, names=list(items), start=start), js))
         steps = tuple(pruning_path(S, names=list(items), min_items=min(3, len(js)), start=start))
         ordinal, more = (None, []) if R_ordinal is None else ordinal_coefficients(R_ordinal[sub], items)

@@ -28,6 +28,7 @@ from scipy.special import ndtr, ndtri, owens_t
 
 from .errors import InputError
 from .notes import Note, note
+from .spectra import eigvalsh
 
 __all__ = [
     "CorrelationResult",
@@ -841,7 +842,7 @@ def smooth_to_pd(R: ArrayLike, *, method: str = "eigen", min_eigenvalue: float =
         raise InputError(f"Unknown smoothing method {method!r}; use 'eigen' or 'higham'.", code="bad_option",
                          details={"method": method})
     A = (A + A.T) / 2
-    lam = float(np.linalg.eigvalsh(A)[0])
+    lam = float(eigvalsh(A)[0])
     if lam >= min_eigenvalue:
         return A, lam, False
     k = A.shape[0]

@@ -5,6 +5,7 @@ needs the raw responses, so the engine can work from its cached full-pool matrix
 """
 from __future__ import annotations
 
+import math
 import threading
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -12,9 +13,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import linalg, stats
+from scipy.linalg import blas
 
 from .correlation import polychoric_matrix
 from .errors import InputError
+from .spectra import eigvalsh
 
 __all__ = [
     "KMOResult",
@@ -131,7 +134,7 @@ def _corr(R, names=None) -> np.ndarray:
 
 def _inverse(R: np.ndarray, names=None) -> np.ndarray:
     """Inverse of a correlation matrix, or an InputError naming what makes it singular."""
-    lam = np.linalg.eigvalsh(R)[0]
+    lam = eigvalsh(R)[0]
     if lam <= 1e-10 * R.shape[0]:
         k = R.shape[0]
         names = list(names) if names is not None else [f"item{j + 1}" for j in range(k)]
@@ -429,7 +432,7 @@ def parallel_analysis(n: int, k: int, *, observed_eigenvalues: ArrayLike | None 
         if variant == "factors":
             A = A.copy()
             np.fill_diagonal(A, smc(A))
-        observed = np.linalg.eigvalsh(A)[::-1]
+        observed = eigvalsh(A)[::-1]
     elif observed_eigenvalues is not None:
         observed = np.sort(np.asarray(observed_eigenvalues, dtype=float))[::-1]
         if observed.shape != (k,):
@@ -570,6 +573,7 @@ def parallel_analysis_polychoric(X: ArrayLike, *, R: ArrayLike | None = None, it
 # MAP
 
 _MAP_BLOCK = 2_000_000  # numbers in one stack of partial covariances (MAP)
+_MAP_SEQUENTIAL = 100  # above this many items MAP goes one m at a time (_map_values_sequential), below in stacks
 
 
 def _map_values(A: np.ndarray, load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -580,6 +584,8 @@ def _map_values(A: np.ndarray, load: np.ndarray) -> tuple[np.ndarray, np.ndarray
     partial variance <= 1e-12 on, the values are NaN.
     """
     k = A.shape[0]
+    if k > _MAP_SEQUENTIAL:
+        return _map_values_sequential(A, load)
     denom = k * (k - 1)
     values = np.full(k, np.nan)
     values4 = np.full(k, np.nan)
@@ -612,6 +618,61 @@ def _map_values(A: np.ndarray, load: np.ndarray) -> tuple[np.ndarray, np.ndarray
         values4[m0:m0 + stop] = P.sum(axis=(1, 2)) / denom
         if bad.size:
             break
+    return values, values4
+
+
+def _map_values_sequential(A: np.ndarray, load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_map_values` for many items: one m at a time, in place, with matrix-vector products.
+
+    ``C`` loses one component's outer product per m (BLAS ``dger``, in place); with ``w = 1 / diag(C)`` the
+    squared partial correlations are ``C*C`` scaled by ``w_i w_j``, so their sum is ``w'(C*C)w`` and the sum of
+    fourth powers ``(w*w)'(C*C)^2(w*w)``, less the diagonal's ones: five passes over a k x k matrix per m, where
+    the stacked form makes and scales a k x k matrix per m in memory (about five times slower at 250 items).
+    The last m (``C`` of rank one: every partial correlation is +-1, and its value is rounding) is computed as
+    the stacked form computes it, so its digits stay those of :func:`_map_values`.
+    """
+    k = A.shape[0]
+    denom = k * (k - 1)
+    values = np.full(k, np.nan)
+    values4 = np.full(k, np.nan)
+    C = np.array(A, dtype=float, order="F")
+    Q = np.empty_like(C)
+    for m in range(k - 1):
+        if m:
+            a = load[:, m - 1]
+            C = blas.dger(-1.0, a, a, a=C, overwrite_a=1)
+        d = np.diagonal(C).copy()
+        if m and np.any(d <= 1e-12):
+            return values, values4
+        w = 1.0 / d
+        one = d * w  # the diagonal's partial correlations: ones, up to rounding
+        one *= one
+        np.multiply(C, C, out=Q)
+        values[m] = (w @ (Q @ w) - one.sum()) / denom
+        np.multiply(Q, Q, out=Q)
+        w *= w
+        values4[m] = (w @ (Q @ w) - (one * one).sum()) / denom
+    # m = k - 1 as the stacked form: A less (the block start's product + the block's outer products in turn)
+    m = k - 1
+    step = max(1, _MAP_BLOCK // (k * k))
+    m0 = 1 + ((m - 1) // step) * step
+    T = np.outer(load[:, m0 - 1], load[:, m0 - 1])
+    if m0 > 1:
+        T += load[:, :m0 - 1] @ load[:, :m0 - 1].T
+    for j in range(m0, m):
+        T = np.outer(load[:, j], load[:, j]) + T
+    P = np.subtract(A, T)[None]
+    d = np.diagonal(P, axis1=1, axis2=2).copy()
+    if np.any(d <= 1e-12):
+        return values, values4
+    s = 1.0 / np.sqrt(d)
+    P *= s[:, :, None]
+    P *= s[:, None, :]
+    P *= P
+    P[:, np.arange(k), np.arange(k)] = 0.0
+    values[m] = P.sum(axis=(1, 2))[0] / denom
+    P *= P
+    values4[m] = P.sum(axis=(1, 2))[0] / denom
     return values, values4
 
 
@@ -660,7 +721,7 @@ def velicer_map(R: ArrayLike) -> MAPResult:
 # JSON-ready summaries for the analysis endpoint
 
 def _floats(a, nd=6):
-    return [None if not np.isfinite(x) else round(float(x), nd) for x in np.asarray(a, dtype=float)]
+    return [round(x, nd) if math.isfinite(x) else None for x in np.asarray(a, dtype=float).ravel().tolist()]
 
 
 def retention_summary(R: ArrayLike, n: int, *, iterations: int = 500, seed: int | None = None,
@@ -684,7 +745,7 @@ def retention_summary(R: ArrayLike, n: int, *, iterations: int = 500, seed: int 
     pa = parallel if parallel is not None else parallel_analysis(n, k, R=A, iterations=iterations,
                                                                  percentile=percentile, variant=variant, seed=seed)
     mp = velicer_map(A)
-    eigs = np.linalg.eigvalsh(A)[::-1]
+    eigs = eigvalsh(A)[::-1]
     return {
         "parallel": {"n_factors": pa.n_factors, "observed": _floats(pa.observed),
                      "threshold": _floats(pa.threshold), "random_mean": _floats(pa.random_mean),

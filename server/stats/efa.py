@@ -49,6 +49,7 @@ from . import rotation as _rotation
 from .errors import InputError
 from .minres import minres_newton
 from .notes import Note, note
+from .spectra import eigvalsh
 
 __all__ = [
     "METHODS",
@@ -347,7 +348,7 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
                          f"got {n_factors}.", code="bad_n_factors",
                          details={"n_factors": n_factors, "items": k})
     m = int(n_factors)
-    min_eig = float(np.linalg.eigvalsh(R)[0])
+    min_eig = float(eigvalsh(R)[0])
     if method == "ml" and min_eig <= 1e-10:
         raise InputError(f"Maximum likelihood needs a positive definite correlation matrix; this one's "
                          f"smallest eigenvalue is {min_eig:.3g} (some items are exact combinations of "
@@ -674,7 +675,9 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
     constructs : sequence of (str or None), optional
         Codebook construct of each item, used to label factors and to flag misplaced items.
     previous : EFAResult or dict, optional
-        An earlier result (or its ``to_dict()``): factors are reordered and reflected to match it.
+        An earlier result (or its ``to_dict()``): factors are reordered and reflected to match it. Its pattern
+        also gives oblimin/geomin a second start after the identity; when both converge to the same criterion
+        value the random starts are skipped (``rotation._gpa``).
     thresholds : mapping, optional
         Overrides of :data:`server.stats.flags.DEFAULT_THRESHOLDS`.
     item_rest_r : array_like, optional
@@ -720,7 +723,11 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
     th = _flags.resolve_thresholds(thresholds)
     ex = extract(R, n_factors, method=method, n=n, max_iter=max_iter, names=nm, start_psi=start_psi)
     warnings = list(ex.warnings)
-    rot = _rotation.rotate(ex.loadings, rotation, gamma=gamma, random_starts=random_starts, seed=seed)
+    prevM, rows, _prev_labels = _previous_matrix(previous, nm)
+    warm = None
+    if prevM is not None and prevM.shape[1] == ex.loadings.shape[1] and len(rows) > prevM.shape[1]:
+        warm = (prevM, np.asarray(rows))  # the previous rotation as a start (random starts only when needed)
+    rot = _rotation.rotate(ex.loadings, rotation, gamma=gamma, random_starts=random_starts, seed=seed, warm=warm)
     warnings += rot.warnings
     P, phi = rot.pattern.copy(), rot.phi.copy()
     m = P.shape[1]
@@ -732,7 +739,6 @@ def factor_analysis(R: ArrayLike, n_factors: int, *, n: int | None = None, names
     # reflect so each factor's loadings sum positive
     sgn = np.where(P.sum(axis=0) < 0, -1.0, 1.0)
     match = "Factors are ordered by variance explained and reflected so their loadings sum positive."
-    prevM, rows, _prev_labels = _previous_matrix(previous, nm)
     if previous is not None and prevM is None:
         match += " The previous solution shares no items with this one, so it was not used."
     if prevM is not None:

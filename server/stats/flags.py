@@ -169,6 +169,10 @@ def flag_items(pattern: ArrayLike, *, names: Sequence[str],
     absP = np.abs(P)
     order = np.argsort(-absP, axis=1, kind="stable")
     prim = order[:, 0]
+    by_place: dict[tuple, list[int]] = {}  # (construct, primary factor) -> its items, in order
+    for t in range(k):
+        if cons[t]:
+            by_place.setdefault((cons[t], int(prim[t])), []).append(t)
     flags: list[dict] = []
     for i, name in enumerate(names):
         j = int(prim[i])
@@ -211,7 +215,7 @@ def flag_items(pattern: ArrayLike, *, names: Sequence[str],
             why = []
             if np.isfinite(irr[i]) and irr[i] < th["item_rest_min"]:
                 why.append(f"its item-rest correlation is {irr[i]:.2f}")
-            mates = [t for t in range(k) if t != i and own and cons[t] == own and int(prim[t]) == j]
+            mates = [t for t in by_place.get((own, j), ()) if t != i] if own else []
             if mates:
                 ref_sign = np.sign(np.median(P[mates, j]))
                 against = f"the other items of '{own}' on {fac}"

@@ -136,6 +136,27 @@ def _check_solution(pattern, phi) -> tuple[np.ndarray, np.ndarray]:
     return P, (F + F.T) / 2
 
 
+def _three_factor_gamma(Phi: np.ndarray) -> np.ndarray | None:
+    r"""The one-factor fit of three factors' correlations in closed form, or None.
+
+    Three correlations and three loadings: the model is just identified and, when the correlations' product is
+    positive and the loadings it implies are clear of the uniqueness bound, fits exactly (zero residuals), so it
+    is the minres solution :func:`server.stats.efa.extract` iterates to:
+    :math:`|\gamma_1| = \sqrt{\phi_{12}\phi_{13}/\phi_{23}}` and likewise, signs with
+    :math:`\operatorname{sign}\gamma_i\gamma_j = \operatorname{sign}\phi_{ij}`, summing positive as
+    ``extract`` reflects them. None (the caller fits it) when the product is not positive, a correlation is
+    near 0, a loading would come near the bound, or the matrix is near singular.
+    """
+    r12, r13, r23 = float(Phi[0, 1]), float(Phi[0, 2]), float(Phi[1, 2])
+    if min(abs(r12), abs(r13), abs(r23)) <= 1e-6 or r12 * r13 * r23 <= 0:
+        return None
+    g2 = np.array([r12 * r13 / r23, r12 * r23 / r13, r13 * r23 / r12])
+    if float(g2.max()) > 0.99 or float(np.linalg.eigvalsh(Phi)[0]) <= 1e-8:
+        return None
+    gamma = np.sqrt(g2) * np.array([1.0, math.copysign(1.0, r12), math.copysign(1.0, r13)])
+    return gamma if gamma.sum() >= 0 else -gamma
+
+
 def schmid_leiman(pattern: ArrayLike, phi: ArrayLike | None, *, names: Sequence[str] | None = None,
                   factors: Sequence[str] | None = None) -> SchmidLeimanResult:
     """Schmid-Leiman transformation of an oblique factor solution.
@@ -205,11 +226,15 @@ def schmid_leiman(pattern: ArrayLike, phi: ArrayLike | None, *, names: Sequence[
                                  "correlation there is no general factor, so its loadings are 0 and omega "
                                  "hierarchical is 0."))
     else:
-        ex = _efa.extract(Phi, 1, method="minres", names=fl)
-        gamma = ex.loadings[:, 0].copy()
+        exact = _three_factor_gamma(Phi) if m == 3 else None
+        if exact is not None:
+            gamma = exact
+        else:
+            ex = _efa.extract(Phi, 1, method="minres", names=fl)
+            gamma = ex.loadings[:, 0].copy()
+            warnings.extend(Note(f"second_order_{w.code}", f"Second-order fit: {w.message}", w.items)
+                            for w in ex.warnings)
         method = "one-factor minres fit of the factor correlations"
-        warnings.extend(Note(f"second_order_{w.code}", f"Second-order fit: {w.message}", w.items)
-                        for w in ex.warnings)
         iu = np.triu_indices(m, 1)
         rmsr = float(np.sqrt(np.mean((Phi - np.outer(gamma, gamma))[iu] ** 2)))
         if np.any(gamma < 0):

@@ -16,7 +16,8 @@ __all__ = ["minres_newton"]
 def _hessian(lam: np.ndarray, U: np.ndarray, m: int) -> np.ndarray:
     """The minres criterion's Hessian in the uniquenesses, from the eigenpairs of ``R - diag(psi)`` (descending)."""
     A = U[:, m:]
-    P = A @ A.T
+    P = -(U[:, :m] @ U[:, :m].T)  # A A' = I - U_m U_m' (U is orthogonal): k^2 m operations instead of k^3
+    P[np.diag_indices_from(P)] += 1.0
     H = 2.0 * P * P
     for p in range(m):
         B = A * U[:, p:p + 1]

@@ -202,8 +202,41 @@ def _kaiser_weights(A: np.ndarray) -> np.ndarray:
     return np.where(w > 0, w, 1.0)
 
 
+def _warm_rotation(An: np.ndarray, target: np.ndarray, rows: np.ndarray | None) -> np.ndarray | None:
+    """An oblique start ``T`` whose pattern ``An @ inv(T).T`` is the least-squares fit of ``target`` (a
+    solution of similar items, e.g. the whole pool's, rows ``rows`` of ``An``); columns of unit length.
+    None when the fit is degenerate."""
+    X = An if rows is None else An[rows]
+    if target.shape != (X.shape[0], An.shape[1]) or not np.all(np.isfinite(target)):
+        return None
+    B = np.linalg.lstsq(X, target, rcond=None)[0]  # inv(T).T
+    if not np.all(np.isfinite(B)) or np.linalg.cond(B) > 1e8:
+        return None
+    T = np.linalg.inv(B).T
+    norms = np.sqrt(np.sum(T * T, axis=0))
+    return T / norms[None, :] if np.all(norms > 0) else None
+
+
+_WARM_MAX_STEPS = 100  # iterations within which the identity and warm starts must converge to skip the others
+
+
+def _same_loadings(L1: np.ndarray, L2: np.ndarray, atol: float = 1e-4) -> bool:
+    """Whether two rotated loading matrices are one solution, up to the order and sign of their columns."""
+    m = L1.shape[1]
+    n1 = np.sqrt(np.sum(L1 * L1, axis=0))
+    n2 = np.sqrt(np.sum(L2 * L2, axis=0))
+    if not (np.all(n1 > 0) and np.all(n2 > 0)):
+        return False
+    C = (L1.T @ L2) / np.outer(n1, n2)
+    match = np.argmax(np.abs(C), axis=1)
+    if len(set(match.tolist())) != m:
+        return False
+    signs = np.sign(C[np.arange(m), match])
+    return bool(np.abs(L1 - L2[:, match] * signs[None, :]).max() <= atol)
+
+
 def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: int, seed: int,
-         max_iter: int, tol: float) -> RotationResult:
+         max_iter: int, tol: float, warm: tuple[np.ndarray, np.ndarray | None] | None = None) -> RotationResult:
     A = _check_loadings(A)
     k, m = A.shape
     if m == 1:
@@ -213,10 +246,27 @@ def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: in
     rng = np.random.default_rng(seed)
     starts = [np.eye(m)] + [_random_orthogonal(rng, m) for _ in range(max(0, random_starts - 1))]
     engine = _gpa_oblique if oblique else _gpa_orthogonal
+    done = {}
+    if warm is not None and oblique and len(starts) > 1:
+        # The identity start, then one from a solution of similar items (the whole pool's, say). When both
+        # converge quickly (a well-defined optimum: a flat criterion takes hundreds of steps) to the same
+        # loadings, up to the order and sign of the factors, the random starts are left out and the identity
+        # start's solution is kept, as the random starts keep it unless one finds a lower criterion; otherwise
+        # every start runs as usual.
+        target, rows = warm
+        T_w = _warm_rotation(An, np.asarray(target, dtype=float) / (w if rows is None else w[rows])[:, None], rows)
+        if T_w is not None:
+            first = engine(An, vgq, starts[0], max_iter, tol)
+            done[0] = first
+            if first[3] and first[4] <= _WARM_MAX_STEPS:
+                _, L_w, Q_w, conv_w, it_w = engine(An, vgq, T_w, max_iter, tol)
+                if (conv_w and it_w <= _WARM_MAX_STEPS and not Q_w < first[2] - 1e-9 * (1.0 + abs(first[2]))
+                        and _same_loadings(first[1], L_w)):
+                    starts = starts[:1]
     best = None
     n_conv = 0
-    for T0 in starts:
-        T, L, Q, conv, it = engine(An, vgq, T0, max_iter, tol)
+    for s_, T0 in enumerate(starts):
+        T, L, Q, conv, it = done[s_] if s_ in done else engine(An, vgq, T0, max_iter, tol)
         n_conv += conv
         # prefer converged starts, then a clearly lower criterion (ties keep the earlier start, so the
         # identity start wins among reflections/permutations of the same optimum)
@@ -241,7 +291,8 @@ def _gpa(A, vgq, *, oblique: bool, name: str, normalize: bool, random_starts: in
 # --------------------------------------------------------------------------- public rotations
 
 def oblimin(A: ArrayLike, gamma: float = 0.0, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
-            max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
+            max_iter: int = _MAX_ITER, tol: float = _TOL,
+            warm: tuple[np.ndarray, np.ndarray | None] | None = None) -> RotationResult:
     """Direct oblimin rotation by gradient projection; ``gamma=0`` is quartimin.
 
     Parameters
@@ -258,6 +309,10 @@ def oblimin(A: ArrayLike, gamma: float = 0.0, *, normalize: bool = False, random
     seed : int
     max_iter, tol : int, float
         Iteration limit and tolerance on the norm of the projected gradient.
+    warm : (target, rows), optional
+        A rotated solution of similar items (``target``: its pattern on rows ``rows`` of ``A``, or on every
+        row when ``rows`` is None), e.g. the whole pool's. A start fitted to it runs after the identity start;
+        when both converge and it finds no lower criterion, the random starts are skipped (see ``_gpa``).
 
     Returns
     -------
@@ -275,11 +330,12 @@ def oblimin(A: ArrayLike, gamma: float = 0.0, *, normalize: bool = False, random
     """
     name = "quartimin" if gamma == 0 else f"oblimin (gamma {gamma:g})"
     return _gpa(A, lambda L: _vgq_oblimin(L, gamma), oblique=True, name=name, normalize=normalize,
-                random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol)
+                random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol, warm=warm)
 
 
 def geomin(A: ArrayLike, epsilon: float = 0.01, *, normalize: bool = False, random_starts: int = 5, seed: int = 0,
-           max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
+           max_iter: int = _MAX_ITER, tol: float = _TOL,
+           warm: tuple[np.ndarray, np.ndarray | None] | None = None) -> RotationResult:
     """Oblique geomin rotation by gradient projection.
 
     Notes
@@ -296,7 +352,7 @@ def geomin(A: ArrayLike, epsilon: float = 0.01, *, normalize: bool = False, rand
         raise InputError(f"Geomin's epsilon must be positive; got {epsilon}.", code="bad_option",
                          details={"epsilon": epsilon})
     return _gpa(A, lambda L: _vgq_geomin(L, epsilon), oblique=True, name="geomin", normalize=normalize,
-                random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol)
+                random_starts=random_starts, seed=seed, max_iter=max_iter, tol=tol, warm=warm)
 
 
 def quartimax(A: ArrayLike, *, normalize: bool = False, max_iter: int = _MAX_ITER, tol: float = _TOL) -> RotationResult:
@@ -389,17 +445,19 @@ def promax(A: ArrayLike, power: int = 4, *, normalize: bool = True, max_iter: in
 
 
 def rotate(A: ArrayLike, method: str = "oblimin", *, gamma: float = 0.0, epsilon: float = 0.01, power: int = 4,
-           random_starts: int = 5, seed: int = 0) -> RotationResult:
-    """Dispatch by name: one of :data:`ROTATIONS` (``"none"`` returns ``A`` unchanged)."""
+           random_starts: int = 5, seed: int = 0,
+           warm: tuple[np.ndarray, np.ndarray | None] | None = None) -> RotationResult:
+    """Dispatch by name: one of :data:`ROTATIONS` (``"none"`` returns ``A`` unchanged); ``warm``: see
+    :func:`oblimin` (used by oblimin, quartimin and geomin)."""
     A = _check_loadings(A)
     m = A.shape[1]
     if method == "none":
         return RotationResult(A.copy(), np.eye(m), np.eye(m), True, 0, float("nan"), [], "none")
     if method in ("oblimin", "quartimin"):
         return oblimin(A, gamma=gamma if method == "oblimin" else 0.0, random_starts=random_starts,
-                       seed=seed)
+                       seed=seed, warm=warm)
     if method == "geomin":
-        return geomin(A, epsilon=epsilon, random_starts=random_starts, seed=seed)
+        return geomin(A, epsilon=epsilon, random_starts=random_starts, seed=seed, warm=warm)
     if method == "quartimax":
         return quartimax(A)
     if method == "varimax":
