@@ -41,6 +41,7 @@ import numpy as np
 
 from .analysis import AnalysisAnswer, AnalysisInputs, AnalysisSettings, run
 from .analysis.matrices import AnswerPatterns, FullPool, PoolUnavailable, constant_notes, full_pool
+from .analysis.progress import stage, tag
 from .errors import NotFound
 from .stats.descriptives import ItemDescriptives, item_descriptives
 from .stats.dimensionality import has_random_reference, random_reference
@@ -182,6 +183,7 @@ class Engine:
             if record is None:
                 raise NotFound("dataset", dataset_id)
             opts = dict(record.get("options") or {})
+            stage("reading the responses file")
             parsed = read_responses(
                 self.store.read_raw(dataset_id), record.get("filename") or "responses.csv",
                 codebook_raw=self.store.read_codebook(dataset_id),
@@ -289,7 +291,10 @@ class Engine:
             if key in cache:
                 return cache.get_or(key, make)
             lock = self._key_locks.setdefault(key, threading.Lock())
-        with lock:  # one computation per key, others wait for it
+        if not lock.acquire(blocking=False):  # one computation per key, others wait for it (and say so)
+            stage("waiting: another request is computing the same thing")
+            lock.acquire()
+        try:
             with self._lock:
                 if key in cache:
                     return cache.get_or(key, make)
@@ -303,6 +308,8 @@ class Engine:
                 cache.get_or(key, lambda: value)
                 self._key_locks.pop(key, None)
             return value
+        finally:
+            lock.release()
 
     def full_pool(self, dataset_id: str, correlation: str, zero_cell_correction: float = 0.5) -> FullPool:
         """The dataset's full-pool pairwise matrices for one correlation type (cached; InputError if impossible)."""
@@ -331,6 +338,7 @@ class Engine:
         """Per-item descriptives of the whole pool for one reverse set (cached; a drop picks rows)."""
         def make():
             ds = self.dataset(dataset_id)
+            stage(f"descriptives of {len(ds.items)} items")
             flips = np.asarray(mask, dtype=bool)
             out: list[ItemDescriptives] = []
             for s in range(0, len(ds.items), _DESC_BLOCK):  # a few items at a time: no n x k temporaries
@@ -376,11 +384,19 @@ class Engine:
                 ) -> AnalysisAnswer:
         """The whole analysis (cached per canonical settings); a mapping is checked by :meth:`settings` first."""
         s = self._settings(dataset_id, settings)
-        def make() -> AnalysisAnswer:
-            with self._slots:  # at most one analysis per core computes; more requests wait their turn
-                return run(self.inputs(dataset_id, s), s)
+        key = s.key()
+        tag(key=key)  # the progress messages say which analysis they are about (a no-op if nobody listens)
 
-        answer = self._locked((dataset_id, s.key()), self._answers, make)
+        def make() -> AnalysisAnswer:
+            if not self._slots.acquire(blocking=False):  # at most one analysis per core computes; more wait their turn
+                stage("waiting: other analyses are using every core")
+                self._slots.acquire()
+            try:
+                return run(self.inputs(dataset_id, s), s)
+            finally:
+                self._slots.release()
+
+        answer = self._locked((dataset_id, key), self._answers, make)
         self._prefetch_next(s, answer)
         return answer
 

@@ -25,6 +25,7 @@ from .answer import CorrelationsSection, EfaSection, FactorSections, ItemRow, Om
 from .flags import all_flags
 from .inputs import AnalysisInputs
 from .matrices import PoolUnavailable, active_matrices, listwise_covariance, min_pair_n, pool_warnings_for
+from .progress import stage
 from .settings import AnalysisSettings
 
 __all__ = ["FactorInput", "degenerate_reason", "factor_input", "factor_sections", "few_item_notes", "omega_family",
@@ -256,6 +257,7 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     ``with_factorability=False`` leaves KMO and Bartlett's test out (None; a resample does not read them).
     """
     names = list(settings.items)
+    stage(f"correlations of the {len(names)} active items")
     fi = factor_input(inputs, settings, names)
     warnings: list[Note] = list(fi.warnings)
     correlations = CorrelationsSection(type=settings.correlation, items=tuple(names), matrix=fi.R,
@@ -271,6 +273,7 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
         if with_factorability:
             factorability = factorability_summary(fi.R, fi.n, names=names)
         check_factor_model(fi.n, k)
+        stage(f"parallel analysis of {k} items against random data")
         retention = _retention(inputs, settings, fi, names)
         m = settings.n_factors if settings.n_factors is not None else max(1, int(retention["suggested"]))
         m, cut = cap_factors(m, k)
@@ -278,11 +281,13 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
             warnings.append(cut)
         previous = None
         if k != len(inputs.pool_items) and fi.pool_used:
+            stage(f"the whole pool's solution with {m} factors (to line the factors up)")
             previous = _reference(inputs, settings, m)
             u = (previous or {}).get("uniquenesses") or {}
             if start_psi is None and all(u.get(n) is not None for n in names):
                 # the whole pool's uniquenesses of these items: a start a few Newton steps from this optimum
                 start_psi = np.array([u[n] for n in names], dtype=float)
+        stage(f"extraction ({settings.extraction}) and {settings.rotation} rotation of {m} factors")
         result = factor_analysis(fi.R, m, n=fi.n, names=names, method=settings.extraction, rotation=settings.rotation,
                                  gamma=settings.gamma, constructs=_constructs(inputs, names), previous=previous,
                                  thresholds=settings.thresholds, item_rest_r=[r.item_rest_r for r in rows],
@@ -311,6 +316,7 @@ def factor_sections(inputs: AnalysisInputs, settings: AnalysisSettings, rows: Se
     warnings.extend(efa_warnings)
     flags = all_flags(result.flags if result is not None else [], fi.R, rows, settings.thresholds)
     efa = EfaSection(result=result, flags=flags, warnings=tuple(efa_warnings), withheld=withheld)
+    stage("omega hierarchical (Schmid-Leiman)")
     omega, more = omega_family(fi, settings, inputs, names, result, m, uni, random_starts=random_starts)
     warnings.extend(more)
     return FactorSections(correlations, factorability, retention, efa, omega), warnings

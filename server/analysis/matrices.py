@@ -21,6 +21,7 @@ import numpy as np
 from ..stats import correlation as corrmod
 from ..stats.errors import InputError
 from ..stats.notes import Note, note
+from .progress import stage
 
 __all__ = ["ActiveMatrices", "AnswerPatterns", "FullPool", "PoolUnavailable", "active_matrices", "full_pool",
            "listwise_covariance", "min_pair_n", "pool_warnings_for"]
@@ -221,6 +222,7 @@ def full_pool(responses: np.ndarray, names: Sequence[str], constant: Collection[
     ok = np.array([n not in constant for n in names])
     X = responses if ok.all() else responses[:, ok]  # no copy of a large pool without constant items
     kept = [n for n in names if n not in constant]
+    stage(f"{'polychoric' if correlation == 'polychoric' else 'Pearson'} correlations of {len(kept)} items")
     moments = pool_moments(X)
     cov, n_pair = moments.cov, moments.n
     if correlation == "polychoric":

@@ -13,6 +13,7 @@ from .answer import ORDINAL_NOTE, AnalysisAnswer, DatasetInfo, FactorSections
 from .factors import factor_sections
 from .inputs import AnalysisInputs
 from .items import item_rows, path
+from .progress import stage
 from .reliability import (
     construct_blocks,
     ordinal_coefficients,
@@ -33,11 +34,14 @@ def run(inputs: AnalysisInputs, settings: AnalysisSettings, *, with_factors: boo
     is reported as a warning instead.
     """
     warnings: list[Note] = [inputs.constant[n] for n in settings.excluded]
+    stage(f"reliability of {len(settings.items)} items (alpha, omega)")
     sc = scale_covariance(inputs, settings)
     warnings.extend(sc.notes)
     rel = scale_reliability(sc, settings)
     warnings.extend(rel.warnings)
+    stage("item table: alpha and omega with each item left out")
     rows = item_rows(inputs, settings, sc, rel)
+    stage("pruning path")
     pruning = path(settings, sc, rel)
     factors = None
     R_ordinal = None
@@ -51,6 +55,7 @@ def run(inputs: AnalysisInputs, settings: AnalysisSettings, *, with_factors: boo
             ordinal["ordinal_note"] = ORDINAL_NOTE
             warnings.extend(more)
         rel = replace(rel, omega=factors.omega, ordinal=ordinal)
+    stage("subscales and constructs")
     groups, grouping = subscale_groups(inputs, settings, factors.efa.result if factors else None,
                                        factors_run=with_factors)
     constructs = construct_blocks(inputs, settings, sc, groups, R_ordinal)

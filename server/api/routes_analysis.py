@@ -3,13 +3,14 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
 from ..analysis.residuals import residual_view
 from ..analysis.settings import OPTIONS, AnalysisSettings, Option
 from .deps import EngineDep
 from .errors import ApiError
+from .routes_live import run_reported
 from .serialize import AnswerResponse
 
 router = APIRouter(tags=["analysis"])
@@ -38,9 +39,14 @@ AnalysisRequest = create_model("AnalysisRequest", __base__=_RequestBase,
 
 
 @router.post("/datasets/{dataset_id}/analysis", response_class=AnswerResponse)
-def analyse(dataset_id: str, body: AnalysisRequest, engine: EngineDep) -> AnswerResponse:  # type: ignore[valid-type]
-    """The analysis of the request's settings (served from the cache when asked before)."""
-    return AnswerResponse(engine.analyse(dataset_id, body.model_dump()))  # type: ignore[attr-defined]
+async def analyse(dataset_id: str, body: AnalysisRequest, engine: EngineDep,  # type: ignore[valid-type]
+                  request: Request) -> AnswerResponse:
+    """The analysis of the request's settings (served from the cache when asked before).
+
+    A long one says what it computes on the dataset's live channel (``analysis_progress``, see routes_live).
+    """
+    req = body.model_dump()  # type: ignore[attr-defined]
+    return await run_reported(request, dataset_id, lambda: AnswerResponse(engine.analyse(dataset_id, req)))
 
 
 @router.post("/datasets/{dataset_id}/residuals", response_class=AnswerResponse)

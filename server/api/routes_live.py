@@ -29,6 +29,12 @@ how many pages are open whenever one joins or leaves; ``hello`` carries the last
 the dataset so a page that joins late can offer to follow the team. Comment lines (``: ping``) keep
 idle connections open.
 
+An analysis that takes long says what it computes on the same channel (``run_reported``; issue 14):
+``{"action": "analysis_progress", "dataset_id", "stage", "done", "total", "elapsed_s", "key", "request"}``
+after 0.4 s of work, at most every 0.25 s, then one with ``"stage": "done", "final": true``; a quick answer sends
+nothing. ``key`` is :func:`~server.analysis.progress.key_digest` of the canonical settings, ``request`` the
+page's own id of its request (the ``X-Scalewright-Progress`` header), so a page shows only its own analysis.
+
 Streams end when the client disconnects (Starlette cancels the generator), and when the
 server is asked to stop: uvicorn waits for open responses before it shuts down, so the hub
 wraps uvicorn's SIGINT/SIGTERM handlers and closes every stream first.
@@ -39,16 +45,21 @@ import asyncio
 import contextlib
 import itertools
 import json
+import re
 import secrets
 import signal
+import threading
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import Any, TypeVar
 
 from fastapi import APIRouter, Request
+from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import StreamingResponse
 from pydantic import BaseModel, Field
 
+from ..analysis.progress import Reporter, key_digest, reporting
 from ..auth import signed_in_name
 from .errors import ApiError, not_found
 from .openapi import error_responses
@@ -303,3 +314,53 @@ def _publish_keeping_last(hub: LiveHub, dataset: str, message: dict[str, Any]) -
         hub._last.pop(dataset, None)
     else:
         hub._last[dataset] = last
+
+
+T = TypeVar("T")
+PROGRESS_HEADER = "x-scalewright-progress"  # the page's id of its request, echoed as "request"
+_REQUEST_ID = re.compile(r"[A-Za-z0-9_-]{1,64}")
+
+
+async def run_reported(request: Request, dataset_id: str, work: Callable[[], T]) -> T:
+    """``work()`` in the thread pool, its progress stages published on ``dataset_id``'s live channel.
+
+    A :class:`~server.analysis.progress.Reporter` is installed for this request only (a context variable the
+    thread pool copies into its worker); a timer on the event loop sends a stage that lasts (a wait for a slot,
+    a long parallel analysis) once the work is past the reporter's delay, and repeats it now and then for a page
+    that connects late (a page sends its first analysis before it opens the live channel, so the reporter is
+    installed whether or not anyone listens yet; a quick answer costs it a timer set and cancelled).
+    """
+    hub = hub_of(request)
+    loop = asyncio.get_running_loop()
+    loop_thread = threading.get_ident()
+    given = request.headers.get(PROGRESS_HEADER) or ""
+    base = {"action": "analysis_progress", "dataset_id": dataset_id,
+            "request": given if _REQUEST_ID.fullmatch(given) else None}
+
+    def send(message: dict[str, Any]) -> None:
+        body = {**base, **message}
+        if isinstance(body.get("key"), str):
+            body["key"] = key_digest(body["key"])
+        if threading.get_ident() != loop_thread:
+            publish_threadsafe(hub, loop, dataset_id, body)
+            return
+        _publish_keeping_last(hub, dataset_id, body)
+        if hub.relay is not None:  # sending may block: not on the event loop
+            from ..notify import send_quietly
+
+            loop.run_in_executor(None, send_quietly, hub.relay, "progress", dataset_id, body, None)
+
+    reporter = Reporter(send)
+
+    def tick() -> None:
+        nonlocal timer
+        reporter.flush()
+        timer = loop.call_later(reporter.interval, tick)
+
+    timer = loop.call_later(reporter.delay, tick)
+    try:
+        with reporting(reporter):
+            return await run_in_threadpool(work)
+    finally:
+        timer.cancel()
+        reporter.finish()

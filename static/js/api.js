@@ -25,8 +25,8 @@ function whoName() {
   try { return (localStorage.getItem("scalewright.who") || "").trim(); } catch { return ""; }
 }
 
-async function call(method, url, { json, form, signal } = {}) {
-  const headers = {};
+async function call(method, url, { json, form, signal, headers: extra } = {}) {
+  const headers = { ...extra };
   if (pageToken) headers["X-Scalewright-Token"] = pageToken;
   const who = whoName();
   if (who) headers["X-Scalewright-Who"] = encodeURIComponent(who); // for the audit log; UTF-8, percent-encoded
@@ -77,7 +77,9 @@ export const api = {
   upload: (form, onProgress) => (onProgress ? sendForm("/api/datasets", form, onProgress) : call("POST", "/api/datasets", { form })),
   openDemo: () => call("POST", "/api/demo"),
   demoRatings: async () => (await fetch(withToken("/api/demo/ratings"), { credentials: "same-origin" })).text(),
-  analyse: (id, body, signal) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`, { json: body, signal }),
+  // progressId: the page's id of this request; the server's stage messages on the live channel carry it back
+  analyse: (id, body, signal, progressId) => call("POST", `/api/datasets/${encodeURIComponent(id)}/analysis`,
+    { json: body, signal, headers: progressId ? { "X-Scalewright-Progress": progressId } : undefined }),
   residuals: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/residuals`, { json: body }),
   listSnapshots: (id) => call("GET", `/api/datasets/${encodeURIComponent(id)}/snapshots`),
   saveSnapshot: (id, body) => call("POST", `/api/datasets/${encodeURIComponent(id)}/snapshots`, { json: body }),

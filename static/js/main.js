@@ -150,6 +150,60 @@ function tick() {
   if (spinner) spinner.textContent = refittingText();
 }
 
+// What the server computes for our pending analysis (issue 14): its stage messages on the live channel carry our
+// request's id; after 0.5 s a status line in the header says the latest stage and counts the seconds.
+let stageFor = null;   // the id of the analysis request in flight
+let stageMsg = null;   // its latest stage message
+let stageStarted = 0;
+let stageTimer = null;
+function stageLine() {
+  let line = document.getElementById("analysis-stage");
+  if (!line) {
+    line = h("p", { id: "analysis-stage", class: "analysis-stage spinner", role: "status", "aria-live": "polite", hidden: true },
+      h("span", { class: "stage-text" }), " ", h("span", { class: "stage-seconds", "aria-hidden": "true" }));
+    $("#summary").after(line);
+  }
+  return line;
+}
+function stageWords(msg) {
+  if (!msg) return "starting…";
+  if (msg.final) return "done, receiving the answer…";
+  return `${msg.stage}${msg.total ? `, ${thousands(msg.done ?? 0)} of ${thousands(msg.total)}` : ""}`;
+}
+function renderStage() {
+  const line = stageLine();
+  const ms = stageFor ? performance.now() - stageStarted : 0;
+  const show = stageFor != null && ms >= 500;
+  if (line.hidden === show) line.hidden = !show;
+  if (!show) return;
+  const text = `Computing: ${stageWords(stageMsg)}`;
+  const seconds = ms >= 1000 ? `(${Math.floor(ms / 1000)} s)` : "";
+  const [words, secs] = line.children;
+  if (words.textContent !== text) words.textContent = text;
+  if (secs.textContent !== seconds) secs.textContent = seconds;
+}
+function startStage() {
+  const bytes = crypto.getRandomValues(new Uint8Array(9));
+  stageFor = Array.from(bytes, (b) => b.toString(16).padStart(2, "0")).join("");
+  stageMsg = null;
+  stageStarted = performance.now();
+  if (!stageTimer) stageTimer = setInterval(renderStage, 250);
+  return stageFor;
+}
+function stopStage() {
+  stageFor = null;
+  stageMsg = null;
+  clearInterval(stageTimer);
+  stageTimer = null;
+  renderStage();
+}
+function analysisProgress(msg) {
+  if (!stageFor || msg.request !== stageFor) return; // another page's analysis, or an earlier request of ours
+  if (stageMsg && !msg.final && (stageMsg.final || msg.elapsed_s < stageMsg.elapsed_s)) return; // arrived late
+  stageMsg = msg;
+  renderStage();
+}
+
 // Returns whether a refit was asked for. The request leaves first; the summary (busy mark) is drawn while it travels.
 function refit() {
   if (!state.dataset || (!state.meta && state.dropped.length)) return false;
@@ -171,7 +225,7 @@ async function runRefit() {
   const started = performance.now();
   let applied = false;
   try {
-    const answer = await api.analyse(dataset, body);
+    const answer = await api.analyse(dataset, body, undefined, startStage());
     if (current() === key) {
       state.previous = state.analysis;
       state.analysis = answer;
@@ -188,6 +242,7 @@ async function runRefit() {
     if (gen === generation) state.error = e;
   } finally {
     inFlight = false;
+    stopStage();
   }
   if (!applied && current() !== key) { runRefit(); return; }
   state.pending = false;
@@ -366,6 +421,7 @@ function connectLive() {
   source.addEventListener("change", (e) => {
     const msg = JSON.parse(e.data);
     if (msg.action === "resampling") { runProgress(msg); return; } // a run's progress: not a teammate's change
+    if (msg.action === "analysis_progress") { analysisProgress(msg); return; } // what our own analysis computes
     if (msg.sender && msg.sender === state.live.listener) return; // our own echo
     const s = msg.state || {};
     if (["drop", "restore", "undo", "redo", "settings", "restore-snapshot"].includes(msg.action) && s.dropped) {
