@@ -10,6 +10,14 @@ JSON files in ``DATA/runs/`` and read back after a restart. On the SQL store (``
 in its ``runs`` table instead (revision 0004): the computing process writes the run at start, about every
 :data:`SYNC_SECONDS` of progress and at its end, so every process sharing the database reads it; a cancel
 through another process marks the row, and the computing process stops when its next write finds it so.
+
+A run whose computing process died (kill -9, a reboot) must not look active forever. While a run is active a
+small heartbeat thread keeps its record fresh: on the SQL store it sets the row's ``updated_at`` whenever no
+write has done so for :data:`HEARTBEAT_SECONDS`; on the folder store it rewrites ``DATA/runs/<id>.json`` (written
+from the start) as often. An active row not heard from for ``stale_seconds`` (:data:`STALE_SECONDS`) is marked
+``interrupted`` with a plain message (``SqlStore.interrupt_stale_runs``, one guarded UPDATE) when a run is read
+and when one starts; at a server's start, the runs that the folder store or a SQLite database (one process
+each) left active are marked at once.
 """
 from __future__ import annotations
 
@@ -28,15 +36,19 @@ import numpy as np
 from .analysis.resample import ResamplePlan, install_plan, make_plan, resample_values, summarize
 from .engine import Engine
 from .errors import NotFound
+from .sqlstore import run_cutoff, run_interrupted_error
 from .stats.errors import InputError
 from .stats.resampling import bootstrap_indices
-from .store import new_id, utc_now
+from .store import StorageError, new_id, utc_now
 
-__all__ = ["MAX_RESAMPLES", "MIN_RESAMPLES", "Run", "RunService", "default_workers"]
+__all__ = ["HEARTBEAT_SECONDS", "MAX_RESAMPLES", "MIN_RESAMPLES", "STALE_SECONDS", "Run", "RunService",
+           "default_workers"]
 
 MIN_RESAMPLES, MAX_RESAMPLES, DEFAULT_RESAMPLES = 2, 2000, 200
 ACTIVE = ("queued", "running")
 SYNC_SECONDS = 0.5  # on the SQL store: the computing process writes progress (and checks for a cancel) this often
+HEARTBEAT_SECONDS = 5.0  # an active run's record is refreshed at least this often, progress or not
+STALE_SECONDS = 30.0  # an active run not heard from for this long is taken as interrupted (its process died)
 
 _PLAN: ResamplePlan | None = None  # the plan of this worker process (set by the initializer)
 
@@ -85,6 +97,9 @@ class Run:
     pool: ProcessPoolExecutor | None = None
     pids: tuple[int, ...] = ()
     synced: float = 0.0  # when the run was last written to the SQL store (time.monotonic)
+    beat: float = 0.0  # when the run's row was last written or touched (its updated_at; time.monotonic)
+    beating: threading.Event | None = None  # set to stop the run's heartbeat thread
+    write_lock: threading.Lock = field(default_factory=threading.Lock)  # the folder store's JSON writes
 
     def to_dict(self) -> dict:
         out = {"run_id": self.run_id, "dataset_id": self.dataset_id, "state": self.state,
@@ -105,7 +120,8 @@ class RunService:
     """The runs of one server: start, look up, cancel, keep (see the module docstring)."""
 
     def __init__(self, engine: Engine, data_dir: os.PathLike | str, *, workers: int | None = None,
-                 chunk_seconds: float = 0.5):
+                 chunk_seconds: float = 0.5, heartbeat_seconds: float = HEARTBEAT_SECONDS,
+                 stale_seconds: float = STALE_SECONDS):
         from pathlib import Path
         self.engine = engine
         self.folder = Path(data_dir) / "runs"
@@ -117,6 +133,44 @@ class RunService:
         self._ctx = multiprocessing.get_context("forkserver" if "forkserver" in
                                                 multiprocessing.get_all_start_methods() else "spawn")
         self.closed = False
+        self.heartbeat_seconds = heartbeat_seconds
+        self.stale_seconds = stale_seconds  # tests shorten it; keep it well above heartbeat_seconds
+        self._interrupt_leftovers()
+
+    def _interrupt_leftovers(self) -> None:
+        """At a server's start: runs left active by a process that shared nothing with this one are dead. The folder
+        store and a SQLite database serve one process (``lock_data_dir``; ``--workers`` needs PostgreSQL), so their
+        active runs are marked ``interrupted`` now; on PostgreSQL other live processes may be computing theirs,
+        which are judged by their heartbeat (:meth:`_interrupt_stale`)."""
+        if self.shared is not None:
+            if getattr(self.shared, "backend", None) == "sqlite":
+                with contextlib.suppress(Exception):  # a read-only or busy database: they are judged stale later
+                    self.shared.interrupt_stale_runs(0.0)
+            return
+        try:
+            paths = sorted(self.folder.glob("*.json"))
+        except OSError:
+            return
+        import json
+        for path in paths:
+            with contextlib.suppress(OSError, ValueError, KeyError, TypeError):
+                with path.open("rb") as fh:  # the state comes third in the JSON, before settings and result
+                    head = fh.read(4096)
+                if b'"state":"queued"' not in head and b'"state":"running"' not in head:
+                    continue
+                record = json.loads(path.read_text(encoding="utf-8"))
+                if record["state"] not in ACTIVE:
+                    continue
+                run = self._from_dict(record)
+                heard = _iso(path.stat().st_mtime)  # the heartbeat rewrote the file: last heard from then
+                run.state, run.finished_at = "interrupted", heard
+                run.error = run_interrupted_error(heard, run.done, run.n_resamples)
+                self._write_file(run)
+
+    def _interrupt_stale(self) -> None:
+        """On the SQL store: mark the active runs not heard from for ``stale_seconds`` as interrupted."""
+        if self.shared is not None:
+            self.shared.interrupt_stale_runs(self.stale_seconds)
 
     def warm(self) -> None:
         """Start the fork server now (it imports the analysis once), so a run's first workers start fast."""
@@ -142,11 +196,17 @@ class RunService:
             self._runs[run.run_id] = run
         if self.shared is not None:  # in this request (its workspace); a storage fault answers the request
             try:
+                self._interrupt_stale()  # runs of dead processes stop counting as active
                 self._sync(run, force=True, quiet=False)
             except BaseException:
                 with self._lock:
                     self._runs.pop(run.run_id, None)
                 raise
+        else:
+            self._save(run)  # kept from the start: a server killed meanwhile finds it active at its next start
+        run.beating = threading.Event()
+        threading.Thread(target=self._heartbeat, args=(run, run.beating), name=f"run-beat-{run.run_id}",
+                         daemon=True).start()
         threading.Thread(target=self._compute, args=(run, dict(request), publish), name=f"run-{run.run_id}",
                          daemon=True).start()
         return run
@@ -156,15 +216,37 @@ class RunService:
         through another process is cancelled here."""
         if self.shared is None or (not force and time.monotonic() - run.synced < SYNC_SECONDS):
             return
-        run.synced = time.monotonic()
+        run.synced = run.beat = time.monotonic()
         try:
             stored = self.shared.save_run(run.to_dict(), new=not quiet)
         except Exception:  # noqa: BLE001 - the database back later: the next write catches up
             if not quiet:
                 raise
             return
-        if stored == "cancelled" and run.state in ACTIVE:
+        if stored in ("cancelled", "interrupted") and run.state in ACTIVE:
             run.cancel_event.set()
+
+    def _heartbeat(self, run: Run, stop: threading.Event) -> None:
+        """While the run is active: its record refreshed at least every ``heartbeat_seconds`` (SQL store: the row's
+        ``updated_at``, unless a progress write just did it; folder store: its JSON file). Ends with the run."""
+        while run.state in ACTIVE and not stop.is_set():
+            if self.shared is None:
+                if stop.wait(self.heartbeat_seconds):
+                    return
+                self._save(run, only_active=True)
+                continue
+            due = run.beat + self.heartbeat_seconds - time.monotonic()
+            if due > 0:
+                if stop.wait(due):
+                    return
+                continue
+            run.beat = time.monotonic()
+            try:
+                stored = self.shared.touch_run(run.run_id)
+            except Exception:  # noqa: BLE001 - the database back later: the next beat catches up
+                continue
+            if stored not in ACTIVE and run.state in ACTIVE:  # cancelled, interrupted or deleted elsewhere
+                run.cancel_event.set()
 
     def _tell(self, run: Run, publish: Publish | None) -> None:
         self._sync(run, force=run.done == 0)
@@ -198,6 +280,9 @@ class RunService:
             run.error = {"code": "run_failed", "message": f"The run stopped: {type(exc).__name__}: {exc}",
                          "details": {}}
             self._finish(run, "cancelled" if run.cancel_event.is_set() else "failed", publish)
+        finally:
+            if run.beating is not None:
+                run.beating.set()
 
     def _resample(self, run: Run, plan: ResamplePlan, publish: Publish | None
                   ) -> tuple[dict, list[dict]] | None:
@@ -264,10 +349,17 @@ class RunService:
                 local = self._runs.get(run_id)
             if stored is None:
                 raise NotFound("run", run_id)
+            if (stored["state"] in ACTIVE and (local is None or local.state not in ACTIVE)
+                    and str(stored.get("updated_at") or "") < run_cutoff(self.stale_seconds)):
+                with contextlib.suppress(StorageError):  # a database refusing writes: shown as last written
+                    self._interrupt_stale()  # its computing process is not heard from: marked interrupted
+                    stored = self.shared.get_run(run_id) or stored
             if local is None:
                 return self._from_dict(stored)
-            if local.state in ACTIVE and stored["state"] == "cancelled":  # cancelled through another process
+            if local.state in ACTIVE and stored["state"] in ("cancelled", "interrupted"):  # through another process
                 self._cancel_local(local)
+            if stored["state"] == "interrupted":
+                return self._from_dict(stored)
             return local
         with self._lock:
             run = self._runs.get(run_id)
@@ -326,15 +418,19 @@ class RunService:
             return None
         return self.folder / f"{run_id}.json"
 
-    def _save(self, run: Run) -> None:
+    def _save(self, run: Run, *, only_active: bool = False) -> None:
         if self.shared is not None:
             return self._sync(run, force=True)
+        with run.write_lock:  # a heartbeat's write never lands after the final one
+            if only_active and run.state not in ACTIVE:
+                return
+            with contextlib.suppress(OSError):  # the run stays in memory; it is only not kept across a restart
+                self._write_file(run)
+
+    def _write_file(self, run: Run) -> None:
         from .store import _dumps, _write_atomic
-        try:
-            self.folder.mkdir(parents=True, exist_ok=True)
-            _write_atomic(self.folder / f"{run.run_id}.json", _dumps(run.to_dict()).encode("utf-8"))
-        except OSError:  # the run stays in memory; it is only not kept across a restart
-            pass
+        self.folder.mkdir(parents=True, exist_ok=True)
+        _write_atomic(self.folder / f"{run.run_id}.json", _dumps(run.to_dict()).encode("utf-8"))
 
     def _load(self, run_id: str) -> Run | None:
         import json
@@ -353,3 +449,9 @@ class RunService:
                   n_resamples=d["n_resamples"], seed=d["seed"], state=d["state"], done=d["progress"]["done"],
                   started_at=d["started_at"], finished_at=d["finished_at"], result=d.get("result"),
                   error=d.get("error"))
+
+
+def _iso(timestamp: float) -> str:
+    """A POSIX time as ``utc_now`` writes it."""
+    import datetime as _dt
+    return _dt.datetime.fromtimestamp(timestamp, _dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")

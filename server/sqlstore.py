@@ -107,6 +107,29 @@ runs_table = sa.Table(
     sa.Column("updated_at", sa.String(32)),
 )
 _RUN_ACTIVE = ("queued", "running")
+
+
+def run_interrupted_error(last_heard: str | None, done: int, total: int) -> dict:
+    """The error of a run whose computing process stopped (state ``interrupted``): when it was last heard from
+    (ISO 8601 UTC, as ``utc_now``), in plain words."""
+    import datetime as _dt
+
+    try:
+        at = _dt.datetime.strptime(str(last_heard), "%Y-%m-%dT%H:%M:%S.%fZ")
+        when = f"{at:%H:%M} UTC on {at:%Y-%m-%d}"
+    except ValueError:
+        when = "an unknown time"
+    return {"code": "interrupted", "details": {"last_heard": last_heard},
+            "message": f"The server process computing this run stopped at about {when} (when it was last heard "
+                       f"from), after {done} of {total} resamples. Start the run again."}
+
+
+def run_cutoff(stale_seconds: float) -> str:
+    """The ``updated_at`` before which an active run is stale: ``stale_seconds`` ago, formatted as ``utc_now``."""
+    import datetime as _dt
+
+    at = _dt.datetime.now(_dt.UTC) - _dt.timedelta(seconds=max(0.0, float(stale_seconds)))
+    return at.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 DEFAULT_WORKSPACE = "default"  # rows written without a signed-in person (laptop mode, earlier revisions)
 
 
@@ -545,7 +568,8 @@ class SqlStore:
 
         A run another process cancelled stays cancelled: the write is skipped (the stored state, ``cancelled``,
         is returned, so the computing process stops) unless it says ``cancelled`` too; so does a run deleted
-        meanwhile (not written again). A ``new`` run is added, in its dataset's workspace.
+        meanwhile (not written again) and one marked ``interrupted`` (:meth:`interrupt_stale_runs`). A ``new``
+        run is added, in its dataset's workspace. Every write sets ``updated_at``: the run's heartbeat.
         """
         values = {"state": record["state"], "done": int(record["progress"]["done"]),
                   "total": int(record["progress"]["total"]), "settings": _dumps(record["settings"]),
@@ -567,13 +591,47 @@ class SqlStore:
             return values["state"]
 
     def get_run(self, run_id: str) -> dict | None:
-        """A run's JSON as last written, with the stored state (in the acting person's workspace), or None."""
+        """A run's JSON as last written, with the stored state and ``updated_at`` (when its computing process was
+        last heard from), in the acting person's workspace; or None."""
         if not _is_id(run_id):
             return None
         with self._read() as conn:
-            row = conn.execute(_scoped(sa.select(runs_table.c.record, runs_table.c.state)
+            row = conn.execute(_scoped(sa.select(runs_table.c.record, runs_table.c.state, runs_table.c.updated_at)
                                        .where(runs_table.c.id == run_id), runs_table)).first()
-        return None if row is None else {**json.loads(row[0]), "state": row[1]}
+        return None if row is None else {**json.loads(row[0]), "state": row[1], "updated_at": row[2]}
+
+    def touch_run(self, run_id: str) -> str | None:
+        """The computing process's heartbeat: set an active run's ``updated_at`` to now (one small UPDATE, no
+        JSON). Returns the stored state (``running`` or ``queued`` when touched), or None when the run is gone."""
+        with self._write() as conn:
+            conn.execute(runs_table.update().where(runs_table.c.id == run_id, runs_table.c.state.in_(_RUN_ACTIVE))
+                         .values(updated_at=utc_now()))
+            row = conn.execute(sa.select(runs_table.c.state).where(runs_table.c.id == run_id)).first()
+        return None if row is None else row[0]
+
+    def interrupt_stale_runs(self, stale_seconds: float) -> int:
+        """Mark ``interrupted`` every active run not heard from (``updated_at``) for ``stale_seconds``: its computing
+        process died (kill -9, a reboot). Returns how many this call marked.
+
+        One UPDATE guarded by the condition (active AND updated_at < cutoff) claims the rows, so two processes
+        doing this at once never mark a run twice, and a heartbeat that lands first keeps its run alive; the
+        claimed rows' JSON then gets the state, the last-heard time as ``finished_at`` and a plain message, in the
+        same transaction. ``updated_at`` is left as it was: when the process was last heard from. All workspaces.
+        """
+        cutoff = run_cutoff(stale_seconds)
+        with self._write() as conn:
+            claimed = conn.execute(runs_table.update()
+                                   .where(runs_table.c.state.in_(_RUN_ACTIVE), runs_table.c.updated_at < cutoff)
+                                   .values(state="interrupted")
+                                   .returning(runs_table.c.id, runs_table.c.record, runs_table.c.updated_at)).all()
+            for run_id, raw, heard in claimed:
+                record = json.loads(raw)
+                progress = record.get("progress") or {}
+                record.update(state="interrupted", finished_at=heard,
+                              error=run_interrupted_error(heard, int(progress.get("done") or 0),
+                                                          int(progress.get("total") or 0)))
+                conn.execute(runs_table.update().where(runs_table.c.id == run_id).values(record=_dumps(record)))
+        return len(claimed)
 
     def run_state(self, run_id: str) -> str | None:
         """Only the stored state of a run (the computing process's cancel check), or None."""

@@ -15,7 +15,7 @@ from server.errors import NotFound
 from server.intake import read_responses
 from server.runs import WORKER_NICE, RunService, default_workers
 from server.stats.errors import InputError
-from server.store import Store
+from server.store import SQLiteStore, Store
 
 
 @pytest.fixture
@@ -58,7 +58,10 @@ def test_progress_messages_and_result(service):
     assert messages[0][1]["state"] == "running"
     final = service.get(run.run_id)
     assert final.result["n_resamples"] == 8
-    assert (service.folder / f"{run.run_id}.json").exists()
+    if service.shared is None:  # the folder store keeps it as a file; a SQL store in its runs table
+        assert (service.folder / f"{run.run_id}.json").exists()
+    else:
+        assert service.shared.get_run(run.run_id)["state"] == "done"
 
 
 @pytest.mark.parametrize("n", [1, 2001, True, 3.0])
@@ -108,3 +111,40 @@ def test_serve_takes_the_number_of_run_workers():
 
     assert build_parser().parse_args(["serve", "--run-workers", "3"]).run_workers == 3
     assert build_parser().parse_args(["serve"]).run_workers is None  # one per core
+
+
+def test_a_run_a_folder_server_left_active_is_interrupted_at_the_next_start(tmp_path):
+    """The folder store (one process per data folder) keeps an active run's file from its start, refreshed by the
+    heartbeat; a server started on the folder later finds it active, so its process died: marked interrupted."""
+    rng = np.random.default_rng(0)  # simulated population: one factor, six items
+    z = rng.standard_normal((200, 1)) * 0.7 + rng.standard_normal((200, 6)) * 0.7
+    raw = pd.DataFrame(np.clip(np.round(z + 3), 1, 5).astype(int),
+                       columns=[f"q{j}" for j in range(6)]).to_csv(index=False).encode()
+    store = SQLiteStore(tmp_path)
+    dataset_id = store.add_dataset(name="d", raw=raw, filename="d.csv", codebook_raw=None, codebook_filename=None,
+                                   options={"scale_min": 1, "scale_max": 5}, meta={"n_rows": 200})["id"]
+    first = RunService(Engine(store), tmp_path, workers=1, heartbeat_seconds=0.2)
+    assert first.shared is None
+    gate, analyse = threading.Event(), first.engine.analyse
+    first.engine.analyse = lambda *a, **k: (gate.wait(30), analyse(*a, **k))[1]  # held queued: no progress
+    try:
+        run = first.start(dataset_id, {}, n_resamples=4)
+        path = first.folder / f"{run.run_id}.json"
+        assert path.exists() and '"state":"queued"' in path.read_text()  # written at the start
+        times = {path.stat().st_mtime_ns}
+        end = time.monotonic() + 10
+        while len(times) < 3 and time.monotonic() < end:  # the heartbeat rewrites it
+            time.sleep(0.05)
+            times.add(path.stat().st_mtime_ns)
+        assert len(times) >= 3
+        second = RunService(Engine(SQLiteStore(tmp_path)), tmp_path, workers=1)  # the next server process
+        seen = second.get(run.run_id)
+        assert seen.state == "interrupted" and seen.error["code"] == "interrupted"
+        assert seen.error["message"].startswith("The server process computing this run stopped at about ")
+        assert seen.error["message"].endswith("after 0 of 4 resamples. Start the run again.")
+        assert seen.finished_at is not None
+        assert second.delete(run.run_id) is True  # no longer active: it can be forgotten
+        assert not path.exists()
+    finally:
+        gate.set()
+        first.shutdown()

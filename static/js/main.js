@@ -457,7 +457,8 @@ function runProgress(msg) {
   const r = state.robustness;
   if (!r.run || msg.run_id !== r.run.run_id) return;
   runHeardAt = Date.now();
-  if (r.run.state === "cancelled" && msg.state !== "cancelled") return; // a late message of a cancelled run
+  // a late message of a run cancelled, or marked interrupted (its process was not heard from; see server/runs.py)
+  if (["cancelled", "interrupted"].includes(r.run.state) && msg.state !== r.run.state) return;
   r.run = { ...r.run, state: msg.state, progress: { done: msg.done, total: msg.total } };
   if (!ACTIVE_RUN.includes(msg.state)) fetchRun(msg.run_id);
   else renderRobustness();
@@ -474,6 +475,7 @@ async function fetchRun(runId) {
     r.run = run;
     if (run.state === "done" && result) r.result = result;
     if (run.state === "failed") r.error = run.error?.message || "The run failed.";
+    if (run.state === "interrupted") r.error = run.error?.message || "The server process computing this run stopped. Start the run again.";
   } catch (e) {
     if (r.run && r.run.run_id === runId) r.error = e.message;
   }

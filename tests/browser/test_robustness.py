@@ -77,3 +77,44 @@ def test_a_run_from_the_dashboard_shows_progress_rates_whiskers_and_can_be_cance
     assert page.locator("#rob-cancel").count() == 0
     assert page.locator("#rob-flags").count() == 0  # the cancelled run has no result to show
     assert page.errors == []
+
+
+def test_an_interrupted_run_shows_its_message_and_can_be_started_again(page, server, demo):
+    """A run whose server process stopped is answered ``interrupted`` (server/runs.py): the view stops waiting,
+    shows the server's message as text, and offers Start again. The runs are answered by the test here."""
+    import json
+
+    fake = {"run_id": "gone1", "dataset_id": demo["id"], "state": "running", "progress": {"done": 3, "total": 40},
+            "settings": {}, "n_resamples": 40, "seed": 1, "started_at": "2026-12-01T14:01:00.000000Z",
+            "finished_at": None}
+    message = "The server process computing this run stopped at about 14:02 UTC <b>on</b> 2026-12-01. Start again."
+    gone = {**fake, "state": "interrupted", "finished_at": "2026-12-01T14:02:09.000000Z",
+            "error": {"code": "interrupted", "message": message, "details": {}}}
+    reads = []
+
+    def answer(route):
+        if route.request.method == "POST":
+            return route.fulfill(status=202, content_type="application/json", body=json.dumps(fake))
+        reads.append(route.request.url)
+        return route.fulfill(status=200, content_type="application/json", body=json.dumps(gone))
+
+    page.route("**/resampling", answer)
+    page.route("**/api/runs/gone1", answer)
+    open_dataset(page, server, demo["id"], view="robustness")
+    page.wait_for_selector("#rob-start")
+    page.fill("#rob-n", "40")
+    page.click("#rob-start")
+    page.wait_for_selector("#rob-progress[data-state='running']")
+    assert page.locator("#rob-cancel").count() == 1
+    # no live message comes for it: the page asks the server, which answers interrupted
+    page.wait_for_selector("#rob-progress[data-state='interrupted']", timeout=15_000)
+    assert page.inner_text("#rob-count").strip() == "3 of 40 resamples — interrupted"
+    assert page.inner_text("#view .note.error") == message  # as text: the <b> is not markup
+    assert page.locator("#view .note.error b").count() == 0
+    assert page.locator("#rob-cancel").count() == 0 and page.is_enabled("#rob-start")
+    n = len(reads)
+    page.wait_for_timeout(2500)
+    assert len(reads) == n  # it stopped asking
+    page.unroute("**/resampling")
+    page.unroute("**/api/runs/gone1")
+    assert page.errors == []

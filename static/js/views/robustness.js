@@ -9,7 +9,10 @@ import { clear, fmt, h, note, section, table } from "./dom.js";
 const FEWEST = 2;
 const MOST = 2000;
 const ACTIVE = ["queued", "running"];
-const STATE_WORDS = { queued: "waiting to start", running: "running", done: "done", cancelled: "cancelled", failed: "failed" };
+const STATE_WORDS = { queued: "waiting to start", running: "running", done: "done", cancelled: "cancelled", failed: "failed",
+  interrupted: "interrupted" };
+// After these states the count says how the run ended (interrupted: its server process stopped; the message is r.error).
+const ENDINGS = { done: " — done", cancelled: " — cancelled", interrupted: " — interrupted" };
 const SVG = "http://www.w3.org/2000/svg";
 
 const pctText = (v) => (v == null ? "—" : `${Math.round(v * 100)} %`);
@@ -42,7 +45,7 @@ function runForm(state) {
     bits.push(h("div", { class: "rob-progress", id: "rob-progress", dataset: { state: run.state } },
       h("label", { for: "rob-bar", text: `Run ${STATE_WORDS[run.state] || run.state}: ` }),
       h("progress", { id: "rob-bar", max: String(total), value: String(done) }),
-      h("span", { id: "rob-count", role: "status", text: ` ${done} of ${total} resamples${run.state === "done" ? " — done" : run.state === "cancelled" ? " — cancelled" : ""}` })));
+      h("span", { id: "rob-count", role: "status", text: ` ${done} of ${total} resamples${ENDINGS[run.state] || ""}` })));
   }
   if (r.error) bits.push(note(r.error, "error"));
   return bits;
