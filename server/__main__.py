@@ -25,7 +25,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="folder for datasets, snapshots and the database (default ./data)")
     s.add_argument("--database", default=None, metavar="URL",
                    help="keep datasets, snapshots and the audit log in this database: postgresql://USER@HOST:PORT/DB "
-                        "or sqlite:///PATH (default: the SQLite database and files in --data-dir)")
+                        "or sqlite:///PATH (default: the SQLite file scalewright.db in --data-dir)")
     s.add_argument("--workers", type=int, default=1, metavar="N",
                    help="server processes sharing the --database (default 1; more than one needs PostgreSQL)")
     s.add_argument("--demo", action="store_true", help="load the built-in demo data on first start")
@@ -133,7 +133,8 @@ def _workspace_command(args) -> int:
     """``backup`` and ``restore``: one line of result on stdout, or one line of error on stderr and exit 1."""
     import sqlite3
 
-    from .backup import BackupError, backup, restore
+    from .backup import BackupError
+    from .folder_store import backup_folder, restore_folder
     from .store import StartupError, StorageError, data_dir_holder
 
     try:
@@ -141,7 +142,7 @@ def _workspace_command(args) -> int:
 
         if args.command == "backup":
             out = (backup_database(args.database, args.out, who=args.who) if args.database
-                   else backup(args.data_dir, args.out, who=args.who))
+                   else backup_folder(args.data_dir, args.out, who=args.who))
             print(f"Backed up {out['datasets']} datasets and {out['snapshots']} snapshots to {out['path']} "
                   f"({out['size']} bytes, SHA-256 {out['sha256']}).", flush=True)
         elif args.database:
@@ -153,7 +154,7 @@ def _workspace_command(args) -> int:
                 raise StartupError(f"A Scalewright server (pid {holder.get('pid', 'unknown')}, port "
                                    f"{holder.get('port', 'unknown')}) is using the data folder {args.data_dir}; "
                                    "stop it first, or import the backup from its dashboard (Workspace & log).")
-            out = restore(args.data_dir, args.zip, merge=args.merge, who=args.who)
+            out = restore_folder(args.data_dir, args.zip, merge=args.merge, who=args.who)
         if args.command == "restore" and out["mode"] == "merge":
             print(f"Merged into {out['data_dir']}: added {len(out['datasets_added'])} datasets and "
                   f"{len(out['snapshots_added'])} snapshots; skipped {len(out['datasets_skipped'])} datasets "
@@ -184,21 +185,22 @@ def _migrate_command(args) -> int:
             finally:
                 engine.dispose()
             where = normalise_url(args.database).render_as_string(hide_password=True)
-        else:
-            import sqlite3
+        else:  # the data folder's database (an earlier store of the folder imported into it first)
+            from .folder_store import DB_FILE, folder_url, open_folder_store
+            from .sqlstore import current_revision, make_engine
 
-            from .store import DB_NAME, SCHEMA_VERSION, Store, schema_version
-
-            db = Path(args.data_dir) / DB_NAME
+            db = Path(args.data_dir) / DB_FILE
             found = None
-            if db.exists():
-                con = sqlite3.connect(db)
+            if db.is_file():
+                engine = make_engine(folder_url(args.data_dir))
                 try:
-                    found = schema_version(con)
+                    with engine.connect() as conn:
+                        found = current_revision(conn)
                 finally:
-                    con.close()
-            Store(args.data_dir)  # migrates at start
-            now, where = SCHEMA_VERSION, str(db.resolve())
+                    engine.dispose()
+            store = open_folder_store(args.data_dir)
+            now, where = store.revision, str(db.resolve())
+            store.close()
         if found == now:
             print(f"The database {where} is up to date (schema {now}).", flush=True)
         else:
@@ -250,6 +252,11 @@ def main(argv: list[str] | None = None) -> int:
         url = start_url(settings)
         where = (f"database: {app.state.store.url.render_as_string(hide_password=True)}" if settings.database_url
                  else f"data folder: {settings.data_dir.resolve()}")
+        imported = getattr(app.state.store, "imported", None)
+        if imported:
+            print(f"Copied this data folder's earlier store ({imported['datasets']} datasets, {imported['snapshots']} "
+                  f"snapshots) into {app.state.store.url.database}; its files are kept, unchanged, in "
+                  f"{imported['moved_to']}.", flush=True)
         print(f"Scalewright is running at {url}  ({where})", flush=True)
         try:
             uvicorn.run(app, host=settings.host, port=settings.port, log_level="warning")

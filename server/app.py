@@ -16,6 +16,7 @@ from .api.openapi import install_openapi
 from .api.origins import refusal
 from .api.schemas import HealthOut
 from .settings import Settings
+from .store import StorageError
 
 STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
 # plotly.js's cartesian bundle (heatmap and scatter among its traces), vendored: static/vendor/plotly/README.txt
@@ -43,8 +44,7 @@ def _stop_runs_with(app: FastAPI) -> None:
             yield state
         stop_live_relay(a)
         a.state.runs.shutdown()
-        if a.state.settings.database_url:  # the SQL store: its pooled connections
-            a.state.store.close()
+        a.state.store.close()  # the SQL store's pooled connections
 
     app.router.lifespan_context = lifespan
 
@@ -77,14 +77,13 @@ class Compression:
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
-    # Store() checks the data folder (creates it; refuses a read-only or damaged one with StartupError).
+    # The store checks the data folder (creates it; refuses a read-only or damaged one with StartupError).
     # No Swagger/ReDoc pages: FastAPI's load their scripts from a CDN, and no page here may reach outside.
     app = FastAPI(title="Scalewright", version=__version__, docs_url=None, redoc_url=None,
                   openapi_url="/api/openapi.json")
     app.state.settings = settings
 
     from .engine import Engine
-    from .store import Store
 
     if settings.database_url:  # a database named by URL (PostgreSQL or one SQLite file), migrated at start
         from .sqlstore import SqlStore
@@ -92,8 +91,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
         _ensure_writable_folder(settings.data_dir)  # uploads in flight and resampling runs stay in the folder
         app.state.store = SqlStore(settings.database_url)
-    else:
-        app.state.store = Store(settings.data_dir)
+    else:  # the data folder's SQLite file (server/folder_store.py), an earlier store of the folder imported
+        from .folder_store import open_folder_store
+
+        app.state.store = open_folder_store(settings.data_dir)
     app.state.engine = Engine(app.state.store, cache_bytes=settings.cache_bytes)
     from .runs import RunService
     app.state.runs = RunService(app.state.engine, settings.data_dir, workers=settings.run_workers)
@@ -108,7 +109,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             status, code, message, details = refused
             return JSONResponse(error_body(code, message, details), status_code=status,
                                 headers={"X-Content-Type-Options": "nosniff", "Cache-Control": "no-store"})
-        gate = await authenticate(request)  # a team server's signed-in person (server/auth.py), or 401
+        try:
+            gate = await authenticate(request)  # a team server's signed-in person (server/auth.py), or 401
+        except StorageError as exc:  # the database cannot be read (read-only disk, server gone): 503, as a route's
+            return JSONResponse(error_body(exc.code, exc.message, exc.details), status_code=exc.status,
+                                headers={"Cache-Control": "no-store"})
         if gate is not None:
             return gate
         if settings.token and not request.state.team:  # laptop mode: the meeting token beyond this machine

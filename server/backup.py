@@ -1,35 +1,37 @@
-"""Back up a whole data folder into one zip, and restore (or merge) such a zip into a data folder.
+"""Back up a store into one zip, and restore (or merge) such a zip into a store.
 
 The zip holds::
 
     manifest.json                  format, software and schema version, creation time, and for every
                                    other member its path, size in bytes and SHA-256
-    scalewright.sqlite3            a consistent copy made with SQLite's online backup API (safe while a
-                                   server runs and writes), in rollback-journal mode (one file)
+    scalewright.sqlite3            datasets, snapshots and the audit log, as one SQLite file of the earlier
+                                   folder store's schema (rollback-journal mode)
     datasets/<id>/raw              each dataset's uploaded file, byte for byte
     datasets/<id>/codebook         its codebook, when there was one
-    team.json                      (backups of a SQL store only) workspaces, people with their token hashes,
-                                   memberships, and the workspace of every dataset, snapshot and audit entry;
-                                   a folder restore ignores it, a database restore without it puts
-                                   everything in the workspace "default"
+    team.json                      (backups of a store with people) workspaces, people with their token
+                                   hashes, memberships, and the workspace of every dataset, snapshot and
+                                   audit entry; a restore without it puts everything in the workspace "default"
 
-:func:`restore` checks everything before it writes anything: the manifest lists exactly the zip's
-members, every name is one of the forms above (so no ``../`` or absolute path can be written), every
-size and SHA-256 matches, the database passes ``PRAGMA quick_check``, is not newer than this code, and
-every dataset it records has its files in the zip with the recorded SHA-256.
+:func:`backup_database` writes it from any store (the data folder's ``scalewright.db``, another SQLite file,
+PostgreSQL) in one read transaction; :func:`backup` from a folder still in the earlier store's layout
+(``server/folder_store.py`` imports such a folder through it).
 
-Merging (``merge=True``) into a folder already in use adds what is new and never changes what is there:
+:func:`restore_database` checks everything before it writes anything (:func:`verify`): the manifest lists
+exactly the zip's members, every name is one of the forms above (so no ``../`` or absolute path can be
+written), every size and SHA-256 matches, the database passes ``PRAGMA quick_check``, is not newer than this
+code, and every dataset it records has its files in the zip with the recorded SHA-256.
 
-- a dataset whose id is not in the folder is added (files, then its row, same id and creation time);
-  one with the same id and the same SHA-256 of raw file and codebook is skipped; the same id with other
-  content is a conflict;
-- a snapshot whose id is not in the folder is added with its record unchanged (byte for byte); one with
-  the same id and an identical record is skipped; the same id with another record is a conflict;
-- the zip's audit entries are not copied (the folder's log stays its own); the merge itself is logged.
+Merging (``merge=True``) into a store already in use adds what is new and never changes what is there:
+
+- a dataset whose id is not there is added (files and row, same id and creation time); one with the same
+  id and the same SHA-256 of raw file and codebook is skipped; the same id with other content is a conflict;
+- a snapshot whose id is not there is added with its record unchanged (byte for byte); one with the same
+  id and an identical record is skipped; the same id with another record is a conflict;
+- the zip's audit entries are not copied (the store's log stays its own); the merge itself is logged.
 
 Any conflict refuses the whole merge (:class:`RestoreConflict`) before anything is written. Datasets
-deleted from the folder since the backup come back with a merge. Without ``merge`` the folder must be
-empty or absent: the zip is unpacked into a temporary folder beside it, migrated, then renamed into place.
+deleted since the backup come back with a merge. Without ``merge`` the store must hold no dataset and no
+snapshot; the restore is one transaction.
 """
 from __future__ import annotations
 
@@ -49,7 +51,6 @@ from pathlib import Path
 from . import __version__
 from .store import (
     DB_NAME,
-    LOCK_NAME,
     SCHEMA_VERSION,
     StartupError,
     _fsync_dir,
@@ -59,7 +60,7 @@ from .store import (
     utc_now,
 )
 
-__all__ = ["FORMAT", "MANIFEST", "BackupError", "RestoreConflict", "backup", "backup_database", "restore",
+__all__ = ["FORMAT", "MANIFEST", "BackupError", "RestoreConflict", "backup", "backup_database",
            "restore_database", "verify"]
 
 FORMAT = "scalewright-backup"
@@ -447,23 +448,6 @@ def _check_database(db_copy: Path, listed: dict, label: str) -> None:
 
 # ---------------------------------------------------------------- restore
 
-def _extract(zf: zipfile.ZipFile, name: str, size: int, sha: str, target: Path) -> None:
-    """Unpack one member to ``target`` through a temp file, checking its SHA-256 again; fsync, rename."""
-    tmp = target.with_name(f".{target.name}.{uuid.uuid4().hex[:8]}.tmp")
-    try:
-        with open(tmp, "wb") as out:
-            digest = _hash_member(zf, zf.getinfo(name), size, out)
-            out.flush()
-            os.fsync(out.fileno())
-        if digest != sha:
-            raise _bad(f"The member {name} changed while it was restored; nothing was restored.", member=name)
-        os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-
-
 def _free_bytes(path: Path) -> int | None:
     probe = path
     while not probe.exists() and probe != probe.parent:
@@ -502,137 +486,14 @@ def _merge_plan(datasets: list, snapshots: list, have_ds: dict, have_snap: dict,
     return add_ds, skip_ds, add_snap, skip_snap
 
 
-def restore(data_dir: str | os.PathLike, zip_path: str | os.PathLike, merge: bool = False, *,
-            who: str | None = None, max_bytes: int | None = None, label: str | None = None) -> dict:
-    """Restore a backup zip into ``data_dir``; returns what was added (and, merging, skipped).
-
-    Everything is verified first (see :func:`verify`). Without ``merge`` the folder must be empty or
-    absent; with ``merge`` the zip's new datasets and snapshots are added to the folder (see the module
-    docstring for the id rules). Migrations run on the restored database; the restore is audited.
-    """
-    data_dir, zip_path = Path(data_dir).absolute(), Path(zip_path)
-    with tempfile.TemporaryDirectory(prefix="scalewright-restore-") as scratch:
-        checked = verify(zip_path, scratch, max_bytes=max_bytes, label=label)  # ``label`` names the zip in messages
-        if data_dir.exists() and not data_dir.is_dir():
-            raise _bad(f"{data_dir} is a file, not a folder.")
-        occupied = data_dir.exists() and any(p.name != LOCK_NAME for p in data_dir.iterdir())
-        free = _free_bytes(data_dir)
-        need = sum(checked.sizes.values())
-        if free is not None and need > free:
-            raise _bad(f"The backup needs {need} bytes but only {free} are free on the data folder's disk.")
-        if not occupied:
-            return _restore_fresh(data_dir, zip_path, checked, who)
-        if not merge:
-            raise _bad(f"The data folder {data_dir} is not empty. Restore into an empty folder, or add --merge to "
-                       "add the backup's datasets and snapshots to the ones there.", folder=data_dir.name)
-        if not (data_dir / DB_NAME).is_file():
-            raise _bad(f"The folder {data_dir} is not empty and holds no Scalewright database; restore into an "
-                       "empty folder instead.", folder=data_dir.name)
-        return _merge(data_dir, zip_path, checked, who)
-
-
 def _restore_details(zip_path: Path, checked: _Verified) -> dict:
     m = checked.manifest
     return {"zip_sha256": checked.zip_sha, "file": checked.label, "backup_created_at": m.get("created_at"),
             "backup_software_version": m.get("software_version"), "backup_schema_version": m.get("schema_version")}
 
 
-def _restore_fresh(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) -> dict:
-    data_dir.parent.mkdir(parents=True, exist_ok=True)
-    staging = data_dir.parent / f".{data_dir.name}.restore-{uuid.uuid4().hex[:8]}"
-    staging.mkdir()
-    try:
-        (staging / "datasets").mkdir()
-        with zipfile.ZipFile(zip_path) as zf:
-            for entry in checked.manifest["files"]:
-                if entry["path"] == TEAM:  # a folder has no people or workspaces
-                    continue
-                target = staging / entry["path"]
-                target.parent.mkdir(parents=True, exist_ok=True)
-                _extract(zf, entry["path"], entry["size"], entry["sha256"], target)
-        con = _connect(staging / DB_NAME)
-        try:
-            con.execute("PRAGMA journal_mode=WAL")
-            migrate(con)
-            n_datasets = con.execute("SELECT count(*) FROM datasets").fetchone()[0]
-            n_snapshots = con.execute("SELECT count(*) FROM snapshots").fetchone()[0]
-            con.execute("BEGIN IMMEDIATE")
-            append_audit(con, "restore", who=who, details={**_restore_details(zip_path, checked), "merge": False,
-                                                           "datasets": n_datasets, "snapshots": n_snapshots})
-            con.execute("COMMIT")
-        finally:
-            con.close()
-        for folder in [staging / "datasets", staging]:
-            _fsync_dir(folder)
-        if data_dir.exists():
-            (data_dir / LOCK_NAME).unlink(missing_ok=True)  # a stale lock file (no live holder: checked)
-            data_dir.rmdir()  # empty (checked); the rename below puts the restored folder in its place
-        os.rename(staging, data_dir)
-        _fsync_dir(data_dir.parent)
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
-    return {"mode": "new", "data_dir": str(data_dir), "datasets": n_datasets, "snapshots": n_snapshots,
-            "files": len(checked.manifest["files"])}
-
-
 _DATASET_COLS = ("id", "name", "filename", "codebook_filename", "sha256", "codebook_sha256", "size_bytes", "options",
                  "meta", "created_at")
-
-
-def _merge(data_dir: Path, zip_path: Path, checked: _Verified, who: str | None) -> dict:
-    src = sqlite3.connect(checked.db_copy)
-    try:
-        datasets = src.execute(f"SELECT {', '.join(_DATASET_COLS)} FROM datasets ORDER BY seq").fetchall()
-        snapshots = src.execute("SELECT id, dataset_id, created_at, record FROM snapshots ORDER BY seq").fetchall()
-    finally:
-        src.close()
-    con = _connect(data_dir / DB_NAME)
-    made: list[Path] = []
-    try:
-        migrate(con)
-
-        def plan():
-            have_ds = {r[0]: (r[1], r[2]) for r in con.execute("SELECT id, sha256, codebook_sha256 FROM datasets")}
-            have_snap = dict(con.execute("SELECT id, record FROM snapshots"))
-            return _merge_plan(datasets, snapshots, have_ds, have_snap, "data folder")
-
-        add_ds, _, _, _ = plan()  # conflicts refuse the merge before anything is written
-        with zipfile.ZipFile(zip_path) as zf:
-            for row in add_ds:
-                folder = data_dir / "datasets" / row[0]
-                if not folder.exists():
-                    folder.mkdir(parents=True)
-                    made.append(folder)
-                for kind, sha in (("raw", row[4]), ("codebook", row[5])):
-                    if sha is not None:
-                        name = f"datasets/{row[0]}/{kind}"
-                        _extract(zf, name, checked.sizes[name], sha, folder / kind)
-                _fsync_dir(folder)
-        con.execute("BEGIN IMMEDIATE")
-        try:
-            add_ds, skip_ds, add_snap, skip_snap = plan()  # again under the write lock
-            for row in add_ds:
-                con.execute(f"INSERT INTO datasets ({', '.join(_DATASET_COLS)}) VALUES ({', '.join('?' * 10)})", row)
-            for row in add_snap:
-                con.execute("INSERT INTO snapshots (id, dataset_id, created_at, record) VALUES (?, ?, ?, ?)", row)
-            summary = {"datasets_added": [r[0] for r in add_ds], "datasets_skipped": skip_ds,
-                       "snapshots_added": [r[0] for r in add_snap], "snapshots_skipped": skip_snap}
-            details = {**_restore_details(zip_path, checked), "merge": True, **summary,
-                       "datasets_added_sha256": {r[0]: r[4] for r in add_ds}}
-            append_audit(con, "restore", who=who, details=details)
-            con.execute("COMMIT")
-        except BaseException:
-            if con.in_transaction:
-                con.execute("ROLLBACK")
-            raise
-    except BaseException:
-        for folder in made:
-            shutil.rmtree(folder, ignore_errors=True)
-        raise
-    finally:
-        con.close()
-    return {"mode": "merge", "data_dir": str(data_dir), **summary}
 
 
 # ---------------------------------------------------------------- the SQL store (serve --database URL)
@@ -839,6 +700,10 @@ def restore_database(database: str, zip_path: str | os.PathLike, merge: bool = F
     try:
         with tempfile.TemporaryDirectory(prefix="scalewright-restore-") as scratch:
             checked = verify(zip_path, scratch, max_bytes=max_bytes, label=label)
+            free = _free_bytes(store._folder) if store._folder is not None else None  # a SQLite file's disk
+            need = sum(checked.sizes.values())
+            if free is not None and need > free:
+                raise _bad(f"The backup needs {need} bytes but only {free} are free on the database's disk.")
             src = sqlite3.connect(checked.db_copy)
             try:
                 zip_datasets = src.execute(f"SELECT {', '.join(_DATASET_COLS)} FROM datasets ORDER BY seq").fetchall()

@@ -19,12 +19,13 @@ class Settings:
                       "127.0.0.1")
     port: int = _help("TCP port to listen on.", 8765)
     data_dir: Path = _help(  # noqa: RUF009  (a plain Path default, built once like the others)
-        "Folder holding datasets, snapshots and the SQLite database; everything that must survive a restart.",
+        "Folder holding the SQLite database (datasets with their uploads, snapshots, the audit log), uploads in "
+        "flight and resampling workers' files; everything that must survive a restart.",
         Path("data"))
     database_url: str | None = _help(
         "Database holding datasets, snapshots and the audit log, as a URL: postgresql://USER@HOST:PORT/DB for a "
         "shared PostgreSQL server, or sqlite:///PATH for one SQLite file (uploads kept inside it). Empty: the "
-        "SQLite database and raw files in the data folder.", None)
+        "SQLite file scalewright.db in the data folder (uploads kept inside it too).", None)
     max_upload_mb: float = _help("Largest upload accepted, in megabytes (larger files get 413).", 100.0)
     token: str | None = _help("Access token every request must carry when the server is shared "
                               "beyond this machine. Generated at start when needed.", None)
@@ -60,6 +61,15 @@ class Settings:
     @property
     def is_local(self) -> bool:
         return self.host in LOCAL_HOSTS
+
+    @property
+    def store_url(self) -> str:
+        """The database the server keeps its data in: ``database_url``, or the data folder's SQLite file."""
+        if self.database_url:
+            return self.database_url
+        from .folder_store import folder_url
+
+        return folder_url(self.data_dir)
 
     @property
     def max_upload_bytes(self) -> int:

@@ -1,22 +1,26 @@
-"""Datasets and snapshots on disk: SQLite (WAL) for records, raw files kept byte for byte.
+"""The data folder: its checks and lock, the store interface, storage faults, and the earlier folder store.
 
-Layout of the data folder::
+Today's layout of the data folder::
+
+    scalewright.db                 datasets with their uploads, snapshots, the audit log, resampling runs:
+                                   :class:`server.sqlstore.SqlStore` on SQLite (``server/folder_store.py``)
+    scalewright.lock               flock held by the running server; records its pid and port
+    tmp/                           uploads in flight (swept at start)
+    earlier-store-<time>/          an earlier store's files after their import (kept for the user to delete)
+
+:func:`Store` opens it. :class:`SQLiteStore` is the earlier folder store, kept to read and import such a
+folder (and as the tests' builder of one)::
 
     scalewright.sqlite3            datasets, snapshots and audit tables, meta.schema_version (WAL)
     datasets/<id>/raw              the uploaded response file, exactly as received
     datasets/<id>/codebook         the uploaded codebook, when there was one
-    scalewright.lock               flock held by the running server; records its pid and port
 
-Snapshots are immutable: the store has no update or delete for them, and SQLite triggers refuse
-UPDATE and DELETE on the table.  Each snapshot is saved by one INSERT in one transaction with
-``synchronous=FULL``, so a crash (even ``kill -9``) either keeps a whole snapshot or none of it, and
-never touches snapshots saved before.  Raw files are written to a temporary file, fsynced and renamed.
+Its snapshots are immutable (SQLite triggers refuse UPDATE and DELETE), each saved by one INSERT in one
+transaction with ``synchronous=FULL``; raw files are written to a temporary file, fsynced and renamed. Its
+schema has a version (``meta.schema_version``); :func:`migrate` runs the :data:`MIGRATIONS` steps a folder
+lacks, in one transaction, and refuses a folder written by a newer Scalewright.
 
-The schema has a version (``meta.schema_version``); :func:`migrate` runs the :data:`MIGRATIONS` steps a
-folder lacks at start, in one transaction, and refuses a folder written by a newer Scalewright.
-
-No statistics here.  :class:`StoreBackend` is the interface routes and the engine rely on, so another
-backend (e.g. a shared database server) can be added later; ``Store = SQLiteStore`` today.
+No statistics here. :class:`StoreBackend` is the interface routes and the engine rely on.
 """
 from __future__ import annotations
 
@@ -303,7 +307,7 @@ def _ensure_writable_folder(data_dir: Path) -> str:
 _RESTORE_ADVICE = "Restore it from a backup (scalewright restore) or move it aside to start afresh."
 
 
-def check_data_dir(data_dir: str | os.PathLike) -> None:
+def check_data_dir(data_dir: str | os.PathLike, db_names: tuple[str, ...] = (DB_NAME,)) -> None:
     """Refuse to start on a data folder the server cannot use, with one line naming the problem and a fix.
 
     Creates the folder if needed and checks it takes a file; when the database exists, checks it can be
@@ -312,22 +316,23 @@ def check_data_dir(data_dir: str | os.PathLike) -> None:
     """
     data_dir = Path(data_dir)
     _ensure_writable_folder(data_dir)
-    db = data_dir / DB_NAME
+    for name in db_names:
+        check_database_file(data_dir / name)
+
+
+def check_database_file(db: Path) -> None:
+    """Refuse a SQLite file that exists but cannot serve (see :func:`check_data_dir`); a missing one is fine."""
     shown = os.path.abspath(db)
     if not os.path.lexists(db):
         return
     if not db.is_file():
         raise StartupError(f"The database {shown} cannot be read (it is not a regular file). "
                            f"Move it aside to start afresh, or start with --data-dir pointing at another folder.")
-    try:
-        with open(db, "rb") as fh:
-            header = fh.read(100)
-    except OSError as exc:
-        raise StartupError(f"The database {shown} cannot be read ({_one_line(exc.strerror or exc)}). "
-                           "Check its permissions, or start with --data-dir pointing at another folder.") from None
-    if header and not header.startswith(b"SQLite format 3\x00"):
-        raise StartupError(f"The database {shown} is not a SQLite database (its header is damaged). "
-                           + _RESTORE_ADVICE)
+    # Only SQLite opens the file: closing a descriptor opened any other way would drop the POSIX locks that
+    # this process's open connections to the same file hold (SQLite's "how to corrupt" notes, section 2.2).
+    if not os.access(db, os.R_OK):
+        raise StartupError(f"The database {shown} cannot be read (Permission denied). "
+                           "Check its permissions, or start with --data-dir pointing at another folder.")
     if not os.access(db, os.W_OK):
         raise StartupError(f"The database {shown} is read-only. Check its permissions, "
                            "or start with --data-dir pointing at a writable folder.")
@@ -338,6 +343,9 @@ def check_data_dir(data_dir: str | os.PathLike) -> None:
         finally:
             con.close()
     except sqlite3.DatabaseError as exc:
+        if "file is not a database" in str(exc):
+            raise StartupError(f"The database {shown} is not a SQLite database (its header is damaged). "
+                               + _RESTORE_ADVICE) from None
         raise StartupError(f"The database {shown} is damaged (quick_check: {_one_line(exc)}). "
                            + _RESTORE_ADVICE) from None
     result = " ".join(str(r[0]) for r in rows[:3])
@@ -554,7 +562,10 @@ class StoreBackend(Protocol):
 
 
 class SQLiteStore:
-    """Datasets and snapshots in ``data_dir`` (SQLite in WAL mode plus raw files).
+    """The earlier folder store: datasets and snapshots in ``data_dir`` (SQLite in WAL mode plus raw files).
+
+    Not the server's store any more (:func:`Store` is): ``server/folder_store.py`` opens one to bring an earlier
+    folder's schema up to date before importing it into ``scalewright.db``.
 
     Safe to share between threads: every call opens its own short-lived connection, and SQLite's own
     locking (with a busy timeout) serialises writers.
@@ -800,4 +811,9 @@ class SQLiteStore:
         return [{**dict(zip(keys, r)), "details": json.loads(r[6])} for r in rows]
 
 
-Store = SQLiteStore
+def Store(data_dir: str | os.PathLike):  # noqa: N802  (the store of a data folder, named like a class)
+    """The data folder's store: :class:`~server.sqlstore.SqlStore` on ``DATA/scalewright.db`` (an earlier
+    :class:`SQLiteStore` folder imported into it first; see ``server/folder_store.py``)."""
+    from .folder_store import open_folder_store
+
+    return open_folder_store(data_dir)

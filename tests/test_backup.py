@@ -15,7 +15,8 @@ from pathlib import Path
 import pytest
 
 import server
-from server.backup import BackupError, RestoreConflict, backup, restore
+from server.backup import BackupError, RestoreConflict
+from server.folder_store import DB_FILE, backup_folder, restore_folder
 from server.store import DB_NAME, SCHEMA_VERSION, Store
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -40,7 +41,7 @@ def _make_folder(folder: Path, n: int = 2) -> Store:
 
 def _records(folder: Path) -> dict[str, str]:
     """Snapshot id -> SHA-256 of its stored record JSON, straight from SQLite."""
-    con = sqlite3.connect(folder / DB_NAME)
+    con = sqlite3.connect(folder / (DB_FILE if (folder / DB_FILE).is_file() else DB_NAME))  # or an earlier store
     try:
         return {i: _sha(r.encode()) for i, r in con.execute("SELECT id, record FROM snapshots")}
     finally:
@@ -48,8 +49,16 @@ def _records(folder: Path) -> dict[str, str]:
 
 
 def _raw_files(folder: Path) -> dict[str, str]:
-    base = folder / "datasets"
-    return {str(p.relative_to(base)): _sha(p.read_bytes()) for p in sorted(base.rglob("*")) if p.is_file()}
+    """"<dataset id>/raw" or "/codebook" -> SHA-256 of the upload kept in the folder's database."""
+    con = sqlite3.connect(folder / DB_FILE)
+    try:
+        parts: dict[str, bytes] = {}
+        for dataset_id, kind, data in con.execute(
+                "SELECT dataset_id, kind, data FROM dataset_files ORDER BY dataset_id, kind, part"):
+            parts[f"{dataset_id}/{kind}"] = parts.get(f"{dataset_id}/{kind}", b"") + bytes(data)
+        return {name: _sha(data) for name, data in sorted(parts.items())}
+    finally:
+        con.close()
 
 
 def _rewrite(zip_in: Path, zip_out: Path, change) -> None:
@@ -70,7 +79,7 @@ def _flip(data: bytes, at: int | None = None) -> bytes:
 
 def test_backup_writes_manifest_with_hashes(tmp_path):
     _make_folder(tmp_path / "src")
-    out = backup(tmp_path / "src", tmp_path / "b.zip", who="Ana")
+    out = backup_folder(tmp_path / "src", tmp_path / "b.zip", who="Ana")
     assert (out["datasets"], out["snapshots"]) == (2, 2)
     with zipfile.ZipFile(tmp_path / "b.zip") as zf:
         manifest = json.loads(zf.read("manifest.json"))
@@ -91,7 +100,7 @@ def test_backup_writes_manifest_with_hashes(tmp_path):
 def test_backup_of_a_folder_without_database_is_refused(tmp_path):
     (tmp_path / "empty").mkdir()
     with pytest.raises(BackupError, match="holds no Scalewright database"):
-        backup(tmp_path / "empty", tmp_path / "b.zip")
+        backup_folder(tmp_path / "empty", tmp_path / "b.zip")
     assert not (tmp_path / "b.zip").exists()
 
 
@@ -115,22 +124,22 @@ def test_backup_while_snapshots_are_saved_is_consistent(tmp_path):
     zips = []
     while any(t.is_alive() for t in threads) or not zips:  # at least one backup starts while writers run
         zips.append(tmp_path / f"b{len(zips)}.zip")
-        backup(src, zips[-1])
+        backup_folder(src, zips[-1])
     for t in threads:
         t.join()
     assert not errors
     zips.append(tmp_path / "final.zip")
-    backup(src, zips[-1])
+    backup_folder(src, zips[-1])
     source_records = _records(src)
     assert len(source_records) == 1 + per_thread * n_threads
     for i, z in enumerate(zips):
         target = tmp_path / f"restored{i}"
-        restore(target, z)
+        restore_folder(target, z)
         restored = _records(target)
         # every snapshot in the backup is byte-identical to the source's, and each thread's saves form a
         # prefix (a snapshot saved after one that is missing is never in the copy): one consistent moment
         assert all(source_records[k] == v for k, v in restored.items())
-        con = sqlite3.connect(target / DB_NAME)
+        con = sqlite3.connect(target / DB_FILE)
         got = [json.loads(r) for (r,) in con.execute("SELECT record FROM snapshots")]
         con.close()
         for t in range(n_threads):
@@ -145,10 +154,10 @@ def test_backup_while_snapshots_are_saved_is_consistent(tmp_path):
 def test_restore_into_empty_folder_is_byte_identical(tmp_path):
     src = tmp_path / "src"
     _make_folder(src)
-    backup(src, tmp_path / "b.zip")
+    backup_folder(src, tmp_path / "b.zip")
     (tmp_path / "empty").mkdir()
     for target in (tmp_path / "new" / "nested", tmp_path / "empty"):  # absent (parents made) and empty
-        out = restore(target, tmp_path / "b.zip", who="Bo")
+        out = restore_folder(target, tmp_path / "b.zip", who="Bo")
         assert out["mode"] == "new" and (out["datasets"], out["snapshots"]) == (2, 2)
         assert _raw_files(target) == _raw_files(src)
         assert _records(target) == _records(src)
@@ -163,15 +172,15 @@ def test_restore_into_empty_folder_is_byte_identical(tmp_path):
 
 def test_non_empty_folder_is_refused_without_merge(tmp_path):
     _make_folder(tmp_path / "src")
-    backup(tmp_path / "src", tmp_path / "b.zip")
+    backup_folder(tmp_path / "src", tmp_path / "b.zip")
     target = tmp_path / "busy"
     target.mkdir()
     (target / "notes.txt").write_text("mine")
     with pytest.raises(BackupError, match="not empty.*--merge"):
-        restore(target, tmp_path / "b.zip")
+        restore_folder(target, tmp_path / "b.zip")
     assert [p.name for p in target.iterdir()] == ["notes.txt"]
     with pytest.raises(BackupError, match="holds no Scalewright database"):
-        restore(target, tmp_path / "b.zip", merge=True)
+        restore_folder(target, tmp_path / "b.zip", merge=True)
     assert [p.name for p in target.iterdir()] == ["notes.txt"]
 
 
@@ -184,21 +193,21 @@ def _assert_untouched(target: Path, parent: Path, before: set[str]) -> None:
 def test_one_altered_byte_is_refused_before_anything_is_written(tmp_path, member):
     _make_folder(tmp_path / "src")
     good = tmp_path / "b.zip"
-    backup(tmp_path / "src", good)
+    backup_folder(tmp_path / "src", good)
     bad = tmp_path / "bad.zip"
     wanted = (lambda n: n.endswith("/raw")) if member == "raw" else (lambda n: n == DB_NAME)
     _rewrite(good, bad, lambda name, data: _flip(data) if wanted(name) else data)
     parent = tmp_path / "out"
     parent.mkdir()
     with pytest.raises(BackupError, match="does not match its SHA-256"):
-        restore(parent / "data", bad)
+        restore_folder(parent / "data", bad)
     _assert_untouched(parent / "data", parent, set())
 
 
 def test_one_flipped_byte_in_the_zip_file_is_refused(tmp_path):
     _make_folder(tmp_path / "src")
     good = tmp_path / "b.zip"
-    backup(tmp_path / "src", good)
+    backup_folder(tmp_path / "src", good)
     with zipfile.ZipFile(good) as zf:
         info = zf.getinfo(DB_NAME)
     data = good.read_bytes()
@@ -211,7 +220,7 @@ def test_one_flipped_byte_in_the_zip_file_is_refused(tmp_path):
     parent = tmp_path / "out"
     parent.mkdir()
     with pytest.raises(BackupError, match="damaged|does not match|has .* bytes"):
-        restore(parent / "data", bad)
+        restore_folder(parent / "data", bad)
     _assert_untouched(parent / "data", parent, set())
 
 
@@ -231,57 +240,57 @@ def _forge(zip_out: Path, members: dict[str, bytes], manifest_files=None, **mani
                                   "notes.txt", "datasets/a b/raw"])
 def test_unexpected_member_names_are_refused(tmp_path, evil):
     _make_folder(tmp_path / "src")
-    backup(tmp_path / "src", tmp_path / "b.zip")
+    backup_folder(tmp_path / "src", tmp_path / "b.zip")
     with zipfile.ZipFile(tmp_path / "b.zip") as zf:
         members = {n: zf.read(n) for n in zf.namelist() if n != "manifest.json"}
     members[evil] = b"gotcha"
     _forge(tmp_path / "evil.zip", members)
     with pytest.raises(BackupError, match="unexpected member"):
-        restore(tmp_path / "out", tmp_path / "evil.zip")
+        restore_folder(tmp_path / "out", tmp_path / "evil.zip")
     assert not (tmp_path / "out").exists() and not (tmp_path / "evil").exists()
 
 
 def test_manifest_must_list_exactly_the_zip_members(tmp_path):
     _make_folder(tmp_path / "src")
-    backup(tmp_path / "src", tmp_path / "b.zip")
+    backup_folder(tmp_path / "src", tmp_path / "b.zip")
     with zipfile.ZipFile(tmp_path / "b.zip") as zf:
         members = {n: zf.read(n) for n in zf.namelist() if n != "manifest.json"}
         listed = json.loads(zf.read("manifest.json"))["files"]
     _forge(tmp_path / "missing.zip", members, manifest_files=listed[:-1])
     with pytest.raises(BackupError, match="does not list exactly"):
-        restore(tmp_path / "out", tmp_path / "missing.zip")
+        restore_folder(tmp_path / "out", tmp_path / "missing.zip")
     extra = dict(members, **{"datasets/feedbeef/raw": b"x"})
     _forge(tmp_path / "orphan.zip", extra)
     with pytest.raises(BackupError, match="belongs to no dataset"):
-        restore(tmp_path / "out", tmp_path / "orphan.zip")
+        restore_folder(tmp_path / "out", tmp_path / "orphan.zip")
     _forge(tmp_path / "newer.zip", members, schema_version=SCHEMA_VERSION + 1)
     with pytest.raises(BackupError, match="newer Scalewright"):
-        restore(tmp_path / "out", tmp_path / "newer.zip")
+        restore_folder(tmp_path / "out", tmp_path / "newer.zip")
     (tmp_path / "not.zip").write_bytes(b"hello")
     with pytest.raises(BackupError, match="not a readable zip"):
-        restore(tmp_path / "out", tmp_path / "not.zip")
+        restore_folder(tmp_path / "out", tmp_path / "not.zip")
     assert not (tmp_path / "out").exists()
 
 
 def test_declared_size_limit(tmp_path):
     _make_folder(tmp_path / "src")
-    backup(tmp_path / "src", tmp_path / "b.zip")
+    backup_folder(tmp_path / "src", tmp_path / "b.zip")
     with pytest.raises(BackupError, match="more than the 100 bytes allowed") as info:
-        restore(tmp_path / "out", tmp_path / "b.zip", max_bytes=100)
+        restore_folder(tmp_path / "out", tmp_path / "b.zip", max_bytes=100)
     assert info.value.status == 413 and not (tmp_path / "out").exists()
 
 
 def test_merge_adds_new_skips_identical_and_refuses_conflicts(tmp_path):
     src = tmp_path / "src"
     store = _make_folder(src)
-    backup(src, tmp_path / "b.zip")
+    backup_folder(src, tmp_path / "b.zip")
     target = tmp_path / "target"
-    restore(target, tmp_path / "b.zip")
+    restore_folder(target, tmp_path / "b.zip")
     mine = Store(target)
     gone = mine.list_datasets()[0]["id"]
     mine.delete_dataset(gone)
     local = mine.add_dataset(name="local", raw=b"id,X1,X2\n1,1,2\n2,2,1\n", filename="l.csv", options={}, meta={})
-    out = restore(target, tmp_path / "b.zip", merge=True, who="Cy")
+    out = restore_folder(target, tmp_path / "b.zip", merge=True, who="Cy")
     assert out["datasets_added"] == [gone] and len(out["datasets_skipped"]) == 1
     assert out["snapshots_added"] == [] and len(out["snapshots_skipped"]) == 2
     assert mine.get_dataset(local["id"]) is not None and mine.get_dataset(gone) == store.get_dataset(gone)
@@ -310,7 +319,7 @@ def test_merge_adds_new_skips_identical_and_refuses_conflicts(tmp_path):
     _forge(other, members)  # a consistent, re-hashed zip whose snapshot differs
     before = (_records(target), _raw_files(target), len(mine.list_audit()))
     with pytest.raises(RestoreConflict, match="same id as a different snapshot") as info:
-        restore(target, other, merge=True)
+        restore_folder(target, other, merge=True)
     assert info.value.status == 409 and info.value.details["conflicts"]
     assert (_records(target), _raw_files(target), len(mine.list_audit())) == before
 
@@ -318,12 +327,12 @@ def test_merge_adds_new_skips_identical_and_refuses_conflicts(tmp_path):
 def test_restore_of_a_version_1_backup_is_migrated(tmp_path):
     src = tmp_path / "v1"
     shutil.copytree(V1, src)
-    out = backup(src, tmp_path / "v1.zip")
+    out = backup_folder(src, tmp_path / "v1.zip")
     assert out["schema_version"] == 1 and out["audited"] is False  # an old folder is not migrated by a backup
     con = sqlite3.connect(src / DB_NAME)
     assert con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone() == ("1",)
     con.close()
-    restore(tmp_path / "new", tmp_path / "v1.zip")
+    restore_folder(tmp_path / "new", tmp_path / "v1.zip")
     store = Store(tmp_path / "new")
     assert [e["action"] for e in store.list_audit()] == ["restore", "schema_upgrade"]
     assert _records(tmp_path / "new") == _records(src)

@@ -33,7 +33,9 @@ from fastapi.testclient import TestClient
 import server.store as store_mod
 from server.app import create_app
 from server.settings import Settings
-from server.store import DB_NAME, LOCK_NAME, SQLiteStore, StartupError, StorageError, lock_data_dir
+from server.folder_store import DB_FILE
+from server.sqlstore import SqlStore
+from server.store import DB_NAME, LOCK_NAME, SQLiteStore, StartupError, StorageError, Store, lock_data_dir
 
 ROOT = Path(__file__).resolve().parent.parent
 BASE = "http://127.0.0.1:8765"  # the Host a page on this machine sends
@@ -115,20 +117,39 @@ def patch_writer(monkeypatch, *, fail_on: int = 1, err: int = errno.ENOSPC) -> l
     return opened
 
 
-# The response file is spooled to DATA/tmp and moved into place (no store write); only the codebook goes
-# through the store's temp-file writer. A full disk while spooling: tests/api/test_upload_memory.py.
-@pytest.mark.parametrize("fail_on", [1], ids=["codebook"])
-def test_disk_full_midway_answers_507_and_leaves_nothing(tmp_path, monkeypatch, fail_on):
+def _fail_put(monkeypatch, kind: str, error: Exception) -> None:
+    """Make the store's write of an upload's ``kind`` part ("raw" or "codebook") fail after its first part."""
+    real_put = SqlStore._put_file
+
+    def put(conn, dataset_id, k, chunks):
+        def parts():
+            for i, chunk in enumerate(chunks):
+                if k == kind and i == 1:
+                    raise error
+                yield chunk
+        return real_put(conn, dataset_id, k, parts())
+
+    monkeypatch.setattr(SqlStore, "_put_file", staticmethod(put))
+
+
+# The response file is spooled to DATA/tmp, then streamed into the folder's database in 1 MB parts with the
+# codebook, in one transaction. A full disk while spooling: tests/api/test_upload_memory.py.
+@pytest.mark.parametrize("kind", ["raw", "codebook"])
+def test_disk_full_midway_answers_507_and_leaves_nothing(tmp_path, monkeypatch, kind):
     data_dir = tmp_path / "data"
+    big = csv_bytes(rows=30_000, items=20)  # more than one part
+    codebook = CODEBOOK + b"".join(f"Q{i},{'x' * 2000},1,5\n".encode() for i in range(9, 700))
+    assert len(big) > 1 << 20 and len(codebook) > 1 << 20
     with TestClient(create_app(Settings(data_dir=data_dir)), base_url=BASE) as client:
-        opened = patch_writer(monkeypatch, fail_on=fail_on)
-        r = upload(client, csv_bytes(), codebook=CODEBOOK)
-        assert len(opened) == fail_on  # the failure happened where this case says
+        _fail_put(monkeypatch, kind, sqlite3.OperationalError("database or disk is full"))
+        r = upload(client, big, codebook=codebook)
         assert_plain_storage_error(r, 507, "storage_full", data_dir)
         assert "full" in r.json()["error"]["message"]
         assert leftovers(data_dir) == ([], [])
-        assert not any(p.exists() for p in opened)
         assert client.get("/api/datasets").json() == []
+        con = sqlite3.connect(data_dir / DB_FILE)
+        assert con.execute("SELECT count(*) FROM dataset_files").fetchone() == (0,)  # no part of it stayed
+        con.close()
         monkeypatch.undo()
         assert upload(client, csv_bytes()).status_code == 201  # and the next upload works
 
@@ -136,15 +157,8 @@ def test_disk_full_midway_answers_507_and_leaves_nothing(tmp_path, monkeypatch, 
 def test_permission_denied_at_upload_answers_503(tmp_path, monkeypatch):
     data_dir = tmp_path / "data"
     with TestClient(create_app(Settings(data_dir=data_dir)), base_url=BASE) as client:
-        real_mkdir = Path.mkdir
-
-        def read_only_mkdir(self, *args, **kwargs):
-            if self.parent.name == "datasets":
-                raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(self))
-            return real_mkdir(self, *args, **kwargs)
-
-        monkeypatch.setattr(Path, "mkdir", read_only_mkdir)
-        r = upload(client, csv_bytes())
+        _fail_put(monkeypatch, "raw", sqlite3.OperationalError("attempt to write a readonly database"))
+        r = upload(client, csv_bytes(rows=30_000, items=20))
         assert_plain_storage_error(r, 503, "storage_unavailable", data_dir)
         assert leftovers(data_dir) == ([], [])
         assert client.get("/api/datasets").json() == []
@@ -297,7 +311,7 @@ def test_real_full_disk_upload_answers_507_and_leaves_nothing(tmpfs):
 
 def test_real_full_disk_snapshot_saves_nothing(tmpfs):
     data_dir = tmpfs("data", "1m")
-    store = SQLiteStore(data_dir)
+    store = Store(data_dir)
     ds = store.add_dataset(name="d", raw=csv_bytes(), filename="d.csv")
     first = store.add_snapshot(ds["id"], {"note": "first"})
     filler = data_dir / "filler"
@@ -312,7 +326,7 @@ def test_real_full_disk_snapshot_saves_nothing(tmpfs):
     assert (info.value.status, info.value.code) == (507, "storage_full")  # SQLite: "disk is full" or "disk I/O error"
     filler.unlink()
     assert store.list_snapshots(ds["id"]) == [first]
-    con = sqlite3.connect(data_dir / DB_NAME)
+    con = sqlite3.connect(data_dir / DB_FILE)
     assert con.execute("PRAGMA quick_check").fetchone()[0] == "ok"
     con.close()
     assert store.add_snapshot(ds["id"], {"note": "after"})["note"] == "after"
@@ -323,13 +337,16 @@ def test_read_only_folder_upload_503_then_refused_at_start(tmpfs):
     with TestClient(create_app(Settings(data_dir=data_dir)), base_url=BASE) as client:
         kept = upload(client, csv_bytes())
         assert kept.status_code == 201
+        assert client.post(f"/api/datasets/{kept.json()['id']}/analysis", json={}).status_code == 200
+        client.app.state.engine.prefetch_idle(60)  # the upload's background work is done
+        client.app.state.store.close()  # a file open for writing would stop the remount; the pool reopens it
         tmpfs.remount(data_dir, "ro")
         try:
             r = upload(client, csv_bytes(seed=6))
             assert_plain_storage_error(r, 503, "storage_unavailable", data_dir)
         finally:
             tmpfs.remount(data_dir, "rw")
-        assert leftovers(data_dir) == ([kept.json()["id"]], [])
+        assert leftovers(data_dir) == ([], [])
         assert [d["id"] for d in client.get("/api/datasets").json()] == [kept.json()["id"]]
     tmpfs.remount(data_dir, "ro")
     with pytest.raises(StartupError, match=r"is read-only; .*--data-dir pointing at a writable folder"):
@@ -445,14 +462,14 @@ def test_unreadable_database_is_refused(tmp_path, monkeypatch):
 
     other = tmp_path / "other"
     db = make_store_with_data(other)
-    real_open = builtins.open
+    real_access = os.access
 
-    def denied(path, *args, **kwargs):
-        if Path(str(path)) == db:
-            raise PermissionError(errno.EACCES, "Permission denied", str(path))
-        return real_open(path, *args, **kwargs)
+    def denied(path, mode, *args, **kwargs):  # what access(2) answers a non-root user for a mode-000 file
+        if Path(str(path)) == db and mode & os.R_OK:
+            return False
+        return real_access(path, mode, *args, **kwargs)
 
-    monkeypatch.setattr(store_mod, "open", denied, raising=False)
+    monkeypatch.setattr(store_mod.os, "access", denied)
     with pytest.raises(StartupError, match=r"cannot be read \(Permission denied\)\. Check its permissions"):
         SQLiteStore(other)
 

@@ -1,5 +1,6 @@
-"""Schema version and migrations: a data folder written by version 1 (tests/reference/store/v1_data, made by
-the committed code of c7dc338) opens with today's code, is upgraded, and keeps its dataset and snapshot."""
+"""Schema version and migrations of the earlier folder store (server.store.SQLiteStore): a data folder written by
+version 1 (tests/reference/store/v1_data, made by the committed code of c7dc338) is upgraded in place and keeps
+its dataset and snapshot; the server then imports it into the folder's scalewright.db (server/folder_store.py)."""
 from __future__ import annotations
 
 import hashlib
@@ -12,7 +13,7 @@ import pytest
 import server.store as store_mod
 from server.app import create_app
 from server.settings import Settings
-from server.store import DB_NAME, SCHEMA_VERSION, SchemaVersionError, StartupError, Store
+from server.store import DB_NAME, SCHEMA_VERSION, SchemaVersionError, SQLiteStore, StartupError
 from tests.conftest import local_client
 
 V1 = Path(__file__).parent / "reference" / "store" / "v1_data"
@@ -48,7 +49,7 @@ def test_fixture_is_version_1_without_wal_files():
 def test_v1_folder_is_upgraded_and_keeps_its_data(v1_dir):
     snap_before = _sql(v1_dir, "SELECT id, dataset_id, created_at, record FROM snapshots")
     ds_before = _sql(v1_dir, "SELECT * FROM datasets")
-    store = Store(v1_dir)
+    store = SQLiteStore(v1_dir)
     assert _sql(v1_dir, "SELECT value FROM meta WHERE key = 'schema_version'") == [(str(SCHEMA_VERSION),)]
     assert {"audit", "audit_no_update", "audit_no_delete"} <= _tables(v1_dir)
     # the version-1 rows are untouched, byte for byte
@@ -57,8 +58,8 @@ def test_v1_folder_is_upgraded_and_keeps_its_data(v1_dir):
     (entry,) = store.list_audit()
     assert entry["action"] == "schema_upgrade" and entry["details"] == {"from": 1, "to": SCHEMA_VERSION}
     # opening again does not migrate again
-    Store(v1_dir)
-    assert [e["action"] for e in Store(v1_dir).list_audit()] == ["schema_upgrade"]
+    SQLiteStore(v1_dir)
+    assert [e["action"] for e in SQLiteStore(v1_dir).list_audit()] == ["schema_upgrade"]
     assert hashlib.sha256(store.read_raw(V1_DATASET)).hexdigest() == V1_SHA256
 
 
@@ -77,17 +78,22 @@ def test_v1_folder_is_analysable_through_the_api(v1_dir):
         assert r.json()["reliability"]["alpha"] == pytest.approx(full["analysis"]["reliability"]["alpha"], abs=1e-12)
         assert c.get(f"/api/snapshots/{snap['id']}/report").status_code == 200
         assert c.get(f"/api/snapshots/{snap['id']}/responses").status_code == 200
-        assert [e["action"] for e in c.get("/api/audit").json()] == ["schema_upgrade"]
+        # newest first: the import into scalewright.db, the restore it made, the earlier store's own upgrade
+        assert [e["action"] for e in c.get("/api/audit").json()] == ["import_earlier_store", "restore",
+                                                                     "schema_upgrade"]
+    (moved,) = v1_dir.glob("earlier-store-*")  # the earlier files, kept unchanged beside the new database
+    assert {p.name for p in moved.iterdir()} == {DB_NAME, "datasets", "README.txt"}
+    assert not (v1_dir / DB_NAME).exists() and (v1_dir / "scalewright.db").is_file()
 
 
 def test_new_folder_starts_at_the_current_version(tmp_path):
-    store = Store(tmp_path / "new")
+    store = SQLiteStore(tmp_path / "new")
     assert _sql(tmp_path / "new", "SELECT value FROM meta WHERE key = 'schema_version'") == [(str(SCHEMA_VERSION),)]
     assert store.list_audit() == []  # a new folder is not an upgrade
 
 
 def test_audit_table_is_append_only(tmp_path):
-    store = Store(tmp_path / "d")
+    store = SQLiteStore(tmp_path / "d")
     store.audit("upload", who="Ana", dataset_id="abc", details={"sha256": "0" * 64})
     con = sqlite3.connect(tmp_path / "d" / DB_NAME)
     try:
@@ -106,7 +112,7 @@ def test_newer_schema_is_refused_before_anything_is_written(v1_dir):
     con.close()
     with pytest.raises(SchemaVersionError, match=r"newer Scalewright \(schema version 99; this version knows up "
                                                  rf"to {SCHEMA_VERSION}\)") as info:
-        Store(v1_dir)
+        SQLiteStore(v1_dir)
     assert isinstance(info.value, StartupError)
     assert "audit" not in _tables(v1_dir)
 
@@ -124,14 +130,14 @@ def test_newer_schema_stops_the_server_with_one_line(v1_dir, capsys):
 
 
 def test_a_failing_step_rolls_back_the_whole_migration(v1_dir, monkeypatch):
-    Store(v1_dir)  # now at version 2
+    SQLiteStore(v1_dir)  # now at version 2
     monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 3)
     monkeypatch.setattr(store_mod, "MIGRATIONS", store_mod.MIGRATIONS + ((3, ("CREATE TABLE t3 (x)", "NOT SQL")),))
     with pytest.raises(sqlite3.OperationalError):
-        Store(v1_dir)
+        SQLiteStore(v1_dir)
     assert _sql(v1_dir, "SELECT value FROM meta WHERE key = 'schema_version'") == [("2",)]
     assert "t3" not in _tables(v1_dir)
     monkeypatch.setattr(store_mod, "MIGRATIONS", store_mod.MIGRATIONS[:-1] + ((3, ("CREATE TABLE t3 (x)",)),))
-    Store(v1_dir)
+    SQLiteStore(v1_dir)
     assert "t3" in _tables(v1_dir)
     assert _sql(v1_dir, "SELECT value FROM meta WHERE key = 'schema_version'") == [("3",)]

@@ -1,4 +1,4 @@
-"""Store: SQLite in WAL mode, raw files byte for byte, immutable snapshots, restarts."""
+"""Store: the data folder's SQLite file in WAL mode, uploads byte for byte, immutable snapshots, restarts."""
 from __future__ import annotations
 
 import hashlib
@@ -9,7 +9,9 @@ import threading
 import numpy as np
 import pytest
 
-from server.store import DB_NAME, SQLiteStore, Store, StoreBackend
+from server.folder_store import DB_FILE
+from server.sqlstore import SqlStore
+from server.store import Store, StoreBackend
 
 RAW = b"id,Q1,Q2\r\n1,1,2\r\n2,3,4\r\n3,5,\xe9\r\n"  # CRLF and a Latin-1 byte: must come back unchanged
 
@@ -23,16 +25,16 @@ def _add(store, raw=RAW, **kw):
 
 def test_store_is_sqlite_behind_the_interface(tmp_path):
     store = Store(tmp_path)
-    assert Store is SQLiteStore
+    assert isinstance(store, SqlStore) and store.backend == "sqlite"  # the same code as a team server's
     assert isinstance(store, StoreBackend)
-    assert (tmp_path / DB_NAME).exists()
+    assert (tmp_path / DB_FILE).exists()
+    assert str(store.url) == f"sqlite:///{tmp_path.resolve() / DB_FILE}"
 
 
 def test_wal_mode_is_on(tmp_path):
-    store = Store(tmp_path)
-    assert store.journal_mode() == "wal"
-    # A fresh connection from outside sees WAL too (it is stored in the database file).
-    con = sqlite3.connect(tmp_path / DB_NAME)
+    Store(tmp_path)
+    # A fresh connection from outside sees WAL (it is stored in the database file).
+    con = sqlite3.connect(tmp_path / DB_FILE)
     assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
     con.close()
 
@@ -107,7 +109,7 @@ def test_snapshots_are_immutable_even_through_sql(tmp_path):
     ds = _add(store)
     snap = store.add_snapshot(ds["id"], {"name": "v1"})
     assert not hasattr(store, "update_snapshot") and not hasattr(store, "delete_snapshot")
-    con = sqlite3.connect(tmp_path / DB_NAME)
+    con = sqlite3.connect(tmp_path / DB_FILE)
     with pytest.raises(sqlite3.DatabaseError, match="immutable"):
         con.execute("UPDATE snapshots SET record = '{}' WHERE id = ?", (snap["id"],))
     with pytest.raises(sqlite3.DatabaseError, match="immutable"):
@@ -153,8 +155,9 @@ def test_concurrent_snapshot_saves_all_land(tmp_path):
 
 def test_no_temp_files_left(tmp_path):
     store = Store(tmp_path)
-    ds = _add(store)
-    assert sorted(p.name for p in (tmp_path / "datasets" / ds["id"]).iterdir()) == ["raw"]
+    _add(store)
+    store.close()
+    assert {p.name for p in tmp_path.rglob("*")} <= {DB_FILE, f"{DB_FILE}-wal", f"{DB_FILE}-shm"}
 
 
 _SAVER = r"""
@@ -197,7 +200,7 @@ def test_kill_9_while_saving_loses_no_acknowledged_snapshot(tmp_path):
                 acked[sid] = int(i)
         assert child.returncode == -signal.SIGKILL
         store = Store(tmp_path)  # "restart"
-        con = sqlite3.connect(tmp_path / DB_NAME)
+        con = sqlite3.connect(tmp_path / DB_FILE)
         assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         con.close()
         listed = store.list_snapshots(ds["id"])
@@ -244,20 +247,28 @@ def test_raw_path_on_another_disk_is_copied_then_removed(tmp_path, monkeypatch):
     assert not list((tmp_path / "data" / "datasets" / rec["id"]).glob(".*.tmp"))
 
 
-def test_raw_path_failure_after_the_move_leaves_no_folder(tmp_path, monkeypatch):
+def test_raw_path_failure_midway_leaves_no_row_and_no_part(tmp_path, monkeypatch):
     store = Store(tmp_path / "data")
     src = tmp_path / "data" / "upload.part"
-    src.write_bytes(RAW)
+    src.write_bytes(RAW * 400_000)  # several 1 MB parts
+    real_put = SqlStore._put_file
 
-    def refuse(self):
-        raise sqlite3.OperationalError("database is locked")
+    def fail_after_two_parts(conn, dataset_id, kind, chunks):
+        def some():
+            for i, chunk in enumerate(chunks):
+                if i == 2:
+                    raise sqlite3.OperationalError("database is locked")
+                yield chunk
+        return real_put(conn, dataset_id, kind, some())
 
-    monkeypatch.setattr(SQLiteStore, "_write", refuse)
+    monkeypatch.setattr(SqlStore, "_put_file", staticmethod(fail_after_two_parts))
     with pytest.raises(sqlite3.OperationalError):
         _add(store, raw=None, raw_path=src)
     monkeypatch.undo()
-    assert list((tmp_path / "data" / "datasets").iterdir()) == []
-    assert store.list_datasets() == []
+    assert store.list_datasets() == [] and src.exists()  # the upload stays the caller's to remove
+    con = sqlite3.connect(tmp_path / "data" / DB_FILE)
+    assert con.execute("SELECT count(*) FROM dataset_files").fetchone() == (0,)
+    con.close()
 
 
 def test_raw_and_raw_path_are_exclusive(tmp_path):
@@ -266,7 +277,7 @@ def test_raw_and_raw_path_are_exclusive(tmp_path):
         _add(store, raw=RAW, raw_path=tmp_path / "x")
     with pytest.raises(TypeError):
         _add(store, raw=None)
-    assert list((tmp_path / "data" / "datasets").iterdir()) == []
+    assert store.list_datasets() == []
 
 
 def test_upload_leftovers_are_swept_and_nothing_else(tmp_path):

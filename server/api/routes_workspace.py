@@ -23,7 +23,7 @@ from starlette.background import BackgroundTask
 from starlette.datastructures import UploadFile
 from starlette.formparsers import MultiPartException, MultiPartParser
 
-from ..backup import BackupError, backup, restore
+from ..backup import BackupError, backup_database, restore_database
 from ..store import utc_now
 from .errors import ApiError
 from .openapi import error_responses
@@ -41,7 +41,8 @@ class AuditEntryOut(BaseModel):
     seq: int = Field(description="Position in the log (increasing; gives the order of events).")
     at: str = Field(description="When, ISO 8601 UTC.")
     who: str | None = Field(description="The name given on the page, if any.")
-    action: str = Field(description="upload, delete, snapshot, snapshot_restore, backup, restore, schema_upgrade.")
+    action: str = Field(description="upload, delete, snapshot, snapshot_restore, backup, restore, schema_upgrade, "
+                        "import_earlier_store.")
     dataset_id: str | None
     snapshot_id: str | None
     details: dict = Field(description="Hashes, names and counts (e.g. the dataset's sha256).")
@@ -123,13 +124,7 @@ async def workspace_backup(request: Request) -> FileResponse:
     path = os.path.join(folder, f"scalewright-backup-{stamp}.zip")  # the name the audit log records
     try:
         settings = request.app.state.settings
-        if settings.database_url:
-            from ..backup import backup_database
-
-            summary = await run_in_threadpool(backup_database, settings.database_url, path,
-                                              who=who_of(request), audit=True)
-        else:
-            summary = await run_in_threadpool(backup, settings.data_dir, path, who=who_of(request), audit=True)
+        summary = await run_in_threadpool(backup_database, settings.store_url, path, who=who_of(request), audit=True)
     except BackupError as exc:
         shutil.rmtree(folder, ignore_errors=True)
         raise _bad_backup(exc) from None
@@ -209,14 +204,8 @@ async def workspace_restore(request: Request) -> JSONResponse:
     limit = settings.max_import_bytes
     path, name, who = await _receive_zip(request, limit)
     try:
-        if settings.database_url:
-            from ..backup import restore_database
-
-            result = await run_in_threadpool(restore_database, settings.database_url, path, True,
-                                             who=who_of(request, who), max_bytes=limit, label=name)
-        else:
-            result = await run_in_threadpool(restore, settings.data_dir, path, True, who=who_of(request, who),
-                                             max_bytes=limit, label=name)
+        result = await run_in_threadpool(restore_database, settings.store_url, path, True,
+                                         who=who_of(request, who), max_bytes=limit, label=name)
     except BackupError as exc:
         raise _bad_backup(exc) from None
     finally:

@@ -10,7 +10,8 @@ import zipfile
 
 import pytest
 
-from server.backup import BackupError, backup, backup_database, restore, restore_database, verify
+from server.backup import BackupError, backup_database, restore_database, verify
+from server.folder_store import backup_folder, restore_folder
 from server.sqlstore import SqlStore
 from server.store import Store
 
@@ -61,7 +62,7 @@ def test_a_database_backup_restores_into_a_folder_and_a_database(sql_url, other_
     with zipfile.ZipFile(tmp_path / "b.zip") as zf:
         assert zf.read(f"datasets/{filled['big']['id']}/raw") == BIG
 
-    restore(tmp_path / "folder", tmp_path / "b.zip")  # into a folder
+    restore_folder(tmp_path / "folder", tmp_path / "b.zip")  # into a folder
     folder = Store(tmp_path / "folder")
     assert _contents(folder) == before
     assert folder.get_snapshot(gone_snapshot["id"]) == gone_snapshot
@@ -88,7 +89,7 @@ def test_a_folder_backup_restores_into_a_database_and_merges_add_only_what_is_ne
     folder = Store(tmp_path / "folder")
     _fill(folder)
     before = _contents(folder)
-    backup(tmp_path / "folder", tmp_path / "f.zip")
+    backup_folder(tmp_path / "folder", tmp_path / "f.zip")
     restore_database(sql_url, tmp_path / "f.zip")
     store = SqlStore(sql_url)
     try:
@@ -104,7 +105,7 @@ def test_a_folder_backup_restores_into_a_database_and_merges_add_only_what_is_ne
     # another folder's backup merges in: its dataset (a new id) is added
     other = Store(tmp_path / "other")
     other.add_dataset(name="x", raw=b"a\n1\n", filename="x.csv")
-    backup(tmp_path / "other", tmp_path / "o.zip")
+    backup_folder(tmp_path / "other", tmp_path / "o.zip")
     with zipfile.ZipFile(tmp_path / "o.zip") as zf:
         assert any(n.startswith("datasets/") for n in zf.namelist())
     store = SqlStore(sql_url)
@@ -176,7 +177,7 @@ def test_a_team_servers_backup_keeps_people_workspaces_and_tokens(team, other_ur
         audit = client.get("/api/audit", headers=otto).json()
         assert audit and {e["dataset_id"] for e in audit} == {ids["other"]}
     # the same zip into a folder (which has no people): the datasets, and no team.json in the folder
-    restore(tmp_path / "folder", tmp_path / "t.zip")
+    restore_folder(tmp_path / "folder", tmp_path / "t.zip")
     assert sorted(d["id"] for d in Store(tmp_path / "folder").list_datasets()) == sorted([ids["lab"], ids["other"]])
     assert not (tmp_path / "folder" / "team.json").exists()
     # merging the backup again adds nothing and keeps one Ana
