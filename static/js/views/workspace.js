@@ -5,7 +5,7 @@ import { clear, h, note, section, table } from "./dom.js";
 const ACTIONS = {
   upload: "uploaded a dataset", delete: "deleted a dataset", snapshot: "saved a snapshot",
   snapshot_restore: "restored a snapshot", backup: "downloaded a backup", restore: "imported a backup",
-  schema_upgrade: "upgraded the database",
+  schema_upgrade: "upgraded the database", import_earlier_store: "copied the earlier folder store into scalewright.db",
 };
 // state.workspace: onlyThis (the log filter) and message ({text, error}, shown once after an import).
 
