@@ -167,6 +167,7 @@ class Engine:
         self._descriptives: _LRU = _LRU(64, cache_bytes // 16)
         self._answers: _LRU = _LRU(128, cache_bytes // 4)
         self._references: _LRU = _LRU(64, cache_bytes // 16)
+        self._blocks: _LRU = _LRU(256, cache_bytes // 16)  # subscale blocks by content (construct_blocks)
         self._key_locks: dict = {}
         self._versions: dict[str, str] = {}  # dataset id -> the store's version the cached entries were made from
         # parallel-analysis thresholds of the next likely drop, drawn after each answer (_prefetch_next)
@@ -257,7 +258,8 @@ class Engine:
         """Drop everything cached about a dataset (after it was deleted or replaced)."""
         with self._lock:
             self._versions.pop(dataset_id, None)
-            for cache in (self._datasets, self._pools, self._descriptives, self._answers, self._references):
+            for cache in (self._datasets, self._pools, self._descriptives, self._answers, self._references,
+                          self._blocks):
                 for key in [k for k in cache if k == dataset_id or (isinstance(k, tuple) and k[0] == dataset_id)]:
                     del cache[key]
 
@@ -377,6 +379,7 @@ class Engine:
             constant=self.constant_items(dataset_id),
             descriptives=self.descriptives(dataset_id, np.array([n in rev for n in names])), pools=pools,
             memo=lambda key, make: self._locked((dataset_id, key), self._references, make),
+            blocks=lambda key, make: self._locked((dataset_id, key), self._blocks, make),
             patterns=self._locked((dataset_id, "patterns"), self._descriptives,  # formed once per dataset
                                   lambda: AnswerPatterns.of(ds.responses)))
 
@@ -448,7 +451,7 @@ class Engine:
     def cache_usage(self) -> dict[str, dict[str, int | None]]:
         """Entries, estimated bytes and byte budget of each cache."""
         caches = {"datasets": self._datasets, "pools": self._pools, "descriptives": self._descriptives,
-                  "answers": self._answers, "references": self._references}
+                  "answers": self._answers, "references": self._references, "blocks": self._blocks}
         with self._lock:
             return {name: {"entries": len(c), "bytes": c.nbytes, "max_bytes": c.max_bytes}
                     for name, c in caches.items()}

@@ -113,3 +113,28 @@ def test_no_lower_layer_names_the_api_even_inside_a_function():
     lower = [root / "engine.py", *(root / "analysis").glob("*.py"), *(root / "stats").glob("*.py")]
     imports_api = re.compile(r"^\s*(from\s+(\.+api|server\.api)\b|import\s+server\.api\b)", re.MULTILINE)
     assert [p.name for p in lower if imports_api.search(p.read_text())] == []
+
+
+def test_a_drop_reuses_the_other_subscales_blocks_and_answers_as_a_fresh_engine(tmp_path):
+    # the demo pool: three codebook constructs; dropping a 'welcome' item changes only that subscale's matrices
+    from pathlib import Path
+
+    from server.store import Store
+
+    demo = Path(__file__).resolve().parent.parent / "demo_data"
+    store = Store(tmp_path)
+    raw, cb = (demo / "workshop_responses.csv").read_bytes(), (demo / "workshop_codebook.csv").read_bytes()
+    rec = store.add_dataset(name="demo", raw=raw, filename="workshop_responses.csv", codebook_raw=cb,
+                            codebook_filename="workshop_codebook.csv", options={"id_column": "respondent"},
+                            meta={})
+    engine = Engine(store)
+    whole = engine.analyse(rec["id"], {})
+    items = [n for n in whole.settings.items if n != "W1"]
+    dropped = engine.analyse(rec["id"], {"items": items})
+    assert set(whole.constructs) == set(dropped.constructs) == {"welcome", "contribution", "ownership"}
+    assert dropped.constructs["contribution"].result is whole.constructs["contribution"].result  # reused
+    assert dropped.constructs["welcome"].result is not whole.constructs["welcome"].result  # refitted
+    fresh = Engine(store).analyse(rec["id"], {"items": items})  # nothing memoised
+    for c in dropped.constructs:
+        assert dropped.constructs[c].to_dict() == fresh.constructs[c].to_dict()  # r_other refreshed too
+    assert dropped.constructs["contribution"].to_dict() != whole.constructs["contribution"].to_dict()  # r_other

@@ -41,7 +41,8 @@ class AnalysisInputs:
     ``responses`` are raw (reverse-keyed items not reverse-scored), one column per entry of ``items``.
     ``descriptives`` are every item's, after reverse-scoring with the settings' ``reverse``. ``pools``
     holds the full-pool pairwise matrices by correlation type (only the ones the settings need).
-    ``memo`` caches the full-pool reference factor solutions across analyses. ``patterns``, when given
+    ``memo`` caches the full-pool reference factor solutions across analyses, ``blocks`` the subscale blocks
+    (keyed by their matrices' content, so a drop in one subscale reuses the others'). ``patterns``, when given
     (the engine's, formed once per dataset), answers :meth:`answered` without reading the responses.
     """
 
@@ -55,6 +56,7 @@ class AnalysisInputs:
     pools: Mapping[str, FullPool | PoolUnavailable]
     memo: Memo = no_memo
     patterns: AnswerPatterns | None = None
+    blocks: Memo = no_memo  # each subscale's block by the content of its matrices (construct_blocks)
 
     @property
     def names(self) -> list[str]:

@@ -1,6 +1,7 @@
 """Reliability sections: the scale's coefficients and each codebook construct's, from one covariance matrix."""
 from __future__ import annotations
 
+import hashlib
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -209,14 +210,41 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
             n_c = n_cc = sc.n_complete
         else:
             n_c, n_cc = inputs.answered(idx[js])
-        S = sc.cov[sub]
-        rel = reliability_from_cov(S, n=n_c, n_complete=n_cc, means=sc.means[js],
-                                   min_pair_n=min_pair_n(sc.n_pair[sub]), names=list(items), missing=settings.missing)
-        start = rel.loadings if len(rel.loadings) == len(js) else None
-        table = tuple({**r, "r_other": others[j]}
-                      for r, j in zip(item_table(S, names=list(items), start=start), js))
-        steps = tuple(pruning_path(S, names=list(items), min_items=min(3, len(js)), start=start))
-        ordinal, more = (None, []) if R_ordinal is None else ordinal_coefficients(R_ordinal[sub], items)
-        out[c] = ConstructBlock(items, rel, tuple(more), item_table=table, pruning_path=steps,
-                                one_factor_fit=one_factor_fit(S, rel.loadings, items), ordinal=ordinal)
+        S, means, mpn = sc.cov[sub], sc.means[js], min_pair_n(sc.n_pair[sub])
+        R_sub = None if R_ordinal is None else R_ordinal[sub]
+        # Everything but r_other is a function of the subscale's own matrices and counts: a drop elsewhere in the
+        # pool leaves them (and so this part of the block) unchanged, and the memo finds it by their content.
+        key = ("construct_block", items, settings.missing, n_c, n_cc, mpn, _digest(S, means, R_sub))
+        rel, table, steps, ordinal, more, fit = inputs.blocks(
+            key, lambda S=S, means=means, mpn=mpn, R_sub=R_sub, n_c=n_c, n_cc=n_cc, items=items:
+            _block(S, means, mpn, R_sub, n_c, n_cc, items, settings.missing))
+        table = tuple({**r, "r_other": others[j]} for r, j in zip(table, js))
+        out[c] = ConstructBlock(items, rel, more, item_table=table, pruning_path=steps, one_factor_fit=fit,
+                                ordinal=ordinal)
     return out
+
+
+def _digest(*arrays: np.ndarray | None) -> bytes:
+    """A digest of the arrays' shapes and values (a memo key that is exact, not approximate)."""
+    h = hashlib.blake2b(digest_size=20)
+    for a in arrays:
+        if a is None:
+            h.update(b"none")
+            continue
+        a = np.ascontiguousarray(a, dtype=float)
+        h.update(repr(a.shape).encode())
+        h.update(a.tobytes())
+    return h.digest()
+
+
+def _block(S: np.ndarray, means: np.ndarray, mpn: int, R_sub: np.ndarray | None, n_c: int, n_cc: int,
+           items: tuple[str, ...], missing: str) -> tuple:
+    """A subscale's reliability, item table (without r_other), pruning path, ordinal coefficients, notes and
+    one-factor fit, from its own covariance matrix (and polychoric matrix) and counts."""
+    rel = reliability_from_cov(S, n=n_c, n_complete=n_cc, means=means, min_pair_n=mpn, names=list(items),
+                               missing=missing)
+    start = rel.loadings if len(rel.loadings) == len(items) else None
+    table = tuple(item_table(S, names=list(items), start=start))
+    steps = tuple(pruning_path(S, names=list(items), min_items=min(3, len(items)), start=start))
+    ordinal, more = (None, []) if R_sub is None else ordinal_coefficients(R_sub, items)
+    return rel, table, steps, ordinal, tuple(more), one_factor_fit(S, rel.loadings, items)
