@@ -1,11 +1,13 @@
 """Shared fixtures: a fresh app per test with a temporary data folder.
 
-The API tests (tests/api) that take the ``settings`` fixture run twice: on the folder store and on the SQL
-store over a throwaway PostgreSQL cluster (``store_kind`` "postgresql": a fresh database per test, copied
-from a migrated template). A test about the folder layout is marked ``folder_only("reason")`` and skipped
-for the PostgreSQL run; a known SQL-store bug is marked ``postgresql_xfail("reason")``; slow tests run on the
-folder store only. Without PostgreSQL's programs the PostgreSQL
-run is skipped, unless SCALEWRIGHT_REQUIRE_POSTGRES=1, which makes that a failure.
+The API tests (tests/api) that take the ``settings`` fixture, or ``make_settings`` for their own limits,
+tokens, hosts, demo data or a restart on the same data, run twice: on the data folder's SQLite file and on
+the SQL store over a throwaway PostgreSQL cluster (``store_kind`` "postgresql": a fresh database per test,
+copied from a migrated template; ``make_settings(fresh=True, data_dir=...)`` takes another for a second
+workspace; the data folder is still there for uploads in flight and runs' files). A test about the folder
+layout is marked ``folder_only("reason")`` and skipped for the PostgreSQL run; a known SQL-store bug is
+marked ``postgresql_xfail("reason")``; slow tests run on the folder store only. Without PostgreSQL's
+programs the PostgreSQL run is skipped, unless SCALEWRIGHT_REQUIRE_POSTGRES=1, which makes that a failure.
 """
 from __future__ import annotations
 
@@ -37,7 +39,8 @@ STORE_KINDS = ["folder", "postgresql"]
 
 
 def pytest_generate_tests(metafunc):
-    """tests/api tests that take ``settings`` (directly or through ``app``/``client``) run on both stores."""
+    """tests/api tests that take ``settings`` (directly or through ``app``/``client``) or ``make_settings`` (all
+    of them depend on ``store_kind``) run on both stores."""
     if "store_kind" in metafunc.fixturenames and API_DIR in Path(str(metafunc.definition.path)).parents:
         metafunc.parametrize("store_kind", STORE_KINDS, indirect=True)
 
@@ -158,14 +161,37 @@ def store_kind(request) -> str:
 
 
 @pytest.fixture
-def settings(tmp_path, store_kind, request):
-    if store_kind == "folder":
-        yield Settings(data_dir=tmp_path / "data")
-        return
-    copies = request.getfixturevalue("pg_copies")
-    url = copies.take()
-    yield Settings(data_dir=tmp_path / "data", database_url=url)
-    copies.drop(url)
+def make_settings(tmp_path, store_kind, request):
+    """``make_settings(**overrides) -> Settings`` on the test's store, for a test that sets its own limits.
+
+    The data folder is ``tmp_path / "data"`` unless ``data_dir`` is given. On PostgreSQL every call names the
+    same fresh database (a second app on it is a restart: it sees the first one's data; ``settings`` is the
+    first call); ``fresh=True`` takes another database for "another workspace" (give it another ``data_dir``
+    too, which is what makes it another store on the folder). The databases are dropped after the test.
+    """
+    copies = request.getfixturevalue("pg_copies") if store_kind == "postgresql" else None
+    main: list[str] = []  # the test's database, taken at the first call that needs it
+    fresh_ones: list[str] = []
+
+    def make(*, fresh: bool = False, **overrides) -> Settings:
+        assert not fresh or "data_dir" in overrides, "fresh=True: give another data_dir as well"
+        overrides.setdefault("data_dir", tmp_path / "data")
+        if copies is not None and "database_url" not in overrides:
+            if fresh:
+                fresh_ones.append(copies.take())
+            elif not main:
+                main.append(copies.take())
+            overrides["database_url"] = fresh_ones[-1] if fresh else main[0]
+        return Settings(**overrides)
+
+    yield make
+    for url in main + fresh_ones:
+        copies.drop(url)
+
+
+@pytest.fixture
+def settings(make_settings):
+    return make_settings()
 
 
 @pytest.fixture

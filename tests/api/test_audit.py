@@ -10,7 +10,6 @@ import zipfile
 import pytest
 
 from server.app import create_app
-from server.settings import Settings
 from server.store import DB_NAME
 from tests.conftest import local_client
 
@@ -113,11 +112,11 @@ def test_workspace_backup_and_import(client):
     assert (entry["action"], entry["who"], entry["details"]["datasets_added"]) == ("restore", "Dee", [ds["id"]])
 
 
-def test_import_into_a_second_workspace(tmp_path, client):
+def test_import_into_a_second_workspace(tmp_path, client, make_settings):
     ds = _upload(client)
     client.post(f"/api/datasets/{ds['id']}/snapshots", json=SNAPSHOT)
     blob = _backup(client)
-    with local_client(create_app(Settings(data_dir=tmp_path / "other"))) as other:
+    with local_client(create_app(make_settings(fresh=True, data_dir=tmp_path / "other"))) as other:
         mine = _upload(other)  # the same file uploaded there is another dataset (another id)
         r = _import(other, blob)
         assert r.status_code == 200 and r.json()["datasets_added"] == [ds["id"]]
@@ -179,8 +178,8 @@ def test_import_conflict_is_409(client, tmp_path):
     assert client.get(f"/api/datasets/{ds['id']}").json()["sha256"] == ds["sha256"]
 
 
-def test_import_refusals(tmp_path):
-    app = create_app(Settings(data_dir=tmp_path / "d", max_import_mb=0.01))
+def test_import_refusals(make_settings):
+    app = create_app(make_settings(max_import_mb=0.01))
     with local_client(app) as c:
         assert c.post("/api/workspace/restore", content=b"x", headers={"content-type": "application/zip"}
                       ).status_code == 415
@@ -192,8 +191,8 @@ def test_import_refusals(tmp_path):
         assert r.status_code == 413 and r.json()["error"]["code"] == "too_large"
 
 
-def test_loading_the_demo_is_logged_as_uploads_by_the_demo(tmp_path):
-    with local_client(create_app(Settings(data_dir=tmp_path / "d", demo=True))) as client:
+def test_loading_the_demo_is_logged_as_uploads_by_the_demo(make_settings):
+    with local_client(create_app(make_settings(demo=True))) as client:
         log = client.get("/api/audit").json()
         assert [e["action"] for e in log] == ["upload", "upload"]
         assert {e["who"] for e in log} == {"demo"}

@@ -10,7 +10,6 @@ import openpyxl
 import pytest
 
 from server.app import create_app
-from server.settings import Settings
 from tests.conftest import local_client
 
 REF = Path(__file__).parent.parent / "reference" / "intake"
@@ -176,8 +175,8 @@ def test_garbage_never_gives_a_500(client):
 
 
 @pytest.fixture
-def small_client(tmp_path):
-    settings = Settings(data_dir=tmp_path / "small", max_upload_mb=0.1)  # 104,857 bytes
+def small_client(make_settings):
+    settings = make_settings(max_upload_mb=0.1)  # 104,857 bytes
     with local_client(create_app(settings)) as c:
         yield c
 
@@ -217,12 +216,12 @@ def test_413_for_a_file_just_over_the_limit(small_client):
 # ---- restart
 
 
-def test_dataset_survives_a_restart(tmp_path):
-    settings = Settings(data_dir=tmp_path / "keep")
+def test_dataset_survives_a_restart(make_settings):
+    settings = make_settings()
     raw = (REF / "pilot_semicolon_latin1.csv").read_bytes()
     with local_client(create_app(settings)) as c1:
         first = _upload(c1, raw, "pilot.csv", missing_codes="-9").json()
-    with local_client(create_app(Settings(data_dir=tmp_path / "keep"))) as c2:
+    with local_client(create_app(make_settings())) as c2:
         again = c2.get(f"/api/datasets/{first['id']}")
         assert again.status_code == 200
         assert again.json() == first

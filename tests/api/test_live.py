@@ -23,7 +23,6 @@ import pytest
 import uvicorn
 
 from server.app import create_app
-from server.settings import Settings
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -48,8 +47,8 @@ class StubStore:
 
 
 @pytest.fixture
-def live_server(tmp_path):
-    app = create_app(Settings(data_dir=tmp_path / "data"))
+def live_server(make_settings):
+    app = create_app(make_settings())
     app.state.store = StubStore(app.state.store, {"ds1", "ds2"})
     port = free_port()
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))

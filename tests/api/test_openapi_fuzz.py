@@ -15,7 +15,6 @@ from hypothesis import HealthCheck, given, note, settings
 from hypothesis import strategies as st
 
 from server.app import create_app
-from server.settings import Settings
 from tests.conftest import local_client
 
 MAX_EXAMPLES = 300
@@ -23,8 +22,8 @@ METHODS = ("get", "post", "put", "patch", "delete")
 
 
 @pytest.fixture
-def fuzz_client(tmp_path):
-    with local_client(create_app(Settings(data_dir=tmp_path / "data", demo=True)),
+def fuzz_client(make_settings):
+    with local_client(create_app(make_settings(demo=True)),
                       raise_server_exceptions=False) as client:
         yield client
 

@@ -8,7 +8,6 @@ import pytest
 
 from server.api.origins import host_is_allowed, is_cross_origin, split_host
 from server.app import create_app
-from server.settings import Settings
 from tests.conftest import local_client
 from tests.serverproc import free_port, lan_address, running_server
 
@@ -59,16 +58,16 @@ def test_a_wrong_port_or_a_malformed_host_is_refused(client, host):
     _error(client.get("/api/health", headers={"Host": host}), 421, "misdirected_host")
 
 
-def test_allowed_hosts_adds_names(tmp_path):
-    s = Settings(data_dir=tmp_path / "d", allowed_hosts="scales.lab.example, 10.1.2.3")
+def test_allowed_hosts_adds_names(make_settings):
+    s = make_settings(allowed_hosts="scales.lab.example, 10.1.2.3")
     with local_client(create_app(s)) as c:
         assert c.get("/api/health", headers={"Host": "scales.lab.example:8765"}).status_code == 200
         assert c.get("/api/health", headers={"Host": "10.1.2.3:8765"}).status_code == 200
         _error(c.get("/api/health", headers={"Host": "other.lab.example:8765"}), 421, "misdirected_host")
 
 
-def test_the_bound_address_is_accepted(tmp_path):
-    s = Settings(host="192.0.2.7", token="t", data_dir=tmp_path / "d")
+def test_the_bound_address_is_accepted(make_settings):
+    s = make_settings(host="192.0.2.7", token="t")
     with local_client(create_app(s)) as c:
         ok = c.get("/api/health", headers={"Host": "192.0.2.7:8765", "X-Scalewright-Token": "t"})
         assert ok.status_code == 200
@@ -76,8 +75,8 @@ def test_the_bound_address_is_accepted(tmp_path):
                421, "misdirected_host")
 
 
-def test_the_host_check_comes_before_the_token(tmp_path):
-    s = Settings(host="0.0.0.0", token="t", data_dir=tmp_path / "d")
+def test_the_host_check_comes_before_the_token(make_settings):
+    s = make_settings(host="0.0.0.0", token="t")
     with local_client(create_app(s)) as c:
         _error(c.get("/api/datasets?token=t", headers={"Host": "attacker.example:8765"}), 421, "misdirected_host")
         _error(c.get("/api/datasets"), 401, "unauthorized")

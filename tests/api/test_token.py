@@ -4,13 +4,12 @@ from __future__ import annotations
 import pytest
 
 from server.app import create_app
-from server.settings import Settings
 from tests.conftest import local_client
 
 
 @pytest.fixture
-def shared(tmp_path):
-    with local_client(create_app(Settings(host="0.0.0.0", token="t", data_dir=tmp_path / "d"))) as c:
+def shared(make_settings):
+    with local_client(create_app(make_settings(host="0.0.0.0", token="t"))) as c:
         yield c
 
 
@@ -44,16 +43,16 @@ def test_live_events_need_the_token_too(shared):
     assert r.status_code == 401
 
 
-def test_a_generated_token_when_none_is_given(tmp_path):
-    s = Settings(host="0.0.0.0", data_dir=tmp_path / "d")
+def test_a_generated_token_when_none_is_given(make_settings):
+    s = make_settings(host="0.0.0.0")
     assert s.token and len(s.token) >= 16
     with local_client(create_app(s)) as c:
         assert c.get("/api/health").status_code == 401
         assert c.get("/api/health", headers={"X-Scalewright-Token": s.token}).status_code == 200
 
 
-def test_on_localhost_no_token_is_needed(tmp_path):
-    s = Settings(host="127.0.0.1", data_dir=tmp_path / "d")
+def test_on_localhost_no_token_is_needed(make_settings):
+    s = make_settings(host="127.0.0.1")
     assert s.token is None
     with local_client(create_app(s)) as c:
         assert c.get("/api/health").status_code == 200

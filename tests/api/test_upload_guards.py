@@ -9,7 +9,6 @@ import numpy as np
 import pytest
 
 from server.app import create_app
-from server.settings import Settings
 
 from ..conftest import local_client
 from ..serverproc import peak_rss_bytes, running_server
@@ -43,9 +42,9 @@ def _error(r, status: int, code: str) -> dict:
 
 
 @pytest.fixture
-def guarded(tmp_path):
+def guarded(make_settings):
     """A client whose settings lower the limits, as a team would with the CLI flags."""
-    app = create_app(Settings(data_dir=tmp_path / "data", max_items=10, max_unpacked_mb=8, max_xlsx_cells=1000))
+    app = create_app(make_settings(max_items=10, max_unpacked_mb=8, max_xlsx_cells=1000))
     with local_client(app) as c:
         yield c
 
@@ -78,18 +77,17 @@ def test_ten_thousand_columns_give_422_and_nothing_is_stored_or_started(client):
     assert client.get("/api/datasets").json() == []
 
 
-def test_max_items_comes_from_the_settings_and_a_stored_dataset_stays_readable(tmp_path):
+def test_max_items_comes_from_the_settings_and_a_stored_dataset_stays_readable(make_settings):
     raw = _csv([["id", *(f"Q{j}" for j in range(1, 13))], *([i, *r] for i, r in enumerate(_answers(12), 1))])
-    data = tmp_path / "data"
-    with local_client(create_app(Settings(data_dir=data, max_items=5))) as c:
+    with local_client(create_app(make_settings(max_items=5))) as c:
         err = _error(_upload(c, raw, "twelve.csv"), 422, "too_many_items")
         assert "'twelve.csv' has 12 item columns; at most 5 are analysed (setting max_items)" in err["message"]
-    with local_client(create_app(Settings(data_dir=data, max_items=20))) as c:
+    with local_client(create_app(make_settings(max_items=20))) as c:
         r = _upload(c, raw, "twelve.csv")
         assert r.status_code == 201, r.text
         dataset_id = r.json()["id"]
     # the limit lowered after the upload: the stored dataset is still read and analysed
-    with local_client(create_app(Settings(data_dir=data, max_items=5))) as c:
+    with local_client(create_app(make_settings(max_items=5))) as c:
         r = c.post(f"/api/datasets/{dataset_id}/analysis", json={"pa_iterations": 20, "seed": 1})
         assert r.status_code == 200, r.text
 

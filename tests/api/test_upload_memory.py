@@ -20,6 +20,7 @@ from fastapi.testclient import TestClient
 import server.api.routes_datasets as routes
 from server.app import create_app
 from server.settings import Settings
+from tests.conftest import local_client
 from tests.serverproc import peak_rss_bytes, running_server
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -75,12 +76,20 @@ def test_a_stored_upload_is_moved_into_place_and_its_temp_file_is_gone(data_dir)
         assert r.status_code == 201, r.text
         body = r.json()
         assert body["sha256"] == hashlib.sha256(raw).hexdigest() and body["size_bytes"] == len(raw)
-        assert (data_dir / "datasets" / body["id"] / "raw").read_bytes() == raw
-        assert leftovers(data_dir) == ([body["id"]], [])
+        assert client.app.state.store.read_raw(body["id"]) == raw  # in the folder's database, byte for byte
+        assert leftovers(data_dir) == ([], [])
         assert client.get(f"/api/datasets/{body['id']}").json()["n_rows"] == 3000
 
 
-def test_file_parts_are_written_to_disk_as_they_arrive(data_dir, monkeypatch):
+@pytest.fixture
+def store_client(make_settings, data_dir):
+    """``make_client`` on the test's store (the folder's SQLite file or a PostgreSQL database)."""
+    def make(**kw) -> TestClient:
+        return local_client(create_app(make_settings(data_dir=data_dir, **kw)))
+    return make
+
+
+def test_file_parts_are_written_to_disk_as_they_arrive(store_client, monkeypatch):
     """The parser hands the route a file on disk (DATA/tmp), already complete, not a memory spool."""
     seen = []
     real = routes._file_field
@@ -94,15 +103,15 @@ def test_file_parts_are_written_to_disk_as_they_arrive(data_dir, monkeypatch):
 
     monkeypatch.setattr(routes, "_file_field", spy)
     raw = csv_bytes(rows=40_000)  # ~600 KB
-    with make_client(data_dir) as client:
+    with store_client() as client:
         r = post_streamed(client, multipart(raw, id_column="pid"))
     assert r.status_code == 201, r.text
     assert seen == [("tmp", len(raw), len(raw))]
 
 
 @pytest.mark.parametrize("case", ["too_large_counted", "too_large_declared", "bad_file", "cut_short"])
-def test_refused_uploads_leave_no_temp_file(data_dir, case):
-    with make_client(data_dir, max_upload_mb=0.25) as client:
+def test_refused_uploads_leave_no_temp_file(data_dir, store_client, case):
+    with store_client(max_upload_mb=0.25) as client:
         if case == "too_large_counted":  # no Content-Length: stopped while the file part is being written
             r = post_streamed(client, multipart(csv_bytes(rows=30_000)))
             expected = 413
@@ -136,14 +145,14 @@ class _FullDiskFile:
         return getattr(self._real, name)
 
 
-def test_disk_full_while_the_upload_is_written_answers_507_and_leaves_nothing(data_dir, monkeypatch):
+def test_disk_full_while_the_upload_is_written_answers_507_and_leaves_nothing(data_dir, store_client, monkeypatch):
     import tempfile
 
     def named(**kw):
         return _FullDiskFile(tempfile.NamedTemporaryFile(**kw))
 
     fake = types.SimpleNamespace(NamedTemporaryFile=named)
-    with make_client(data_dir) as client:
+    with store_client() as client:
         monkeypatch.setattr(routes, "tempfile", fake)
         r = post_streamed(client, multipart(csv_bytes(rows=20_000)))
         assert r.status_code == 507, r.text
