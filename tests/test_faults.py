@@ -32,8 +32,8 @@ from fastapi.testclient import TestClient
 
 import server.store as store_mod
 from server.app import create_app
-from server.settings import Settings
 from server.folder_store import DB_FILE
+from server.settings import Settings
 from server.sqlstore import SqlStore
 from server.store import DB_NAME, LOCK_NAME, SQLiteStore, StartupError, StorageError, Store, lock_data_dir
 
