@@ -1,6 +1,7 @@
 """Reliability sections: the scale's coefficients and each codebook construct's, from one covariance matrix."""
 from __future__ import annotations
 
+import functools
 import hashlib
 import math
 from collections.abc import Mapping, Sequence
@@ -216,8 +217,7 @@ def construct_blocks(inputs: AnalysisInputs, settings: AnalysisSettings, sc: Sca
         # pool leaves them (and so this part of the block) unchanged, and the memo finds it by their content.
         key = ("construct_block", items, settings.missing, n_c, n_cc, mpn, _digest(S, means, R_sub))
         rel, table, steps, ordinal, more, fit = inputs.blocks(
-            key, lambda S=S, means=means, mpn=mpn, R_sub=R_sub, n_c=n_c, n_cc=n_cc, items=items:
-            _block(S, means, mpn, R_sub, n_c, n_cc, items, settings.missing))
+            key, functools.partial(_block, S, means, mpn, R_sub, n_c, n_cc, items, settings.missing))
         table = tuple({**r, "r_other": others[j]} for r, j in zip(table, js))
         out[c] = ConstructBlock(items, rel, more, item_table=table, pruning_path=steps, one_factor_fit=fit,
                                 ordinal=ordinal)
