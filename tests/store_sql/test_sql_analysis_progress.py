@@ -2,14 +2,13 @@
 messages go through PostgreSQL's NOTIFY like a resampling run's progress (server/notify.py)."""
 from __future__ import annotations
 
-import json
 import threading
 
 import httpx
 import pytest
 
 from tests.browser.test_analysis_stage import pool_csv
-from tests.store_sql.test_sql_processes import two_servers  # noqa: F401  (the fixture)
+from tests.store_sql.test_sql_processes import live_changes, two_servers  # noqa: F401  (the fixture)
 
 
 @pytest.mark.slow  # starts two server processes
@@ -23,21 +22,11 @@ def test_the_stages_of_an_analysis_on_one_process_reach_a_stream_on_the_other(tw
     hello = threading.Event()
 
     def listen():
-        with httpx.stream("GET", f"{b}/api/datasets/{dataset_id}/events", trust_env=False, timeout=60) as resp:
-            assert resp.status_code == 200
-            event = None
-            for line in resp.iter_lines():
-                if line.startswith("event: "):
-                    event = line[7:]
-                elif line.startswith("data: "):
-                    if event == "hello":
-                        hello.set()
-                    elif event == "change":
-                        msg = json.loads(line[6:])
-                        if msg.get("action") == "analysis_progress":
-                            got.append(msg)
-                            if msg.get("final"):
-                                return
+        for msg in live_changes(b, dataset_id, hello):
+            if msg.get("action") == "analysis_progress":
+                got.append(msg)
+                if msg.get("final"):
+                    return
 
     thread = threading.Thread(target=listen, daemon=True)
     thread.start()

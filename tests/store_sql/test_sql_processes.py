@@ -57,6 +57,21 @@ def _save(base: str, dataset_id: str, name: str) -> httpx.Response:
     return httpx.post(f"{base}/api/datasets/{dataset_id}/snapshots", json=body, trust_env=False, timeout=120)
 
 
+def live_changes(base: str, dataset_id: str, hello: threading.Event, timeout: float = 60):
+    """The dataset's live "change" messages as a server at ``base`` streams them; ``hello`` is set on connecting."""
+    with httpx.stream("GET", f"{base}/api/datasets/{dataset_id}/events", trust_env=False, timeout=timeout) as r:
+        assert r.status_code == 200
+        event = None
+        for line in r.iter_lines():
+            if line.startswith("event: "):
+                event = line[7:]
+            elif line.startswith("data: "):
+                if event == "hello":
+                    hello.set()
+                elif event == "change":
+                    yield json.loads(line[6:])
+
+
 @pytest.fixture
 def two_servers(pg_cluster, tmp_path):
     """Two ``serve --database`` processes on one new PostgreSQL database and one data folder."""
@@ -74,18 +89,9 @@ def test_a_drop_through_one_process_reaches_a_stream_on_the_other(two_servers):
     hello = threading.Event()
 
     def listen():
-        with httpx.stream("GET", f"{b}/api/datasets/{dataset_id}/events", trust_env=False, timeout=30) as r:
-            assert r.status_code == 200
-            event = None
-            for line in r.iter_lines():
-                if line.startswith("event: "):
-                    event = line[7:]
-                elif line.startswith("data: "):
-                    if event == "hello":
-                        hello.set()
-                    elif event == "change":
-                        events.append((time.monotonic(), json.loads(line[6:])))
-                        return
+        for msg in live_changes(b, dataset_id, hello, timeout=30):
+            events.append((time.monotonic(), msg))
+            return
 
     thread = threading.Thread(target=listen, daemon=True)
     thread.start()
