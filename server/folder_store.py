@@ -43,11 +43,7 @@ def open_folder_store(data_dir: str | os.PathLike) -> SqlStore:
     check_data_dir(data_dir, (DB_NAME, DB_FILE))
     store = SqlStore(folder_url(data_dir))
     try:
-        summary = import_earlier_store(data_dir, store)
-        store.imported = None if summary is None else {  # what the start line reports
-            "datasets": summary.get("datasets", len(summary.get("datasets_added", []))),
-            "snapshots": summary.get("snapshots", len(summary.get("snapshots_added", []))),
-            "moved_to": summary["moved_to"]}
+        store.imported = import_earlier_store(data_dir, store)  # what the start line reports
     except BaseException:
         store.close()
         raise
@@ -65,7 +61,8 @@ def import_earlier_store(data_dir: str | os.PathLike, store: SqlStore) -> dict |
 
     Into an empty database everything is restored, the audit log included; into one that already holds data
     (an import cut short between its commit and the move) the backup merges: identical ids are skipped, a
-    conflict refuses the start with the restore's message. Returns the restore's summary plus ``moved_to``.
+    conflict refuses the start with the restore's message. Returns ``{datasets, snapshots, merge, moved_to}``
+    (what was added, and the folder now holding the earlier files).
     """
     from .backup import BackupError, backup, restore_database
     from .store import SQLiteStore
@@ -107,10 +104,9 @@ def import_earlier_store(data_dir: str | os.PathLike, store: SqlStore) -> dict |
         f"into ../{DB_FILE}, which Scalewright now reads. Nothing here is read any more; keep this folder as\n"
         "long as you want a second copy, then delete it.\n", encoding="utf-8")
     _fsync_dir(data_dir)
-    store.audit("import_earlier_store", who=_EARLIER_WHO,
-                details={"from": DB_NAME, "moved_to": target.name, "datasets": datasets_n,
-                         "snapshots": snapshots_n, "merge": summary.get("mode") == "merge"})
-    return {**summary, "moved_to": str(target)}
+    done = {"datasets": datasets_n, "snapshots": snapshots_n, "merge": summary["mode"] == "merge"}
+    store.audit("import_earlier_store", who=_EARLIER_WHO, details={"from": DB_NAME, "moved_to": target.name, **done})
+    return {**done, "moved_to": str(target)}
 
 
 def backup_folder(data_dir: str | os.PathLike, out_zip: str | os.PathLike, *, who: str | None = None,
