@@ -40,7 +40,7 @@ import pandas as pd
 from ..stats.errors import InputError
 from .codebook import Codebook, CodebookEntry
 from .common import norm, quote_list
-from .values import parse_numbers
+from .values import column_stats, parse_numbers
 
 # Column names (lower case, letters and digits only) that identify respondents rather than items.
 ID_NAMES = {
@@ -139,15 +139,18 @@ def numbers_the_rows(v: np.ndarray) -> bool:
                 and v[-1] - v[0] >= n - 1)
 
 
-def distinct_codes_above_100(v: np.ndarray) -> bool:
+def distinct_codes_above_100(v: np.ndarray, stats: tuple[float, float, int] | None = None) -> bool:
     """A different whole number in every row, some above 100 in absolute value.
 
     No rating scale (not even a 0-100 slider) reaches past 100, and entered as an item such a column would
-    swamp every statistic.
+    swamp every statistic. ``stats``, the column's :func:`.values.column_stats`, saves a pass for the cheap test.
     """
     n = len(v)
-    if n and not np.fmax.reduce(np.abs(v)) > 100:  # the cheap test first (fmax skips NaN; all NaN gives NaN)
-        return False
+    if n:  # the cheap test first, without a temporary: the largest |value| is that of the smallest or largest
+        lo, hi, _ = stats if stats is not None else column_stats(v)
+        with np.errstate(invalid="ignore"):  # (NaN skipped; all NaN gives NaN, and NaN > 100 is False)
+            if not np.fmax(abs(lo), abs(hi)) > 100:
+                return False
     return bool(n and not np.isnan(v).any() and np.all(v == np.round(v)) and np.nanmax(np.abs(v)) > 100
                 and len(np.unique(v)) == n)
 
@@ -210,6 +213,8 @@ Rule = Callable[[Column], "Role | None"]
 
 def no_values(col: Column) -> Role | None:
     """A column without any value is empty, or holds formulas whose results were never saved (XLSX)."""
+    if len(col.values) and pd.notna(col.values.iat[0]):  # a first cell filled: not empty (no pass over the column)
+        return None
     if not col.values.isna().all():
         return None
     return Role.left_out("formulas whose results were never saved: open and save the workbook in a spreadsheet "
@@ -288,14 +293,14 @@ COLUMN_RULES: tuple[Rule, ...] = (no_values, true_false, date_typed, id_named, m
                                   not_in_codebook, answers, dates_as_text, answer_labels, id_codes, free_text)
 
 
-def row_numbers(v: np.ndarray, *, first: bool) -> str | None:
+def row_numbers(v: np.ndarray, *, first: bool, stats: tuple[float, float, int] | None = None) -> str | None:
     """A first (or unnamed) column of distinct, increasing whole numbers numbers the rows: not an item."""
     return "row numbers" if first and numbers_the_rows(v) else None
 
 
-def id_numbers(v: np.ndarray, *, first: bool) -> str | None:
+def id_numbers(v: np.ndarray, *, first: bool, stats: tuple[float, float, int] | None = None) -> str | None:
     """A different whole number above 100 in every row holds codes (IDs), not answers."""
-    return "a different whole number above 100 in every row, like IDs" if distinct_codes_above_100(v) else None
+    return "a different whole number above 100 in every row, like IDs" if distinct_codes_above_100(v, stats) else None
 
 
 VALUE_RULES = (row_numbers, id_numbers)
@@ -309,6 +314,7 @@ class Roles:
     items: list[str] = field(default_factory=list)
     values: dict[str, np.ndarray] = field(default_factory=dict)
     not_numbers: dict[str, np.ndarray] = field(default_factory=dict)  # item column -> positions of text cells
+    stats: dict[str, tuple[float, float, int]] = field(default_factory=dict)  # item column -> values.column_stats
     id_column: str | None = None
     left_out: list[tuple[str, str]] = field(default_factory=list)  # (column, why)
 
@@ -343,6 +349,7 @@ def classify_columns(frame: pd.DataFrame, *, codebook: Codebook | None, matched:
         else:
             roles.items.append(c)
             roles.values[c] = col.numbers.to_numpy(dtype=np.float64, na_value=np.nan)
+            roles.stats[c] = column_stats(roles.values[c])  # once: the value rules and the item matrix read it
             if not col.numeric_typed and len(col.not_numbers):
                 roles.not_numbers[c] = col.not_numbers
     n = len(frame)
@@ -350,10 +357,10 @@ def classify_columns(frame: pd.DataFrame, *, codebook: Codebook | None, matched:
         for c in list(roles.items):
             if c in matched or n < MIN_ROWS_FOR_VALUE_RULES:
                 continue
-            why = rule(roles.values[c], first=c == columns[0] or c in unnamed)
+            why = rule(roles.values[c], first=c == columns[0] or c in unnamed, stats=roles.stats[c])
             if why is not None:
                 roles.items.remove(c)
-                del roles.values[c]
+                del roles.values[c], roles.stats[c]
                 roles.take_id(c, why)
     return roles
 

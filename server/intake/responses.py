@@ -9,7 +9,9 @@
 4. codebook match    columns -> codebook entries (:func:`.codebook.match_codebook`) and the named ID column
 5. column roles      items, the ID, columns left out (:func:`.columns.classify_columns`); ``_accept_roles``
                      refuses text in item columns and too many items, and says what was left out
-6. ``_matrix``       the items' numbers as one matrix; non-finite values refused, missing codes applied
+6. ``_matrix``       the items' numbers as one matrix; non-finite values refused, missing codes applied; each
+                     column's extremes and missing count (:class:`.values.ColumnSummary`, found once in
+                     step 5) screen every check from here on, so a clean file is not read again cell by cell
 7. ``_ranges``       each item's declared range; absurd values refused, values outside the range dropped
 8. ``_drop_empty``   rows and items without an answer; at least 2 items and 3 respondents
 9. ``_result``       observed ranges, the warnings on items and codebook, respondent IDs -> ParsedDataset
@@ -30,6 +32,7 @@ from .common import DEFAULT_LIMITS, MAX_LISTED, IntakeLimits, fmt_num, is_number
 from .header import skip_extra_header_rows
 from .table import read_table
 from .values import (
+    ColumnSummary,
     apply_missing_codes,
     declared_ranges,
     out_of_range_to_missing,
@@ -115,12 +118,14 @@ class _Table:
 
 @dataclass
 class _Matrix:
-    """Respondents x items, RAW values, NaN = missing; with each row's file row number and ID cell."""
+    """Respondents x items, RAW values, NaN = missing; with each row's file row number and ID cell, and the
+    columns' smallest and largest values and missing counts (kept up to date as cells are set to missing)."""
 
     responses: np.ndarray
     items: list[str]
     row_numbers: np.ndarray
     ids: pd.Series | None
+    summary: ColumnSummary
 
 
 @dataclass
@@ -268,9 +273,15 @@ def _matrix(table: _Table, roles: Roles, raw: bytes, filename: str, limits: Inta
         for j, c in enumerate(roles.items):
             responses[:, j] = roles.values.pop(c)
     ids = table.frame[roles.id_column] if roles.id_column is not None else None
-    refuse_non_finite(responses, roles.items, table.row_numbers, raw, filename, limits)
-    apply_missing_codes(responses, codes, notes)
-    return _Matrix(responses, list(roles.items), table.row_numbers, ids)
+    # the checks below and the ranges read the columns' extremes and missing counts, found once in classify_columns
+    if all(c in roles.stats for c in roles.items):
+        summary = ColumnSummary.of_columns([roles.stats[c] for c in roles.items])
+    else:
+        summary = ColumnSummary.of(responses)
+    refuse_non_finite(responses, roles.items, table.row_numbers, raw, filename, limits, summary)
+    if apply_missing_codes(responses, codes, notes, summary):
+        summary = ColumnSummary.of(responses)
+    return _Matrix(responses, list(roles.items), table.row_numbers, ids, summary)
 
 
 def _is_block(block: np.ndarray | None, roles: Roles, n: int) -> bool:
@@ -290,8 +301,11 @@ def _ranges(matrix: _Matrix, matched: dict[str, CodebookEntry], form: _Form, raw
     a declared range set to missing."""
     mins, maxs, sources = declared_ranges(matrix.items, matched, form.scale_min, form.scale_max)
     declared = np.array([s != "observed" for s in sources], dtype=bool)
-    refuse_absurd(matrix.responses, matrix.items, matrix.row_numbers, mins, maxs, declared, raw, filename, limits)
-    out_of_range_to_missing(matrix.responses, matrix.items, matrix.row_numbers, mins, maxs, declared, notes)
+    refuse_absurd(matrix.responses, matrix.items, matrix.row_numbers, mins, maxs, declared, raw, filename, limits,
+                  matrix.summary)
+    if out_of_range_to_missing(matrix.responses, matrix.items, matrix.row_numbers, mins, maxs, declared, notes,
+                               matrix.summary):
+        matrix.summary = ColumnSummary.of(matrix.responses)
     return _Ranges(mins, maxs, sources)
 
 
@@ -299,8 +313,12 @@ def _drop_empty(matrix: _Matrix, ranges: _Ranges, roles: Roles, filename: str, n
                 ) -> tuple[_Matrix, _Ranges]:
     """Drop rows with no answer and items with no valid answer left; refuse fewer than 2 items or 3 rows."""
     responses, items, row_numbers, ids = matrix.responses, matrix.items, matrix.row_numbers, matrix.ids
+    lo, hi, n_missing = matrix.summary.lo, matrix.summary.hi, matrix.summary.n_missing
     n, k = responses.shape
-    empty_rows = np.isnan(responses).all(axis=1) if k else np.ones(n, dtype=bool)
+    if k and not n_missing.min():  # a column without a missing cell: no row is empty
+        empty_rows = np.zeros(n, dtype=bool)
+    else:
+        empty_rows = np.isnan(responses).all(axis=1) if k else np.ones(n, dtype=bool)
     n_empty = int(empty_rows.sum())
     if n_empty:
         rows = row_numbers[empty_rows]
@@ -312,10 +330,11 @@ def _drop_empty(matrix: _Matrix, ranges: _Ranges, roles: Roles, filename: str, n
         row_numbers = row_numbers[keep]
         if ids is not None:
             ids = ids[keep]
+        n_missing = n_missing - n_empty  # every dropped row was missing in every column
     n_rows = responses.shape[0]
 
     mins, maxs, sources = ranges.mins, ranges.maxs, ranges.sources
-    all_nan = np.isnan(responses).all(axis=0) if n_rows else np.ones(k, dtype=bool)
+    all_nan = n_missing == n_rows if n_rows else np.ones(k, dtype=bool)
     if k and all_nan.any() and n_rows:
         gone = [items[j] for j in np.flatnonzero(all_nan)]
         notes.append(f"{plural(len(gone), 'item')} with no valid answer left {'was' if len(gone) == 1 else 'were'}"
@@ -324,6 +343,7 @@ def _drop_empty(matrix: _Matrix, ranges: _Ranges, roles: Roles, filename: str, n
         responses = responses[:, keep_cols]
         items = [c for c, kp in zip(items, keep_cols, strict=True) if kp]
         mins, maxs = mins[keep_cols], maxs[keep_cols]
+        lo, hi, n_missing = lo[keep_cols], hi[keep_cols], n_missing[keep_cols]
         sources = [s for s, kp in zip(sources, keep_cols, strict=True) if kp]
         k = len(items)
 
@@ -345,7 +365,8 @@ def _drop_empty(matrix: _Matrix, ranges: _Ranges, roles: Roles, filename: str, n
         raise InputError(f"The file '{filename}' has {plural(n_rows, 'respondent')} with answers; at least 3 "
                          "are needed.", code="too_few_respondents",
                          details={"file": filename, "n_rows": n_rows})
-    return _Matrix(responses, items, row_numbers, ids), _Ranges(mins, maxs, sources)
+    return (_Matrix(responses, items, row_numbers, ids, ColumnSummary(lo, hi, n_missing)),
+            _Ranges(mins, maxs, sources))
 
 
 def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry], codebook: Codebook | None,
@@ -354,8 +375,7 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
     responses, items = matrix.responses, matrix.items
     mins, maxs, sources = ranges.mins, ranges.maxs, ranges.sources
     n_rows = responses.shape[0]
-    obs_min = np.nanmin(responses, axis=0)
-    obs_max = np.nanmax(responses, axis=0)
+    obs_min, obs_max = matrix.summary.lo.copy(), matrix.summary.hi.copy()  # NaN skipped, as nanmin and nanmax
     observed = np.array([s == "observed" for s in sources], dtype=bool)
     mins[observed], maxs[observed] = obs_min[observed], obs_max[observed]
     if observed.any():
@@ -366,7 +386,7 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
         notes.append(f"Item '{items[j]}' is constant (every answer is {fmt_num(obs_min[j])}); "
                      "it has no variance.")
 
-    n_missing = np.isnan(responses).sum(axis=0)
+    n_missing = matrix.summary.n_missing
     sparse = [f"'{items[j]}' ({int(n_missing[j])} of {n_rows})" for j in np.flatnonzero(n_missing > n_rows / 2)]
     if sparse:
         more = f" and {len(sparse) - 10} more" if len(sparse) > 10 else ""
@@ -417,7 +437,11 @@ def _result(matrix: _Matrix, ranges: _Ranges, matched: dict[str, CodebookEntry],
 def _id_texts(ids: pd.Series) -> list[str]:
     """:func:`id_text` of every cell; a column of text (pandas' string type) stripped in one step."""
     if isinstance(ids.dtype, pd.StringDtype) and ids.dtype.na_value is np.nan:  # missing: NaN, as id_text reads
-        return [v.strip() if isinstance(v, str) else "" for v in ids.tolist()]
+        cells = ids.tolist()
+        try:
+            return list(map(str.strip, cells))  # every cell filled (str.strip refuses the NaN of a missing one)
+        except TypeError:
+            return [v.strip() if isinstance(v, str) else "" for v in cells]
     return [id_text(v) for v in ids.tolist()]
 
 

@@ -312,7 +312,9 @@ def _scan_unquoted(raw: bytes, encoding: str, delim: str, filename: str, *, bloc
         has = ends > starts
         cr[has] = part[ends[has] - 1] == 13
         length = ends - starts - cr
-        counts = np.add.reduceat(part == dbyte, starts, dtype=np.int64)  # starts rise strictly
+        # starts rise strictly; a line shorter than 65,536 bytes holds fewer delimiters, so 16 bits count them
+        narrow = np.uint16 if (ends - starts).max() < 65536 else np.int64
+        counts = np.add.reduceat((part == dbyte).view(np.uint8), starts, dtype=narrow).astype(np.int64)
         numbers = line_no + 1 + np.arange(len(ends))
         keep = length > 0
         if header is None and keep.any():
@@ -348,11 +350,27 @@ def _same_type(parts: list[pd.Series]) -> bool:
         return True
     if any(numeric) or any(pd.api.types.is_bool_dtype(p.dtype) for p in parts):
         return False
-    candidates = (pd.Series(_could_be_numbers(p), dtype=object) for p in parts)
+    candidates = (pd.Series(_could_be_numbers(p), dtype=object) for p in parts if _may_hold_numbers(p))
     return not any(pd.to_numeric(c, errors="coerce").notna().any() for c in candidates)
 
 
 _NOT_A_NUMBER_START = np.array(list("abcdefghjklmopqrstuvwxyzABCDEFGHJKLMOPQRSTUVWXYZ"))  # not i/I, n/N (inf, nan)
+_A_NUMBER_MAY_START = re.compile(r"\n[^a-hj-mo-zA-HJ-MO-Z\n]")  # a cell (after a line end) not starting as above
+
+
+def _may_hold_numbers(part: pd.Series) -> bool:
+    """False when no filled cell of a text column could read as a number by the screen of
+    :func:`_could_be_numbers` (each starts with a letter that begins no number; an empty cell is no number),
+    found by one search over the cells joined by line ends; True when some could, or when unsure (a cell
+    that is not text, a line end inside a cell only adds candidates)."""
+    try:
+        text = "\n" + "\n".join(part.tolist())
+    except TypeError:  # missing cells (NaN) or cells that are not text
+        try:
+            text = "\n" + "\n".join(part.dropna().tolist())
+        except TypeError:
+            return True
+    return _A_NUMBER_MAY_START.search(text) is not None
 
 
 def _could_be_numbers(part: pd.Series) -> np.ndarray:

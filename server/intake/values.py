@@ -7,6 +7,7 @@ column, row (1-based as in the file, the header being row 1) and value.
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -23,6 +24,57 @@ from .text import DECIMAL_COMMA
 # also farther than ABSURD_SPREADS x max(P95 - P5, 1) from the item's median.
 ABSURD_ABS = 1e6
 ABSURD_SPREADS = 100
+
+
+@dataclass
+class ColumnSummary:
+    """What the checks below need of each item column, from one pass over the matrix.
+
+    ``lo`` and ``hi`` are the smallest and largest values with NaN skipped (as ``np.fmin``/``np.fmax``; NaN
+    for a column without any value), ``n_missing`` the NaN cells. Infinities count as values.
+    """
+
+    lo: np.ndarray
+    hi: np.ndarray
+    n_missing: np.ndarray
+
+    @classmethod
+    def of(cls, responses: np.ndarray) -> ColumnSummary:
+        """The summary of a respondents x items matrix. ``min``/``max`` first (NaN propagates, so a NaN
+        marks a column with a missing cell); only such columns are read again to skip the NaN and count them."""
+        n, k = responses.shape
+        if not n:
+            return cls(np.full(k, np.nan), np.full(k, np.nan), np.zeros(k, dtype=np.int64))
+        with np.errstate(invalid="ignore"):
+            lo, hi = responses.min(axis=0), responses.max(axis=0)
+        n_missing = np.zeros(k, dtype=np.int64)
+        gaps = np.flatnonzero(np.isnan(lo) | np.isnan(hi))
+        if not len(gaps):
+            return cls(lo, hi, n_missing)
+        if responses.flags.f_contiguous or len(gaps) < k // 4:  # column by column: each column read in one stretch
+            for j in gaps:
+                lo[j], hi[j], n_missing[j] = column_stats(responses[:, j])
+        else:  # row-major with gaps in many columns: whole-matrix passes
+            lo, hi = np.fmin.reduce(responses, axis=0), np.fmax.reduce(responses, axis=0)
+            n_missing = np.isnan(responses).sum(axis=0).astype(np.int64)
+        return cls(lo, hi, n_missing)
+
+    @classmethod
+    def of_columns(cls, stats: list[tuple[float, float, int]]) -> ColumnSummary:
+        """The summary from each column's :func:`column_stats`, in the matrix's column order."""
+        return cls(np.array([s[0] for s in stats], dtype=np.float64), np.array([s[1] for s in stats], dtype=np.float64),
+                   np.array([s[2] for s in stats], dtype=np.int64))
+
+
+def column_stats(v: np.ndarray) -> tuple[float, float, int]:
+    """One column's (smallest, largest, missing cells), NaN skipped, as a column of :class:`ColumnSummary`."""
+    if not len(v):
+        return np.nan, np.nan, 0
+    with np.errstate(invalid="ignore"):
+        lo, hi = float(v.min()), float(v.max())  # NaN propagates: a NaN says a cell is missing
+    if np.isnan(lo) or np.isnan(hi):
+        return float(np.fmin.reduce(v)), float(np.fmax.reduce(v)), int(np.count_nonzero(np.isnan(v)))
+    return lo, hi, 0
 
 
 def numeric_mask(s: pd.Series) -> np.ndarray:
@@ -90,13 +142,14 @@ def as_written(raw: bytes, filename: str, limits: IntakeLimits, cells: list[dict
 
 def refuse_absurd(responses: np.ndarray, item_cols: list[str], row_numbers: np.ndarray, mins: np.ndarray,
                    maxs: np.ndarray, declared: np.ndarray, raw: bytes, filename: str,
-                   limits: IntakeLimits) -> None:
+                   limits: IntakeLimits, summary: ColumnSummary | None = None) -> None:
     """Raise ``absurd_value`` naming the answers far outside any rating scale (rule: ``ABSURD_ABS``).
 
     A value beyond ABSURD_ABS (or ABSURD_SPREADS x the largest declared bound) in absolute value, or, for
     an item without a declared range, farther than ABSURD_SPREADS x max(P95 - P5, 1) from its median
     (common practice: a far-out fence as Tukey's, widened so only typos, overflows and codes are caught).
     Values merely outside a declared range are not absurd: they are set to missing with a warning.
+    ``summary`` (:class:`ColumnSummary` of ``responses``) saves the pass over the matrix for the screen.
     """
     k = responses.shape[1]
     if not k or not responses.shape[0]:
@@ -108,9 +161,12 @@ def refuse_absurd(responses: np.ndarray, item_cols: list[str], row_numbers: np.n
     # A cheap screen first (fmin/fmax skip NaN and make no copy of the matrix); the median and percentiles
     # are computed only for the few columns that could hold an absurd value: the fence is at least
     # ABSURD_SPREADS wide, so a column whose whole range is narrower has none beyond it.
-    with np.errstate(invalid="ignore"):
-        lo = np.fmin.reduce(responses, axis=0)
-        hi = np.fmax.reduce(responses, axis=0)
+    if summary is not None:
+        lo, hi = summary.lo, summary.hi
+    else:
+        with np.errstate(invalid="ignore"):
+            lo = np.fmin.reduce(responses, axis=0)
+            hi = np.fmax.reduce(responses, axis=0)
     suspect = (np.abs(lo) > bound) | (np.abs(hi) > bound) | (~declared & (hi - lo > ABSURD_SPREADS))
     if not suspect.any():
         return
@@ -154,8 +210,14 @@ def refuse_absurd(responses: np.ndarray, item_cols: list[str], row_numbers: np.n
                  "count": total})
 
 def refuse_non_finite(responses: np.ndarray, items: list[str], row_numbers: np.ndarray, raw: bytes,
-                      filename: str, limits: IntakeLimits) -> None:
-    """Raise ``non_finite_value`` naming the cells that read as infinity ('inf', '1e400')."""
+                      filename: str, limits: IntakeLimits, summary: ColumnSummary | None = None) -> None:
+    """Raise ``non_finite_value`` naming the cells that read as infinity ('inf', '1e400').
+
+    With ``summary`` (:class:`ColumnSummary` of ``responses``) the matrix is searched only when a column's
+    smallest or largest value is infinite.
+    """
+    if summary is not None and not (np.isinf(summary.lo) | np.isinf(summary.hi)).any():
+        return
     infinite = np.isinf(responses)
     if not infinite.any():
         return
@@ -172,16 +234,26 @@ def refuse_non_finite(responses: np.ndarray, items: list[str], row_numbers: np.n
         code="non_finite_value", details={"file": filename, **cells[0], "cells": cells, "count": len(rows_i)})
 
 
-def apply_missing_codes(responses: np.ndarray, codes: list[float], notes: list[str]) -> None:
-    """Set the cells holding a missing code (-9, 99) to NaN, in place, and say how many."""
+def apply_missing_codes(responses: np.ndarray, codes: list[float], notes: list[str],
+                        summary: ColumnSummary | None = None) -> int:
+    """Set the cells holding a missing code (-9, 99) to NaN, in place, and say how many; returns that count.
+
+    With ``summary`` (:class:`ColumnSummary` of ``responses``) the matrix is searched only when a code lies
+    within some column's smallest and largest value.
+    """
     if not codes:
-        return
+        return 0
+    if summary is not None:
+        with np.errstate(invalid="ignore"):
+            if not any(((summary.lo <= c) & (c <= summary.hi)).any() for c in codes):
+                return 0
     hit = np.isin(responses, np.asarray(codes))
     n_hit = int(hit.sum())
     responses[hit] = np.nan
     if n_hit:
         notes.append(f"Missing codes {', '.join(fmt_num(c) for c in codes)} marked "
                      f"{plural(n_hit, 'cell')} as missing.")
+    return n_hit
 
 
 def declared_ranges(items: list[str], codebook: Mapping[str, CodebookEntry], scale_min: float | None,
@@ -205,22 +277,27 @@ def declared_ranges(items: list[str], codebook: Mapping[str, CodebookEntry], sca
 
 
 def out_of_range_to_missing(responses: np.ndarray, items: list[str], row_numbers: np.ndarray, mins: np.ndarray,
-                            maxs: np.ndarray, declared: np.ndarray, notes: list[str]) -> None:
-    """Set answers outside an item's declared range to NaN, in place, naming the first cells.
+                            maxs: np.ndarray, declared: np.ndarray, notes: list[str],
+                            summary: ColumnSummary | None = None) -> int:
+    """Set answers outside an item's declared range to NaN, in place, naming the first cells; returns how many.
 
     When an item's answers would fit its range after a shift (0-4 against 1-5), say so as well.
+    ``summary`` (:class:`ColumnSummary` of ``responses``) saves the pass over the matrix for the screen.
     """
     if not declared.any():
-        return
+        return 0
     with np.errstate(invalid="ignore"):  # a cheap screen first: no n x k temporaries when every answer fits
-        lo, hi = np.fmin.reduce(responses, axis=0), np.fmax.reduce(responses, axis=0)
+        if summary is not None:
+            lo, hi = summary.lo, summary.hi
+        else:
+            lo, hi = np.fmin.reduce(responses, axis=0), np.fmax.reduce(responses, axis=0)
         if not ((lo < mins) | (hi > maxs))[declared].any():
-            return
+            return 0
         outside = (responses < mins) | (responses > maxs)
     outside[:, ~declared] = False
     per_item = outside.sum(axis=0)
     if not per_item.any():
-        return
+        return 0
     before = {j: responses[:, j].copy() for j in np.flatnonzero(per_item)}
     cols_j, rows_i = np.nonzero(outside.T)
     examples = "; ".join(f"column '{items[j]}', row {int(row_numbers[i])}: {fmt_num(responses[i, j])}"
@@ -246,3 +323,4 @@ def out_of_range_to_missing(responses: np.ndarray, items: list[str], row_numbers
                  f"{', '.join(listed[:10])}{' and more' if len(listed) > 10 else ''}; "
                  f"{'the cell is' if per_item.sum() == 1 else 'first cells:'} {examples}"
                  f"{'; ...' if per_item.sum() > MAX_LISTED else ''}.")
+    return int(per_item.sum())
