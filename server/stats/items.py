@@ -98,9 +98,16 @@ def _leave_one_out_starts(Ro: np.ndarray, l0: np.ndarray, *, max_iter: int = 12,
     A^{-1}e_b\,(A^{-1}v)_b/(A^{-1})_{bb}` and the rank-two change by Woodbury's identity. The first step is
     Newton's; the later ones converge linearly at the ratio of the omitted diagonal change (a few hundredths),
     at O(k^2) per row and step where a sweep of the fixed point (``_fit_batch``) gains far less per step on
-    multi-factor item sets. The caller's ``_fit_batch`` then checks (and if needed finishes) every row, so
-    this changes where the fits start, not where they end; the plain start (``l0`` less the item) is returned
-    whenever a loading is near the Heywood bound or a step is not finite.
+    multi-factor item sets. Rows stop stepping once their step is below ``tol``. Each row is judged on its own
+    (before, one doubtful row sent every row back to the plain start). A row keeps its Newton point when
+    :math:`M_0 - \sigma_bI` stayed positive definite at every step (converged or not, as before), or when it
+    converged with a positive definite approximate Hessian, counted by Haynsworth's inertia additivity: the
+    negative eigenvalues of :math:`M_0 - \sigma_bI`, less one when the bordering Schur complement
+    :math:`1/(A^{-1})_{bb}` is negative, plus the positive eigenvalues of Woodbury's 2 x 2 capacitance matrix,
+    less one. Every other row (a step not finite, an indefinite Hessian without convergence, a loading near the
+    Heywood bound: typically a row whose one-factor solution moves to another factor once the item is left out)
+    keeps the plain start (``l0`` less the item). The caller's ``_fit_batch`` then checks (and if needed
+    finishes) every row, so this changes where the fits start, not where they end.
     """
     k = len(l0)
     eye = np.eye(k, dtype=bool)
@@ -110,58 +117,99 @@ def _leave_one_out_starts(Ro: np.ndarray, l0: np.ndarray, *, max_iter: int = 12,
     s0 = float(l0 @ l0)
     l02 = l0 * l0
     M0 = s0 * np.eye(k) - 3.0 * np.diag(l02) + 2.0 * np.outer(l0, l0) - Ro
-    lam, Q = linalg.eigh(M0, check_finite=False)
+    lam, Q = linalg.eigh(M0, check_finite=False, driver="evd")
     ql0 = Q.T @ l0
     l0h = ql0[None, :] - l0[:, None] * Q  # row b: Q'(l0 with item b left out)
     L = plain.copy()
     Lh = l0h.copy()                       # row b: Q'L_b
+    act = np.arange(k)                    # rows still stepping
+    good = np.zeros(k, dtype=bool)        # rows converged with a positive definite Hessian
+    pos = np.ones(k, dtype=bool)          # rows whose shifted M0 stayed positive definite
     with np.errstate(all="ignore"):
         for _ in range(max_iter):
-            s = (L * L).sum(axis=1, keepdims=True)
+            La, Lha, Qa, l0ha = L[act], Lh[act], Q[act], l0h[act]
+            s = (La * La).sum(axis=1, keepdims=True)
             # a quarter of the gradient, L*(s - L^2) - L Ro, in Q's basis (L Ro = s0 L - 3 L l0^2 + 2 (L.l0) l0'
             # - L M0); the left-out item's component is then taken out
-            E = L * (s - L * L - s0 + 3.0 * l02)
-            gh = E @ Q - 2.0 * (L @ l0)[:, None] * ql0[None, :] + Lh * lam[None, :]
-            gh -= (gh * Q).sum(axis=1, keepdims=True) * Q
-            D = 1.0 / (lam[None, :] - (s0 - s))
-            if not np.all(D > 0):
-                return plain
-            Dq = D * Q
-            ajj = (Q * Dq).sum(axis=1, keepdims=True)
+            E = La * (s - La * La - s0 + 3.0 * l02)
+            gh = E @ Q - 2.0 * (La @ l0)[:, None] * ql0[None, :] + Lha * lam[None, :]
+            gh -= (gh * Qa).sum(axis=1, keepdims=True) * Qa
+            shift = lam[None, :] - (s0 - s)
+            D = 1.0 / shift
+            Dq = D * Qa
+            ajj = (Qa * Dq).sum(axis=1, keepdims=True)
 
-            def solve(vh: np.ndarray, D: np.ndarray = D, Dq: np.ndarray = Dq, ajj: np.ndarray = ajj) -> np.ndarray:
+            def solve(vh: np.ndarray, D: np.ndarray = D, Dq: np.ndarray = Dq, ajj: np.ndarray = ajj,
+                      Qa: np.ndarray = Qa) -> np.ndarray:
                 Dv = D * vh  # (M0 - sigma I)^-1 v, then bordered: item b's row and column left out
-                return Dv - Dq * ((Q * Dv).sum(axis=1, keepdims=True) / ajj)
+                return Dv - Dq * ((Qa * Dv).sum(axis=1, keepdims=True) / ajj)
 
-            tg, tl, t0 = solve(gh), solve(Lh), solve(l0h)
+            tg, tl, t0 = solve(gh), solve(Lha), solve(l0ha)
             # Woodbury for + 2 L L' - 2 l0 l0': a 2 x 2 system per row
-            k11 = 0.5 + (Lh * tl).sum(axis=1)
-            k12 = (Lh * t0).sum(axis=1)
-            k21 = (l0h * tl).sum(axis=1)
-            k22 = -0.5 + (l0h * t0).sum(axis=1)
-            r1 = (Lh * tg).sum(axis=1)
-            r2 = (l0h * tg).sum(axis=1)
+            k11 = 0.5 + (Lha * tl).sum(axis=1)
+            k12 = (Lha * t0).sum(axis=1)
+            k21 = (l0ha * tl).sum(axis=1)
+            k22 = -0.5 + (l0ha * t0).sum(axis=1)
+            r1 = (Lha * tg).sum(axis=1)
+            r2 = (l0ha * tg).sum(axis=1)
             det = k11 * k22 - k12 * k21
             z1 = (r1 * k22 - k12 * r2) / det
             z2 = (k11 * r2 - k21 * r1) / det
             xh = tg - tl * z1[:, None] - t0 * z2[:, None]
             x = xh @ Q.T
-            x[eye] = 0.0
-            L -= x
-            Lh -= xh
-            step = float(np.abs(x).max())
-            if not np.isfinite(step):
-                return plain
-            if step < tol:
+            x[np.arange(act.size), act] = 0.0
+            L[act] = La - x
+            Lh[act] = Lha - xh
+            step = np.abs(x).max(axis=1)
+            # negative eigenvalues of the approximate Hessian (see above); the capacitance has 2, 1 or 0
+            # positive eigenvalues as its determinant and trace are positive, the determinant negative, or not
+            npos = np.where(det < 0, 1, np.where((det > 0) & (k11 + k22 > 0), 2, 0))
+            nneg = (shift < 0).sum(axis=1) - (ajj[:, 0] < 0) + npos - 1
+            fin = np.isfinite(step) & np.isfinite(det) & (det != 0) & (np.abs(shift).min(axis=1) > 1e-10)
+            pos[act] &= fin & (shift > 0).all(axis=1)
+            done = fin & (step < tol)
+            good[act[done & (nneg == 0)]] = True
+            act = act[fin & ~done]
+            if not act.size:
                 break
-    if not np.all(np.isfinite(L)) or float(np.max(L * L)) > _H - 1e-3:
-        return plain
-    return L
+    keep = (good | pos) & np.isfinite(L).all(axis=1) & ((L * L).max(axis=1) <= _H - 1e-3)
+    return np.where(keep[:, None], L, plain)
+
+
+_NESTED_RATIO = 0.5  # a new block of nested item sets starts where the set falls below this share of the block's first
+_NESTED_MIN = 64     # no new block below this many items (there a batch costs its Python steps, not its products)
+
+
+def _fit_nested(Ro: np.ndarray, L0: np.ndarray, m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``_fit_batch`` for item sets that may be nested (the pruning path: each row a subset of the row before).
+
+    Nested rows are fitted in blocks, each on the items of its first row only: a block's fixed-point sweeps
+    then cost (its first row's items)^2 per row instead of k^2 (the fits are the same, items outside a row
+    are zero throughout). Rows that are not nested are fitted as one batch.
+    """
+    n = m.shape[0]
+    sizes = m.sum(axis=1)
+    if n < 2 or not np.all(m[1:] <= m[:-1]) or sizes[0] * _NESTED_RATIO < _NESTED_MIN:
+        return _fit_batch(Ro, L0, m)[:2]
+    L = np.zeros_like(L0, dtype=float)
+    conv = np.zeros(n, dtype=bool)
+    r0 = 0
+    while r0 < n:
+        idx = np.flatnonzero(m[r0])
+        r1 = n  # the rows down to the ratio (all of them once the block is small)
+        if idx.size * _NESTED_RATIO >= _NESTED_MIN:
+            r1 = r0 + 1 + int(np.sum(sizes[r0 + 1:] >= _NESTED_RATIO * idx.size))
+        Lb, cb, _ = _fit_batch(Ro[np.ix_(idx, idx)], L0[r0:r1][:, idx], m[r0:r1][:, idx])
+        L[r0:r1, idx] = Lb
+        conv[r0:r1] = cb
+        r0 = r1
+    return L, conv
 
 
 def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: ArrayLike | None = None, *,
                    leave_one_out: bool = False) -> np.ndarray:
-    """Omega total for each item subset (rows of ``mask``), fitted as one warm-started batch.
+    """Omega total for each item subset (rows of ``mask``), fitted as one warm-started batch (nested subsets,
+    as on the pruning path, in blocks on their own items: :func:`_fit_nested`).
 
     ``leave_one_out``: ``mask`` is every item but one, in turn (``~eye``); the fits then start from Newton
     steps (:func:`_leave_one_out_starts`) instead of the full set's loadings.
@@ -179,7 +227,7 @@ def _omega_subsets(S: np.ndarray, mask: np.ndarray, start: ArrayLike | None = No
         L0 = _leave_one_out_starts(Ro, np.asarray(start, dtype=float))
     else:
         L0 = np.where(m, np.asarray(start, dtype=float)[None, :], 0.0)
-    L, conv, _ = _fit_batch(Ro, L0, m)
+    L, conv = _fit_nested(Ro, L0, m) if not leave_one_out else _fit_batch(Ro, L0, m)[:2]
     # Rows that did not converge, and rows whose warm-started fit sits on the Heywood bound (there the
     # minres criterion can have several minima and the warm start may find another one than a fresh
     # fit), are fitted on their own from the default start: exactly what mcdonald_omega, and so the

@@ -141,3 +141,80 @@ def test_item_table_json_plain_types(holzinger):
     rows = item_table(holzinger.cov().to_numpy(), names=list(holzinger.columns))
     path = pruning_path(holzinger.cov().to_numpy(), names=list(holzinger.columns))
     assert json.dumps({"items": rows, "path": path}, allow_nan=False)
+
+
+def _three_factor_pool(k: int, *, n: int = 1500, seed: int = 0) -> np.ndarray:
+    """Simulated 5-point responses: k items, each loading 0.5-0.8 on one of three factors (items interleaved)."""
+    rng = np.random.default_rng(seed)
+    load = np.zeros((k, 3))
+    for j in range(k):
+        load[j, j % 3] = rng.uniform(0.5, 0.8)
+    z = rng.standard_normal((n, 3)) @ load.T + rng.standard_normal((n, k)) * np.sqrt(1 - (load ** 2).sum(1))
+    return np.clip(np.round(z * 1.1 + 3), 1, 5)
+
+
+def _omega_of_fits(S: np.ndarray, L: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    sd = np.sqrt(np.diag(S))
+    lam = L * np.sign(L.sum(axis=1, keepdims=True)) * sd[None, :]
+    mf = mask.astype(float)
+    return lam.sum(axis=1) ** 2 / ((mf @ S) * mf).sum(axis=1)
+
+
+def test_leave_one_out_newton_starts_row_by_row():
+    # Three-factor items: leaving out some of the items with the largest loadings makes the shifted full-set
+    # Hessian indefinite for those rows (and moves their one-factor solution towards another factor). Those
+    # rows keep the plain start; the other rows keep their Newton starts (before, one such row sent every row
+    # back to the plain start). The fits end where the fixed point from the plain starts ends.
+    from server.stats import reliability as rel
+    from server.stats.items import _leave_one_out_starts
+
+    X = _three_factor_pool(30, seed=0)
+    S = np.cov(X, rowvar=False)
+    R = np.corrcoef(X, rowvar=False)
+    Ro, k = rel._off_diagonal(R), 30
+    l0 = rel.one_factor_loadings(R).loadings
+    plain = np.where(np.eye(k, dtype=bool), 0.0, l0[None, :])
+    starts = _leave_one_out_starts(Ro, l0)
+    newton = np.abs(starts - plain).max(axis=1) > 0
+    assert 0 < newton.sum() < k  # row by row: some rows Newton, some plain
+    mask = ~np.eye(k, dtype=bool)
+    L, conv, _ = rel._fit_batch(Ro, starts, mask)
+    ref, conv_ref, _ = rel._fit_batch(Ro, plain, mask, tol=1e-14, max_iter=100_000)  # the fixed point, tightly
+    assert conv.all() and conv_ref.all()
+    L, ref = (M * np.sign(M.sum(axis=1, keepdims=True)) for M in (L, ref))  # a loading vector's sign is free
+    np.testing.assert_allclose(L, ref, atol=1e-9, rtol=0)
+    at_end = np.abs(starts - ref).max(axis=1) < 1e-8  # rows whose Newton steps converged: started at the end
+    assert at_end.sum() >= k // 2 and not at_end[~newton].any()
+    got = np.array([r["omega_if_deleted"] for r in item_table(S, names=[f"q{j}" for j in range(k)], start=l0)])
+    np.testing.assert_allclose(got, _omega_of_fits(S, ref, mask), atol=1e-9, rtol=0)
+
+
+def test_pruning_path_nested_blocks_match_one_batch():
+    # 150 items: the path's nested item sets are fitted in blocks on their own items (_fit_nested); every
+    # omega must be the one of the single batch over all k items, and the first steps McDonald's omega of
+    # the remaining items (mcdonald_omega, itself checked against factor_analyzer in test_reliability.py).
+    from server.stats import reliability as rel
+    from server.stats.items import _fit_nested
+
+    X = _three_factor_pool(150, seed=1)
+    S = np.cov(X, rowvar=False)
+    R = np.corrcoef(X, rowvar=False)
+    names = [f"q{j}" for j in range(150)]
+    l0 = rel.one_factor_loadings(R).loadings
+    path = pruning_path(S, names=names, start=l0)
+    order = [names.index(p["removed"]) for p in path[1:]]
+    step_of = np.full(150, len(path))
+    step_of[order] = np.arange(1, len(path))
+    mask = np.arange(len(path))[:, None] < step_of[None, :]
+    mask = mask[mask.sum(axis=1) >= 3]
+    Ro = rel._off_diagonal(R)
+    L0 = np.where(mask, l0[None, :], 0.0)
+    blocks, conv_b = _fit_nested(Ro, L0, mask)
+    ref, conv_ref, _ = rel._fit_batch(Ro, L0, mask, tol=1e-14, max_iter=100_000)
+    assert conv_b.all() and conv_ref.all()
+    np.testing.assert_allclose(blocks, ref, atol=1e-9, rtol=0)
+    omega = np.array([p["omega_total"] for p in path[:len(mask)]])
+    np.testing.assert_allclose(omega, _omega_of_fits(S, ref, mask), atol=1e-9, rtol=0)
+    for step in (0, 1, 40, 100):
+        idx = np.flatnonzero(mask[step])
+        assert omega[step] == pytest.approx(mcdonald_omega(S[np.ix_(idx, idx)]).omega_total, abs=1e-6)
