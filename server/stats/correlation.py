@@ -322,7 +322,7 @@ def _check_variance(arr: np.ndarray, names: list[str]) -> None:
 
 
 def _maybe_smooth(R, smooth, label, names, warnings):
-    lam = float(np.linalg.eigvalsh(R)[0])
+    lam = float(eigvalsh(R)[0])
     if smooth is None:
         if lam <= 0:
             warnings.append(note("not_positive_definite", f"The {label} matrix is not positive definite "

@@ -17,7 +17,7 @@ from scipy.linalg import blas
 
 from .correlation import polychoric_matrix
 from .errors import InputError
-from .spectra import eigvalsh
+from .spectra import eigvalsh, inv, slogdet
 
 __all__ = [
     "KMOResult",
@@ -132,6 +132,12 @@ def _corr(R, names=None) -> np.ndarray:
     return (A + A.T) / 2
 
 
+def _det(A: np.ndarray) -> float:
+    """The determinant (``numpy.linalg.det``) from :func:`~server.stats.spectra.slogdet`."""
+    sign, logdet = slogdet(A)
+    return sign * float(np.exp(logdet)) if sign != 0 else 0.0
+
+
 def _inverse(R: np.ndarray, names=None) -> np.ndarray:
     """Inverse of a correlation matrix, or an InputError naming what makes it singular."""
     lam = eigvalsh(R)[0]
@@ -149,7 +155,7 @@ def _inverse(R: np.ndarray, names=None) -> np.ndarray:
                    "exact combination of others. Drop a redundant item.")
             details = {"smallest_eigenvalue": float(lam)}
         raise InputError(msg, code="singular_matrix", details=details)
-    return np.linalg.inv(R)
+    return inv(R)
 
 
 def smc(R: ArrayLike) -> np.ndarray:
@@ -234,7 +240,7 @@ def bartlett_sphericity(R: ArrayLike, n: int, *, names: Sequence[str] | None = N
     A = _corr(R)
     k = A.shape[0]
     n = _check_n(n, k)
-    sign, logdet = np.linalg.slogdet(A)
+    sign, logdet = slogdet(A)
     if sign <= 0 or not np.isfinite(logdet):
         _inverse(A, names)  # raises a message naming the cause
         raise InputError("The correlation matrix has a non-positive determinant.", code="singular_matrix")
@@ -777,5 +783,5 @@ def factorability_summary(R: ArrayLike, n: int, *, names: Sequence[str] | None =
         "kmo": round(k_res.kmo, 6),
         "msa": msa,
         "bartlett": {"chi2": round(chi2, 4), "df": df, "p": float(p)},
-        "determinant": float(np.linalg.det(A)),
+        "determinant": _det(A),
     }

@@ -49,7 +49,7 @@ from . import rotation as _rotation
 from .errors import InputError
 from .minres import minres_newton
 from .notes import Note, note
-from .spectra import eigvalsh
+from .spectra import eigvalsh, inv, slogdet
 
 __all__ = [
     "METHODS",
@@ -190,8 +190,7 @@ def _check_R(R, names: Sequence[str] | None) -> tuple[np.ndarray, list[str], lis
 def _smc(R: np.ndarray) -> np.ndarray:
     """Squared multiple correlations ``1 - 1/diag(R^-1)`` (pseudo-inverse if R is singular)."""
     try:
-        inv = np.linalg.inv(R)
-        d = np.diag(inv)
+        d = np.diag(inv(R))
         if not np.all(np.isfinite(d)) or np.any(d <= 0):
             raise np.linalg.LinAlgError
     except np.linalg.LinAlgError:
@@ -390,7 +389,7 @@ def extract(R: ArrayLike, n_factors: int, *, method: str = "minres", n: int | No
         fun: Callable[..., tuple[float, np.ndarray]]
         args: tuple[Any, ...]
         if method == "ml":
-            fun, args = _ml_fun, (R, m, float(np.linalg.slogdet(R)[1]))
+            fun, args = _ml_fun, (R, m, slogdet(R)[1])
         else:
             fun, args = _uls_fun, (R, m)
         start = np.clip(1.0 - _smc(R) if warm is None else warm, PSI_LOWER, 1.0)
@@ -487,7 +486,7 @@ def fit_indices(R: np.ndarray, loadings: np.ndarray, uniquenesses: np.ndarray, n
     out["p"] = float(stats.chi2.sf(chi2, df))
     out["rmsea"] = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n - 1))))
     out["rmsea_ci"] = rmsea_interval(chi2, df, n - 1)
-    s_r, ld_r = np.linalg.slogdet(R)
+    s_r, ld_r = slogdet(R)
     chi0 = (n - 1 - (2 * k + 5) / 6.0) * (-ld_r) if s_r > 0 else float("nan")
     df0 = k * (k - 1) / 2.0
     denom = chi0 / df0 - 1.0

@@ -21,6 +21,7 @@ from scipy import linalg, optimize, special
 from .errors import InputError
 from .minres import minres_newton
 from .notes import Note, note
+from .spectra import cholesky, inv
 
 __all__ = [
     "AlphaResult", "GuttmanLambdas", "OmegaResult", "OneFactorFit", "OrdinalAlphaResult",
@@ -310,14 +311,14 @@ class GuttmanLambdas:
 def _lambda6(S: np.ndarray, total: float) -> tuple[float | None, Note | None]:
     R, sd = _cov_to_corr(S)
     try:
-        chol = np.linalg.cholesky(R)
+        chol = cholesky(R)
     except np.linalg.LinAlgError:
         chol = None
     if chol is None or float(np.min(np.diag(chol))) ** 2 < 1e-10:
         return None, note("lambda6_singular", "The item covariance matrix is singular (an item is a linear "
                           "combination of others) or not positive definite, so Guttman's lambda6 is not reported.")
     # residual variance of each item regressed on all the others: 1 / (S^-1)_jj = s_j^2 / (R^-1)_jj
-    err = sd ** 2 / np.diag(np.linalg.inv(R))
+    err = sd ** 2 / np.diag(inv(R))
     return 1.0 - err.sum() / total, None
 
 
@@ -585,7 +586,7 @@ def _fit_bounded(R: np.ndarray, start: np.ndarray | None = None) -> tuple[np.nda
 
     if start is None:
         try:
-            smc = 1.0 - 1.0 / np.diag(np.linalg.inv(R))
+            smc = 1.0 - 1.0 / np.diag(inv(R))
         except np.linalg.LinAlgError:
             smc = np.full(k, 0.5)
         psi0 = 1.0 - smc
