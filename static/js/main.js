@@ -226,6 +226,7 @@ async function runRefit() {
   let applied = false;
   try {
     const answer = await api.analyse(dataset, body, undefined, startStage());
+    performance.mark("refit:answer"); // the answer read and parsed (the page's own share starts here)
     if (current() === key) {
       state.previous = state.analysis;
       state.analysis = answer;
@@ -247,14 +248,19 @@ async function runRefit() {
   if (!applied && current() !== key) { runRefit(); return; }
   state.pending = false;
   tick(); // stops the seconds
-  renderAll();
+  // The first answer of a dataset may come before its item list: the charts wait for the list (loadDataset draws
+  // them when it arrives) instead of being drawn twice, once without the item wording and constructs.
+  const deferred = metaLoading && !state.meta;
+  if (deferred) { renderSummary(); writeUrl(); } else renderAll();
+  performance.mark("refit:rendered");
   const ms = performance.now() - started;
   timings.lastRefitMs = ms;
   if (timings.clickAt) timings.lastClickToUpdateMs = performance.now() - timings.clickAt;
   timings.marks.push({ what: "refit", ms, at: Date.now() });
   if (timings.firstFitMs == null && state.analysis) timings.firstFitMs = performance.now(); // since navigation start
-  document.body.dataset.fitted = String(gen);
+  if (deferred) fittedLater = String(gen); else document.body.dataset.fitted = String(gen);
 }
+let fittedLater = null; // the mark of an answer drawn only once the item list came (loadDataset)
 
 // ---------------------------------------------------------------- actions
 function changed(action, detail, { push = false } = {}) {
@@ -375,13 +381,18 @@ async function refreshDatasets() {
   }
 }
 
+let metaLoading = false; // the open dataset's record (its item list) is on its way
+
 async function loadDataset() {
   state.meta = null;
+  metaLoading = true;
   if (!state.dropped.length) refit({ immediate: true }); // the whole pool: no need to wait for the item list
   try {
     state.meta = await api.getDataset(state.dataset);
     if (!state.meta.items && state.meta.meta) state.meta = { ...state.meta, ...state.meta.meta };
+    metaLoading = false;
   } catch (e) {
+    metaLoading = false;
     state.meta = null;
     state.dataset = null;
     state.view = "start";
@@ -393,6 +404,7 @@ async function loadDataset() {
   state.dropped = state.dropped.filter((n) => known.has(n));
   connectLive();
   renderAll();
+  if (fittedLater) { document.body.dataset.fitted = fittedLater; fittedLater = null; }
   if (!state.analysis || state.dropped.length) refit({ immediate: true });
 }
 

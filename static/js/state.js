@@ -151,7 +151,18 @@ export function keptItems() {
   const gone = new Set(state.dropped);
   return allItems().filter((n) => !gone.has(n));
 }
-export function itemMeta(name) { return state.meta ? state.meta.items.find((it) => it.name === name) : undefined; }
+// name -> item record of the open dataset, rebuilt when state.meta is replaced (a view asks per item, per render)
+const metaIndex = { of: null, byName: new Map() };
+export function itemMeta(name) {
+  if (!state.meta) return undefined;
+  if (metaIndex.of !== state.meta || metaIndex.items !== state.meta.items) {
+    metaIndex.byName = new Map();
+    for (const it of state.meta.items || []) if (!metaIndex.byName.has(it.name)) metaIndex.byName.set(it.name, it);
+    metaIndex.of = state.meta;
+    metaIndex.items = state.meta.items;
+  }
+  return metaIndex.byName.get(name);
+}
 
 /** The chosen subscale's block of the analysis (null for the whole pool or when the group is gone). */
 export function subscaleBlock(analysis = state.analysis) {

@@ -79,3 +79,30 @@ def test_the_demo_heatmap_prints_its_values_and_fits_its_labels(page, server, de
     assert page.evaluate(LABELS_INSIDE)
     assert "colour only" not in page.inner_text("#view")
     assert page.errors == []
+
+
+# The cells' image, its lines and the colour key (issue 14, second round): plotly paints one pixel per cell (no
+# xgap/ygap, which made it paint and PNG-encode a canvas the size of the plot on every redraw); one path shape
+# draws the lines between the cells; the colour key is the page's HTML, not a plotly colour bar redrawn each time.
+CELLS = ("async () => { const el = document.getElementById('heatmap'); const t = el.data[0];"
+         " const img = el.querySelector('.hm image'); const probe = new Image();"
+         " probe.src = img.getAttribute('href') || img.getAttribute('xlink:href'); await probe.decode();"
+         " return {gaps: [t.xgap || 0, t.ygap || 0], scale: t.showscale, rows: t.y.length, cols: t.x.length,"
+         " shapes: el.layout.shapes.filter((s) => s.name === 'cell-gaps').map((s) => s.path),"
+         " bar: el.querySelectorAll('.colorbar').length, render: img.style.imageRendering,"
+         " decoded: [probe.naturalWidth, probe.naturalHeight]}; }")
+
+
+def test_the_heatmap_paints_a_pixel_per_cell_with_its_lines_and_an_html_colour_key(page, server, demo):
+    open_dataset(page, server, demo["id"], view="loadings")
+    _rendered(page)
+    c = page.evaluate(CELLS)
+    assert c["gaps"] == [0, 0] and c["scale"] is False and c["bar"] == 0
+    assert c["render"] == "pixelated"
+    assert c["decoded"] == [c["cols"], c["rows"]]  # the image holds one pixel per cell, scaled up by the browser
+    assert len(c["shapes"]) == 1  # one path: a line between each pair of rows and of columns
+    assert c["shapes"][0].count("M") == (c["rows"] - 1) + (c["cols"] - 1)
+    key = page.locator("#heat-key")
+    assert key.get_attribute("role") == "img" and "−1" in key.get_attribute("aria-label")
+    assert key.inner_text().split() == ["loading", "−1", "−.5", "0", ".5", "1"]
+    assert page.errors == []

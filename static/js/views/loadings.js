@@ -1,5 +1,5 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
-import { cellsPrinted, factorCorrelations, loadingsHeatmap, markHeatRow, purge } from "../charts.js";
+import { cellsPrinted, factorCorrelations, heatKey, loadingsHeatmap, markHeatRow, purge, purgeWithin } from "../charts.js";
 import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
 import { actions, allItems, itemMeta, loadingCutoff } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
@@ -32,15 +32,22 @@ function degenerateBox(w) {
 export function render(container, state) {
   // The drawn heatmap and factor-correlation chart are kept across re-renders (a refit): Plotly.react then
   // updates them in place instead of drawing new charts from nothing.
-  const kept = {};
+  // The drawn heatmap also stays where it is in the page (its panel, grid and keyboard box are reused, the rest
+  // is replaced around them): a chart taken out and put back is styled and laid out again from nothing (30-80 ms
+  // more per redraw at 250 items), and the keyboard focus on the box stays put.
+  const drawn = container.querySelector(":scope > section.panel > .heat-layout > #heat-keys > #heatmap.js-plotly-plot");
+  const place = drawn ? { heat: drawn, keys: drawn.parentElement, layout: drawn.parentElement.parentElement,
+    panel: drawn.parentElement.parentElement.parentElement } : null;
+  const kept = place ? { heatmap: drawn } : {};
   for (const id of ["heatmap", "phi"]) {
     const el = container.querySelector(`#${id}.js-plotly-plot`);
-    if (el) { el.remove(); kept[id] = el; }
+    if (el && !kept[id]) { el.remove(); kept[id] = el; }
   }
-  clear(container);
+  if (!place) clear(container);
   const efa = state.analysis?.efa;
   const degenerate = findWarning(state.analysis, "rotation_degenerate");
   if (!efa || !efa.loadings || !Object.keys(efa.loadings).length) {
+    clear(container);
     const others = (efa?.warnings || []).filter((w) => w?.code !== "rotation_degenerate");
     container.append(section("Loadings", degenerate ? degenerateBox(degenerate) : null,
       others.length || !degenerate ? note(others.map(warningText).join(" ") || "No factor solution yet.") : null));
@@ -101,7 +108,8 @@ export function render(container, state) {
       r ? h("span", { class: "muted", text: ` · ${factors.map((x, j) => `${x} ${fmt(r.values[j], 2)}`).join(", ")}` }) : null,
       f.length ? h("span", { class: "muted", text: ` · ${f.map((x) => x.message).join(" ")}` }) : null, " ",
       h("button", { class: "primary", id: "pick-drop", text: `Drop ${name}`, onclick: () => {
-        clear(pickBar); document.getElementById("heat-keys")?.focus({ preventScroll: true }); actions.toggle(name);
+        // the analysis request leaves first; the focus (a style and layout pass) follows
+        clear(pickBar); actions.toggle(name); document.getElementById("heat-keys")?.focus({ preventScroll: true });
       } }),
       " ", h("button", { id: "pick-close", text: "Close", onclick: () => { clear(pickBar); document.getElementById("heat-keys")?.focus({ preventScroll: true }); } }),
     ].filter(Boolean));
@@ -111,10 +119,11 @@ export function render(container, state) {
     rowLine.textContent = readOut(name);
     markHeatRow(heat, names.indexOf(name));
   };
-  const keys = h("div", { class: "heat-keys", id: "heat-keys", tabindex: 0, role: "group",
+  const keys = place ? place.keys : h("div", { class: "heat-keys", id: "heat-keys", tabindex: 0, role: "group",
     "aria-label": "Loadings heatmap. Up and down arrows select a row, Enter opens it (with its Drop button), Escape closes it.",
     "aria-describedby": "heat-row" }, heat);
-  keys.addEventListener("keydown", (e) => {
+  if (keys._onKeys) keys.removeEventListener("keydown", keys._onKeys); // a reused box: this render's rows
+  keys._onKeys = (e) => {
     if (e.target !== keys) return;
     if (e.key === "ArrowDown" || e.key === "ArrowUp") {
       e.preventDefault();
@@ -127,7 +136,8 @@ export function render(container, state) {
       showPick(state.heat.row);
       document.getElementById("pick-drop")?.focus({ preventScroll: true });
     } else if (e.key === "Escape") clear(pickBar);
-  });
+  };
+  keys.addEventListener("keydown", keys._onKeys);
   const cutOption = (state.options?.display || []).find((o) => o.name === "loading_cutoff");
   const cutInput = h("input", { type: "number", id: "loading-cutoff", step: "0.05", min: cutOption?.min ?? 0, max: cutOption?.max ?? 1,
     value: String(cut), title: cutOption?.help || null,
@@ -147,7 +157,7 @@ export function render(container, state) {
   const drawPhi = Boolean(efa.factor_correlations && efa.factor_correlations.length > 1);
   if (kept.phi && !drawPhi) purge(kept.phi);
   const phi = (drawPhi && kept.phi) || h("div", { class: "chart small", id: "phi" });
-  const side = h("div", { class: "side" }, phi);
+  const side = h("div", { class: "side" }, heatKey(h), phi);
   if (efa.communalities) {
     const comm = asMatrix(efa.communalities, items);
     side.append(h("p", { class: "muted", text: "Lowest communalities (the share of an item's variance the factors explain):" }));
@@ -161,26 +171,35 @@ export function render(container, state) {
     fit.rmsr != null ? `RMSR ${fmt(fit.rmsr, 3)}` : null, fit.rmsea != null ? `RMSEA ${fmt(fit.rmsea, 3)}` : null,
     fit.tli != null ? `TLI ${fmt(fit.tli, 3)}` : null, efa.converged === false ? "did not converge" : null].filter(Boolean).join(" · ");
 
-  container.append(section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
+  const layout = h("div", { class: "heat-layout" }, place ? null : keys, side);
+  const panel = section(`Loadings: ${efa.n_factors} factor${efa.n_factors === 1 ? "" : "s"}`,
     h("div", { class: "toolbar heat-options" }, toggle,
       h("label", { for: "loading-cutoff" }, `${cutOption?.label || "Hide loadings below"} `), cutInput,
       orderToggle, h("span", { class: "muted", text: fitText })),
     degenerate ? degenerateBox(degenerate) : null,
     h("p", { class: "muted", text: `${state.heat.poolOrder ? "Items in pool order, a rule between codebook constructs" : "Items are grouped by the factor they load on most"}; beside each item its codebook construct, ≠ when it loads most on another factor; ⚑ marks a flagged item (hover for why). ${cellsPrinted(rows.length, factors.length) ? `Loadings smaller than ${fmt(cut, 2)} are left blank (the hover still gives them).` : "With this many items the cells carry colour only: point at a row (or use ↑/↓) for its values."} Blue is negative, orange positive. Click a row to drop that item.` }),
-    pickBar, rowLine,
-    h("div", { class: "heat-layout" }, keys, side),
-    warningList(efa.warnings, "About this solution")));
+    pickBar, rowLine, layout,
+    warningList(efa.warnings, "About this solution"));
+  if (!place) container.append(panel);
+  else { // the new panel's parts go around the drawn grid; the new side column beside the drawn heatmap's box
+    for (const node of [...container.childNodes]) if (node !== place.panel) { purgeWithin(node); node.remove(); }
+    for (const node of [...place.panel.childNodes]) if (node !== place.layout) { purgeWithin(node); node.remove(); }
+    for (const node of [...place.layout.childNodes]) if (node !== place.keys) { purgeWithin(node); node.remove(); }
+    const parts = [...panel.childNodes];
+    const at = parts.indexOf(layout);
+    place.layout.before(...parts.slice(0, at));
+    place.layout.after(...parts.slice(at + 1));
+    place.layout.append(side);
+  }
   loadingsHeatmap(heat, { rows, factors, groups: state.heat.poolOrder ? rows.map((r) => r.construct) : order.map((r) => r.primary),
     onPick: (name) => { selectRow(name); showPick(name); }, onHover: (name) => { rowLine.textContent = readOut(name); },
     selected: state.heat.row ? names.indexOf(state.heat.row) : null,
     title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
-  if (drawPhi && kept.phi) {
-    // a refit: the heatmap first; the small chart beside it follows in the next task, after the heatmap is painted
+  if (drawPhi) {
+    // the heatmap first; the small chart beside it follows after the frame that paints the heatmap
     const matrix = efa.factor_correlations;
-    setTimeout(() => { if (phi.isConnected) factorCorrelations(phi, { factors, matrix }); }, 0);
-  } else if (drawPhi) {
-    factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
+    requestAnimationFrame(() => setTimeout(() => { if (phi.isConnected) factorCorrelations(phi, { factors, matrix }); }, 0));
   } else {
     phi.append(note(efa.n_factors > 1 ? "Orthogonal rotation: the factors are uncorrelated by construction." : "One factor: no factor correlations."));
   }
