@@ -110,7 +110,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             return JSONResponse(error_body(code, message, details), status_code=status,
                                 headers={"X-Content-Type-Options": "nosniff", "Cache-Control": "no-store"})
         try:
-            gate = await authenticate(request)  # a team server's signed-in person (server/auth.py), or 401
+            # a team server's signed-in person (server/auth.py), or 401; the page's files need to know whether
+            # people are defined only when a meeting token may be asked for
+            gate = await authenticate(request, pages_too=bool(settings.token))
         except StorageError as exc:  # the database cannot be read (read-only disk, server gone): 503, as a route's
             return JSONResponse(error_body(exc.code, exc.message, exc.details), status_code=exc.status,
                                 headers={"Cache-Control": "no-store"})

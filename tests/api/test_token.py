@@ -57,3 +57,23 @@ def test_on_localhost_no_token_is_needed(make_settings):
     with local_client(create_app(s)) as c:
         assert c.get("/api/health").status_code == 200
         assert c.get("/").status_code == 200
+
+
+def test_the_pages_files_are_served_without_looking_anybody_up(make_settings, monkeypatch):
+    """Laptop mode without a meeting token: the page's files need no people lookup (one query each before);
+    the API still asks, and a shared server (meeting token) asks for every path."""
+    from server import people
+
+    asked = []
+    real = people.people_defined
+    monkeypatch.setattr(people, "people_defined", lambda store: asked.append(1) or real(store))
+    with local_client(create_app(make_settings())) as c:
+        for path in ("/", "/static/js/main.js", "/vendor/plotly.min.js"):
+            assert c.get(path).status_code == 200
+        assert asked == []
+        assert c.get("/api/health").status_code == 200
+        assert asked == [1]
+    with local_client(create_app(make_settings(host="0.0.0.0", token="t"))) as c:
+        asked.clear()
+        assert c.get("/static/js/main.js", headers={"X-Scalewright-Token": "t"}).status_code == 200
+        assert asked == [1]
