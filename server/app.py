@@ -155,7 +155,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @app.get("/api/health", response_model=HealthOut)
     def health():
-        return {"status": "ok", "version": __version__}
+        return {"status": "ok", "version": __version__, "preparing": app.state.engine.preparing()}
 
     @app.get("/vendor/plotly.min.js", include_in_schema=False)
     def plotly_js(request: Request):

@@ -422,6 +422,12 @@ class Engine:
                 self._prefetch_job.cancel()  # a no-op once it runs
             self._prefetch_job = self._prefetch.submit(random_reference, n, k, **args)
 
+    def preparing(self) -> bool:
+        """Whether the background threshold job of the likely next drop is queued or running."""
+        with self._lock:
+            job = self._prefetch_job
+        return job is not None and not job.done()
+
     def prefetch_idle(self, timeout: float | None = None) -> None:
         """Wait until the background threshold job, if any, has finished (for tests and the bench)."""
         with self._lock:

@@ -22,8 +22,10 @@ def _engine(tmp_path, holzinger):
 def test_thresholds_of_one_item_fewer_are_drawn_after_an_answer(tmp_path, holzinger):
     engine, ds, _ = _engine(tmp_path, holzinger)
     s = engine.settings(ds, {"seed": 4242})
+    assert not engine.preparing()
     answer = engine.analyse(ds, s)
     engine.prefetch_idle(60)
+    assert not engine.preparing()  # what /api/health reports as "preparing"
     n, k = answer.reliability.min_pairwise_n, len(s.items) - 1
     assert dim.has_random_reference(n, k, iterations=s.pa_iterations, variant=s.pa_variant, seed=4242)
     drop = engine.analyse(ds, {"seed": 4242, "items": list(s.items[:-1])})
@@ -47,3 +49,18 @@ def test_first_drop_reuses_the_full_pool_solution(tmp_path, holzinger, monkeypat
     a, b = kept["efa"].result, refit["efa"].result
     np.testing.assert_array_equal(a.pattern, b.pattern)
     assert a.factors == b.factors
+
+
+def test_preparing_while_the_next_thresholds_are_drawn(tmp_path, holzinger, monkeypatch):
+    import threading
+
+    engine, ds, _ = _engine(tmp_path, holzinger)
+    release = threading.Event()
+    real = dim.random_reference
+    monkeypatch.setattr("server.engine.random_reference", lambda *a, **kw: release.wait(60) and real(*a, **kw))
+    monkeypatch.setattr("server.engine.has_random_reference", lambda *a, **kw: False)  # drawn in another test
+    engine.analyse(ds, {"seed": 99})
+    assert engine.preparing()  # the job for one item fewer is waiting on the event
+    release.set()
+    engine.prefetch_idle(60)
+    assert not engine.preparing()

@@ -57,3 +57,6 @@ class HealthOut(BaseModel):
 
     status: str = Field(description="'ok' while the server answers.")
     version: str = Field(description="Scalewright's version.")
+    preparing: bool = Field(False, description="Whether the server is drawing, in the background, the parallel-"
+                            "analysis thresholds of the likely next drop (one item fewer); a drop asked for "
+                            "now waits for them.")
