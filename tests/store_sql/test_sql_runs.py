@@ -95,4 +95,5 @@ def test_another_workspaces_run_is_404(services):
             a.get(run.run_id)
     finally:
         ACTING.reset(token)
-    assert b.get(run.run_id).state == "done"
+    # A's own view says done as it writes its end; the other process reads it once written
+    assert _wait(b, run.run_id, timeout=30).state == "done"
