@@ -28,6 +28,7 @@ One analysis goes down the layers only: :meth:`Engine.analyse` gathers the cache
 from __future__ import annotations
 
 import concurrent.futures
+import gc
 import itertools
 import logging
 import os
@@ -151,10 +152,25 @@ class _LRU(OrderedDict):
         return value
 
 
+# Python's cyclic collector, tuned for a process that answers analyses: an analysis allocates tens of thousands
+# of small objects, nearly all freed by reference counting, and the caches keep hundreds of thousands alive. With
+# the default thresholds (700, 10, 10) a 60-item drop met about 40 young collections and now and then a full one
+# of 80-95 ms (measured: 9 drops, 270 ms of collection in all, one drop at 160 ms instead of 70); with these, a
+# few young collections of at most about 27 ms over the same drops (105-120 ms in all), no full one.
+GC_THRESHOLDS = (50_000, 20, 100)
+
+
+def tune_gc() -> None:
+    """Raise the collector's thresholds to :data:`GC_THRESHOLDS` (never lower them)."""
+    now = gc.get_threshold()
+    gc.set_threshold(*(max(a, b) for a, b in zip(now, GC_THRESHOLDS)))
+
+
 class Engine:
     """Loads datasets from the store, caches full-pool work and answers analyses (``server.analysis.run``)."""
 
     def __init__(self, store, *, cache_bytes: int = DEFAULT_CACHE_BYTES):
+        tune_gc()  # this process computes analyses
         self.store = store
         self._lock = threading.RLock()
         # Analyses computing at once: one per core. Twenty requests in twenty threads would share the cores

@@ -133,3 +133,21 @@ def test_create_app_gives_the_engine_cache_mb(tmp_path):
     usage = app.state.engine.cache_usage()
     assert usage["datasets"]["max_bytes"] == 3 * MB
     assert usage["pools"]["max_bytes"] == usage["answers"]["max_bytes"] == 3 * MB // 4
+
+
+def test_an_engine_raises_the_collectors_thresholds_and_never_lowers_them(tmp_path, monkeypatch):
+    import gc
+
+    from server.engine import GC_THRESHOLDS
+    from server.store import SQLiteStore
+
+    before = gc.get_threshold()
+    try:
+        gc.set_threshold(700, 10, 10)  # Python's defaults
+        Engine(SQLiteStore(tmp_path / "a"))
+        assert gc.get_threshold() == GC_THRESHOLDS
+        gc.set_threshold(GC_THRESHOLDS[0] * 2, 10, 10)  # an application's own higher young threshold stays
+        Engine(SQLiteStore(tmp_path / "b"))
+        assert gc.get_threshold() == (GC_THRESHOLDS[0] * 2, *GC_THRESHOLDS[1:])
+    finally:
+        gc.set_threshold(*before)
