@@ -108,3 +108,30 @@ def test_no_offer_to_follow_ones_own_change_from_another_tab(page, server, brows
         assert "1 item dropped" in other.inner_text("#follow")
     finally:
         other.context.close()
+
+
+@pytest.mark.parametrize("slow_view, url", [("snapshots", "**/snapshots"), ("workspace", "**/api/audit*")])
+def test_a_view_whose_list_arrives_late_does_not_overwrite_the_view_moved_to(page, server, demo, slow_view, url):
+    """The snapshots and workspace views fetch their list before they draw. Seen in CI: a user who moved to the
+    item board while the snapshot list was still on its way got the snapshots drawn over the board, and the board
+    never came back. Here the list is held until the board is drawn."""
+    open_dataset(page, server, demo["id"], view="board")
+    held = []
+    page.route(url, lambda route: held.append(route) if route.request.method == "GET" else route.continue_())
+    page.click(f"#tab-{slow_view}")
+    wait_js(page, "(n) => window.scalewright.state.view === n", slow_view)
+    for _ in range(200):  # the request is on its way
+        if held:
+            break
+        page.wait_for_timeout(25)
+    assert held, f"the {slow_view} view asked for nothing"
+    page.click("#tab-board")
+    page.wait_for_selector("#item-board")
+    with page.expect_response(lambda r: r.request.method == "GET" and r.url == held[0].request.url):
+        for route in held:
+            route.continue_()
+    page.unroute(url)
+    page.wait_for_timeout(300)  # the held answer has been read
+    assert js_state(page, "s.view") == "board"
+    assert page.locator("#item-board").is_visible()
+    assert page.errors == []

@@ -150,9 +150,14 @@ function coef(s, key) {
 }
 
 export async function render(container, state) {
+  // The list arrives later: a user who has moved to another view by then keeps it (the container is shared).
+  if (state.view !== "snapshots") return;
   clear(container);
   container.append(section("Snapshots", note("Loading…")));
-  try { await load(state); } catch (e) { clear(container).append(section("Snapshots", note(e.message, "error"))); return; }
+  let failed = null;
+  try { await load(state); } catch (e) { failed = e; }
+  if (state.view !== "snapshots") return;
+  if (failed) { clear(container).append(section("Snapshots", note(failed.message, "error"))); return; }
   clear(container);
   const { list: snapshots, compareWith, comparison, message } = state.snapshots;
   const rows = snapshots.map((s) => {

@@ -57,6 +57,7 @@ function importForm(container, state) {
 }
 
 export async function render(container, state) {
+  if (state.view !== "workspace") return; // as in the snapshots view: the container is shared by every view
   const page = state.workspace;
   const { onlyThis, message } = page;
   let log;
@@ -65,6 +66,7 @@ export async function render(container, state) {
   } catch (e) {
     log = { error: e.message };
   }
+  if (state.view !== "workspace") return;
   clear(container);
   container.append(section("Back up and move this workspace",
     note("One zip holds the database, every uploaded file byte for byte and a manifest with their SHA-256 hashes. "
