@@ -104,7 +104,9 @@ def test_a_drop_through_one_process_reaches_a_stream_on_the_other(two_servers):
     thread.join(10)
     assert events, "the change posted to process A never reached the stream on process B"
     at, change = events[0]
-    assert at - sent < 1.0
+    # LISTEN/NOTIFY: milliseconds on a quiet machine; 1.5 s was seen on a two-core machine running other jobs.
+    # What this guards against is a change that waits for a reconnect or a poll (10 s and more).
+    assert at - sent < 5.0
     assert change["who"] == "Ana" and change["action"] == "drop" and change["state"] == state
     assert change["dataset"] == dataset_id
 
