@@ -7,7 +7,7 @@ active, so dropping an item never recomputes them.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -112,10 +112,15 @@ class ItemDescriptives:
     counts: dict | None = field(default=None, compare=False)
 
     def to_dict(self) -> dict:
-        out = asdict(self)
+        # field by field, as dataclasses.asdict orders them; asdict's deep copy of every value (and of the counts,
+        # replaced here anyway) was 80 % of writing a 250-item answer as JSON (35 of 46 ms)
+        out = {name: getattr(self, name) for name in _DESCRIPTIVE_FIELDS}
         if self.counts is not None:
             out["counts"] = {_category_label(c): int(v) for c, v in self.counts.items()}
         return out
+
+
+_DESCRIPTIVE_FIELDS = tuple(f.name for f in fields(ItemDescriptives))
 
 
 def _category_label(value) -> str:

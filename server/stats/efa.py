@@ -575,14 +575,19 @@ class EFAResult:
         """The JSON of issue 3's ``efa`` section (plain floats, lists and dicts)."""
         def f(x):
             return None if x is None or not np.isfinite(x) else float(x)
+
+        def rows(A) -> list:  # plain floats, None where not finite (tolist gives the same floats, at C speed)
+            A = np.asarray(A, dtype=float)
+            return A.tolist() if np.isfinite(A).all() else [[f(v) for v in row] for row in A]
+
         return {
             "n_factors": self.n_factors,
             "factors": list(self.factors),
-            "loadings": {n: [f(v) for v in row] for n, row in zip(self.names, self.pattern)},
-            "structure": {n: [f(v) for v in row] for n, row in zip(self.names, self.structure)},
-            "factor_correlations": [[f(v) for v in row] for row in self.phi],
-            "communalities": {n: f(v) for n, v in zip(self.names, self.communalities)},
-            "uniquenesses": {n: f(v) for n, v in zip(self.names, self.uniquenesses)},
+            "loadings": dict(zip(self.names, rows(self.pattern))),
+            "structure": dict(zip(self.names, rows(self.structure))),
+            "factor_correlations": rows(self.phi),
+            "communalities": dict(zip(self.names, rows(np.reshape(self.communalities, (1, -1)))[0])),
+            "uniquenesses": dict(zip(self.names, rows(np.reshape(self.uniquenesses, (1, -1)))[0])),
             "variance": {key: ([f(v) for v in val] if isinstance(val, list) else val)
                          for key, val in self.variance.items()},
             "fit": {key: (f(v) if isinstance(v, float) else v) for key, v in self.fit.items()},

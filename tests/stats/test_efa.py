@@ -332,3 +332,21 @@ def test_non_convergence_is_a_warning(hs_R):
     assert any(w.code == "not_converged" and "without converging" in w.message for w in ex.warnings)
     paf = efa.extract(hs_R, 3, method="paf", max_iter=2)
     assert not paf.converged and any("did not converge in 2 iterations" in w.message for w in paf.warnings)
+
+
+def test_to_dict_writes_plain_floats_and_null_for_a_value_that_is_not_finite():
+    """The efa section's matrices as Python floats (numpy's tolist, the same doubles), None where not finite."""
+    import dataclasses
+
+    R, names, _constructs, _, _ = simulate(n=800)
+    res = efa.factor_analysis(R, 2, n=800, names=names, method="minres", rotation="oblimin")
+    d = res.to_dict()
+    assert d["loadings"][names[3]] == [float(v) for v in res.pattern[3]]
+    assert all(type(v) is float for row in d["factor_correlations"] for v in row)
+    assert d["communalities"] == {n: float(v) for n, v in zip(names, res.communalities)}
+    bad = res.pattern.copy()
+    bad[2, 1] = np.nan
+    broken = dataclasses.replace(res, pattern=bad).to_dict()
+    assert broken["loadings"][names[2]] == [float(bad[2, 0]), None]
+    assert broken["loadings"][names[0]] == [float(v) for v in bad[0]]
+    assert json.loads(json.dumps(broken, allow_nan=False))["loadings"][names[2]][1] is None
