@@ -1,4 +1,5 @@
-// Every plotly call of the dashboard. plotly.min.js is served by our own server (/vendor/plotly.min.js).
+// Every chart of the dashboard: plotly's (plotly.min.js, served by our own server at /vendor/plotly.min.js and
+// loaded on first need) and the page's own SVG (the loadings heatmap and the factor correlations).
 /* global Plotly */
 
 export const INK = "#1d2a33";
@@ -42,14 +43,24 @@ function base(extra = {}) {
   };
 }
 
-// plotly.min.js loads with `async` so the first analysis is requested while it is still being parsed.
-const plotlyReady = window.Plotly ? Promise.resolve(true) : new Promise((resolve) => {
-  const tag = document.querySelector('script[src$="plotly.min.js"]');
-  if (!tag) { resolve(false); return; }
-  tag.addEventListener("load", () => resolve(true));
-  tag.addEventListener("error", () => resolve(false));
-  setTimeout(() => resolve(Boolean(window.Plotly)), 15000);
-});
+// plotly.min.js (1.5 MB of script to run) is loaded by the first chart that needs it, not with the page: the
+// loadings heatmap and the factor correlations, the first charts most people see, are the page's own SVG.
+let plotlyLoading = null;
+/** Inserts plotly's script tag (once); resolves true when window.Plotly is defined, false if it did not load. */
+export function loadPlotly() {
+  if (window.Plotly) return Promise.resolve(true);
+  if (!plotlyLoading) {
+    plotlyLoading = new Promise((resolve) => {
+      const tag = document.createElement("script");
+      tag.src = "/vendor/plotly.min.js";
+      tag.addEventListener("load", () => resolve(Boolean(window.Plotly)));
+      // a failed load leaves no tag behind, so the next chart asks again
+      tag.addEventListener("error", () => { tag.remove(); plotlyLoading = null; resolve(false); });
+      document.head.append(tag);
+    });
+  }
+  return plotlyLoading;
+}
 
 // Axis titles and tick labels get the room they need (they overlapped at projector size).
 function withRoom(layout) {
@@ -64,16 +75,23 @@ function withRoom(layout) {
 }
 
 async function draw(el, traces, layout) {
-  if (!window.Plotly && !(await plotlyReady)) { el.textContent = "The chart library did not load."; return; }
+  if (!(await loadPlotly())) { el.textContent = "The chart library did not load."; return; }
   if (!el.isConnected) return;
   await Plotly.react(el, traces, withRoom(layout), config);
 }
 
-export function purge(el) { if (window.Plotly && el) Plotly.purge(el); }
+export function purge(el) {
+  if (!el) return;
+  if (el._heat) heatResize?.unobserve(el);
+  if (window.Plotly) Plotly.purge(el);
+}
 
-// Release the charts inside an element before it is emptied (plotly keeps resize handlers per chart).
+// Release the charts inside an element before it is emptied (plotly keeps resize handlers per chart; the
+// heatmap is watched for its width).
 export function purgeWithin(el) {
-  if (!window.Plotly || !el || !el.querySelectorAll) return;
+  if (!el || !el.querySelectorAll) return;
+  if (heatResize) for (const g of el.querySelectorAll(".heat-chart")) heatResize.unobserve(g);
+  if (!window.Plotly) return;
   for (const g of el.querySelectorAll(".js-plotly-plot")) Plotly.purge(g);
 }
 
@@ -100,65 +118,253 @@ function labelWidth(labels, size) {
 }
 
 // Above this many cells the loadings heatmap prints no value in its cells (the hover and the row read-out
-// still give every value): plotly draws and measures each cell's text, 0.4 s for 250 items x 3 factors.
+// still give every value): a printed value is one more text node per cell to lay out, and unreadable that small.
 export const MAX_PRINTED_CELLS = 400;
 export const cellsPrinted = (nRows, nFactors) => nRows * nFactors <= MAX_PRINTED_CELLS;
 
-// rows: [{name, label?, text, values, cells?, flagged, flagText}]: `label` is the y tick (name and construct),
-// `cells` the text shown in each cell ("" hides a small loading; the hover always gives the full value).
-// onPick(name) on a click, onHover(name) when the pointer is over a row.
-export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick, onHover, selected = null }) {
-  const y = rows.map((r) => esc(`${r.flagged ? "⚑ " : ""}${r.label ?? r.name}`));
-  const z = rows.map((r) => r.values);
-  const custom = rows.map((r) => factors.map(() => [wrapText(r.text), wrapText(r.flagText)]));
-  const hasCells = rows.every((r) => Array.isArray(r.cells));
-  const printed = cellsPrinted(rows.length, factors.length);
-  const trace = {
-    type: "heatmap", x: factors.map(esc), y, z, customdata: custom, zmin: -1, zmax: 1, zmid: 0,
-    // No xgap/ygap: with gaps plotly paints a canvas the size of the whole plot, cell by cell, and encodes it
-    // as a PNG on every draw (about 25 ms a redraw at 60 items on the test VM, more with more rows); without, it
-    // paints one pixel per cell and scales the image up (image-rendering: pixelated). The white lines between
-    // the cells are one path shape (gridLines).
-    colorscale: DIVERGING,
-    ...(!printed ? {} : hasCells ? { text: rows.map((r) => r.cells), texttemplate: "%{text}" } : { texttemplate: "%{z:.2f}" }),
-    textfont: { size: fontSize() - 1 },
-    hovertemplate: "<b>%{y}</b> on %{x}: %{z:.3f}<br>%{customdata[0]}<br><i>%{customdata[1]}</i><extra></extra>",
-    // The colour key is the page's own (heatKey, drawn once): plotly would redraw its colour bar on every refit.
-    showscale: false,
-  };
-  const rowPx = document.body.classList.contains("projector") ? 30 : 22;
-  const longest = Math.max(4, ...y.map((s) => s.length));
-  // The y labels' room is measured here (a canvas measures a string without a layout pass): plotly's own
-  // automargin measures every tick label and then draws the whole chart a second time (1 s at 250 items).
-  const left = Math.max(16 + longest * fontSize() * 0.62,
-    labelWidth(rows.map((r) => `${r.flagged ? "⚑ " : ""}${r.label ?? r.name}`), fontSize()) + 14);
-  // a rule between the groups of items that share a primary factor (or a construct, in pool order)
-  const shapes = [];
-  for (let i = 1; i < groups.length; i += 1) {
-    if (groups[i] !== groups[i - 1]) shapes.push({ type: "line", xref: "paper", x0: -0.02, x1: 1, y0: i - 0.5, y1: i - 0.5, line: { color: INK, width: 2 } });
+// ---------------------------------------------------------------- the page's own SVG charts (no plotly)
+const SVG_NS = "http://www.w3.org/2000/svg";
+
+function svgNode(tag, attrs, parent) {
+  const node = document.createElementNS(SVG_NS, tag);
+  for (const [k, v] of Object.entries(attrs || {})) node.setAttribute(k, v);
+  if (parent) parent.append(node);
+  return node;
+}
+
+// An attribute or text is written only when it changed (the value last written is kept on the node, so a
+// refit reads nothing back from the page and leaves unchanged nodes alone).
+function setAttr(node, name, value) {
+  const v = String(value);
+  const seen = node._seen || (node._seen = {});
+  if (seen[name] !== v) { seen[name] = v; node.setAttribute(name, v); }
+}
+function setText(node, text) {
+  if (node._text !== text) { node._text = text; node.textContent = text; }
+}
+const px = (v) => Math.round(v * 100) / 100;
+
+// `list` grown (make()) or shrunk (its last nodes removed) to n nodes.
+function pool(list, n, make) {
+  while (list.length < n) list.push(make());
+  while (list.length > n) list.pop().remove();
+  return list;
+}
+
+const STOPS = DIVERGING.map(([at, hex]) => [at, [1, 3, 5].map((i) => parseInt(hex.slice(i, i + 2), 16))]);
+/** The DIVERGING colour of v on [-1, 1] (clamped; centred on 0; linear in RGB between the stops) as [r, g, b]. */
+export function divergingRgb(v) {
+  const t = Math.min(1, Math.max(0, (v + 1) / 2));
+  let k = 1;
+  while (k < STOPS.length - 1 && t > STOPS[k][0]) k += 1;
+  const [a, from] = STOPS[k - 1];
+  const [b, to] = STOPS[k];
+  const f = b > a ? (t - a) / (b - a) : 0;
+  return from.map((c, i) => Math.round(c + (to[i] - c) * f));
+}
+const rgbText = (rgb) => `rgb(${rgb[0]}, ${rgb[1]}, ${rgb[2]})`;
+
+// WCAG relative luminance; a cell's value is printed in ink or in white, whichever contrasts more.
+function luminance(rgb) {
+  const [r, g, b] = rgb.map((c) => { const s = c / 255; return s <= 0.03928 ? s / 12.92 : ((s + 0.055) / 1.055) ** 2.4; });
+  return 0.2126 * r + 0.7152 * g + 0.0722 * b;
+}
+const INK_LUMINANCE = luminance([0x1d, 0x2a, 0x33]);
+function textOn(rgb) {
+  const l = luminance(rgb);
+  return 1.05 / (l + 0.05) > (l + 0.05) / (INK_LUMINANCE + 0.05) ? "#ffffff" : INK;
+}
+
+// The heatmaps follow their box's width (the page's column; a window resize or the projector switch).
+const heatResize = typeof ResizeObserver === "function" ? new ResizeObserver((entries) => {
+  for (const { target } of entries) {
+    if (target._heat && target.isConnected && target.clientWidth && target.clientWidth !== target._heat.geo?.width) paintHeat(target);
   }
-  el._scalewrightBackdrop = el._scalewrightBackdrop || backdrop(el); // read once per chart (a style pass)
-  shapes.unshift(gridLines(rows.length, factors.length, el._scalewrightBackdrop));
-  el._scalewrightShapes = shapes;
-  const layout = base({
-    title: { text: title, x: 0, y: 0.995, yanchor: "top", font: { size: fontSize() + 2 } },
-    height: Math.max(260, rows.length * rowPx + 110), shapes: [...shapes, ...rowMark(selected)],
-    margin: { l: left, r: 20, t: 70, b: 20 },
-    xaxis: { side: "top", tickfont: { size: fontSize() } },
-    yaxis: { autorange: "reversed", tickfont: { size: fontSize() }, automargin: false },
-  });
-  return draw(el, [trace], layout).then(() => {
-    if (!window.Plotly) return;
-    const nameAt = (pt) => rows[pt.pointIndex?.[0] ?? pt.pointNumber?.[0] ?? 0]?.name;
-    onPoint(el, onPick && ((pt) => onPick(nameAt(pt))));
-    if (onHover && typeof el.on === "function") {
-      el._scalewrightHover = (pt) => onHover(nameAt(pt));
-      if (!el._scalewrightHoverBound) {
-        el._scalewrightHoverBound = true;
-        el.on("plotly_hover", (ev) => { const pt = ev?.points?.[0]; if (pt && el._scalewrightHover) el._scalewrightHover(pt); });
+}) : null;
+
+// rows: [{name, label?, text, values, cells?, flagged, flagText}]: `label` is the row's label (name and construct),
+// `cells` the text shown in each cell ("" hides a small loading; the hover always gives the full value).
+// onPick(name) on a click on a cell or a label, onHover(name) when the pointer is over a row.
+// Drawn at once as SVG; on a refit the same SVG is updated in place. Returns a promise (resolved once drawn).
+export function loadingsHeatmap(el, { rows, factors, groups = [], title, onPick, onHover, selected = null }) {
+  const fs = fontSize();
+  const labels = rows.map((r) => `${r.flagged ? "⚑ " : ""}${r.label ?? r.name}`);
+  const longest = Math.max(4, ...labels.map((s) => s.length));
+  // The labels' room is measured (a canvas measures a string without a layout pass).
+  const left = Math.ceil(Math.max(16 + longest * fs * 0.62, labelWidth(labels, fs) + 14));
+  const rowPx = document.body.classList.contains("projector") ? 30 : 22;
+  el._heat = { ...el._heat, rows, factors, labels, groups, title, onPick, onHover, selected, fs, left,
+    height: Math.max(260, rows.length * rowPx + 110), printed: cellsPrinted(rows.length, factors.length),
+    hasCells: rows.every((r) => Array.isArray(r.cells)) };
+  if (!el._heatParts) buildHeat(el);
+  el._heatParts.tip.box.hidden = true; // new rows: the next pointer move shows the hover again
+  el._heatParts.over = "";
+  paintHeat(el);
+  return Promise.resolve();
+}
+
+function buildHeat(el) {
+  el.classList.add("heat-chart");
+  // the chart's name is the keyboard box's (#heat-keys) and the values are in the row read-out (#heat-row)
+  const svg = svgNode("svg", { class: "heat-svg", "aria-hidden": "true", "font-family": FONT, fill: INK });
+  const parts = {
+    svg,
+    title: svgNode("text", { class: "heat-title", x: 0 }, svg),
+    cells: svgNode("g", { class: "heat-cells" }, svg),
+    gaps: svgNode("path", { class: "heat-gaps", fill: "none", "stroke-width": 2 }, svg),
+    values: svgNode("g", { class: "heat-values", "text-anchor": "middle", "dominant-baseline": "central" }, svg),
+    rules: svgNode("g", { class: "heat-rules", stroke: INK, "stroke-width": 2 }, svg),
+    frame: svgNode("rect", { class: "heat-frame", fill: "none", stroke: INK, "stroke-width": 3, "stroke-dasharray": "9 4" }, svg),
+    labels: svgNode("g", { class: "heat-labels", "text-anchor": "end", "dominant-baseline": "central" }, svg),
+    factors: svgNode("g", { class: "heat-factors", "text-anchor": "middle" }, svg),
+    cellNodes: [], valueNodes: [], ruleNodes: [], labelNodes: [], factorNodes: [], over: "",
+  };
+  // the hover box: the page's own element, every part of it set as text
+  const tip = document.createElement("div");
+  tip.className = "heat-tip";
+  tip.hidden = true;
+  tip.setAttribute("aria-hidden", "true");
+  parts.tip = { box: tip, head: document.createElement("strong"), text: document.createElement("span"), flag: document.createElement("em") };
+  tip.append(parts.tip.head, parts.tip.text, parts.tip.flag);
+  el._heatParts = parts;
+  el._heatBackdrop = backdrop(el); // read once per chart (a style pass)
+  el.replaceChildren(svg, tip);
+
+  // The row and column under the pointer (column -1: the labels), or null.
+  const hit = (ev) => {
+    const m = el._heat;
+    const g = m.geo;
+    const box = svg.getBoundingClientRect();
+    const scale = box.width ? g.width / box.width : 1;
+    const x = (ev.clientX - box.left) * scale;
+    const y = (ev.clientY - box.top) * scale;
+    const i = Math.floor((y - g.top) / g.ch);
+    if (i < 0 || i >= m.rows.length || x < 0 || x >= g.left + g.plotW) return null;
+    return { i, j: x < g.left ? -1 : Math.min(m.factors.length - 1, Math.floor((x - g.left) / g.cw)), x, y };
+  };
+  const hide = () => { tip.hidden = true; parts.over = ""; };
+  svg.addEventListener("pointermove", (ev) => {
+    const at = hit(ev);
+    if (!at) { hide(); return; }
+    const m = el._heat;
+    const r = m.rows[at.i];
+    const key = `${at.i},${at.j}`;
+    if (key !== parts.over) {
+      parts.over = key;
+      if (at.j < 0) tip.hidden = true;
+      else {
+        const v = r.values[at.j];
+        setText(parts.tip.head, `${m.labels[at.i]} on ${m.factors[at.j]}: ${v == null ? "–" : v.toFixed(3)}`);
+        setText(parts.tip.text, r.text || "");
+        setText(parts.tip.flag, r.flagText || "");
+        tip.hidden = false;
       }
+      if (m.onHover) m.onHover(r.name);
+    }
+    if (!tip.hidden) {
+      // beside the pointer, on the side with more room (no layout read)
+      tip.style.left = `${Math.round(at.x)}px`;
+      tip.style.top = `${Math.round(at.y)}px`;
+      tip.classList.toggle("heat-tip-left", at.x > m.geo.width / 2);
     }
   });
+  svg.addEventListener("pointerleave", hide);
+  svg.addEventListener("click", (ev) => {
+    const at = hit(ev);
+    const m = el._heat;
+    if (at && m.onPick) m.onPick(m.rows[at.i].name);
+  });
+  heatResize?.observe(el);
+}
+
+function paintHeat(el) {
+  const m = el._heat;
+  const p = el._heatParts;
+  const { rows, factors, fs, left, height } = m;
+  const nR = rows.length;
+  const nC = Math.max(1, factors.length);
+  const width = el.clientWidth || 700;
+  const top = 70;
+  const plotW = Math.max(40, width - left - 20);
+  const plotH = height - top - 20;
+  const cw = plotW / nC;
+  const ch = plotH / Math.max(1, nR);
+  m.geo = { width, top, left, plotW, plotH, cw, ch };
+  setAttr(p.svg, "width", width);
+  setAttr(p.svg, "height", height);
+  setAttr(p.svg, "viewBox", `0 0 ${width} ${height}`);
+  setAttr(p.svg, "font-size", fs);
+  setAttr(p.title, "y", fs + 6);
+  setAttr(p.title, "font-size", fs + 2);
+  setText(p.title, m.title || "");
+
+  const cellNodes = pool(p.cellNodes, nR * factors.length, () => svgNode("rect", { class: "heat-cell" }, p.cells));
+  const valueNodes = pool(p.valueNodes, m.printed ? nR * factors.length : 0, () => svgNode("text", { class: "heat-value" }, p.values));
+  setAttr(p.values, "font-size", fs - 1);
+  for (let i = 0; i < nR; i += 1) {
+    const r = rows[i];
+    const y = top + i * ch;
+    for (let j = 0; j < factors.length; j += 1) {
+      const v = r.values[j];
+      const rgb = v == null ? null : divergingRgb(v);
+      const cell = cellNodes[i * factors.length + j];
+      setAttr(cell, "x", px(left + j * cw));
+      setAttr(cell, "y", px(y));
+      setAttr(cell, "width", px(cw));
+      setAttr(cell, "height", px(ch));
+      setAttr(cell, "fill", rgb ? rgbText(rgb) : "none");
+      if (m.printed) {
+        const t = valueNodes[i * factors.length + j];
+        setAttr(t, "x", px(left + (j + 0.5) * cw));
+        setAttr(t, "y", px(y + ch / 2));
+        setAttr(t, "fill", rgb ? textOn(rgb) : INK);
+        setText(t, m.hasCells ? String(r.cells[j] ?? "") : (v == null ? "" : v.toFixed(2)));
+      }
+    }
+  }
+  // the lines between the cells, in the colour the chart sits on
+  let d = "";
+  for (let i = 1; i < nR; i += 1) d += `M${px(left)},${px(top + i * ch)}h${px(plotW)}`;
+  for (let j = 1; j < factors.length; j += 1) d += `M${px(left + j * cw)},${top}v${px(plotH)}`;
+  setAttr(p.gaps, "d", d || "M0,0");
+  setAttr(p.gaps, "stroke", el._heatBackdrop);
+  // a rule between the groups of items that share a primary factor (or a construct, in pool order)
+  const at = [];
+  for (let i = 1; i < nR; i += 1) if (m.groups[i] !== m.groups[i - 1]) at.push(i);
+  const ruleNodes = pool(p.ruleNodes, at.length, () => svgNode("line", { class: "heat-rule" }, p.rules));
+  at.forEach((i, n) => {
+    setAttr(ruleNodes[n], "x1", px(left - 0.02 * plotW));
+    setAttr(ruleNodes[n], "x2", px(left + plotW));
+    setAttr(ruleNodes[n], "y1", px(top + i * ch));
+    setAttr(ruleNodes[n], "y2", px(top + i * ch));
+  });
+  const labelNodes = pool(p.labelNodes, nR, () => svgNode("text", { class: "heat-label" }, p.labels));
+  for (let i = 0; i < nR; i += 1) {
+    setAttr(labelNodes[i], "x", left - 10); // clear of the selection frame's left edge
+    setAttr(labelNodes[i], "y", px(top + (i + 0.5) * ch));
+    setText(labelNodes[i], m.labels[i]);
+  }
+  const factorNodes = pool(p.factorNodes, factors.length, () => svgNode("text", { class: "heat-factor" }, p.factors));
+  factors.forEach((f, j) => {
+    setAttr(factorNodes[j], "x", px(left + (j + 0.5) * cw));
+    setAttr(factorNodes[j], "y", top - 8);
+    setText(factorNodes[j], String(f));
+  });
+  paintFrame(el);
+}
+
+// A thick dashed frame around the selected row (the keyboard selection; not colour alone).
+function paintFrame(el) {
+  const m = el._heat;
+  const { frame } = el._heatParts;
+  const g = m.geo;
+  const i = m.selected;
+  if (i == null || i < 0 || i >= m.rows.length) { setAttr(frame, "display", "none"); return; }
+  setAttr(frame, "display", "inline");
+  setAttr(frame, "x", px(g.left - 5));
+  setAttr(frame, "y", px(g.top + i * g.ch));
+  setAttr(frame, "width", px(g.plotW + 5 + 0.005 * g.plotW));
+  setAttr(frame, "height", px(g.ch));
 }
 
 // The background the chart sits on (the panel's white): the colour of the lines between the heatmap's cells.
@@ -170,17 +376,8 @@ function backdrop(el) {
   return "#ffffff";
 }
 
-// The 2 px lines between the cells of an nRows x nCols heatmap on category axes, as one path shape (the
-// gaps plotly would otherwise leave with xgap/ygap; drawn below the group rules and the selection frame).
-function gridLines(nRows, nCols, color) {
-  const parts = [];
-  for (let i = 1; i < nRows; i += 1) parts.push(`M-0.5,${i - 0.5}L${nCols - 0.5},${i - 0.5}`);
-  for (let j = 1; j < nCols; j += 1) parts.push(`M${j - 0.5},-0.5L${j - 0.5},${nRows - 0.5}`);
-  return { type: "path", xref: "x", yref: "y", path: parts.join("") || "M-0.5,-0.5", line: { color, width: 2 }, name: "cell-gaps" };
-}
-
-// The loadings heatmap's colour key as HTML (a CSS gradient of DIVERGING and its ticks), in place of plotly's
-// colour bar. `h` is the page's element helper (views/dom.js).
+// The loadings heatmap's colour key as HTML (a CSS gradient of DIVERGING and its ticks).
+// `h` is the page's element helper (views/dom.js).
 export function heatKey(h) {
   const stops = DIVERGING.map(([at, colour]) => `${colour} ${at * 100}%`).join(", ");
   return h("div", { class: "heat-key", id: "heat-key", role: "img",
@@ -190,39 +387,53 @@ export function heatKey(h) {
   h("span", { class: "heat-key-ticks", "aria-hidden": "true" }, ["−1", "−.5", "0", ".5", "1"].map((t) => h("span", { text: t }))));
 }
 
-// A thick dashed frame around row `index` of the loadings heatmap (the keyboard selection; not colour alone).
-function rowMark(index) {
-  if (index == null || index < 0) return [];
-  return [{ type: "rect", xref: "paper", x0: -0.01, x1: 1.005, y0: index - 0.5, y1: index + 0.5,
-    line: { color: INK, width: 3, dash: "dash" }, fillcolor: "rgba(0,0,0,0)" }];
-}
-
 /** Move the selection frame of a drawn loadings heatmap to row `index` (null: none). */
 export function markHeatRow(el, index) {
-  if (!window.Plotly || !el || !el._fullLayout) return Promise.resolve();
-  return Plotly.relayout(el, { shapes: [...(el._scalewrightShapes || []), ...rowMark(index)] });
+  if (el && el._heat && el._heatParts) { el._heat.selected = index; paintFrame(el); }
+  return Promise.resolve();
 }
 
-export function factorCorrelations(el, { factors: labels, matrix }) {
-  const factors = labels.map(esc);
+// The factor correlations (a small k x k matrix) as SVG: the same colours, the value in each cell, the
+// dashboard's number style (.33, not 0.33). Drawn at once; a redraw replaces its few nodes.
+export function factorCorrelations(el, { factors: names, matrix }) {
+  const labels = names.map(String);
   const fs = fontSize();
-  const longest = Math.max(3, ...labels.map((l) => String(l).length));
-  const cell = Math.max(56, longest * fs * 0.62 + 12);
-  const trace = {
-    type: "heatmap", x: factors, y: factors, z: matrix, zmin: -1, zmax: 1, zmid: 0, colorscale: DIVERGING,
-    // the dashboard's number style (.33, not 0.33)
-    text: matrix.map((row) => row.map((v) => (v == null ? "" : v.toFixed(2).replace(/^(-?)0\./, "$1.")))),
-    texttemplate: "%{text}", showscale: false, xgap: 2, ygap: 2,
-    hovertemplate: "%{y} with %{x}: %{z:.3f}<extra></extra>",
-  };
-  const left = 16 + longest * fs * 0.62;
-  const layout = base({
-    title: { text: "Factor correlations", x: 0, xref: "container", y: 0.98, yanchor: "top", font: { size: fs + 1 } },
-    height: 70 + fs * 2 + factors.length * Math.max(40, fs * 2.6), width: left + 20 + factors.length * cell,
-    margin: { l: left, r: 10, t: 50 + fs * 1.5, b: 10 },
-    xaxis: { side: "top", tickangle: 0 }, yaxis: { autorange: "reversed" },
-  });
-  return draw(el, [trace], layout);
+  const k = labels.length;
+  const longest = Math.max(3, ...labels.map((l) => l.length));
+  const cell = Math.round(Math.max(56, longest * fs * 0.62 + 12));
+  const rowH = Math.round(Math.max(40, fs * 2.6));
+  const left = Math.ceil(Math.max(16 + longest * fs * 0.62, labelWidth(labels, fs) + 14));
+  const top = Math.round(fs * 2 + 28);
+  const width = left + k * cell + 10;
+  const height = top + k * rowH + 6;
+  const short = (v) => (v == null ? "" : v.toFixed(2).replace(/^(-?)0\./, "$1."));
+  const pairs = [];
+  for (let i = 0; i < k; i += 1) for (let j = i + 1; j < k; j += 1) pairs.push(`${labels[i]} with ${labels[j]} ${short(matrix[i]?.[j])}`);
+  const svg = svgNode("svg", { class: "phi-svg", width, height, viewBox: `0 0 ${width} ${height}`, role: "img",
+    "font-family": FONT, "font-size": fs, fill: INK });
+  svg.setAttribute("aria-label", `Factor correlations: ${pairs.join("; ")}.`);
+  const title = svgNode("text", { class: "phi-title", x: 0, y: fs + 4, "font-size": fs + 1 }, svg);
+  title.textContent = "Factor correlations";
+  for (let i = 0; i < k; i += 1) {
+    const rowLabel = svgNode("text", { class: "phi-label", x: left - 8, y: top + (i + 0.5) * rowH, "text-anchor": "end", "dominant-baseline": "central" }, svg);
+    rowLabel.textContent = labels[i];
+    const colLabel = svgNode("text", { class: "phi-label", x: left + (i + 0.5) * cell, y: top - 8, "text-anchor": "middle" }, svg);
+    colLabel.textContent = labels[i];
+    for (let j = 0; j < k; j += 1) {
+      const v = matrix[i]?.[j];
+      const rgb = v == null ? null : divergingRgb(v);
+      // 1 px of the panel's colour on each side: the 2 px gaps between cells
+      const rect = svgNode("rect", { class: "phi-cell", x: left + j * cell + 1, y: top + i * rowH + 1, width: cell - 2, height: rowH - 2,
+        fill: rgb ? rgbText(rgb) : "none" }, svg);
+      svgNode("title", {}, rect).textContent = `${labels[i]} with ${labels[j]}: ${v == null ? "–" : v.toFixed(3)}`;
+      const t = svgNode("text", { class: "phi-value", x: left + (j + 0.5) * cell, y: top + (i + 0.5) * rowH, "text-anchor": "middle",
+        "dominant-baseline": "central", fill: rgb ? textOn(rgb) : INK }, svg);
+      t.textContent = short(v);
+    }
+  }
+  el.classList.add("phi-chart");
+  el.replaceChildren(svg);
+  return Promise.resolve();
 }
 
 // items: [{name, text, alpha_if_deleted}], alpha: current alpha

@@ -11,12 +11,12 @@ from .helpers import open_dataset, wait_js
 
 pytestmark = pytest.mark.browser
 
-# Every chart of the view has been drawn by plotly (or the view has none).
+# Every chart of the view has been drawn, by plotly or as the page's own SVG (or the view has none).
 CHARTS_DRAWN = """() => {
   const view = document.querySelector('#view');
   if (!view || !view.children.length) return false;
   const charts = [...view.querySelectorAll('.chart')].filter((c) => c.offsetParent !== null);
-  return charts.every((c) => c.querySelector('svg.main-svg') || c.textContent.trim());
+  return charts.every((c) => c.querySelector('svg.main-svg, svg.heat-svg, svg.phi-svg') || c.textContent.trim());
 }"""
 
 

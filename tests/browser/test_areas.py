@@ -30,6 +30,7 @@ def test_stability_area_shows_scatter_bland_altman_and_icc(page, server, demo, r
     page.wait_for_selector("table.icc")
     icc_rows = page.locator("table.icc tbody tr").count()
     assert icc_rows == 6  # the six McGraw & Wong forms (issue 6)
+    page.wait_for_selector("#bland-altman .scatterlayer .point")  # plotly is loaded by the first chart that needs it
     assert page.locator("#retest-scatter .scatterlayer .point").count() > 100  # demo_data/README: 144 came back
     assert page.locator("#bland-altman .scatterlayer .point").count() > 100
     assert "144" in page.inner_text("#retest-result")  # matched respondents, demo_data/README
@@ -216,12 +217,14 @@ def test_timings_on_a_60_item_pool(page, server, timings):
 def test_click_a_heatmap_row_to_drop_that_item(page, server, demo):
     open_dataset(page, server, demo["id"], view="loadings")
     page.wait_for_selector("#heatmap[data-rendered]")
-    first_row = page.evaluate("[...document.querySelectorAll('#heatmap .ytick text')]"
+    first_row = page.evaluate("[...document.querySelectorAll('#heatmap .heat-label')]"
                               ".sort((a, b) => a.getBoundingClientRect().top - b.getBoundingClientRect().top)[0]"
-                              ".textContent").replace("⚑", "").split(" · ")[0].strip()  # tick: "name · construct"
-    n_rows = page.locator("#heatmap .ytick").count()
-    box = page.locator("#heatmap .nsewdrag").first.bounding_box()
-    page.mouse.click(box["x"] + box["width"] / 6, box["y"] + box["height"] / n_rows / 2)  # top row, first factor
+                              ".textContent").replace("⚑", "").split(" · ")[0].strip()  # label: "name · construct"
+    n_rows = page.locator("#heatmap .heat-label").count()
+    box = page.locator("#heatmap .heat-cells").bounding_box()
+    n_factors = page.locator("#heatmap .heat-factor").count()
+    # the top row, first factor
+    page.mouse.click(box["x"] + box["width"] / n_factors / 2, box["y"] + box["height"] / n_rows / 2)
     page.wait_for_selector("#pick-drop")
     assert first_row in page.inner_text("#pick-bar")
     before = fitted_marker(page)

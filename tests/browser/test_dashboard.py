@@ -62,22 +62,85 @@ def test_heatmap_and_alpha_curve_render(page, server, demo, timings):
     n_items = js_state(page, "Object.keys(s.analysis.efa.loadings).length")
     n_factors = js_state(page, "s.analysis.efa.n_factors")
     assert n_factors >= 2
-    cells = page.locator("#heatmap .hm text, #heatmap text.textpoint, #heatmap g.heatmaplayer text").count()
-    if cells == 0:  # plotly versions differ in where heatmap texts live; count every number-like svg text
-        cells = page.evaluate("[...document.querySelectorAll('#heatmap svg text')]"
-                              ".filter(t => /^-?\\d\\.\\d\\d$/.test(t.textContent)).length")
-    assert cells == n_items * n_factors  # one printed value per cell (texttemplate)
-    assert page.locator("#phi svg").count() >= 1  # factor correlations beside the heatmap
+    cells = page.evaluate("[...document.querySelectorAll('#heatmap svg .heat-value')]"
+                          ".filter(t => /^-?\\d*\\.\\d\\d$/.test(t.textContent)).length")
+    assert cells == n_items * n_factors  # one printed value per cell (the dashboard's style: .62, -.31)
+    assert page.locator("#heatmap .heat-cell").count() == n_items * n_factors
+    assert page.locator("#phi svg .phi-cell").count() == n_factors ** 2  # factor correlations beside the heatmap
     page.click("#tab-alpha")
     page.wait_for_selector("#alpha-curve[data-rendered]")
     points = page.locator("#alpha-curve .scatterlayer .point").count()
     assert points == n_items  # one alpha-if-deleted marker per active item
-    assert page.locator("#pruning-path .scatterlayer .trace").count() == 2  # alpha and omega lines
+    wait_js(page, "() => document.querySelectorAll('#pruning-path .scatterlayer .trace').length === 2")  # alpha, omega
     assert page.errors == []
     # offline and safe: nothing is fetched from anywhere but this server, and the page carries a CSP
     assert requested and all(u.startswith((server + "/", "data:")) for u in requested)
     csp = httpx.get(server + "/").headers["content-security-policy"]
     assert "script-src 'self'" in csp and "unsafe-eval" not in csp
+
+
+def test_loadings_view_draws_without_plotly_until_a_plotly_chart_is_shown(page, server, demo):
+    """Issue 14: the loadings heatmap and the factor correlations are the page's own SVG; plotly (1.5 MB of script
+    to run) is loaded only when a view that draws with it is opened, here the scree of "How many factors"."""
+    plotly = []
+    page.on("request", lambda r: plotly.append(r.url) if "plotly" in r.url else None)
+    open_dataset(page, server, demo["id"], view="loadings")
+    page.wait_for_selector("#heatmap[data-rendered]")
+    assert page.locator("#heatmap svg .heat-cell").count() > 0 and page.locator("#phi svg .phi-cell").count() > 0
+    marker = page.get_attribute("#heatmap", "data-rendered")
+    page.click("#show-structure")  # a redraw of the heatmap, still without plotly
+    wait_js(page, "m => document.querySelector('#heatmap')?.dataset.rendered !== m", marker)
+    page.wait_for_timeout(300)
+    assert page.evaluate("typeof window.Plotly") == "undefined"
+    assert plotly == [] and page.locator('script[src$="plotly.min.js"]').count() == 0
+    page.click("#tab-factors")
+    wait_js(page, "() => document.querySelector('#scree .xtick') !== null", None, 30_000)
+    assert page.evaluate("typeof window.Plotly") == "object"
+    page.click("#tab-alpha")
+    page.wait_for_selector("#alpha-curve[data-rendered]")
+    assert plotly == [server + "/vendor/plotly.min.js"]  # asked for once, by the first chart that needed it
+    assert page.locator('script[src$="plotly.min.js"]').count() == 1
+    assert page.errors == []
+
+
+# charts.js DIVERGING, copied here as the specification: position on [0, 1] (loading -1 -> 0, 0 -> .5, +1 -> 1), colour
+DIVERGING = [(0, "#1b4f72"), (0.25, "#6c9ec2"), (0.5, "#f7f5f0"), (0.75, "#e7a35f"), (1, "#8f3f0c")]
+
+
+def diverging_rgb(v: float) -> tuple[float, float, float]:
+    """The colour of loading v: linear interpolation in RGB between the two stops around (v + 1) / 2."""
+    t = min(1.0, max(0.0, (v + 1) / 2))
+    for (a, lo), (b, hi) in zip(DIVERGING, DIVERGING[1:]):
+        if t <= b:
+            f = (t - a) / (b - a)
+            return tuple(int(lo[k:k + 2], 16) + (int(hi[k:k + 2], 16) - int(lo[k:k + 2], 16)) * f for k in (1, 3, 5))
+    raise AssertionError(v)
+
+
+def test_heatmap_cell_colours_follow_the_diverging_scale(page, server, demo):
+    open_dataset(page, server, demo["id"], view="loadings")
+    page.wait_for_selector("#heatmap[data-rendered]")
+    loadings = js_state(page, "s.analysis.efa.loadings")
+    drawn = page.evaluate("""() => {
+      const el = document.querySelector('#heatmap');
+      const labels = [...el.querySelectorAll('.heat-label')].map((t) => t.textContent);
+      const fills = [...el.querySelectorAll('.heat-cell')].map((c) => getComputedStyle(c).fill);
+      return { labels, fills, k: el.querySelectorAll('.heat-factor').length };
+    }""")
+    k = drawn["k"]
+    assert k == len(next(iter(loadings.values()))) and len(drawn["fills"]) == len(drawn["labels"]) * k
+    seen = []
+    for i, label in enumerate(drawn["labels"]):
+        name = label.removeprefix("⚑ ").split(" · ")[0]
+        for j in range(k):
+            v = loadings[name][j]
+            want = diverging_rgb(v)
+            got = tuple(int(x) for x in drawn["fills"][i * k + j].removeprefix("rgb(").removesuffix(")").split(","))
+            assert all(abs(g - w) <= 1 for g, w in zip(got, want)), (name, j, v, got, want)
+            seen.append(v)
+    assert min(seen) < 0 < 0.5 < max(seen)  # both sides of the scale were checked
+    # worked by hand: .6 sits at t = .8, a fifth of the way from the .75 stop (#e7a35f) to the 1 stop (#8f3f0c)
+    assert [round(c) for c in diverging_rgb(0.6)] == [213, 143, 78]  # 231 - 17.6, 163 - 20, 95 - 16.6
 
 
 def test_drop_changes_alpha_and_loadings_and_undo_restores(page, server, demo, timings):
@@ -104,8 +167,8 @@ def test_drop_changes_alpha_and_loadings_and_undo_restores(page, server, demo, t
         wait_js(page, "m => { const el = document.querySelector('#heatmap');"
                       " return el && el.dataset.rendered && el.dataset.rendered !== m; }", marker)
         timings.setdefault("click_to_updated_heatmap_ms", []).append(round((time.perf_counter() - started) * 1000, 1))
-    heat_items = page.evaluate("[...document.querySelectorAll('#heatmap .ytick text')].map(t => t.textContent)")
-    assert heat_items and not any(t.split(" · ")[0].endswith("W3") for t in heat_items)  # tick: "name · construct"
+    heat_items = page.evaluate("[...document.querySelectorAll('#heatmap .heat-label')].map(t => t.textContent)")
+    assert heat_items and not any(t.split(" · ")[0].endswith("W3") for t in heat_items)  # label: "name · construct"
 
     # undo with the keyboard: everything is back as before
     before = fitted_marker(page)
@@ -251,14 +314,14 @@ def test_hostile_item_wording_is_shown_as_text(page, server):
     assert page.locator('tr[data-item="H2"] td.wording').inner_text() == "<script>window.__pwned=2</script>"
     page.click("#tab-loadings")
     page.wait_for_selector("#heatmap[data-rendered]")
-    # hover the H1 row: plotly shows the wording as text (it reads some HTML-like tags, so it gets entities)
-    area = page.locator("#heatmap .nsewdrag").first.bounding_box()
+    # hover the H1 row: the heatmap's hover box shows the wording as text
+    area = page.locator("#heatmap .heat-cells").bounding_box()
     for item, wording in (("H1", hostile), ("H3", "<b>Bold</b> <a href=x>link</a>")):
-        tick = page.locator("#heatmap .ytick text", has_text=item).first.bounding_box()
+        tick = page.locator("#heatmap .heat-label", has_text=item).first.bounding_box()
         page.mouse.move(area["x"] + area["width"] / 2, tick["y"] + tick["height"] / 2)
-        wait_js(page, "w => (document.querySelector('#heatmap .hoverlayer') || {}).textContent?.includes(w)",
-                wording, 5000)
-        assert page.locator("#heatmap .hoverlayer a").count() == 0
+        wait_js(page, "w => { const t = document.querySelector('#heatmap .heat-tip');"
+                      " return t && !t.hidden && t.textContent.includes(w); }", wording, 5000)
+        assert page.locator("#heatmap .heat-tip a, #heatmap .heat-tip b, #heatmap .heat-tip script").count() == 0
     assert page.locator("#view img").count() == 0
     assert page.evaluate("window.__pwned") is None
     assert dialogs == []

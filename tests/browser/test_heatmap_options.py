@@ -9,13 +9,18 @@ from .helpers import js_state, open_dataset, wait_js
 
 pytestmark = pytest.mark.browser
 
-TRACE = ("(() => { const t = document.getElementById('heatmap').data[0];"
-         " return {y: t.y, z: t.z, text: t.text, hover: t.hovertemplate}; })()")
+# the drawn rows: their labels, the values printed in their cells, and each row's loadings from the analysis
+TRACE = ("(() => { const el = document.getElementById('heatmap'); const s = window.scalewright.state;"
+         " const y = [...el.querySelectorAll('.heat-label')].map((t) => t.textContent);"
+         " const k = el.querySelectorAll('.heat-factor').length;"
+         " const cells = [...el.querySelectorAll('.heat-value')].map((t) => t.textContent);"
+         " const z = y.map((l) => s.analysis.efa.loadings[l.replace('⚑ ', '').split(' · ')[0]]);"
+         " return {y, z, k, text: y.map((_, i) => cells.slice(i * k, i * k + k))}; })()")
 
 
 def _rendered(page, before: str | None = None):
     wait_js(page, "m => { const el = document.querySelector('#heatmap'); return el && el.dataset.rendered "
-                  "&& el.dataset.rendered !== m && el.data; }", before or "")
+                  "&& el.dataset.rendered !== m && el.querySelector('svg .heat-cell'); }", before or "")
 
 
 def test_cutoff_blanks_small_loadings_but_the_hover_keeps_them(page, server, demo):
@@ -30,7 +35,11 @@ def test_cutoff_blanks_small_loadings_but_the_hover_keeps_them(page, server, dem
     assert small and large
     assert all(t["text"][i][j] == "" for i, j in small)
     assert all(t["text"][i][j] == f"{t['z'][i][j]:.2f}".replace("0.", ".", 1) for i, j in large)
-    assert "%{z:.3f}" in t["hover"]  # the hover reads the full value, not the blanked text
+    # the hover reads the full value, not the blanked text
+    i, j = small[0]
+    page.locator("#heatmap .heat-cell").nth(i * t["k"] + j).hover()
+    wait_js(page, "() => !document.querySelector('#heatmap .heat-tip').hidden", None, 5000)
+    assert page.inner_text("#heatmap .heat-tip strong").endswith(f": {t['z'][i][j]:.3f}")
     assert "cut=" not in page.url  # the default stays out of the URL
 
     marker = page.get_attribute("#heatmap", "data-rendered")
@@ -93,9 +102,11 @@ def test_keyboard_selects_a_row_and_enter_opens_the_pick_bar(page, server, demo)
     assert line.startswith(first) and wording in line and "Loadings:" in line
     assert page.get_attribute("#heat-row", "aria-live") == "polite"
     # the selected row is framed in the chart (a dashed rectangle, not a colour)
-    wait_js(page, "() => (document.getElementById('heatmap').layout.shapes || []).some(s => s.type === 'rect')")
-    rect = page.evaluate("document.getElementById('heatmap').layout.shapes.find(s => s.type === 'rect')")
-    assert (rect["y0"], rect["y1"]) == (-0.5, 0.5)
+    wait_js(page, "() => document.querySelector('#heatmap .heat-frame')?.getAttribute('display') === 'inline'")
+    frame = page.locator("#heatmap .heat-frame").bounding_box()
+    label = page.locator("#heatmap .heat-label").first.bounding_box()
+    assert frame["y"] <= label["y"] + label["height"] / 2 <= frame["y"] + frame["height"]  # around the first row
+    assert page.get_attribute("#heatmap .heat-frame", "stroke-dasharray")  # dashed
     page.keyboard.press("ArrowDown")
     wait_js(page, "n => window.scalewright.state.heat.row === n", second)
     page.keyboard.press("ArrowUp")

@@ -88,15 +88,17 @@ def test_the_first_analysis_says_what_it_computes_and_counts_seconds(page, serve
 def test_a_refit_updates_the_drawn_heatmap_in_place(page, server, demo):
     open_dataset(page, server, demo["id"], view="loadings")
     page.wait_for_selector("#heatmap[data-rendered]")
-    page.evaluate("() => { window.heatBefore = document.querySelector('#heatmap'); }")
+    page.evaluate("() => { window.heatBefore = document.querySelector('#heatmap');"
+                  " window.svgBefore = document.querySelector('#heatmap svg'); }")
     before = fitted_marker(page)
-    page.evaluate("() => document.querySelector('#heatmap').emit('plotly_click', {points: [{pointIndex: [0, 0]}]})")
+    page.locator("#heatmap .heat-label").first.click()  # a click on the first row's label opens its pick bar
     item = page.inner_text("#pick-bar strong")
     page.click("#pick-drop")
     wait_refit(page, before)
     wait_js(page, "() => document.querySelector('#heatmap')?.dataset.rendered !== '1'")
     assert page.evaluate("() => document.querySelector('#heatmap') === window.heatBefore")  # the same chart, updated
-    ticks = page.evaluate("[...document.querySelectorAll('#heatmap .ytick text')].map(t => t.textContent)")
+    assert page.evaluate("() => document.querySelector('#heatmap svg') === window.svgBefore")  # its SVG too
+    ticks = page.evaluate("[...document.querySelectorAll('#heatmap .heat-label')].map(t => t.textContent)")
     assert ticks and not any(t.split(" · ")[0].lstrip("⚑ ") == item for t in ticks)
     assert js_state(page, "s.dropped") == [item]
     assert page.errors == []

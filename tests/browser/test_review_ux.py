@@ -172,15 +172,19 @@ def test_picking_a_heatmap_row_does_not_move_the_chart(page, server, demo):
     open_dataset(page, server, demo["id"], view="loadings")
     page.wait_for_selector("#heatmap[data-rendered]")
     top_before = page.locator("#heatmap").bounding_box()["y"]
-    box = page.locator("#heatmap .nsewdrag").first.bounding_box()
-    n_rows = page.locator("#heatmap .ytick").count()
+    box = page.locator("#heatmap .heat-cells").bounding_box()
+    n_rows = page.locator("#heatmap .heat-label").count()
     page.mouse.click(box["x"] + box["width"] / 6, box["y"] + box["height"] / n_rows * 1.5)  # second row
     page.wait_for_selector("#pick-drop")
     assert page.locator("#heatmap").bounding_box()["y"] == top_before  # the next click lands where aimed
     assert page.locator("#pick-drop").is_visible()
-    # long wording is broken into lines in the hover label instead of running past the chart's edge
-    assert "<br>" in page.evaluate("document.querySelector('#heatmap').data[0].customdata[0][0]") or \
-        len(js_state(page, "s.meta.items[0].text")) <= 56
+    # the hover box breaks long wording into lines and stays inside the chart, at its left and at its right edge
+    heat = page.locator("#heatmap").bounding_box()
+    for x in (box["x"] + 4, box["x"] + box["width"] - 4):
+        page.mouse.move(x, box["y"] + box["height"] / n_rows / 2)
+        wait_js(page, "() => !document.querySelector('#heatmap .heat-tip').hidden", None, 5000)
+        tip = page.locator("#heatmap .heat-tip").bounding_box()
+        assert heat["x"] <= tip["x"] and tip["x"] + tip["width"] <= heat["x"] + heat["width"], (x, tip, heat)
     assert page.errors == []
 
 

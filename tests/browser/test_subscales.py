@@ -129,8 +129,8 @@ def test_new_warnings_show_where_their_items_are(page, server, demo):
         assert chip.get_attribute("data-tip") == few[0]["message"]
     page.click("#tab-loadings")
     page.wait_for_selector("#heatmap[data-rendered]")
-    labels = page.eval_on_selector_all("#heatmap .ytick text", "t => t.map(x => x.textContent)")
-    # marked on its heatmap row (a tick reads "name · construct")
+    labels = page.eval_on_selector_all("#heatmap .heat-label", "t => t.map(x => x.textContent)")
+    # marked on its heatmap row (a label reads "name · construct")
     assert any(lab.split(" · ")[0] == f"⚑ {few[0]['items'][0]}" for lab in labels)
     assert page.errors == []
 

@@ -2,7 +2,7 @@
 // k x k heatmap grouped by codebook construct, a keyboard cursor, the largest residuals and a pair panel.
 /* global Plotly */
 import { api } from "../api.js";
-import { DIVERGING, INK, config, esc, fontSize, wrapText } from "../charts.js";
+import { DIVERGING, INK, config, esc, fontSize, loadPlotly, wrapText } from "../charts.js";
 import { optionLabel } from "../labels.js";
 import { actions, allItems, analysisRequest, itemMeta } from "../state.js";
 import { clear, fmt, h, note, section } from "./dom.js";
@@ -254,15 +254,7 @@ function drawCursor(el, cursor, shapes) {
 }
 
 async function draw(el, traces, layout) {
-  if (!window.Plotly) {
-    await new Promise((resolve) => {
-      const tag = document.querySelector('script[src$="plotly.min.js"]');
-      if (!tag) { resolve(); return; }
-      tag.addEventListener("load", resolve);
-      tag.addEventListener("error", resolve);
-      setTimeout(resolve, 15000);
-    });
-  }
+  await loadPlotly(); // inserts plotly's script tag on first need (index.html no longer loads it)
   if (!window.Plotly) { el.textContent = "The chart library did not load."; return false; }
   if (!el.isConnected) return false;
   await Plotly.react(el, traces, layout, config);

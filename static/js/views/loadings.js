@@ -1,5 +1,5 @@
 // Loadings heatmap: items x factors (pattern, or structure on a toggle), grouped by primary factor.
-import { cellsPrinted, factorCorrelations, heatKey, loadingsHeatmap, markHeatRow, purge, purgeWithin } from "../charts.js";
+import { cellsPrinted, factorCorrelations, heatKey, loadingsHeatmap, markHeatRow, purgeWithin } from "../charts.js";
 import { findWarning, flagWord, flagsByItem, optionLabel, warningText, warningsByItem } from "../labels.js";
 import { actions, allItems, itemMeta, loadingCutoff } from "../state.js";
 import { clear, fmt, h, note, section, warningList } from "./dom.js";
@@ -30,17 +30,17 @@ function degenerateBox(w) {
 }
 
 export function render(container, state) {
-  // The drawn heatmap and factor-correlation chart are kept across re-renders (a refit): Plotly.react then
-  // updates them in place instead of drawing new charts from nothing.
+  // The drawn heatmap and factor-correlation chart are kept across re-renders (a refit): the heatmap's SVG is
+  // then updated in place (only what changed is written) instead of drawn from nothing.
   // The drawn heatmap also stays where it is in the page (its panel, grid and keyboard box are reused, the rest
   // is replaced around them): a chart taken out and put back is styled and laid out again from nothing (30-80 ms
   // more per redraw at 250 items), and the keyboard focus on the box stays put.
-  const drawn = container.querySelector(":scope > section.panel > .heat-layout > #heat-keys > #heatmap.js-plotly-plot");
+  const drawn = container.querySelector(":scope > section.panel > .heat-layout > #heat-keys > #heatmap.heat-chart");
   const place = drawn ? { heat: drawn, keys: drawn.parentElement, layout: drawn.parentElement.parentElement,
     panel: drawn.parentElement.parentElement.parentElement } : null;
   const kept = place ? { heatmap: drawn } : {};
-  for (const id of ["heatmap", "phi"]) {
-    const el = container.querySelector(`#${id}.js-plotly-plot`);
+  for (const [id, drawnClass] of [["heatmap", "heat-chart"], ["phi", "phi-chart"]]) {
+    const el = container.querySelector(`#${id}.${drawnClass}`);
     if (el && !kept[id]) { el.remove(); kept[id] = el; }
   }
   if (!place) clear(container);
@@ -155,7 +155,6 @@ export function render(container, state) {
     h("button", { class: state.heat.poolOrder ? "on" : "", "aria-pressed": String(state.heat.poolOrder), id: "heat-order-pool",
       text: "Pool order", onclick: () => actions.setHeatmap({ poolOrder: true }) }));
   const drawPhi = Boolean(efa.factor_correlations && efa.factor_correlations.length > 1);
-  if (kept.phi && !drawPhi) purge(kept.phi);
   const phi = (drawPhi && kept.phi) || h("div", { class: "chart small", id: "phi" });
   const side = h("div", { class: "side" }, heatKey(h), phi);
   if (efa.communalities) {
@@ -196,11 +195,8 @@ export function render(container, state) {
     selected: state.heat.row ? names.indexOf(state.heat.row) : null,
     title: showStructure ? "Structure (item-factor correlations)" : "Pattern loadings" })
     .then(() => heat.setAttribute("data-rendered", String((state.renders.loadings += 1))));
-  if (drawPhi) {
-    // the heatmap first; the small chart beside it follows after the frame that paints the heatmap
-    const matrix = efa.factor_correlations;
-    requestAnimationFrame(() => setTimeout(() => { if (phi.isConnected) factorCorrelations(phi, { factors, matrix }); }, 0));
-  } else {
+  if (drawPhi) factorCorrelations(phi, { factors, matrix: efa.factor_correlations });
+  else {
     phi.append(note(efa.n_factors > 1 ? "Orthogonal rotation: the factors are uncorrelated by construction." : "One factor: no factor correlations."));
   }
 }
