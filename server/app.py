@@ -7,7 +7,6 @@ from pathlib import Path
 
 from fastapi import Depends, FastAPI, Request
 from fastapi.responses import FileResponse, JSONResponse, Response
-from fastapi.staticfiles import StaticFiles
 from starlette.middleware.gzip import GZipMiddleware
 
 from . import __version__
@@ -16,6 +15,7 @@ from .api.openapi import install_openapi
 from .api.origins import refusal
 from .api.schemas import HealthOut
 from .settings import Settings
+from .static_files import StaticCache
 from .store import StorageError
 
 STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
@@ -154,7 +154,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.include_router(module.router, prefix="/api", dependencies=[Depends(check_access)])
 
     @app.get("/api/health", response_model=HealthOut)
-    def health():
+    async def health():  # on the event loop: no worker thread for a poll the page and the bench make often
         return {"status": "ok", "version": __version__, "preparing": app.state.engine.preparing()}
 
     @app.get("/vendor/plotly.min.js", include_in_schema=False)
@@ -170,11 +170,18 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             return FileResponse(packed, media_type="text/javascript", headers={**headers, "Content-Encoding": "gzip"})
         return FileResponse(PLOTLY_JS, media_type="text/javascript", headers=headers)
 
-    @app.get("/", include_in_schema=False)
-    def index():
-        return FileResponse(STATIC_DIR / "index.html", media_type="text/html")
+    files = StaticCache(STATIC_DIR)  # the page's files from memory (server/static_files.py)
 
-    app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
+    @app.api_route("/", methods=["GET", "HEAD"], include_in_schema=False)
+    async def index(request: Request):
+        return files.response(request, "index.html")
+
+    @app.api_route("/static/{path:path}", methods=["GET", "HEAD"], include_in_schema=False, name="static")
+    async def static(path: str, request: Request):
+        found = files.response(request, path)
+        if found is None:
+            return JSONResponse(error_body("not_found", f"There is no file static/{path}."), status_code=404)
+        return found
     app.add_middleware(Compression)  # outermost: the guard's headers and refusals are compressed too
     install_openapi(app)  # every route's error answers, with the real error shape
 

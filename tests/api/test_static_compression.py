@@ -104,3 +104,53 @@ def test_the_live_channel_is_never_gzipped(content_type):
     assert b"content-encoding" not in dict(start["headers"])
     assert len(sent) == 3 and seen["first"]
     assert sent[1]["body"].startswith(b"event: hello")  # the first event goes out as it was sent, not held back
+
+
+def test_the_pages_files_have_an_etag_and_a_repeat_gets_304(client):
+    r = client.get("/static/js/main.js", headers={"Accept-Encoding": "identity"})
+    assert r.status_code == 200 and r.content == (STATIC_DIR / "js" / "main.js").read_bytes()
+    assert r.headers["content-type"].startswith("text/javascript") or "javascript" in r.headers["content-type"]
+    assert r.headers["cache-control"] == "no-cache"  # revalidated each time: an edited file is seen at once
+    again = client.get("/static/js/main.js", headers={"If-None-Match": r.headers["etag"]})
+    assert again.status_code == 304 and again.content == b""
+    head = client.head("/static/css/app.css", headers={"Accept-Encoding": "identity"})
+    size = (STATIC_DIR / "css" / "app.css").stat().st_size
+    assert head.status_code == 200 and int(head.headers["content-length"]) == size
+    page = client.get("/")
+    assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
+    assert "Content-Security-Policy" in page.headers
+
+
+@pytest.mark.parametrize("path", ["/static/nothing.js", "/static/../server/app.py", "/static/%2e%2e/server/app.py",
+                                  "/static/js", "/static/..%2fpyproject.toml"])
+def test_a_missing_or_outside_file_is_404_with_its_name(client, path):
+    r = client.get(path)
+    assert r.status_code == 404
+    assert r.json()["error"]["code"] == "not_found"
+    assert "import" not in r.text  # no file from outside static/ is ever sent
+
+
+def test_a_file_changed_on_disk_is_read_again(tmp_path):
+    """StaticCache keeps a file in memory and notices an edit (its size or modification time) on the next request."""
+    import os
+
+    from starlette.requests import Request
+
+    from server.static_files import StaticCache
+
+    (tmp_path / "a.js").write_text("export const a = 1;\n" * 100)
+    cache = StaticCache(tmp_path)
+
+    def get(name, **headers):
+        scope = {"type": "http", "method": "GET", "path": f"/static/{name}", "query_string": b"",
+                 "headers": [(k.lower().replace("_", "-").encode(), v.encode()) for k, v in headers.items()]}
+        return cache.response(Request(scope), name)
+
+    first = get("a.js", accept_encoding="gzip")
+    assert first.headers["content-encoding"] == "gzip"
+    assert gzip.decompress(first.body) == (tmp_path / "a.js").read_bytes()
+    (tmp_path / "a.js").write_text("export const a = 2;\n" * 100)  # same size: the time tells
+    os.utime(tmp_path / "a.js", ns=(1, 2_000_000_000))
+    second = get("a.js")
+    assert second.body == (tmp_path / "a.js").read_bytes() and second.headers["etag"] != first.headers["etag"]
+    assert get("../a.js") is None and get("b.js") is None
