@@ -54,6 +54,9 @@ if TYPE_CHECKING:
 
 log = logging.getLogger("scalewright")
 
+# How long the background threshold draw of the likely next drop waits after an answer: the answer is written
+# and sent, and the page draws it, without this work on the second core (a 250-item draw is seconds of BLAS).
+PREFETCH_DELAY = 0.3
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
 _DESC_BLOCK = 8  # items per block of the pool's descriptives (a 1,000,000-row file: 64 MB per block)
 _SAMPLE = 16  # long containers are measured on a sample of their items and scaled (answers: rows of one shape)
@@ -189,6 +192,8 @@ class Engine:
         # parallel-analysis thresholds of the next likely drop, drawn after each answer (_prefetch_next)
         self._prefetch = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="pa-prefetch")
         self._prefetch_job: concurrent.futures.Future | None = None
+        self._prefetch_ticket = 0
+        self._prefetch_stale = threading.Event()  # set: the waiting job is outdated, wake it at once
 
     # ------------------------------------------------------------------ datasets
     def dataset(self, dataset_id: str) -> ParsedDataset:
@@ -423,7 +428,9 @@ class Engine:
         """Draw the parallel-analysis thresholds of the likely next drop (one item fewer) in the background.
 
         They depend only on (n, k, iterations, variant, seed), never on the data. One job at a time on
-        one worker thread; a job not yet started when a newer one arrives is cancelled (stale).
+        one worker thread; a job not yet started when a newer one arrives is cancelled (stale). A job first
+        waits ``PREFETCH_DELAY`` (and gives up if a newer one arrived meanwhile): the answer is written, sent and
+        drawn by the page before this work takes the second core.
         """
         if answer.factors is None or answer.factors.retention is None or s.correlation == "polychoric":
             return
@@ -436,7 +443,22 @@ class Engine:
         with self._lock:
             if self._prefetch_job is not None:
                 self._prefetch_job.cancel()  # a no-op once it runs
-            self._prefetch_job = self._prefetch.submit(random_reference, n, k, **args)
+            self._prefetch_ticket += 1
+            ticket = self._prefetch_ticket
+
+            def job() -> None:
+                with self._lock:
+                    if ticket != self._prefetch_ticket:  # a newer drop asked for other thresholds
+                        return
+                    self._prefetch_stale.clear()
+                self._prefetch_stale.wait(PREFETCH_DELAY)
+                with self._lock:
+                    if ticket != self._prefetch_ticket:
+                        return
+                random_reference(n, k, **args)
+
+            self._prefetch_stale.set()  # an older job still waiting gives up now
+            self._prefetch_job = self._prefetch.submit(job)
 
     def preparing(self) -> bool:
         """Whether the background threshold job of the likely next drop is queued or running."""

@@ -64,3 +64,25 @@ def test_preparing_while_the_next_thresholds_are_drawn(tmp_path, holzinger, monk
     release.set()
     engine.prefetch_idle(60)
     assert not engine.preparing()
+
+
+def test_the_draw_waits_after_an_answer_and_a_newer_drop_supersedes_a_waiting_one(tmp_path, holzinger, monkeypatch):
+    """The next drop's thresholds are drawn PREFETCH_DELAY after the answer (the page draws it first); a job still
+    waiting when another answer arrives gives up, and only the newest item count is drawn."""
+    import time
+
+    from server import engine as engine_module
+
+    engine, ds, _ = _engine(tmp_path, holzinger)
+    drawn: list[tuple[int, float]] = []
+    monkeypatch.setattr(engine_module, "PREFETCH_DELAY", 2.0)
+    monkeypatch.setattr("server.engine.random_reference", lambda n, k, **kw: drawn.append((k, time.monotonic())))
+    monkeypatch.setattr("server.engine.has_random_reference", lambda *a, **kw: False)
+    names = engine.pool_items(ds)
+    answered = time.monotonic()
+    engine.analyse(ds, {"seed": 5})
+    engine.analyse(ds, {"seed": 5, "items": names[:-1]})  # within the first job's wait
+    assert engine.preparing()
+    engine.prefetch_idle(30)
+    assert [k for k, _ in drawn] == [len(names) - 2]  # the first job (k - 1) gave up
+    assert drawn[0][1] - answered >= 2.0
