@@ -57,6 +57,7 @@ log = logging.getLogger("scalewright")
 # How long the background threshold draw of the likely next drop waits after an answer: the answer is written
 # and sent, and the page draws it, without this work on the second core (a 250-item draw is seconds of BLAS).
 PREFETCH_DELAY = 0.3
+_UNSIZED_MAX = 16  # answers cached without a size at most (beyond: sized at once, before the next job)
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
 _DESC_BLOCK = 8  # items per block of the pool's descriptives (a 1,000,000-row file: 64 MB per block)
 _SAMPLE = 16  # long containers are measured on a sample of their items and scaled (answers: rows of one shape)
@@ -114,34 +115,64 @@ def background_cost(n: int, k: int) -> float:
 class _LRU(OrderedDict):
     """Least-recently-used cache bounded by its number of entries and/or by the bytes they hold.
 
-    Each entry's size is estimated once, when it is stored (:func:`footprint`). The oldest entries are
-    dropped until both bounds hold again, except the newest one: an entry larger than the whole byte
-    budget is still kept, as the only entry, until the next one arrives.
+    Each entry's size is estimated once, when it is stored (:func:`footprint`), or, in a ``lazy`` cache,
+    later by :meth:`sized` (the engine sizes its answers after they are sent: about 6 ms of a 60-item drop);
+    until then the entry counts 0 bytes and is listed by :meth:`unsized`. The oldest entries are dropped until
+    both bounds hold again, except the newest one: an entry larger than the whole byte budget is still kept,
+    as the only entry, until the next one arrives.
     """
 
-    def __init__(self, size: int | None, max_bytes: int | None = None):
+    def __init__(self, size: int | None, max_bytes: int | None = None, *, lazy: bool = False):
         super().__init__()
         self.size = size
         self.max_bytes = max_bytes
         self.nbytes = 0
         self._sizes: dict = {}
+        self.lazy = lazy
+        self._unsized: dict = {}  # key -> value whose size is still to be estimated (lazy caches)
 
     def __setitem__(self, key, value):
         if key in self:
             self.nbytes -= self._sizes.pop(key, 0)
+            self._unsized.pop(key, None)
         super().__setitem__(key, value)
-        n = footprint(value) if self.max_bytes is not None else 0
+        n = 0
+        if self.max_bytes is not None:
+            if self.lazy:
+                self._unsized[key] = value
+            else:
+                n = footprint(value)
         self._sizes[key] = n
         self.nbytes += n
 
     def __delitem__(self, key):
         super().__delitem__(key)
         self.nbytes -= self._sizes.pop(key, 0)
+        self._unsized.pop(key, None)
 
     def clear(self):
         super().clear()
         self._sizes.clear()
+        self._unsized.clear()
         self.nbytes = 0
+
+    def unsized(self) -> list[tuple[Hashable, Any]]:
+        """The entries stored without a size yet (a lazy cache), as (key, value)."""
+        return list(self._unsized.items())
+
+    def sized(self, key, value, n: int) -> None:
+        """Count ``n`` bytes for ``key`` if it still holds ``value`` unsized, then drop the oldest entries."""
+        if key in self._unsized and self._unsized[key] is value:
+            del self._unsized[key]
+            self._sizes[key] = n
+            self.nbytes += n
+        self.trim()
+
+    def trim(self) -> None:
+        """Drop the oldest entries until both bounds hold (the newest one always stays)."""
+        while len(self) > 1 and ((self.size is not None and len(self) > self.size)
+                                 or (self.max_bytes is not None and self.nbytes > self.max_bytes)):
+            del self[next(iter(self))]
 
     def get_or(self, key, make):
         if key in self:
@@ -149,9 +180,7 @@ class _LRU(OrderedDict):
             return self[key]
         value = make()
         self[key] = value
-        while len(self) > 1 and ((self.size is not None and len(self) > self.size)
-                                 or (self.max_bytes is not None and self.nbytes > self.max_bytes)):
-            del self[next(iter(self))]
+        self.trim()
         return value
 
 
@@ -184,7 +213,7 @@ class Engine:
         self._datasets: _LRU = _LRU(None, cache_bytes)
         self._pools: _LRU = _LRU(32, cache_bytes // 4)
         self._descriptives: _LRU = _LRU(64, cache_bytes // 16)
-        self._answers: _LRU = _LRU(128, cache_bytes // 4)
+        self._answers: _LRU = _LRU(128, cache_bytes // 4, lazy=True)  # sized after the answer is sent (settle)
         self._references: _LRU = _LRU(64, cache_bytes // 16)
         self._blocks: _LRU = _LRU(256, cache_bytes // 16)  # subscale blocks by content (construct_blocks)
         self._key_locks: dict = {}
@@ -425,21 +454,26 @@ class Engine:
         return answer
 
     def _prefetch_next(self, s: AnalysisSettings, answer: AnalysisAnswer) -> None:
-        """Draw the parallel-analysis thresholds of the likely next drop (one item fewer) in the background.
+        """The work after an answer, in the background: the answers' cache sizes (:meth:`settle`) and the
+        parallel-analysis thresholds of the likely next drop (one item fewer).
 
-        They depend only on (n, k, iterations, variant, seed), never on the data. One job at a time on
-        one worker thread; a job not yet started when a newer one arrives is cancelled (stale). A job first
-        waits ``PREFETCH_DELAY`` (and gives up if a newer one arrived meanwhile): the answer is written, sent and
-        drawn by the page before this work takes the second core.
+        The thresholds depend only on (n, k, iterations, variant, seed), never on the data. One job at a time
+        on one worker thread; a job not yet started when a newer one arrives is cancelled (stale). A job first
+        waits ``PREFETCH_DELAY`` (and gives up if a newer one arrived meanwhile): the answer is written, sent
+        and drawn by the page before this work takes the second core.
         """
-        if answer.factors is None or answer.factors.retention is None or s.correlation == "polychoric":
+        draw = None
+        if answer.factors is not None and answer.factors.retention is not None and s.correlation != "polychoric":
+            n, k = int(answer.reliability.min_pairwise_n), len(s.items) - 1
+            args = {"iterations": s.pa_iterations, "variant": s.pa_variant, "seed": s.seed}
+            if k >= 3 and n - 1 > k and not has_random_reference(n, k, **args):
+                draw = (n, k, args)
+        with self._lock:
+            backlog = len(self._answers.unsized())
+        if draw is None and not backlog:
             return
-        n, k = int(answer.reliability.min_pairwise_n), len(s.items) - 1
-        if k < 3 or n - 1 <= k:
-            return
-        args = {"iterations": s.pa_iterations, "variant": s.pa_variant, "seed": s.seed}
-        if has_random_reference(n, k, **args):
-            return
+        if backlog > _UNSIZED_MAX:  # nobody waited for the background (back-to-back calls): size them now
+            self.settle()
         with self._lock:
             if self._prefetch_job is not None:
                 self._prefetch_job.cancel()  # a no-op once it runs
@@ -448,26 +482,40 @@ class Engine:
 
             def job() -> None:
                 with self._lock:
-                    if ticket != self._prefetch_ticket:  # a newer drop asked for other thresholds
+                    if ticket != self._prefetch_ticket:  # a newer answer has its own job
                         return
                     self._prefetch_stale.clear()
                 self._prefetch_stale.wait(PREFETCH_DELAY)
                 with self._lock:
                     if ticket != self._prefetch_ticket:
                         return
-                random_reference(n, k, **args)
+                self.settle()
+                if draw is not None:
+                    random_reference(draw[0], draw[1], **draw[2])
 
             self._prefetch_stale.set()  # an older job still waiting gives up now
             self._prefetch_job = self._prefetch.submit(job)
 
+    def settle(self) -> None:
+        """Estimate the sizes of the answers cached since the last call and keep the answers' byte budget."""
+        with self._lock:
+            pending = self._answers.unsized()
+        if not pending:
+            return
+        sizes = [(key, value, footprint(value)) for key, value in pending]  # outside the lock: ~6 ms an answer
+        with self._lock:
+            for key, value, n in sizes:
+                self._answers.sized(key, value, n)
+
     def preparing(self) -> bool:
-        """Whether the background threshold job of the likely next drop is queued or running."""
+        """Whether the background job after the last answer (its cache size, the likely next drop's
+        parallel-analysis thresholds) is waiting, queued or running."""
         with self._lock:
             job = self._prefetch_job
         return job is not None and not job.done()
 
     def prefetch_idle(self, timeout: float | None = None) -> None:
-        """Wait until the background threshold job, if any, has finished (for tests and the bench)."""
+        """Wait until the background job after the last answer, if any, has finished (tests and the bench)."""
         with self._lock:
             job = self._prefetch_job
         if job is not None:
@@ -477,8 +525,13 @@ class Engine:
                     ) -> AnalysisAnswer:
         """The analysis without its factor sections (reliability, items, constructs, pruning path)."""
         s = self._settings(dataset_id, settings)
-        return self._locked((dataset_id, "rel", s.key()), self._answers,
-                            lambda: run(self.inputs(dataset_id, s, with_factors=False), s, with_factors=False))
+        answer = self._locked((dataset_id, "rel", s.key()), self._answers,
+                              lambda: run(self.inputs(dataset_id, s, with_factors=False), s, with_factors=False))
+        with self._lock:
+            backlog = len(self._answers.unsized())
+        if backlog > _UNSIZED_MAX:  # no background job follows this one: keep the unsized answers few
+            self.settle()
+        return answer
 
     # ------------------------------------------------------------------ what is cached (for tests and logs)
     def has_answer(self, dataset_id: str, settings: AnalysisSettings | Mapping[str, Any] | None = None) -> bool:
@@ -496,6 +549,7 @@ class Engine:
         """Entries, estimated bytes and byte budget of each cache."""
         caches = {"datasets": self._datasets, "pools": self._pools, "descriptives": self._descriptives,
                   "answers": self._answers, "references": self._references, "blocks": self._blocks}
+        self.settle()
         with self._lock:
             return {name: {"entries": len(c), "bytes": c.nbytes, "max_bytes": c.max_bytes}
                     for name, c in caches.items()}

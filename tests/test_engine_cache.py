@@ -74,6 +74,43 @@ def test_delete_and_clear_keep_the_byte_count():
     assert cache.nbytes == 0 and not cache
 
 
+def test_a_lazy_cache_counts_an_entry_once_it_is_sized_and_then_keeps_the_budget():
+    budget = 3 * MB + 64 * 1024
+    cache = _LRU(None, budget, lazy=True)
+    for key in "abcd":
+        cache.get_or(key, lambda: block(1))
+    assert cache.nbytes == 0 and list(cache) == ["a", "b", "c", "d"]  # nothing sized yet: all kept for now
+    pending = cache.unsized()
+    assert [k for k, _ in pending] == ["a", "b", "c", "d"]
+    stale = block(0.5)
+    cache["d"] = stale  # replaced before it was sized: the new value waits, the old one is never counted
+    for key, value in pending:
+        cache.sized(key, value, footprint(value))
+    assert [k for k, _ in cache.unsized()] == ["d"]
+    cache.sized("d", cache["d"], footprint(cache["d"]))
+    assert cache.nbytes == sizes(cache) <= budget and list(cache) == ["b", "c", "d"]  # the oldest dropped
+    del cache["b"]
+    cache.clear()
+    assert cache.nbytes == 0 and not cache.unsized()
+
+
+def test_the_engine_sizes_its_answers_after_the_answer_and_keeps_their_budget(tmp_path):
+    store = SQLiteStore(tmp_path / "data")
+    ds = store.add_dataset(name="d", raw=csv_bytes(5, rows=400), filename="d.csv", options={"id_column": "pid"})["id"]
+    engine = Engine(store)
+    names = engine.pool_items(ds)
+    first = engine.analyse(ds, {"items": names[:-1]})
+    engine.prefetch_idle(60)  # the background job after the answer sized it
+    usage = engine.cache_usage()["answers"]
+    assert usage["entries"] == 1 and usage["bytes"] == footprint(first)
+    small = Engine(store, cache_bytes=4 * usage["bytes"])  # an answers budget of about one answer
+    for j in range(1, 5):
+        small.analyse(ds, {"items": names[:-j]})
+        small.prefetch_idle(60)
+        got = small.cache_usage()["answers"]
+        assert got["bytes"] <= got["max_bytes"] or got["entries"] == 1, j
+
+
 def test_count_bound_still_applies_without_a_byte_budget():
     cache = _LRU(2)
     for key in "abc":
