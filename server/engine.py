@@ -213,9 +213,10 @@ class Engine:
         self._datasets: _LRU = _LRU(None, cache_bytes)
         self._pools: _LRU = _LRU(32, cache_bytes // 4)
         self._descriptives: _LRU = _LRU(64, cache_bytes // 16)
-        self._answers: _LRU = _LRU(128, cache_bytes // 4, lazy=True)  # sized after the answer is sent (settle)
-        self._references: _LRU = _LRU(64, cache_bytes // 16)
-        self._blocks: _LRU = _LRU(256, cache_bytes // 16)  # subscale blocks by content (construct_blocks)
+        self._answers: _LRU = _LRU(128, cache_bytes // 4, lazy=True)
+        self._references: _LRU = _LRU(64, cache_bytes // 16, lazy=True)
+        self._blocks: _LRU = _LRU(256, cache_bytes // 16, lazy=True)  # subscale blocks by content (construct_blocks)
+        self._lazy = (self._answers, self._blocks, self._references)  # sized after the answer (settle)
         self._key_locks: dict = {}
         self._versions: dict[str, str] = {}  # dataset id -> the store's version the cached entries were made from
         # parallel-analysis thresholds of the next likely drop, drawn after each answer (_prefetch_next)
@@ -469,7 +470,7 @@ class Engine:
             if k >= 3 and n - 1 > k and not has_random_reference(n, k, **args):
                 draw = (n, k, args)
         with self._lock:
-            backlog = len(self._answers.unsized())
+            backlog = max(len(c.unsized()) for c in self._lazy)
         if draw is None and not backlog:
             return
         if backlog > _UNSIZED_MAX:  # nobody waited for the background (back-to-back calls): size them now
@@ -497,15 +498,17 @@ class Engine:
             self._prefetch_job = self._prefetch.submit(job)
 
     def settle(self) -> None:
-        """Estimate the sizes of the answers cached since the last call and keep the answers' byte budget."""
+        """Estimate the sizes of the entries cached since the last call (answers, subscale blocks, reference
+        solutions: the lazy caches) and keep each cache's byte budget."""
         with self._lock:
-            pending = self._answers.unsized()
-        if not pending:
-            return
-        sizes = [(key, value, footprint(value)) for key, value in pending]  # outside the lock: ~6 ms an answer
-        with self._lock:
-            for key, value, n in sizes:
-                self._answers.sized(key, value, n)
+            pending = [(cache, cache.unsized()) for cache in self._lazy]
+        for cache, entries in pending:
+            if not entries:
+                continue
+            sizes = [(key, value, footprint(value)) for key, value in entries]  # outside the lock: ~6 ms an answer
+            with self._lock:
+                for key, value, n in sizes:
+                    cache.sized(key, value, n)
 
     def preparing(self) -> bool:
         """Whether the background job after the last answer (its cache size, the likely next drop's
@@ -528,8 +531,8 @@ class Engine:
         answer = self._locked((dataset_id, "rel", s.key()), self._answers,
                               lambda: run(self.inputs(dataset_id, s, with_factors=False), s, with_factors=False))
         with self._lock:
-            backlog = len(self._answers.unsized())
-        if backlog > _UNSIZED_MAX:  # no background job follows this one: keep the unsized answers few
+            backlog = max(len(c.unsized()) for c in self._lazy)
+        if backlog > _UNSIZED_MAX:  # no background job follows this one: keep the unsized entries few
             self.settle()
         return answer
 
