@@ -3,7 +3,7 @@
 // conventional cut-offs (Hu & Bentler 1999), the confirmed loadings, and what does not fit.
 import { api } from "../api.js";
 import { analysisRequest } from "../state.js";
-import { clear, fmt, h, note, section, select, table, warningList } from "./dom.js";
+import { clear, current, fmt, h, note, section, select, table, warningList } from "./dom.js";
 
 const STRUCTURES = [["codebook", "Codebook constructs"], ["exploration", "Primary factors of the exploration half"]];
 const SPLITS = [["0.5", "half and half"], ["0.3", "30 % explore, 70 % confirm"], ["0.7", "70 % explore, 30 % confirm"],
@@ -95,7 +95,10 @@ export function render(container, state) {
       c.answerFor = state.dataset;
       try { c.answer = await api.confirm(state.dataset, body); c.asked = body; } catch (e) { c.answer = { error: e.message }; }
       c.busy = false; run.disabled = false; run.textContent = "Confirm on held-out respondents";
-      clear(box); renderAnswer(box, state);
+      const now = current(run);
+      now.disabled = false; now.textContent = "Confirm on held-out respondents";
+      const shown = current(box);
+      clear(shown); renderAnswer(shown, state);
     } });
   container.append(section("Hold-out confirmation",
     h("p", { class: "muted", text: "Split the respondents at random (the analysis seed), explore on one part with the "

@@ -25,6 +25,12 @@ function append(el, children) {
   }
 }
 
+// The element now in the page in place of `el` (the same id), or `el`: a handler that awaited a request writes
+// into the view as it is now, even if it was drawn again meanwhile (after a refit, or the item list arriving).
+export function current(el) {
+  return el.isConnected || !el.id ? el : document.getElementById(el.id) || el;
+}
+
 export function clear(el) {
   purgeWithin(el);
   while (el.firstChild) el.removeChild(el.firstChild);

@@ -152,8 +152,12 @@ function coef(s, key) {
 export async function render(container, state) {
   // The list arrives later: a user who has moved to another view by then keeps it (the container is shared).
   if (state.view !== "snapshots") return;
-  clear(container);
-  container.append(section("Snapshots", note("Loading…")));
+  // drawn again (a refit, the item list arriving): the list shown stays until the new one is drawn, so nothing
+  // under the pointer disappears for the length of a request
+  if (!container.querySelector(":scope > section #open-snapshot")) {
+    clear(container);
+    container.append(section("Snapshots", note("Loading…")));
+  }
   let failed = null;
   try { await load(state); } catch (e) { failed = e; }
   if (state.view !== "snapshots") return;

@@ -2,7 +2,7 @@
 import { api } from "../api.js";
 import { blandAltman, retestScatter } from "../charts.js";
 import { allItems, keptItems } from "../state.js";
-import { clear, fmt, h, note, section, select, table, warningList } from "./dom.js";
+import { clear, current, fmt, h, note, section, select, table, warningList } from "./dom.js";
 
 // The last results live in state.stability (the save-snapshot dialog offers them through lastStability()).
 const retestSummary = (r) => `${r.recommended || "ICC"} ${num(val(r.icc?.[r.recommended]))} with ${r.second?.name || "the second wave"}`;
@@ -208,20 +208,22 @@ export function render(container, state) {
       Object.assign(st, { retest: answer, retestAsked: { ...body, first: body.first || answer.first?.id }, retestSummary: retestSummary(answer) });
     } catch (e) { st.retest = { error: e.message }; }
     run.disabled = false;
-    clear(retestBox); renderRetest(retestBox, state);
+    current(run).disabled = false;
+    const box = current(retestBox);
+    clear(box); renderRetest(box, state);
   } });
   const textArea = h("textarea", { id: "ratings-text", rows: 8, cols: 50, placeholder: "One row per unit, one column per rater (comma or tab separated); a header row and a first column of unit labels are recognised; empty = missing.",
     oninput: (e) => { pick.text = e.target.value; } });
   textArea.value = pick.text;
   const fileIn = h("input", { type: "file", accept: ".csv,.tsv,.txt", id: "ratings-file", onchange: async (e) => {
     const f = e.target.files[0]; if (!f) return;
-    pick.text = await f.text(); textArea.value = pick.text; pick.file = f; pick.fileText = pick.text;
+    pick.text = await f.text(); current(textArea).value = pick.text; pick.file = f; pick.fileText = pick.text;
   } });
   const agreeBox = h("div", { class: "result", id: "agreement-result" });
   const example = h("button", { id: "ratings-example", text: "Use the invented example (3 coordinators, 40 logs)", onclick: async () => {
     try {
-      pick.text = await api.demoRatings(); textArea.value = pick.text; pick.file = null; pick.level = "ordinal";
-    } catch (e) { st.agreement = { error: e.message }; clear(agreeBox); renderAgreement(agreeBox, state); }
+      pick.text = await api.demoRatings(); current(textArea).value = pick.text; pick.file = null; pick.level = "ordinal";
+    } catch (e) { st.agreement = { error: e.message }; const box = current(agreeBox); clear(box); renderAgreement(box, state); }
   } });
   const runAgree = h("button", { class: "primary", id: "run-agreement", text: "Compute agreement", onclick: async () => {
     runAgree.disabled = true;
@@ -239,7 +241,9 @@ export function render(container, state) {
       st.agreementSummary = agreementSummary(st.agreement);
     } catch (e) { st.agreement = { error: e.message }; }
     runAgree.disabled = false;
-    clear(agreeBox); renderAgreement(agreeBox, state);
+    current(runAgree).disabled = false;
+    const box = current(agreeBox);
+    clear(box); renderAgreement(box, state);
   } });
   container.append(
     section("Test-retest or parallel forms",

@@ -68,11 +68,14 @@ export function render(container, state) {
   const submit = h("button", { class: "primary", type: "submit", id: "upload-button", text: "Read the file" });
   const form = h("form", { class: "upload", onsubmit: async (e) => {
     e.preventDefault();
-    const f = responsesInput.files[0];
+    // A file chosen while the view was being drawn again (the dataset list arrives after the first drawing) went
+    // to the input that was replaced; its change was still remembered in `kept`.
+    const f = responsesInput.files[0] || kept.responses;
     if (!f) { status.textContent = "Choose a response file first."; return; }
     const fd = new FormData();
     fd.append("file", f, f.name);
-    if (codebookInput.files[0]) fd.append("codebook", codebookInput.files[0], codebookInput.files[0].name);
+    const cb = codebookInput.files[0] || kept.codebook;
+    if (cb) fd.append("codebook", cb, cb.name);
     if (nameInput.value.trim()) fd.append("name", nameInput.value.trim());
     if (missing.value.trim()) fd.append("missing_codes", missing.value.trim());
     if (idColumn.value.trim()) fd.append("id_column", idColumn.value.trim());
