@@ -57,7 +57,7 @@ log = logging.getLogger("scalewright")
 # How long the background threshold draw of the likely next drop waits after an answer: the answer is written
 # and sent, and the page draws it, without this work on the second core (a 250-item draw is seconds of BLAS).
 PREFETCH_DELAY = 0.3
-_UNSIZED_MAX = 16  # answers cached without a size at most (beyond: sized at once, before the next job)
+_UNSIZED_MAX = 16  # entries of a lazy cache waiting for their size at most (beyond: sized at once)
 DEFAULT_CACHE_BYTES = 2 * 1024 ** 3  # Settings.cache_mb's default, for callers without settings
 _DESC_BLOCK = 8  # items per block of the pool's descriptives (a 1,000,000-row file: 64 MB per block)
 _SAMPLE = 16  # long containers are measured on a sample of their items and scaled (answers: rows of one shape)
@@ -155,6 +155,10 @@ class _LRU(OrderedDict):
         self._sizes.clear()
         self._unsized.clear()
         self.nbytes = 0
+
+    def n_unsized(self) -> int:
+        """How many entries wait for their size (a lazy cache)."""
+        return len(self._unsized)
 
     def unsized(self) -> list[tuple[Hashable, Any]]:
         """The entries stored without a size yet (a lazy cache), as (key, value)."""
@@ -469,12 +473,8 @@ class Engine:
             args = {"iterations": s.pa_iterations, "variant": s.pa_variant, "seed": s.seed}
             if k >= 3 and n - 1 > k and not has_random_reference(n, k, **args):
                 draw = (n, k, args)
-        with self._lock:
-            backlog = max(len(c.unsized()) for c in self._lazy)
-        if draw is None and not backlog:
+        if draw is None and not self._settle_if_backlogged():
             return
-        if backlog > _UNSIZED_MAX:  # nobody waited for the background (back-to-back calls): size them now
-            self.settle()
         with self._lock:
             if self._prefetch_job is not None:
                 self._prefetch_job.cancel()  # a no-op once it runs
@@ -496,6 +496,15 @@ class Engine:
 
             self._prefetch_stale.set()  # an older job still waiting gives up now
             self._prefetch_job = self._prefetch.submit(job)
+
+    def _settle_if_backlogged(self) -> int:
+        """Size the waiting entries now if more than ``_UNSIZED_MAX`` wait (back-to-back calls that never leave
+        time for the background job); the number that waited."""
+        with self._lock:
+            backlog = max(c.n_unsized() for c in self._lazy)
+        if backlog > _UNSIZED_MAX:
+            self.settle()
+        return backlog
 
     def settle(self) -> None:
         """Estimate the sizes of the entries cached since the last call (answers, subscale blocks, reference
@@ -530,10 +539,7 @@ class Engine:
         s = self._settings(dataset_id, settings)
         answer = self._locked((dataset_id, "rel", s.key()), self._answers,
                               lambda: run(self.inputs(dataset_id, s, with_factors=False), s, with_factors=False))
-        with self._lock:
-            backlog = max(len(c.unsized()) for c in self._lazy)
-        if backlog > _UNSIZED_MAX:  # no background job follows this one: keep the unsized entries few
-            self.settle()
+        self._settle_if_backlogged()  # no background job follows this one
         return answer
 
     # ------------------------------------------------------------------ what is cached (for tests and logs)
